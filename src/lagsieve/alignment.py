@@ -1,0 +1,95 @@
+"""Alignment: one annual axis for all series, transforms, and lagged pairs.
+
+A driver "leads by k years" when the response in year t is paired with the driver in
+year t - k. Nothing is filled here: a year missing in either series drops that pair.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+
+def apply_transform(values: np.ndarray, transform: str) -> np.ndarray:
+    """Apply a configured transform: 'none', 'log' (natural log) or 'log1p'."""
+    v = np.asarray(values, float)
+    if transform in (None, "none"):
+        return v
+    with np.errstate(divide="ignore", invalid="ignore"):
+        if transform == "log":
+            return np.log(v)
+        if transform == "log1p":
+            return np.log1p(v)
+    raise ValueError(f"unknown transform {transform!r}")
+
+
+def annual_table(annual: pd.DataFrame, transforms: dict[str, str]) -> pd.DataFrame:
+    """Wide table indexed by every year from the first to the last observed, one column per
+    series, transformed. ``annual`` is tidy: columns series, year, value."""
+    wide = annual.pivot(index="year", columns="series", values="value")
+    years = np.arange(int(wide.index.min()), int(wide.index.max()) + 1)
+    wide = wide.reindex(years)
+    wide.index.name = "year"
+    for col in wide.columns:
+        wide[col] = apply_transform(wide[col].to_numpy(), transforms.get(col, "none"))
+    return wide
+
+
+def lagged(table: pd.DataFrame, series: str, lag: int) -> np.ndarray:
+    """Values of ``series`` shifted so that row t holds the value of year t - lag."""
+    return table[series].shift(lag).to_numpy(dtype=float)
+
+
+@dataclass(frozen=True)
+class LaggedPair:
+    """The complete (response, driver-at-lag) pairs of one screen row."""
+
+    years: np.ndarray
+    y: np.ndarray
+    x: np.ndarray
+    lag: int
+
+    @property
+    def n(self) -> int:
+        return len(self.years)
+
+
+def lagged_pair(table: pd.DataFrame, response: str, driver: str, lag: int) -> LaggedPair:
+    """Pairs (y_t, x_{t-lag}) over the years where both are present."""
+    y = table[response].to_numpy(dtype=float)
+    x = lagged(table, driver, lag)
+    ok = ~(np.isnan(y) | np.isnan(x))
+    return LaggedPair(years=table.index.to_numpy()[ok], y=y[ok], x=x[ok], lag=lag)
+
+
+@dataclass(frozen=True)
+class ForecastFrame:
+    """Rows usable for out-of-sample evaluation of one hypothesis: the response, its value
+    one year earlier and the driver at every candidate lag are all present."""
+
+    years: np.ndarray
+    y: np.ndarray
+    ylag: np.ndarray
+    rows: np.ndarray  # positions of these years on the table's axis
+    lags: np.ndarray
+
+
+def forecast_frame(table: pd.DataFrame, response: str, driver: str, lags: list[int]) -> ForecastFrame:
+    y = table[response].to_numpy(dtype=float)
+    ylag = table[response].shift(1).to_numpy(dtype=float)
+    ok = ~(np.isnan(y) | np.isnan(ylag))
+    for k in lags:
+        ok &= ~np.isnan(lagged(table, driver, k))
+    rows = np.flatnonzero(ok)
+    return ForecastFrame(years=table.index.to_numpy()[rows], y=y[rows], ylag=ylag[rows],
+                         rows=rows, lags=np.asarray(lags))
+
+
+def shift_batch(values: np.ndarray, lag: int) -> np.ndarray:
+    """Shift a batch (S, n_years) of driver series by ``lag`` years along the axis."""
+    out = np.full_like(values, np.nan)
+    if lag == 0:
+        return values.copy()
+    out[:, lag:] = values[:, :-lag]
+    return out

@@ -1,0 +1,181 @@
+"""Study configuration: safe YAML loading, JSON-Schema validation, defaults and paths.
+
+Relative paths inside a config resolve against the config file's own folder, so a study
+runs the same from any working directory.
+"""
+from __future__ import annotations
+
+import copy
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import jsonschema
+import yaml
+
+from .errors import InputErrors, InputProblem
+
+REPO_ROOT = Path(__file__).resolve().parents[2]
+SCHEMA_PATH = REPO_ROOT / "workflow" / "schemas" / "config.schema.yaml"
+
+SCREEN_DEFAULTS: dict[str, Any] = {
+    "lags": [0, 1, 2, 3],
+    "models": ["linear"],
+    "min_overlap": 15,
+    "seed": 1,
+    "surrogates": 999,
+    "surrogate_method": "phase",
+    "surrogate_keep_trend": True,
+    "fdr": 0.10,
+    "alpha": 0.05,
+    "weights": "none",
+    "gam_trend": False,
+    "validation": {},
+}
+REPORT_DEFAULTS: dict[str, Any] = {"top": 3, "pdf": False}
+
+SAFE_ID = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]*(:[A-Za-z0-9][A-Za-z0-9_.-]*)?$")
+
+
+def slug(series_id: str) -> str:
+    """A file-name-safe form of a series id (':' of grouped series becomes '--')."""
+    return series_id.replace(":", "--")
+
+
+@dataclass
+class Study:
+    """A validated study: the raw config plus resolved paths and filled defaults."""
+
+    path: Path
+    raw: dict
+    study: str
+    base_dir: Path
+    inputs: list[dict]
+    responses: list[dict]
+    drivers: list[dict]
+    screen: dict
+    report: dict
+    ledger_path: str | None = None
+    extra: dict = field(default_factory=dict)
+
+    @property
+    def response_ids(self) -> list[str]:
+        return [r["id"] for r in self.responses]
+
+    @property
+    def driver_ids(self) -> list[str]:
+        return [d["id"] for d in self.drivers]
+
+    def series_options(self) -> dict[str, dict]:
+        """Per-series options (transform, aggregate, fill, max_gap, unit) by id."""
+        out = {}
+        for s in self.responses + self.drivers:
+            out[s["id"]] = {k: s[k] for k in ("transform", "aggregate", "fill", "max_gap", "unit") if k in s}
+        return out
+
+    def drivers_for(self, response_id: str) -> list[dict]:
+        return [d for d in self.drivers if not d.get("responses") or response_id in d["responses"]]
+
+    def lags_for(self, driver: dict) -> list[int]:
+        return sorted(driver.get("lags") or self.screen["lags"])
+
+
+def _schema() -> dict:
+    with open(SCHEMA_PATH, encoding="utf-8") as fh:
+        return yaml.safe_load(fh)
+
+
+def _key_path(err: jsonschema.ValidationError) -> str:
+    parts = [str(p) for p in err.absolute_path]
+    return ".".join(parts) if parts else "(top level)"
+
+
+def _schema_problem(err: jsonschema.ValidationError, file: str) -> InputProblem:
+    key = _key_path(err)
+    v = err.validator
+    if v == "additionalProperties":
+        extra = sorted(set(err.instance) - set(err.schema.get("properties", {})))
+        return InputProblem(
+            what=f"unknown key(s) {', '.join(map(repr, extra))}",
+            fix=f"remove or correct them; allowed here: {', '.join(sorted(err.schema.get('properties', {})))}",
+            file=file, key=key)
+    if v == "required":
+        return InputProblem(what=err.message, fix="add the key (see config/README.md)", file=file, key=key)
+    if v == "enum":
+        return InputProblem(
+            what=f"value {err.instance!r} is not allowed",
+            fix=f"use one of {', '.join(map(str, err.validator_value))}", file=file, key=key)
+    if v == "pattern":
+        return InputProblem(
+            what=f"value {err.instance!r} has characters that are not allowed",
+            fix="use letters, digits, '_', '.', '-' (and one ':' between a series and its group); study ids use lower case only",
+            file=file, key=key)
+    return InputProblem(what=err.message, fix="correct the value (see config/README.md)", file=file, key=key)
+
+
+def load_study(path: str | Path) -> Study:
+    """Load and validate a study config; raise :class:`InputErrors` listing every problem."""
+    path = Path(path)
+    shown = str(path)
+    if not path.is_file():
+        raise InputErrors([InputProblem(what="config file not found", fix="give the path to an existing study config (lagsieve init DIR writes one)", file=shown)])
+    try:
+        with open(path, encoding="utf-8-sig") as fh:
+            raw = yaml.safe_load(fh)
+    except yaml.YAMLError as exc:
+        mark = getattr(exc, "problem_mark", None)
+        row = mark.line + 1 if mark is not None else None
+        what = getattr(exc, "problem", None) or "not valid YAML"
+        raise InputErrors([InputProblem(what=f"YAML syntax error: {what}", fix="fix the indentation or quoting on that line", file=shown, row=row)]) from None
+    except UnicodeDecodeError:
+        raise InputErrors([InputProblem(what="config is not UTF-8 text", fix="save it as UTF-8", file=shown)]) from None
+    if not isinstance(raw, dict):
+        raise InputErrors([InputProblem(what="config is empty or not a mapping of keys", fix="start from the config that `lagsieve init` writes", file=shown)])
+    validator = jsonschema.Draft202012Validator(_schema())
+    errs = sorted(validator.iter_errors(raw), key=lambda e: list(map(str, e.absolute_path)))
+    problems = [_schema_problem(e, shown) for e in errs]
+    if problems:
+        raise InputErrors(problems)
+    return _build(path, raw)
+
+
+def _build(path: Path, raw: dict) -> Study:
+    shown = str(path)
+    problems: list[InputProblem] = []
+    base = path.resolve().parent
+    inputs = []
+    for i, spec in enumerate(raw["inputs"]):
+        spec = {"path": spec} if isinstance(spec, str) else dict(spec)
+        inputs.append(spec)
+    ids: dict[str, str] = {}
+    for role in ("responses", "drivers"):
+        for i, s in enumerate(raw[role]):
+            sid = s["id"]
+            if sid in ids:
+                problems.append(InputProblem(what=f"listed twice (in {ids[sid]} and {role})", fix="give each series one entry", file=shown, key=f"{role}.{i}.id", series=sid))
+            ids[sid] = role
+    slugs: dict[str, str] = {}
+    for sid in ids:
+        s = slug(sid)
+        if s in slugs:
+            problems.append(InputProblem(what=f"clashes with series '{slugs[s]}' once made a file name", fix="rename one of them", file=shown, series=sid))
+        slugs[s] = sid
+    screen = copy.deepcopy(SCREEN_DEFAULTS)
+    screen.update(copy.deepcopy(raw.get("screen", {})))
+    report = dict(REPORT_DEFAULTS, **raw.get("report", {}))
+    responses = [dict({"kind": "other", "transform": "none"}, **r) for r in raw["responses"]]
+    drivers = [dict({"category": "other", "expected_sign": "any", "transform": "none"}, **d) for d in raw["drivers"]]
+    resp_ids = {r["id"] for r in responses}
+    for i, d in enumerate(drivers):
+        for rid in d.get("responses", []) or []:
+            if rid not in resp_ids:
+                problems.append(InputProblem(what=f"names response '{rid}', which is not in responses", fix="use an id listed under responses", file=shown, key=f"drivers.{i}.responses", series=d["id"]))
+    val = screen["validation"]
+    if "initial_years" in val and "holdout_years" in val and val["holdout_years"] >= val["initial_years"] * 2:
+        pass  # allowed; hypotheses too short for it become insufficient-data
+    if problems:
+        raise InputErrors(problems)
+    ledger = (raw.get("ledger") or {}).get("path")
+    return Study(path=path.resolve(), raw=raw, study=raw["study"], base_dir=base, inputs=inputs,
+                 responses=responses, drivers=drivers, screen=screen, report=report, ledger_path=ledger)

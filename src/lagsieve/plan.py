@@ -1,0 +1,55 @@
+"""What the Snakemake workflow needs to know about its studies, at parse time.
+
+Kept here (not in the Snakefile) so that it is importable and testable without Snakemake.
+"""
+from __future__ import annotations
+
+import sys
+from dataclasses import dataclass
+from pathlib import Path
+
+from .config import Study, load_study, slug
+from .errors import InputErrors
+
+
+@dataclass(frozen=True)
+class PlannedStudy:
+    study: Study
+    config_path: str
+    input_paths: list[str]
+
+    @property
+    def response_slugs(self) -> list[str]:
+        return [slug(r) for r in self.study.response_ids]
+
+
+def study_configs(config: dict, default: str = "config/config.yaml") -> list[str]:
+    """Config paths from Snakemake's config: ``study_config`` (one path, or several separated by
+    commas) or ``studies`` (a list), else the default demo config."""
+    if config.get("studies"):
+        items = config["studies"]
+        return [str(p) for p in (items if isinstance(items, list) else str(items).split(","))]
+    value = config.get("study_config", default)
+    return [p for p in str(value).split(",") if p]
+
+
+def plan_studies(config: dict) -> dict[str, PlannedStudy]:
+    """Load every study config; a user's mistake prints one line per problem and exits 2."""
+    planned: dict[str, PlannedStudy] = {}
+    try:
+        for path in study_configs(config):
+            st = load_study(path)
+            if st.study in planned:
+                print(f"{path}: key 'study': id '{st.study}' is used by two configs; give each study its own id",
+                      file=sys.stderr)
+                sys.exit(2)
+            inputs = []
+            for spec in st.inputs:
+                p = Path(spec["path"])
+                inputs.append(str(p if p.is_absolute() else st.base_dir / p))
+            planned[st.study] = PlannedStudy(st, str(st.path), inputs)
+    except InputErrors as exc:
+        for p in exc.problems:
+            print(p.line(), file=sys.stderr)
+        sys.exit(2)
+    return planned

@@ -1,0 +1,211 @@
+"""The pipeline's stages as plain functions: each reads files, calls the modules, and writes
+its outputs atomically (temporary name, then rename). The Snakemake scripts are one call each.
+"""
+from __future__ import annotations
+
+import json
+import os
+import tempfile
+import time
+from contextlib import contextmanager
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from .alignment import annual_table
+from .config import Study, load_study, slug
+from .errors import InputErrors, InputProblem
+
+SCREEN_COLUMNS = ["response", "driver", "lag", "model", "n", "first_year", "last_year", "r", "p_naive",
+                  "n_eff", "p_adjusted", "r_detrended", "p_detrended", "r_diff", "slope", "slope_se",
+                  "p_surrogate_lag", "edf", "deviance_explained", "p_smooth", "shape", "status"]
+EVIDENCE_COLUMNS = ["response", "driver", "category", "expected_sign", "lag", "model", "n", "first_year",
+                    "last_year", "r", "p_naive", "n_eff", "p_adjusted", "r_detrended", "p_detrended", "r_diff",
+                    "slope", "slope_se", "p_surrogate", "p_surrogate_lag", "q_value", "oos_skill",
+                    "oos_skill_climatology", "oos_skill_persistence", "oos_skill_trend", "oos_n", "oos_p",
+                    "oos_p_surrogate", "oos_hardest", "oos_lag", "oos_lag_share", "retest_skill", "retest_years",
+                    "gam_gain", "edf", "shape", "grade", "flags", "rank", "collinear_with", "summary", "status"]
+
+
+# ---------------------------------------------------------------- atomic writes
+@contextmanager
+def atomic_path(path: str | Path):
+    """Yield a temporary path beside ``path``; on success rename it into place."""
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    os.close(fd)
+    try:
+        yield Path(tmp)
+        os.replace(tmp, path)
+    except BaseException:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+        raise
+
+
+def write_csv(df: pd.DataFrame, path: str | Path) -> None:
+    with atomic_path(path) as tmp:
+        df.to_csv(tmp, index=False, float_format="%.10g", lineterminator="\n")
+
+
+def write_text(text: str, path: str | Path) -> None:
+    with atomic_path(path) as tmp:
+        Path(tmp).write_text(text, encoding="utf-8")
+
+
+def write_json(obj, path: str | Path) -> None:
+    write_text(json.dumps(obj, indent=2, sort_keys=True, default=str) + "\n", path)
+
+
+def ordered(df: pd.DataFrame, columns: list[str]) -> pd.DataFrame:
+    """Contract columns first (created empty when their stage has not produced them)."""
+    out = df.copy()
+    for c in columns:
+        if c not in out.columns:
+            out[c] = np.nan
+    return out[columns + [c for c in out.columns if c not in columns]]
+
+
+# ---------------------------------------------------------------- check and align
+def check_study(config_path: str | Path):
+    """Load the config and every input; return (study, annual, notes, warnings).
+
+    Raises :class:`InputErrors` with one problem per line for anything the user must fix.
+    """
+    from .inputs import check_positive, read_inputs, series_warnings, to_annual
+
+    study = load_study(config_path)
+    long, warnings = read_inputs(study.inputs, study.base_dir)
+    problems: list[InputProblem] = []
+    present = set(long["series"].unique())
+    cfg = str(study.path)
+    for role, items in (("responses", study.responses), ("drivers", study.drivers)):
+        for i, s in enumerate(items):
+            if s["id"] not in present:
+                near = sorted(present, key=lambda p: _distance(p, s["id"]))[:3]
+                problems.append(InputProblem(
+                    what="no input file holds this series",
+                    fix=f"check the id or add its file to inputs (series found: {', '.join(near)}...)",
+                    file=cfg, key=f"{role}.{i}.id", series=s["id"]))
+    if problems:
+        raise InputErrors(problems)
+    wanted = set(study.response_ids) | set(study.driver_ids)
+    long = long[long["series"].isin(wanted)]
+    annual, notes = to_annual(long, study.series_options())
+    for s in study.responses + study.drivers:
+        problems += check_positive(annual, s["id"], s.get("transform", "none"), long)
+    if problems:
+        raise InputErrors(problems)
+    units = {s["id"]: s["unit"] for s in study.responses + study.drivers if s.get("unit")}
+    warnings = list(warnings) + list(series_warnings(annual, study.screen["min_overlap"], units))
+    return study, annual, notes, warnings
+
+
+def _distance(a: str, b: str) -> int:
+    """Levenshtein distance, to suggest the nearest series id."""
+    prev = list(range(len(b) + 1))
+    for i, ca in enumerate(a, 1):
+        cur = [i]
+        for j, cb in enumerate(b, 1):
+            cur.append(min(prev[j] + 1, cur[j - 1] + 1, prev[j - 1] + (ca != cb)))
+        prev = cur
+    return prev[-1]
+
+
+def run_align(config_path: str | Path, out_annual: str | Path, out_notes: str | Path) -> None:
+    """Stage `align`: write the tidy annual table and the list of dropped or filled years."""
+    study, annual, notes, warnings = check_study(config_path)
+    role = {i: "response" for i in study.response_ids} | {i: "driver" for i in study.driver_ids}
+    annual = annual.assign(role=annual["series"].map(role)).sort_values(["series", "year"])
+    notes_df = pd.DataFrame(notes, columns=["series", "year", "action", "reason"])
+    warn_df = pd.DataFrame({"series": [w.series for w in warnings], "year": np.nan,
+                            "action": "warning", "reason": [w.what for w in warnings]})
+    write_csv(pd.concat([notes_df, warn_df], ignore_index=True), out_notes)
+    write_csv(annual, out_annual)
+
+
+def load_table(study: Study, annual_csv: str | Path) -> pd.DataFrame:
+    """The wide, transformed annual table of a study from the `align` output."""
+    annual = pd.read_csv(annual_csv)
+    transforms = {s["id"]: s.get("transform", "none") for s in study.responses + study.drivers}
+    return annual_table(annual, transforms)
+
+
+# ---------------------------------------------------------------- screen
+def run_screen(config_path, annual_csv, response_id: str, out_dir, threads: int = 1) -> None:
+    """Stage `screen` for one response: screen rows, hypothesis rows, forecasts, nulls."""
+    from threadpoolctl import threadpool_limits
+
+    from .screening import screen_response
+
+    study = load_study(config_path)
+    by_slug = {slug(r): r for r in study.response_ids}
+    response_id = by_slug.get(response_id, response_id)
+    table = load_table(study, annual_csv)
+    with threadpool_limits(limits=max(1, int(threads))):
+        res = screen_response(table, study, response_id)
+    out = Path(out_dir)
+    write_csv(res.forecasts, out / "forecasts.csv")
+    write_csv(res.nulls, out / "nulls.csv")
+    write_csv(res.hypotheses, out / "hypotheses.csv")
+    write_csv(ordered(res.screen, SCREEN_COLUMNS), out / "screen.csv")
+
+
+def response_dirs(work: str | Path, study: Study) -> dict[str, Path]:
+    return {rid: Path(work) / "responses" / slug(rid) for rid in study.response_ids}
+
+
+# ---------------------------------------------------------------- evidence
+def run_evidence(config_path, annual_csv, work_dir, out_screen, out_evidence) -> None:
+    """Stage `evidence`: study-wide q-values, flags, grades and ranks."""
+    from .evidence import build_evidence
+
+    study = load_study(config_path)
+    table = load_table(study, annual_csv)
+    dirs = response_dirs(work_dir, study)
+    hyps = pd.concat([pd.read_csv(d / "hypotheses.csv") for d in dirs.values()], ignore_index=True)
+    scr = pd.concat([pd.read_csv(d / "screen.csv") for d in dirs.values()], ignore_index=True)
+    ev = build_evidence(hyps, table, study.screen)
+    write_csv(ordered(scr, SCREEN_COLUMNS), out_screen)
+    write_csv(ordered(ev, EVIDENCE_COLUMNS), out_evidence)
+
+
+# ---------------------------------------------------------------- report
+def run_report(config_path, annual_csv, notes_csv, work_dir, screen_csv, evidence_csv,
+               out_report, out_provenance, figures_dir, started: float | None = None) -> None:
+    """Stage `report`: figures, the self-contained HTML report and provenance.json."""
+    from .provenance import package_versions, sha256_file, tool_version
+    from .report import build_report
+
+    t0 = time.time() if started is None else started
+    study = load_study(config_path)
+    table = load_table(study, annual_csv)
+    dirs = response_dirs(work_dir, study)
+    read = lambda name: pd.concat([pd.read_csv(d / name) for d in dirs.values()
+                                   if (d / name).stat().st_size > 1], ignore_index=True)
+    forecasts, nulls = read("forecasts.csv"), read("nulls.csv")
+    evidence = pd.read_csv(evidence_csv, keep_default_na=True)
+    screen = pd.read_csv(screen_csv)
+    notes = pd.read_csv(notes_csv)
+    inputs = {}
+    for spec in study.inputs:
+        p = Path(spec["path"])
+        p = p if p.is_absolute() else study.base_dir / p
+        inputs[spec["path"]] = sha256_file(p)
+    prov = {
+        "study": study.study,
+        "config_path": str(study.path),
+        "config_sha256": sha256_file(study.path),
+        "config": study.raw,
+        "inputs_sha256": inputs,
+        "seed": study.screen["seed"],
+        "tool_version": tool_version(),
+        "versions": package_versions(),
+        "started": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime(t0)),
+    }
+    html = build_report(study, table, screen, evidence, forecasts, nulls, notes, prov, figures_dir)
+    prov["finished"] = time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime())
+    write_text(html, out_report)
+    write_json(prov, out_provenance)

@@ -1,0 +1,13 @@
+rule align:
+    """Read and check every input; one annual axis for all series of the study."""
+    input:
+        config=cfg,
+        data=lambda w: STUDIES[w.study].input_paths,
+    output:
+        annual=f"{OUT}/{{study}}/work/annual.csv",
+        notes=f"{OUT}/{{study}}/work/notes.csv",
+    resources:
+        mem_mb=1000,
+        runtime=10,
+    script:
+        "../scripts/align.py"

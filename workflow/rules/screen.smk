@@ -1,0 +1,16 @@
+rule screen:
+    """One response against all its drivers: lags, surrogates, rolling-origin forecasts."""
+    input:
+        config=cfg,
+        annual=f"{OUT}/{{study}}/work/annual.csv",
+    output:
+        screen=f"{OUT}/{{study}}/work/responses/{{response}}/screen.csv",
+        hypotheses=f"{OUT}/{{study}}/work/responses/{{response}}/hypotheses.csv",
+        forecasts=f"{OUT}/{{study}}/work/responses/{{response}}/forecasts.csv",
+        nulls=f"{OUT}/{{study}}/work/responses/{{response}}/nulls.csv",
+    threads: 1
+    resources:
+        mem_mb=1000,
+        runtime=30,
+    script:
+        "../scripts/screen.py"

@@ -1,0 +1,7 @@
+# Thin wrapper: stage `screen` for one response (see lagsieve.stages.run_screen).
+from pathlib import Path
+
+from lagsieve.stages import run_screen
+
+run_screen(snakemake.input.config, snakemake.input.annual, snakemake.wildcards.response,
+           Path(snakemake.output.screen).parent, threads=snakemake.threads)
