@@ -5,7 +5,7 @@ InputErrors, one line per problem, the file name, the row and series where they 
 '; ' followed by the fix hint):
 
  1. missing file
- 2. a folder given instead of a file
+ 2. a folder given instead of a file; a path with a NUL character
  3. unsupported extension (.json)
  4. old-style .xls workbook
  5. damaged .xlsx (not a workbook)
@@ -196,6 +196,8 @@ MALFORMED = [
     # id, files, call, file, row, series, what, fix
     ("missing_file", {}, _table("nope.csv"), "nope.csv", None, None,
      "does not exist", "relative paths are read from the config's folder"),
+    ("unusable_path", {}, _table("a\x00b.csv"), "a\\x00b.csv", None, None,
+     "the file does not exist (looked for ", "check the path under inputs"),
     ("folder", {"sub/x.csv": "year,a\n2000,1\n"}, _table("sub"), "sub", None, None,
      "folder, not a file", "give the path of a table file"),
     ("unsupported_extension", {"data.json": "{}"}, _table("data.json"), "data.json", None, None,
@@ -568,6 +570,13 @@ def test_read_inputs_concatenates(tmp_path):
     assert warns == []
 
 
+def test_sheet_on_a_csv_is_a_warning(tmp_path):
+    write(tmp_path, "a.csv", "year,m_cod\n2000,0.1\n")
+    _, warns = read_table({"path": "a.csv", "sheet": "x"}, tmp_path)
+    assert [w.line() for w in warns] == ["warning: a.csv: sheet is only used for .xlsx files "
+                                         "and is ignored"]
+
+
 def test_absolute_path(tmp_path):
     path = write(tmp_path, "a.csv", "year,m_cod\n2000,0.1\n")
     df, _ = read_table(str(path), tmp_path / "elsewhere")
@@ -689,6 +698,9 @@ def test_linear_fill_with_max_gap(tmp_path):
     assert sum(n["action"] == "filled" for n in notes) == 4
     # the default max_gap is 1
     annual, notes = to_annual(long, {"m": {"fill": "linear"}})
+    assert annual["filled"].sum() == 1
+    # options left as None take their defaults
+    annual, _ = to_annual(long, {"m": {"fill": "linear", "max_gap": None, "aggregate": None}})
     assert annual["filled"].sum() == 1
     # fill none: nothing filled, the gaps are still noted
     annual, notes = to_annual(long, {"m": {}})
@@ -897,7 +909,7 @@ def test_fuzz_arbitrary_bytes(tmp_path_factory, content, ext):
 @FUZZ
 @given(values=st.lists(st.one_of(st.none(), st.floats(allow_nan=True, allow_infinity=True)),
                        min_size=1, max_size=12),
-       start=st.integers(1800, 2190))
+       start=st.integers(1795, 2200))
 def test_fuzz_values_round_trip(tmp_path_factory, values, start):
     directory = tmp_path_factory.getbasetemp() / "fuzz_values"
     directory.mkdir(exist_ok=True)
@@ -908,6 +920,8 @@ def test_fuzz_values_round_trip(tmp_path_factory, values, start):
     present = [v for v in values if v is not None and not math.isnan(v)]
     if any(math.isinf(v) for v in present):
         assert df is None
+    elif start < 1800 or start + len(values) - 1 > 2200:
+        assert df is None  # every row's year is checked, with or without a value
     elif not present:
         assert df is None  # a file without values is refused
     else:

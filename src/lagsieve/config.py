@@ -30,7 +30,7 @@ SCREEN_DEFAULTS: dict[str, Any] = {
     "fdr": 0.10,
     "alpha": 0.05,
     "weights": "none",
-    "gam_trend": False,
+    "gam_trend": True,
     "validation": {},
 }
 REPORT_DEFAULTS: dict[str, Any] = {"top": 3, "pdf": False}

@@ -600,11 +600,16 @@ def read_table(spec: str | Mapping[str, Any], base_dir: str | Path
     if not path.is_absolute():
         path = Path(base_dir) / path
     ext = path.suffix.lower()
-    if not path.exists():
+    try:
+        exists, is_dir = path.exists(), path.is_dir()
+    except (OSError, ValueError) as exc:
+        col.fatal(f"the path cannot be used ({_show(str(exc), 80)})",
+                  "check the path under inputs for stray characters")
+    if not exists:
         col.fatal(f"the file does not exist (looked for {_show(str(path), 300)})",
                   "check the path under inputs; relative paths are read from the config's "
                   "folder")
-    if path.is_dir():
+    if is_dir:
         col.fatal("this is a folder, not a file", "give the path of a table file "
                   f"({SUPPORTED})")
     if ext == ".xls":
@@ -613,6 +618,9 @@ def read_table(spec: str | Mapping[str, Any], base_dir: str | Path
     if ext not in TEXT_EXTENSIONS | {".xlsx", ".parquet"}:
         col.fatal(f"the file type '{_show(ext or '(no extension)')}' is not supported",
                   f"give a table as {SUPPORTED}")
+    if s.sheet is not None and ext != ".xlsx":
+        warnings.append(InputWarning(what="sheet is only used for .xlsx files and is ignored",
+                                     file=label))
     try:
         if ext in TEXT_EXTENSIONS:
             grid = _read_text(path, s, col)
@@ -899,7 +907,11 @@ def read_inputs(specs: Iterable[str | Mapping[str, Any]], base_dir: str | Path
             problems.extend(exc.problems)
             continue
         p = Path(s.path).expanduser()
-        p = (p if p.is_absolute() else Path(base_dir) / p).resolve()
+        p = p if p.is_absolute() else Path(base_dir) / p
+        try:
+            p = p.resolve()
+        except (OSError, ValueError):
+            pass  # read_table reports the unusable path
         if p in resolved:
             problems.append(InputProblem(
                 what=f"the file is listed twice under inputs (also as '{resolved[p]}')",
@@ -1032,7 +1044,8 @@ def to_annual(long_df: pd.DataFrame, series_options: Mapping[str, Mapping[str, A
                 "row": pd.array(g["row"].to_numpy(), dtype="Int64"),
             })
         fill = opts.get("fill") or "none"
-        max_gap = opts.get("max_gap", 1)
+        max_gap = opts.get("max_gap")
+        max_gap = 1 if max_gap is None else max_gap
         if fill not in ("none", "linear"):
             problem(f"fill '{_show(fill)}' is unknown", "use fill: none or fill: linear")
             continue
@@ -1078,7 +1091,8 @@ def _aggregate(g: pd.DataFrame, sid: str, aggregate: Mapping[str, Any]
     if how not in ("mean", "sum", "min", "max"):
         return None, [], (f"aggregate how '{_show(how)}' is unknown",
                           "use how: mean, sum, min or max")
-    min_months = aggregate.get("min_months", len(months))
+    min_months = aggregate.get("min_months")
+    min_months = len(months) if min_months is None else min_months
     if (isinstance(min_months, bool) or not isinstance(min_months, (int, np.integer))
             or min_months < 1):
         return None, [], (f"aggregate min_months '{_show(min_months)}' is not a whole number of "

@@ -17,6 +17,7 @@ import pandas as pd
 from . import statistics as st
 from .alignment import forecast_frame, shift_batch
 from .surrogates import make_surrogates
+from .gam import fit_pspline, partial_effect, shape_word, smooth_p_value
 from .validation import BASELINES, diebold_mariano, retest, rolling_origin
 
 MIN_FORECASTS = 5
@@ -95,7 +96,8 @@ def screen_hypothesis(table: pd.DataFrame, response: dict, driver: dict, lags: l
                          screen.get("surrogate_keep_trend", True))
     y_full = table[rid].to_numpy(dtype=float)
     years_full = table.index.to_numpy()
-    rows, stats, per_lag = [], [], {}
+    rows, stats, per_lag, gam_stats = [], [], {}, []
+    use_gam = "gam" in screen["models"]
     for k in lags:
         xk = shift_batch(batch, k)
         ok = ~(np.isnan(y_full) | np.isnan(xk[0]))
@@ -106,6 +108,8 @@ def screen_hypothesis(table: pd.DataFrame, response: dict, driver: dict, lags: l
         if n < 6:
             rows.append(dict(base, status="skipped: fewer than 6 overlapping years"))
             stats.append(np.full(B + 1, np.nan))
+            if use_gam:
+                gam_stats.append(np.full(B + 1, np.nan))
             continue
         x, y, yrs = xk[:, ok], y_full[ok], years_full[ok]
         r_all = st.pearson_r(x, y[None, :])
@@ -116,6 +120,10 @@ def screen_hypothesis(table: pd.DataFrame, response: dict, driver: dict, lags: l
         stat = directed(r_all, sign)
         stats.append(stat)
         per_lag[k] = (x[0], y, yrs)
+        if use_gam:
+            g_row, g_stat = gam_screen_row(x, y, yrs, screen)
+            rows.append(dict(base, model="gam", **g_row))
+            gam_stats.append(g_stat)
         rows.append(dict(base, r=r, p_naive=float(st.correlation_p(r, n)), n_eff=neff,
                          p_adjusted=float(st.correlation_p(r, neff)),
                          r_detrended=r_det,
@@ -132,11 +140,18 @@ def screen_hypothesis(table: pd.DataFrame, response: dict, driver: dict, lags: l
         return screen_rows, hyp, None, None
     best_idx = int(np.nanargmax(stats[:, 0]))
     best_lag = lags[best_idx]
-    best = screen_rows[screen_rows["lag"] == best_lag].iloc[0].to_dict()
+    lin = screen_rows[screen_rows["model"] == "linear"]
+    best = lin[lin["lag"] == best_lag].iloc[0].to_dict()
     max_stat = np.nanmax(stats, axis=0)  # best lag within every surrogate, as for the real one
     hyp.update({k: best[k] for k in ("lag", "n", "first_year", "last_year", "r", "p_naive", "n_eff",
                                       "p_adjusted", "r_detrended", "p_detrended", "r_diff", "slope", "slope_se", "p_surrogate_lag")})
-    hyp["p_surrogate"] = surrogate_p(max_stat)
+    if use_gam:
+        gam_max = np.nanmax(np.stack(gam_stats), axis=0)
+        hyp["p_surrogate_linear"] = surrogate_p(max_stat)
+        hyp["p_surrogate_gam"] = surrogate_p(gam_max)
+        hyp["p_surrogate"] = min_p_combined([max_stat, gam_max])
+    else:
+        hyp["p_surrogate"] = surrogate_p(max_stat)
     x, y, yrs = per_lag[best_lag]
     hyp.update(_stability(x, y))
     nulls = [pd.DataFrame({"response": rid, "driver": did, "test": "in-sample", "statistic": "best-lag r (directed)",
@@ -147,7 +162,8 @@ def screen_hypothesis(table: pd.DataFrame, response: dict, driver: dict, lags: l
     hyp.update(oos_initial=initial, oos_n=max(0, len(ff.years) - initial))
     if len(ff.years) - initial >= MIN_FORECASTS:
         X = np.stack([shift_batch(batch, k)[:, ff.rows] for k in lags], axis=1)  # (S, L, T)
-        ro = rolling_origin(ff.y, ff.ylag, ff.years, X, np.asarray(lags), initial)
+        models = tuple(m for m in ("linear", "gam") if m in screen["models"])
+        ro = rolling_origin(ff.y, ff.ylag, ff.years, X, np.asarray(lags), initial, models=models)
         sk = ro.skill
         for b in BASELINES:
             hyp[f"oos_skill_{b}"] = float(sk[b][0])
@@ -161,6 +177,11 @@ def screen_hypothesis(table: pd.DataFrame, response: dict, driver: dict, lags: l
         lag_counts = pd.Series(ro.chosen_lag[ro.hardest][0]).value_counts()
         hyp["oos_lag"] = int(lag_counts.index[0])
         hyp["oos_lag_share"] = float(lag_counts.iloc[0] / ro.n)
+        if ro.chosen_model is not None:
+            share_gam = float(np.mean(ro.chosen_model[0] == "gam"))
+            hyp["model"] = "gam" if share_gam > 0.5 else "linear"
+            hyp["oos_model_share"] = share_gam if share_gam > 0.5 else 1.0 - share_gam
+            hyp["gam_gain"] = float(ro.gam_gain[0])
         nulls.append(pd.DataFrame({"response": rid, "driver": did, "test": "out-of-sample",
                                    "statistic": "skill vs hardest baseline", "value": ms[1:], "observed": ms[0]}))
         fc = pd.DataFrame({"response": rid, "driver": did, "year": ro.years, "observed": ro.observed})
@@ -168,12 +189,67 @@ def screen_hypothesis(table: pd.DataFrame, response: dict, driver: dict, lags: l
             fc[f"baseline_{b}"] = ro.baseline_forecast[b]
             fc[f"model_{b}"] = ro.model_forecast[b][0]
             fc[f"lag_{b}"] = ro.chosen_lag[b][0]
+        if ro.chosen_model is not None:
+            fc["model_chosen"] = ro.chosen_model[0]
+            fc["gam_only"] = ro.gam_forecast[0]
+            fc["linear_only"] = ro.linear_forecast[0]
+        fc["hardest"] = ro.hardest
+        fc["extrapolated"] = _extrapolated(X[0], ro.chosen_lag[ro.hardest][0], np.asarray(lags), initial)
         if len(ff.years) - holdout >= max(10, initial // 2):
             rt = retest(ff.y, ff.ylag, ff.years, X[0], np.asarray(lags), holdout, ro.hardest)
             hyp["retest_skill"] = rt.min_skill
             hyp["retest_years"] = f"{int(rt.years[0])}-{int(rt.years[-1])}"
+    if use_gam:
+        g = screen_rows[(screen_rows["model"] == "gam") & (screen_rows["lag"] == hyp["lag"])]
+        if len(g):
+            for col in ("edf", "deviance_explained", "p_smooth", "shape"):
+                hyp[col] = g.iloc[0].get(col)
     hyp["status"] = "ok"
     return screen_rows, hyp, fc, pd.concat(nulls, ignore_index=True)
+
+
+def _extrapolated(X: np.ndarray, lag_used: np.ndarray, lags: np.ndarray, initial: int) -> np.ndarray:
+    """Whether each forecast's driver value lies outside the driver's range in its training
+    years (at the lag used for that forecast): such forecasts extrapolate a fitted curve."""
+    T = X.shape[-1]
+    out = np.zeros(T - initial, bool)
+    for j, o in enumerate(range(initial, T)):
+        li = int(np.flatnonzero(lags == lag_used[j])[0])
+        train = X[li, :o]
+        out[j] = X[li, o] < train.min() or X[li, o] > train.max()
+    return out
+
+
+def gam_screen_row(x: np.ndarray, y: np.ndarray, years: np.ndarray, screen: dict) -> tuple[dict, np.ndarray]:
+    """In-sample penalised-spline statistics at one lag for the real driver (x[0]) and the
+    deviance explained of every surrogate (x[1:]), smoothing chosen by GCV for each."""
+    trend = years.astype(float) if screen.get("gam_trend") else None
+    fit = fit_pspline(x, y, trend=trend)
+    real = fit_pspline(x[0], y, trend=trend)
+    grid = np.linspace(np.min(x[0]), np.max(x[0]), 60)
+    pe = partial_effect(real, grid)
+    scale = float(np.std(y))
+    row = {"edf": float(real.edf), "deviance_explained": float(real.deviance_explained),
+           "p_smooth": float(smooth_p_value(real)),
+           "shape": shape_word(grid, pe.curve, pe.se, scale=scale), "status": "ok"}
+    # share of the residual variation of the null model (a, or a + b year) explained by f
+    gain = 1.0 - fit.rss / fit.rss_null
+    return row, np.asarray(gain, float)
+
+
+def min_p_combined(stats: list[np.ndarray]) -> float:
+    """Surrogate p of the best of several statistics (Westfall & Young 1993 min-p): each
+    statistic is turned into its surrogate p for every member of the batch, the minimum is
+    taken across statistics, and the observed minimum is ranked among the surrogates'."""
+    ps = []
+    for st_ in stats:
+        null = st_[1:]
+        # p of every batch member against the surrogate distribution (ties count as >=)
+        srt = np.sort(null)
+        ge = len(null) - np.searchsorted(srt, st_, side="left")
+        ps.append((1 + ge) / (len(null) + 1))
+    pmin = np.min(np.stack(ps), axis=0)
+    return float((1 + np.sum(pmin[1:] <= pmin[0])) / len(pmin))
 
 
 def _stability(x: np.ndarray, y: np.ndarray, window: int = 15) -> dict:

@@ -31,6 +31,8 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy import stats as _st
 
+from .gam import bspline_basis, default_n_basis, difference_penalty, expanding_penalised
+
 BASELINES = ("climatology", "persistence", "trend")
 
 
@@ -97,6 +99,10 @@ class RollingOriginResult:
     added_skill: dict[str, np.ndarray]  # baseline -> (S,): 1 - MSE(b + driver) / MSE(b)
     hardest: str
     lags: np.ndarray = field(default_factory=lambda: np.zeros(0, int))
+    chosen_model: np.ndarray | None = None  # (S, n_origins) 'linear' or 'gam' (with gam)
+    gam_gain: np.ndarray | None = None  # (S,) 1 - MSE(gam only) / MSE(linear only)
+    gam_forecast: np.ndarray | None = None  # (S, n_origins) hardest baseline + spline only
+    linear_forecast: np.ndarray | None = None  # (S, n_origins) hardest baseline + line only
 
     @property
     def n(self) -> int:
@@ -133,6 +139,10 @@ def rolling_origin(
     X: np.ndarray,
     lags: np.ndarray,
     initial: int,
+    models: tuple[str, ...] = ("linear",),
+    n_basis: int | None = None,
+    chunk: int = 128,
+    retune_every: int = 5,
 ) -> RollingOriginResult:
     """Expanding-window one-step-ahead forecasts with the lag chosen inside each window.
 
@@ -150,6 +160,11 @@ def rolling_origin(
     at each origin (all lags have the same number of parameters, so this equals choosing by
     AIC). Driver and year columns are scaled with statistics of the first ``initial`` rows
     only, which leaves every forecast unchanged in exact arithmetic and keeps later years out.
+
+    With ``"gam"`` in ``models``, the candidate on the hardest baseline is chosen at every
+    origin among the linear and the penalised-spline form of every lag by GCV on the
+    training years (smoothing parameter included), so the choice of model is nested too;
+    see :func:`gam_candidate`.
     """
     y = np.asarray(y, float)
     T = len(y)
@@ -160,7 +175,7 @@ def rolling_origin(
     yl = _scale_from_start(np.asarray(ylag, float), initial)
     yr = _scale_from_start(np.asarray(year, float), initial)
     S, L, _ = Xs.shape
-    base_fc, model_fc, chosen, added, mse_base = {}, {}, {}, {}, {}
+    base_fc, model_fc, chosen, added, mse_base, rss_lin, fc_lin = {}, {}, {}, {}, {}, {}, {}
     for b in BASELINES:  # three fixed model forms
         Z = baseline_design(b, yl, yr)  # (T, p)
         beta0, _ = _expanding_solve(Z, y, origins)
@@ -170,12 +185,40 @@ def rolling_origin(
         )  # (S, L, T, p+1)
         beta, rss = _expanding_solve(W, y, origins)  # (S, L, O, p+1), (S, L, O)
         fc = (W[:, :, origins, :] * beta).sum(-1)  # (S, L, O)
+        rss_lin[b], fc_lin[b] = rss, fc
         pick = np.argmin(rss, axis=1)  # (S, O)
         model_fc[b] = np.take_along_axis(fc, pick[:, None, :], axis=1)[:, 0, :]
         chosen[b] = np.asarray(lags)[pick]
         mse_base[b] = np.mean((y[origins] - base_fc[b]) ** 2)
         mse_m = np.mean((y[origins][None, :] - model_fc[b]) ** 2, axis=-1)
         added[b] = skill_score(mse_m, mse_base[b]) if mse_base[b] > 0 else np.full(S, np.nan)
+    hardest = min(BASELINES, key=lambda b: mse_base[b])
+    extra = {}
+    if "gam" in models:
+        Z = baseline_design(hardest, yl, yr)
+        p_lin = Z.shape[1] + 1
+        n_tr = origins.astype(float)
+        gcv_lin = n_tr * rss_lin[hardest] / (n_tr - p_lin) ** 2  # (S, L, O)
+        K = n_basis or default_n_basis(T)
+        fc_gam = np.empty_like(gcv_lin)
+        gcv_gam = np.empty_like(gcv_lin)
+        edf_gam = np.empty_like(gcv_lin)
+        for lo in range(0, S, chunk):  # chunks bound the memory of the stacked systems
+            sl = slice(lo, lo + chunk)
+            fc_gam[sl], gcv_gam[sl], edf_gam[sl] = gam_candidate(Z, Xs[sl], y, origins, initial, K, retune_every)
+        gcv_all = np.concatenate([gcv_lin, gcv_gam], axis=1)  # (S, 2L, O)
+        fc_all = np.concatenate([fc_lin[hardest], fc_gam], axis=1)
+        pick = np.argmin(gcv_all, axis=1)
+        model_fc[hardest] = np.take_along_axis(fc_all, pick[:, None, :], axis=1)[:, 0, :]
+        chosen[hardest] = np.concatenate([np.asarray(lags), np.asarray(lags)])[pick]
+        gam_only_pick = np.argmin(gcv_gam, axis=1)
+        gam_only = np.take_along_axis(fc_gam, gam_only_pick[:, None, :], axis=1)[:, 0, :]
+        lin_only = np.take_along_axis(fc_lin[hardest], np.argmin(rss_lin[hardest], axis=1)[:, None, :], axis=1)[:, 0, :]
+        mse = lambda f: np.mean((y[origins][None, :] - f) ** 2, axis=-1)
+        added[hardest] = skill_score(mse(model_fc[hardest]), mse_base[hardest])
+        extra = dict(chosen_model=np.where(pick >= len(lags), "gam", "linear"),
+                     gam_gain=skill_score(mse(gam_only), mse(lin_only)),
+                     gam_forecast=gam_only, linear_forecast=lin_only)
     return RollingOriginResult(
         years=np.asarray(year)[origins],
         observed=y[origins],
@@ -183,9 +226,31 @@ def rolling_origin(
         model_forecast=model_fc,
         chosen_lag=chosen,
         added_skill=added,
-        hardest=min(BASELINES, key=lambda b: mse_base[b]),
+        hardest=hardest,
         lags=np.asarray(lags),
+        **extra,
     )
+
+
+def gam_candidate(Z: np.ndarray, Xs: np.ndarray, y: np.ndarray, origins: np.ndarray, initial: int,
+                  n_basis: int, retune_every: int = 5):
+    """Rolling-origin forecasts of baseline + f(driver) for every driver in the batch and lag.
+
+    f is a cubic P-spline (Eilers & Marx 1996) with ``n_basis`` B-splines whose knots span
+    the driver's range in the first ``initial`` training years (so no later value moves a
+    knot); beyond that range the basis continues linearly. The baseline's intercept is
+    absorbed by the B-spline basis (it sums to one). Returns forecast, GCV and edf, each
+    (S, L, n_origins), at the GCV-best smoothing parameter of each training window.
+    """
+    head = Xs[..., :initial]
+    B = bspline_basis(Xs, n_basis, lo=head.min(-1), hi=head.max(-1))  # (S, L, T, K)
+    others = Z[:, 1:]  # baseline terms without the intercept
+    S_, L_ = Xs.shape[:2]
+    W = np.concatenate([np.broadcast_to(others, (S_, L_) + others.shape), B], axis=-1)
+    q0 = others.shape[1]
+    P = np.zeros((q0 + n_basis, q0 + n_basis))
+    P[q0:, q0:] = difference_penalty(n_basis, 2)
+    return expanding_penalised(W, P, y, origins, retune_every=retune_every)
 
 
 def skill_score(mse_model: float | np.ndarray, mse_baseline: float | np.ndarray):
