@@ -1,9 +1,22 @@
-"""Figures of the report (matplotlib, Agg backend). Each function returns a Figure; the report
-embeds it as PNG and writes PNG (300 dpi) and SVG copies under ``figures/``."""
+"""Figures of the report (matplotlib, Agg backend).
+
+Every figure builder is a plain function of arrays and strings that returns a Figure. The
+report describes each figure as a :class:`FigureJob` (builder name + arguments) and
+:func:`render_jobs` draws them, in worker processes when more than one is allowed. Each
+figure is written as PNG (300 dpi) and SVG under ``figures/``; the report embeds a smaller
+PNG copy as a data URI.
+
+Colours are a palette of our own: grades run from deep blue (most support) through pale
+blue to grey, with orange reserved for "shared trend only". The blue-orange contrast and the
+lightness ramp survive the common colour-vision deficiencies, and every coloured mark also
+carries a text label, so no reading depends on colour alone.
+"""
 from __future__ import annotations
 
 import base64
 import io
+import os
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import matplotlib
@@ -12,103 +25,405 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402
+from matplotlib.colors import LinearSegmentedColormap, ListedColormap  # noqa: E402
+from matplotlib.patches import Patch, Rectangle  # noqa: E402
 
-# A colour-blind-safe palette of our own for the grades (checked against deuteranopia and
-# protanopia simulations by eye; text labels always accompany the colour).
-GRADE_COLOURS = {
-    "strong": "#1b5e8c",
-    "moderate": "#4fa3d1",
-    "weak": "#c9c3e6",
-    "none": "#e6e6e6",
-    "spurious-trend": "#d9822b",
-    "insufficient-data": "#9e9e9e",
+# ----------------------------------------------------------------------------- palette
+#: grade -> (fill colour, text colour on that fill, one-word label used inside cells)
+GRADE_STYLE = {
+    "strong": ("#0b3c68", "#ffffff", "strong"),
+    "moderate": ("#3d85c6", "#ffffff", "moderate"),
+    "weak": ("#b8d4ec", "#10263a", "weak"),
+    "none": ("#e9e9e9", "#2b2b2b", "none"),
+    "spurious-trend": ("#e8913a", "#1f1300", "trend only"),
+    "insufficient-data": ("#ffffff", "#555555", "too few data"),
 }
-SERIES_COLOURS = ("#1b5e8c", "#d9822b", "#6b4c9a", "#2e8b57")
+GRADE_COLOURS = {g: s[0] for g, s in GRADE_STYLE.items()}
+
+INK = "#1e2a33"
+RESPONSE_COLOUR = "#0b3c68"   # deep blue
+DRIVER_COLOUR = "#c4561b"     # burnt orange
+SMOOTH_COLOUR = "#6a4c93"     # violet
+BASELINE_STYLES = {           # grey family, told apart by dash pattern and marker too
+    "climatology": ("#8c8c8c", (0, (1, 1.5)), None),
+    "persistence": ("#6f6f6f", (0, (4, 2)), None),
+    "trend": ("#4a4a4a", (0, (6, 2, 1, 2)), None),
+}
+CORR_CMAP = LinearSegmentedColormap.from_list(
+    "lagsieve_div", ["#0b3c68", "#6fa3d2", "#f7f7f5", "#eda363", "#9c3d0c"])
+
+RC = {
+    "font.size": 8, "axes.titlesize": 8.5, "axes.labelsize": 8, "xtick.labelsize": 7.5,
+    "ytick.labelsize": 7.5, "legend.fontsize": 7, "axes.spines.top": False,
+    "axes.spines.right": False, "axes.edgecolor": "#555555", "axes.labelcolor": INK,
+    "text.color": INK, "xtick.color": "#444444", "ytick.color": "#444444",
+    "axes.grid": True, "grid.color": "#e3e3e3", "grid.linewidth": 0.6,
+    "svg.fonttype": "none", "svg.hashsalt": "lagsieve", "figure.dpi": 100,
+}
+
+PNG_DPI = 300          # exported files
+EMBED_DPI = 150        # embedded copy (displayed at 96 px per inch: sharp on dense screens)
+INVENTED_NOTE = "invented data"
 
 
-def to_png_base64(fig, dpi: int = 110) -> str:
+def mpl_text(s) -> str:
+    """A user string made safe for matplotlib: '$' would otherwise start mathematical text."""
+    return str(s).replace("\\", "\\\\").replace("$", r"\$")
+
+
+def r_critical(n_eff, p: float = 0.05) -> np.ndarray:
+    """Two-sided critical |r| at level ``p`` for an effective sample size:
+    ``r_crit = t / sqrt(df + t^2)`` with ``df = n_eff - 2`` and ``t`` the t quantile.
+    NaN where ``df <= 0``."""
+    from scipy import stats
+
+    n_eff = np.asarray(n_eff, float)
+    df = n_eff - 2.0
+    with np.errstate(invalid="ignore", divide="ignore"):
+        t = stats.t.ppf(1.0 - p / 2.0, np.where(df > 0, df, np.nan))
+        return t / np.sqrt(df + t ** 2)
+
+
+def _mark_invented(fig, invented: bool) -> None:
+    if invented:
+        fig.text(0.995, 0.005, INVENTED_NOTE, ha="right", va="bottom", fontsize=6.5,
+                 color="#9c3d0c", style="italic")
+
+
+def _z(v):
+    v = np.asarray(v, float)
+    sd = np.nanstd(v)
+    return (v - np.nanmean(v)) / (sd if sd > 0 else 1.0)
+
+
+# ----------------------------------------------------------------------------- study-wide
+def coverage(series: list[str], labels: list[str], roles: list[str], years, observed, filled,
+             invented: bool = False):
+    """Years observed per series: a bar over each run of observed years, so every gap shows
+    as a break; filled (interpolated) years hatched; missing years inside a series crossed."""
+    years = np.asarray(years, int)
+    obs = np.asarray(observed, bool)
+    fil = np.asarray(filled, bool)
+    k = len(series)
+    fig, ax = plt.subplots(figsize=(8.2, 0.3 * k + 1.25), layout="constrained")
+    for i in range(k):
+        colour = RESPONSE_COLOUR if roles[i] == "response" else DRIVER_COLOUR
+        runs, start = [], None
+        for j, ok in enumerate(obs[i]):
+            if ok and start is None:
+                start = j
+            if (not ok or j == len(years) - 1) and start is not None:
+                end = j if ok else j - 1
+                runs.append((years[start] - 0.45, years[end] - years[start] + 0.9))
+                start = None
+        ax.broken_barh(runs, (i - 0.32, 0.64), facecolors=colour, edgecolor="none")
+        fy = years[fil[i] & obs[i]]
+        if len(fy):
+            ax.broken_barh([(y - 0.45, 0.9) for y in fy], (i - 0.32, 0.64), facecolors="white",
+                           edgecolor=colour, hatch="////", linewidth=0.6)
+        if obs[i].any():
+            first, last = np.flatnonzero(obs[i])[[0, -1]]
+            inner = ~obs[i] & (np.arange(len(years)) > first) & (np.arange(len(years)) < last)
+            ax.scatter(years[inner], np.full(inner.sum(), i), marker="x", s=16, color="#b11d1d",
+                       linewidths=1.0, zorder=3)
+    ax.set_yticks(range(k), [mpl_text(s) for s in labels])
+    ax.set_ylim(k - 0.5, -0.5)
+    ax.set_xlim(years.min() - 1, years.max() + 1)
+    ax.grid(axis="y", visible=False)
+    ax.set_xlabel("year")
+    handles = [Patch(color=RESPONSE_COLOUR, label="response, observed"),
+               Patch(color=DRIVER_COLOUR, label="driver, observed"),
+               Patch(facecolor="white", edgecolor="#555555", hatch="////", label="filled (interpolated)"),
+               plt.Line2D([], [], marker="x", color="#b11d1d", ls="none", label="missing inside the series")]
+    ax.legend(handles=handles, loc="upper center", bbox_to_anchor=(0.5, -0.09 - 0.9 / (0.3 * k + 1.25)),
+              ncol=4, frameon=False)
+    _mark_invented(fig, invented)
+    return fig
+
+
+def driver_correlation(corr: np.ndarray, labels: list[str], threshold: float = 0.7,
+                       invented: bool = False):
+    """Lower triangle of the driver-driver Pearson r; cells with |r| above the collinearity
+    threshold are outlined and their value starred."""
+    import seaborn as sns
+
+    corr = np.asarray(corr, float)
+    k = len(labels)
+    mask = np.triu(np.ones((k, k), bool))
+    side = max(4.2, 0.55 * k + 2.2)
+    fig, ax = plt.subplots(figsize=(side + 0.9, side), layout="constrained")
+    annot = np.empty((k, k), dtype=object)
+    for i in range(k):
+        for j in range(k):
+            v = corr[i, j]
+            annot[i, j] = "" if np.isnan(v) else (f"{v:.2f}*" if abs(v) > threshold and i != j else f"{v:.2f}")
+    sns.heatmap(corr, mask=mask, cmap=CORR_CMAP, vmin=-1, vmax=1, center=0, annot=annot, fmt="",
+                annot_kws={"fontsize": 7}, square=True, linewidths=0.6, linecolor="white",
+                cbar_kws={"label": "Pearson r (same year)", "shrink": 0.7}, ax=ax)
+    for i in range(k):
+        for j in range(i):
+            if abs(corr[i, j]) > threshold:
+                ax.add_patch(Rectangle((j + 0.04, i + 0.04), 0.92, 0.92, fill=False, edgecolor="#111111",
+                                       linewidth=2.0, zorder=5))
+    short = [mpl_text(s) for s in labels]
+    ax.set_xticks(np.arange(k) + 0.5, short, rotation=40, ha="right")
+    ax.set_yticks(np.arange(k) + 0.5, short, rotation=0)
+    ax.grid(False)
+    ax.set_title(f"Outlined and starred: |r| > {threshold:g}, too collinear to separate", loc="left")
+    _mark_invented(fig, invented)
+    return fig
+
+
+def evidence_grid(grades: np.ndarray, lags: np.ndarray, row_labels: list[str], col_labels: list[str],
+                  invented: bool = False):
+    """Responses x drivers: the grade as the cell colour and as words, with the lag."""
+    order = list(GRADE_STYLE)
+    g = np.asarray(grades, dtype=object)
+    nr, nc = g.shape
+    idx = np.full((nr, nc), np.nan)
+    for i in range(nr):
+        for j in range(nc):
+            if g[i, j] in GRADE_STYLE:
+                idx[i, j] = order.index(g[i, j])
+    fig, ax = plt.subplots(figsize=(max(5.5, 0.95 * nc + 2.6), 0.62 * nr + 1.9), layout="constrained")
+    cmap = ListedColormap([GRADE_STYLE[k][0] for k in order])
+    cmap.set_bad("#ffffff")
+    ax.imshow(np.ma.masked_invalid(idx), cmap=cmap, vmin=-0.5, vmax=len(order) - 0.5, aspect="auto")
+    for i in range(nr):
+        for j in range(nc):
+            grade = g[i, j]
+            if grade in GRADE_STYLE:
+                fill, text, word = GRADE_STYLE[grade]
+                lag = lags[i, j]
+                sub = "" if lag is None or (isinstance(lag, float) and np.isnan(lag)) else f"\nlag {int(lag)}"
+                ax.text(j, i, word + sub, ha="center", va="center", fontsize=7, color=text,
+                        fontweight="bold" if grade in ("strong", "moderate") else "normal")
+                if grade == "insufficient-data":
+                    ax.add_patch(Rectangle((j - 0.5, i - 0.5), 1, 1, fill=False, hatch="///",
+                                           edgecolor="#bdbdbd", linewidth=0))
+            else:
+                ax.text(j, i, "not tried", ha="center", va="center", fontsize=6.5, color="#888888")
+    ax.set_xticks(range(nc), [mpl_text(s) for s in col_labels], rotation=35, ha="right")
+    ax.set_yticks(range(nr), [mpl_text(s) for s in row_labels])
+    ax.set_xticks(np.arange(nc + 1) - 0.5, minor=True)
+    ax.set_yticks(np.arange(nr + 1) - 0.5, minor=True)
+    ax.grid(False)
+    ax.grid(which="minor", color="white", linewidth=2)
+    ax.tick_params(which="minor", length=0)
+    for s in ax.spines.values():
+        s.set_visible(False)
+    _mark_invented(fig, invented)
+    return fig
+
+
+# ----------------------------------------------------------------------------- per hypothesis
+def overlay(years, y, x, lag: int, response: str, driver: str, invented: bool = False):
+    """Both series standardised (mean 0, sd 1) on the response's years, the driver shifted
+    by its lag so that what is compared is what the screen compared."""
+    fig, ax = plt.subplots(figsize=(5.4, 2.9), layout="constrained")
+    ax.axhline(0, color="#bbbbbb", lw=0.8)
+    ax.plot(years, _z(y), "-o", ms=3, lw=1.4, color=RESPONSE_COLOUR, label=mpl_text(response))
+    shifted = "same year" if lag == 0 else f"{lag} year{'s' if lag > 1 else ''} earlier"
+    ax.plot(years, _z(x), "--s", ms=2.8, lw=1.2, color=DRIVER_COLOUR,
+            label=mpl_text(f"{driver} ({shifted})"))
+    ax.set_xlabel("year of the response")
+    ax.set_ylabel("standardised value (z)")
+    ax.legend(loc="upper left", frameon=False, ncol=1)
+    _mark_invented(fig, invented)
+    return fig
+
+
+def scatter(x, y, lag: int, response: str, driver: str, smooth: dict | None = None,
+            invented: bool = False):
+    """Response against the lagged driver: the least-squares line, and the penalised-spline
+    fit when a GAM was screened for this pair."""
+    x = np.asarray(x, float)
+    y = np.asarray(y, float)
+    fig, ax = plt.subplots(figsize=(4.3, 2.9), layout="constrained")
+    ax.scatter(x, y, s=15, color=RESPONSE_COLOUR, alpha=0.85, edgecolors="white", linewidths=0.4,
+               label="years")
+    if len(x) >= 3 and np.ptp(x) > 0:
+        b, a = np.polyfit(x, y, 1)
+        g = np.linspace(np.min(x), np.max(x), 50)
+        r = np.corrcoef(x, y)[0, 1]
+        ax.plot(g, a + b * g, color=DRIVER_COLOUR, lw=1.6, label=f"linear fit (r = {r:.2f}, n = {len(x)})")
+    if smooth is not None:
+        ax.plot(smooth["grid"], smooth["fit"], color=SMOOTH_COLOUR, lw=1.6, ls=(0, (5, 2)),
+                label=f"penalised spline (edf {smooth['edf']:.1f})")
+    lead = "same year" if lag == 0 else f"{lag}-year lead"
+    ax.set_xlabel(mpl_text(f"{driver}, {lead}"))
+    ax.set_ylabel(mpl_text(response))
+    ax.legend(frameon=False, loc="best")
+    _mark_invented(fig, invented)
+    return fig
+
+
+def lag_profile(lags, r, r_crit, chosen: int, r_detrended=None, invented: bool = False):
+    """Pearson r at every lag tried, with the band inside which |r| is not significant at
+    p = 0.05 once autocorrelation is allowed for (critical |r| from each lag's n_eff)."""
+    lags = np.asarray(lags, float)
+    r = np.asarray(r, float)
+    rc = np.asarray(r_crit, float)
+    fig, ax = plt.subplots(figsize=(4.3, 2.9), layout="constrained")
+    edges = np.concatenate([[lags[0] - 0.5], lags + 0.5])
+    band = np.concatenate([rc, rc[-1:]])
+    ax.fill_between(edges, -band, band, step="post", color="#d9d9d9", alpha=0.8, lw=0,
+                    label="not significant (p > 0.05, n_eff)")
+    ax.axhline(0, color="#888888", lw=0.8)
+    colours = [RESPONSE_COLOUR if lg == chosen else "#8fb3d6" for lg in lags]
+    ax.bar(lags, r, width=0.55, color=colours, edgecolor=RESPONSE_COLOUR, linewidth=0.8, label="r",
+           zorder=3)
+    if r_detrended is not None:
+        ax.scatter(lags, r_detrended, marker="D", s=22, facecolors="white", edgecolors=DRIVER_COLOUR,
+                   linewidths=1.2, zorder=4, label="r after detrending")
+    if chosen in set(lags.astype(int)):
+        i = int(np.flatnonzero(lags == chosen)[0])
+        top = r[i] if np.isfinite(r[i]) else 0.0
+        ax.annotate("chosen lag", (chosen, top), xytext=(0, 10 if top >= 0 else -14),
+                    textcoords="offset points", ha="center", fontsize=7, color=RESPONSE_COLOUR)
+    lim = np.nanmax(np.abs(np.concatenate([r, rc, [0.3]] + ([np.asarray(r_detrended, float)]
+                                                            if r_detrended is not None else []))))
+    ax.set_ylim(-1.25 * lim, 1.25 * lim)
+    ax.set_xticks(lags.astype(int))
+    ax.set_xlabel("driver lead (years)")
+    ax.set_ylabel("Pearson r")
+    ax.legend(frameon=False, fontsize=6.5, loc="lower left", ncol=1)
+    ax.grid(axis="x", visible=False)
+    _mark_invented(fig, invented)
+    return fig
+
+
+def forecasts(years, observed, baselines: dict, model, hardest: str, response: str, driver: str,
+              invented: bool = False):
+    """Out-of-sample one-step forecasts: observed, the three baselines, and the hardest
+    baseline plus the driver (every forecast made from earlier years only)."""
+    fig, ax = plt.subplots(figsize=(5.4, 2.9), layout="constrained")
+    ax.plot(years, observed, "-o", ms=3.2, lw=1.2, color="#111111", label="observed", zorder=4)
+    for name, values in baselines.items():
+        colour, dash, _ = BASELINE_STYLES.get(name, ("#777777", "--", None))
+        ax.plot(years, values, color=colour, ls=dash, lw=1.1, label=f"{name} baseline")
+    ax.plot(years, model, "-s", ms=2.8, lw=1.6, color=DRIVER_COLOUR, zorder=5,
+            label=mpl_text(f"{hardest} + {driver}"))
+    ax.set_xlabel("forecast year")
+    ax.set_ylabel(mpl_text(response))
+    ax.legend(frameon=False, ncol=2, fontsize=6.5, loc="best")
+    _mark_invented(fig, invented)
+    return fig
+
+
+def null_distributions(panels: list[dict], invented: bool = False):
+    """Histograms of the statistic over the surrogate drivers with the real driver's value.
+    ``panels``: dicts with values, observed, label, p, title."""
+    n = len(panels)
+    fig, axes = plt.subplots(1, n, figsize=(2.9 * n + 0.4, 2.7), layout="constrained", squeeze=False)
+    for ax, p in zip(axes[0], panels):
+        v = np.asarray(p["values"], float)
+        v = v[np.isfinite(v)]
+        ax.hist(v, bins=30, color="#b8d4ec", edgecolor="white", linewidth=0.4, label="surrogates")
+        ax.axvline(p["observed"], color=DRIVER_COLOUR, lw=2, label="real driver")
+        ax.set_xlabel(mpl_text(p["label"]))
+        ax.set_ylabel("surrogate count")
+        ptxt = "" if p.get("p") is None or not np.isfinite(p["p"]) else f"  p = {p['p']:.3f}"
+        ax.set_title(mpl_text(p["title"]) + ptxt, loc="left")
+        ax.grid(axis="x", visible=False)
+        ax.legend(frameon=False, fontsize=6.5, loc="upper left")
+    _mark_invented(fig, invented)
+    return fig
+
+
+def gam_effect(grid, curve, lower, upper, x_obs, driver: str, response: str, stats_line: str,
+               invented: bool = False):
+    """Partial effect of the driver from the penalised spline, with its pointwise 95% band
+    and a rug of the observed driver values."""
+    fig, ax = plt.subplots(figsize=(4.3, 2.9), layout="constrained")
+    ax.fill_between(grid, lower, upper, color=SMOOTH_COLOUR, alpha=0.18, lw=0, label="95% band")
+    ax.plot(grid, curve, color=SMOOTH_COLOUR, lw=1.8, label="partial effect")
+    ax.axhline(0, color="#888888", lw=0.8)
+    ymin = np.nanmin(lower)
+    span = np.nanmax(upper) - ymin
+    ax.plot(x_obs, np.full(len(x_obs), ymin - 0.04 * span), "|", color=INK, ms=8, mew=0.8,
+            label="observed driver values")
+    ax.set_xlabel(mpl_text(driver))
+    ax.set_ylabel(mpl_text(f"effect on {response}"))
+    ax.set_title(mpl_text(stats_line), loc="left", fontsize=7.5)
+    ax.legend(frameon=False, fontsize=6.5, loc="best")
+    _mark_invented(fig, invented)
+    return fig
+
+
+BUILDERS = {f.__name__: f for f in (coverage, driver_correlation, evidence_grid, overlay, scatter,
+                                    lag_profile, forecasts, null_distributions, gam_effect)}
+
+
+# ----------------------------------------------------------------------------- rendering
+@dataclass
+class FigureJob:
+    """One figure to draw: ``BUILDERS[builder](**kwargs)``, saved under ``name``."""
+
+    name: str
+    builder: str
+    kwargs: dict = field(default_factory=dict)
+
+
+def to_png_base64(fig, dpi: int = EMBED_DPI) -> str:
     buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=dpi, bbox_inches="tight")
+    fig.savefig(buf, format="png", dpi=dpi)
     return base64.b64encode(buf.getvalue()).decode("ascii")
 
 
-def save(fig, figures_dir: str | Path, name: str) -> str:
-    """Write PNG (300 dpi) and SVG copies; return the embedded PNG as base64; close the figure."""
+def save(fig, figures_dir: str | Path, name: str) -> tuple[str, tuple[int, int]]:
+    """Write ``name``.png (300 dpi) and ``name``.svg; return the embedded PNG (base64, at
+    150 dpi, downsampled from the 300 dpi file) and its display size in CSS pixels; close
+    the figure."""
+    from PIL import Image
+
     d = Path(figures_dir)
     d.mkdir(parents=True, exist_ok=True)
-    fig.savefig(d / f"{name}.png", dpi=300, bbox_inches="tight")
-    fig.savefig(d / f"{name}.svg", bbox_inches="tight", metadata={"Date": None})
-    b64 = to_png_base64(fig)
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=PNG_DPI, metadata={"Software": None})
+    (d / f"{name}.png").write_bytes(buf.getvalue())
+    fig.savefig(d / f"{name}.svg", format="svg", metadata={"Date": None, "Creator": None})
+    width_in, height_in = fig.get_size_inches()
     plt.close(fig)
-    return b64
+    buf.seek(0)
+    with Image.open(buf) as im:
+        im = im.convert("RGB")
+        small = im.resize((max(1, round(im.width * EMBED_DPI / PNG_DPI)),
+                           max(1, round(im.height * EMBED_DPI / PNG_DPI))), Image.LANCZOS)
+    out = io.BytesIO()
+    small.save(out, format="PNG", optimize=False, compress_level=6)
+    return base64.b64encode(out.getvalue()).decode("ascii"), (round(width_in * 96), round(height_in * 96))
 
 
-def coverage(table: pd.DataFrame, roles: dict[str, str]):
-    """Which years each series has: one row per series, a mark per observed year."""
-    cols = sorted(table.columns, key=lambda c: (roles.get(c, "driver") != "response", c))
-    fig, ax = plt.subplots(figsize=(8, 0.28 * len(cols) + 1.2))
-    years = table.index.to_numpy()
-    for i, c in enumerate(cols):
-        ok = ~np.isnan(table[c].to_numpy(float))
-        colour = SERIES_COLOURS[0] if roles.get(c) == "response" else SERIES_COLOURS[1]
-        ax.scatter(years[ok], np.full(ok.sum(), i), marker="s", s=18, color=colour, linewidths=0)
-        ax.scatter(years[~ok], np.full((~ok).sum(), i), marker="x", s=12, color="#b0b0b0", linewidths=0.8)
-    ax.set_yticks(range(len(cols)), cols, fontsize=8)
-    ax.invert_yaxis()
-    ax.set_xlabel("year")
-    ax.set_title("Data coverage (squares: observed; x: missing; blue: responses, orange: drivers)", fontsize=9)
-    ax.grid(axis="x", alpha=0.3)
-    return fig
+def render_job(job: FigureJob, figures_dir: str) -> tuple[str, str, tuple[int, int]]:
+    with plt.rc_context(RC):
+        fig = BUILDERS[job.builder](**job.kwargs)
+        b64, size = save(fig, figures_dir, job.name)
+    return job.name, b64, size
 
 
-def overlay(years, y, x, lag: int, response: str, driver: str):
-    """Both series standardised, the driver shifted by its lag."""
-    z = lambda v: (v - np.nanmean(v)) / np.nanstd(v)
-    fig, ax = plt.subplots(figsize=(5.2, 2.8))
-    ax.plot(years, z(y), "-o", ms=3, color=SERIES_COLOURS[0], label=response)
-    ax.plot(years, z(x), "-s", ms=3, color=SERIES_COLOURS[1], label=f"{driver} (year - {lag})")
-    ax.set_xlabel("year")
-    ax.set_ylabel("standardised value")
-    ax.legend(fontsize=7, frameon=False)
-    ax.grid(alpha=0.3)
-    return fig
+def _render_star(args):
+    return render_job(*args)
 
 
-def scatter(x, y, lag: int, response: str, driver: str, smooth: tuple | None = None):
-    """Response against the lagged driver, with the least-squares line and an optional smooth."""
-    fig, ax = plt.subplots(figsize=(4.2, 2.8))
-    ax.scatter(x, y, s=14, color=SERIES_COLOURS[0])
-    b, a = np.polyfit(x, y, 1)
-    g = np.linspace(np.min(x), np.max(x), 50)
-    ax.plot(g, a + b * g, color=SERIES_COLOURS[1], label="linear fit")
-    if smooth is not None:
-        ax.plot(smooth[0], smooth[1], color=SERIES_COLOURS[2], ls="--", label="smooth (GAM)")
-    ax.set_xlabel(f"{driver} (year - {lag})")
-    ax.set_ylabel(response)
-    ax.legend(fontsize=7, frameon=False)
-    ax.grid(alpha=0.3)
-    return fig
+def render_jobs(jobs: list[FigureJob], figures_dir: str | Path, workers: int = 1) -> dict:
+    """Draw every job; returns name -> (base64 PNG, (width, height) in CSS px).
 
+    With ``workers > 1`` on a platform that can fork, the jobs are shared among worker
+    processes (figures are independent); otherwise they are drawn one after the other.
+    """
+    figures_dir = str(figures_dir)
+    workers = max(1, min(int(workers), len(jobs)))
+    results = None
+    if workers > 1 and hasattr(os, "fork"):
+        import multiprocessing as mp
+        from concurrent.futures import ProcessPoolExecutor
 
-def forecasts(fc: pd.DataFrame, baseline: str, response: str, driver: str):
-    """Out-of-sample one-step forecasts of baseline + driver against observed and the baseline."""
-    fig, ax = plt.subplots(figsize=(5.2, 2.8))
-    ax.plot(fc["year"], fc["observed"], "-o", ms=3, color="black", label="observed")
-    ax.plot(fc["year"], fc[f"baseline_{baseline}"], "--", color="#9e9e9e", label=f"{baseline} baseline")
-    ax.plot(fc["year"], fc[f"model_{baseline}"], "-s", ms=3, color=SERIES_COLOURS[0], label=f"{baseline} + {driver}")
-    ax.set_xlabel("forecast year")
-    ax.set_ylabel(response)
-    ax.legend(fontsize=7, frameon=False)
-    ax.grid(alpha=0.3)
-    return fig
-
-
-def null_distribution(values: np.ndarray, observed: float, label: str):
-    """Histogram of the surrogate statistics with the observed value marked."""
-    fig, ax = plt.subplots(figsize=(4.2, 2.6))
-    ax.hist(values, bins=40, color="#c9c3e6", edgecolor="white")
-    ax.axvline(observed, color=SERIES_COLOURS[0], lw=2, label="observed")
-    ax.set_xlabel(label)
-    ax.set_ylabel("surrogates")
-    ax.legend(fontsize=7, frameon=False)
-    return fig
+        try:
+            with ProcessPoolExecutor(max_workers=workers, mp_context=mp.get_context("fork")) as ex:
+                results = list(ex.map(_render_star, [(j, figures_dir) for j in jobs], chunksize=2))
+        except (OSError, RuntimeError):  # e.g. no process creation allowed here: draw serially
+            results = None
+    if results is None:
+        results = [render_job(j, figures_dir) for j in jobs]
+    return {name: (b64, size) for name, b64, size in results}

@@ -33,12 +33,28 @@ def study_configs(config: dict, default: str = "config/config.yaml") -> list[str
     return [p for p in str(value).split(",") if p]
 
 
+FULL_CHECK_LIMIT = 50
+
+
 def plan_studies(config: dict) -> dict[str, PlannedStudy]:
-    """Load every study config; a user's mistake prints one line per problem and exits 2."""
+    """Load every study config; a user's mistake prints one line per problem and exits 2.
+
+    Up to ``FULL_CHECK_LIMIT`` studies (or with ``check_inputs=true`` in Snakemake's
+    config) every input file is checked too, before any job starts, so a bad input never
+    leaves a partial result; larger batches check the configs only and leave the inputs to
+    each study's `align` job (``lagsieve check`` checks a study on its own).
+    """
     planned: dict[str, PlannedStudy] = {}
+    paths = study_configs(config)
+    full = str(config.get("check_inputs", len(paths) <= FULL_CHECK_LIMIT)).lower() in ("true", "1", "yes")
     try:
-        for path in study_configs(config):
-            st = load_study(path)
+        for path in paths:
+            if full:
+                from .stages import check_study
+
+                st = check_study(path)[0]
+            else:
+                st = load_study(path)
             if st.study in planned:
                 print(f"{path}: key 'study': id '{st.study}' is used by two configs; give each study its own id",
                       file=sys.stderr)

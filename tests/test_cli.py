@@ -1,0 +1,117 @@
+"""The command line: init, check, run; a user's mistake gives one clear line and exit 2."""
+from __future__ import annotations
+
+import hashlib
+from pathlib import Path
+
+import pytest
+import yaml
+
+from conftest import init_study, lagsieve
+
+
+@pytest.fixture()
+def study(tmp_path):
+    return init_study(tmp_path / "s")
+
+
+def _hashes(folder: Path) -> dict:
+    return {p.name: hashlib.sha256(p.read_bytes()).hexdigest() for p in sorted(folder.glob("*")) if p.is_file()}
+
+
+def test_init_then_check_ok(study):
+    proc = lagsieve("check", study)
+    assert proc.returncode == 0, proc.stderr
+    assert "ok: study 'caldrin_shelf_demo': 3 responses, 9 drivers" in proc.stdout
+
+
+def test_init_refuses_existing(study):
+    proc = lagsieve("init", study.parent)
+    assert proc.returncode == 2 and "already exists" in proc.stderr
+
+
+def _set_value(path: Path, row: int, new: str) -> str:
+    """Replace the last field of file row ``row`` (header = row 1); return the series id."""
+    lines = path.read_text().splitlines()
+    fields = lines[row - 1].split(",")
+    fields[-1] = new
+    lines[row - 1] = ",".join(fields)
+    path.write_text("\n".join(lines) + "\n")
+    return fields[0]
+
+
+def _expect_one_line(proc, *needles):
+    assert proc.returncode == 2, proc.stdout + proc.stderr
+    assert "Traceback" not in proc.stderr
+    lines = [ln for ln in proc.stderr.splitlines() if ln.strip() and not ln.startswith("warning:")]
+    assert len(lines) == 1, proc.stderr
+    for n in needles:
+        assert n in lines[0], (n, lines[0])
+    assert "; " in lines[0]
+    return lines[0]
+
+
+def test_missing_file(study):
+    data = yaml.safe_load(study.read_text())
+    data["inputs"][1] = "data/nope.csv"
+    study.write_text(yaml.safe_dump(data))
+    _expect_one_line(lagsieve("check", study), "nope.csv")
+
+
+def test_series_not_in_any_input(study):
+    data = yaml.safe_load(study.read_text())
+    data["drivers"][0]["id"] = "forage_biomas"
+    study.write_text(yaml.safe_dump(data))
+    line = _expect_one_line(lagsieve("check", study), "forage_biomas", "drivers.0.id")
+    assert "forage_biomass" in line  # the nearest id is suggested
+
+
+def test_duplicate_series_year(study):
+    f = study.parent / "data" / "indices_long.csv"
+    lines = f.read_text().splitlines()
+    f.write_text("\n".join(lines + [lines[3]]) + "\n")
+    _expect_one_line(lagsieve("check", study), "indices_long.csv", f":{len(lines) + 1}", "zooplankton_index")
+
+
+def test_non_numeric_value(study):
+    sid = _set_value(study.parent / "data" / "indices_long.csv", 3, "17.9x")
+    _expect_one_line(lagsieve("check", study), "indices_long.csv:3", f"series '{sid}'", "17.9x")
+
+
+def test_non_positive_under_log(study):
+    sid = _set_value(study.parent / "data" / "indices_long.csv", 4, "0")
+    assert sid == "zooplankton_index"  # configured with transform: log
+    _expect_one_line(lagsieve("check", study), "indices_long.csv:4", "zooplankton_index", "log")
+
+
+def test_bad_config_key(study):
+    text = study.read_text().replace("min_overlap: 15", "min_overlapp: 15")
+    study.write_text(text)
+    _expect_one_line(lagsieve("check", study), "min_overlapp")
+
+
+def test_run_writes_nothing_on_bad_input(study):
+    _set_value(study.parent / "data" / "indices_long.csv", 3, "abc")
+    before = _hashes(study.parent / "data")
+    proc = lagsieve("run", study, "--cores", "1")
+    _expect_one_line(proc, "indices_long.csv:3")
+    assert not (study.parent / "results").exists()
+    assert _hashes(study.parent / "data") == before  # inputs never modified
+
+
+def test_snakemake_direct_bad_config_exits_2(study, tmp_path):
+    """`snakemake` itself (not the CLI) refuses a bad study before any job runs."""
+    import os
+    import subprocess
+    import sys
+
+    from conftest import REPO
+
+    _set_value(study.parent / "data" / "indices_long.csv", 3, "abc")
+    out = tmp_path / "out"
+    proc = subprocess.run([sys.executable, "-m", "snakemake", "--snakefile", str(REPO / "Snakefile"), "--cores", "1",
+                           "--directory", str(tmp_path), "--config", f"study_config={study}", f"out={out}"],
+                          capture_output=True, text=True, env=dict(os.environ, PYTHONPATH=str(REPO / "src")))
+    assert proc.returncode != 0
+    assert "indices_long.csv:3: series 'zooplankton_index'" in proc.stderr + proc.stdout
+    assert not out.exists()
