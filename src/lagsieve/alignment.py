@@ -36,6 +36,31 @@ def annual_table(annual: pd.DataFrame, transforms: dict[str, str]) -> pd.DataFra
     return wide
 
 
+def se_table(annual: pd.DataFrame, transforms: dict[str, str]) -> pd.DataFrame:
+    """Standard errors on the same axis as :func:`annual_table`, carried to the transformed
+    scale by the delta method (se / value for log, se / (1 + value) for log1p)."""
+    if "se" not in annual:
+        annual = annual.assign(se=np.nan)
+    wide_v = annual.pivot(index="year", columns="series", values="value")
+    wide = annual.pivot(index="year", columns="series", values="se")
+    years = np.arange(int(wide.index.min()), int(wide.index.max()) + 1)
+    wide, wide_v = wide.reindex(years), wide_v.reindex(years)
+    wide.index.name = "year"
+    for col in wide.columns:
+        t = transforms.get(col, "none")
+        if t == "log":
+            wide[col] = wide[col] / wide_v[col]
+        elif t == "log1p":
+            wide[col] = wide[col] / (1.0 + wide_v[col])
+    return wide
+
+
+def inverse_variance_weights(se: np.ndarray) -> np.ndarray:
+    """Weights 1 / se^2 scaled to mean 1 (the scale does not change a weighted fit)."""
+    w = 1.0 / np.asarray(se, float) ** 2
+    return w / np.mean(w)
+
+
 def lagged(table: pd.DataFrame, series: str, lag: int) -> np.ndarray:
     """Values of ``series`` shifted so that row t holds the value of year t - lag."""
     return table[series].shift(lag).to_numpy(dtype=float)

@@ -693,6 +693,7 @@ def expanding_penalised(
     lam_grid: np.ndarray | None = None,
     gamma: float = 1.0,
     retune_every: int = 1,
+    weights: np.ndarray | None = None,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Penalised least squares on rows [0, i) for every origin i, forecasting row i, with the
     smoothing parameter chosen by GCV inside the training window.
@@ -709,15 +710,19 @@ def expanding_penalised(
     only training years are used. Between tuning origins the GCV score uses the edf of the
     latest tuning origin (an approximation that only affects model choice, never look-ahead).
 
+    ``weights`` (T,) make every fit weighted least squares (RSS and GCV weighted too).
+
     Returns (forecast, gcv, edf), each (..., n_origins).
     """
     lam = DEFAULT_LAM_GRID if lam_grid is None else np.asarray(lam_grid, float)
     W = np.asarray(W, float)
     y = np.asarray(y, float)
     q = W.shape[-1]
-    A = np.cumsum(W[..., :, :, None] * W[..., :, None, :], axis=-3)[..., origins - 1, :, :]
-    b = np.cumsum(W * y[:, None], axis=-2)[..., origins - 1, :]
-    yty = np.cumsum(y * y)[origins - 1]
+    w = np.ones(len(y)) if weights is None else np.asarray(weights, float)
+    Ww = W * w[:, None]
+    A = np.cumsum(Ww[..., :, :, None] * W[..., :, None, :], axis=-3)[..., origins - 1, :, :]
+    b = np.cumsum(Ww * y[:, None], axis=-2)[..., origins - 1, :]
+    yty = np.cumsum(w * y * y)[origins - 1]
     n = origins.astype(float)
     A = A + 1e-9 * (np.trace(A, axis1=-2, axis2=-1)[..., None, None] / q) * np.eye(q)
     tune = np.arange(0, len(origins), max(1, int(retune_every)))

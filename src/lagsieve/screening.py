@@ -15,7 +15,7 @@ import numpy as np
 import pandas as pd
 
 from . import statistics as st
-from .alignment import forecast_frame, shift_batch
+from .alignment import forecast_frame, inverse_variance_weights, shift_batch
 from .surrogates import make_surrogates
 from .gam import fit_pspline, partial_effect, shape_word, smooth_p_value
 from .validation import BASELINES, diebold_mariano, retest, rolling_origin
@@ -87,8 +87,13 @@ def validation_windows(n_rows: int, validation: dict) -> tuple[int, int]:
     return initial, holdout
 
 
-def screen_hypothesis(table: pd.DataFrame, response: dict, driver: dict, lags: list[int], screen: dict):
-    """Screen rows, hypothesis row, forecasts and null statistics for one response x driver."""
+def screen_hypothesis(table: pd.DataFrame, response: dict, driver: dict, lags: list[int], screen: dict,
+                      response_se: np.ndarray | None = None):
+    """Screen rows, hypothesis row, forecasts and null statistics for one response x driver.
+
+    ``response_se`` (n_years,) holds the response's standard errors on the table's axis; with
+    ``screen['weights'] == 'inverse-variance'`` the forecasting fits are weighted by 1/se^2.
+    """
     rid, did = response["id"], driver["id"]
     sign = driver.get("expected_sign", "any")
     B = int(screen["surrogates"])
@@ -163,7 +168,10 @@ def screen_hypothesis(table: pd.DataFrame, response: dict, driver: dict, lags: l
     if len(ff.years) - initial >= MIN_FORECASTS:
         X = np.stack([shift_batch(batch, k)[:, ff.rows] for k in lags], axis=1)  # (S, L, T)
         models = tuple(m for m in ("linear", "gam") if m in screen["models"])
-        ro = rolling_origin(ff.y, ff.ylag, ff.years, X, np.asarray(lags), initial, models=models)
+        w = None
+        if screen.get("weights") == "inverse-variance" and response_se is not None:
+            w = inverse_variance_weights(response_se[ff.rows])
+        ro = rolling_origin(ff.y, ff.ylag, ff.years, X, np.asarray(lags), initial, models=models, weights=w)
         sk = ro.skill
         for b in BASELINES:
             hyp[f"oos_skill_{b}"] = float(sk[b][0])
@@ -196,7 +204,7 @@ def screen_hypothesis(table: pd.DataFrame, response: dict, driver: dict, lags: l
         fc["hardest"] = ro.hardest
         fc["extrapolated"] = _extrapolated(X[0], ro.chosen_lag[ro.hardest][0], np.asarray(lags), initial)
         if len(ff.years) - holdout >= max(10, initial // 2):
-            rt = retest(ff.y, ff.ylag, ff.years, X[0], np.asarray(lags), holdout, ro.hardest)
+            rt = retest(ff.y, ff.ylag, ff.years, X[0], np.asarray(lags), holdout, ro.hardest, weights=w)
             hyp["retest_skill"] = rt.min_skill
             hyp["retest_years"] = f"{int(rt.years[0])}-{int(rt.years[-1])}"
     if use_gam:
@@ -268,7 +276,7 @@ def _stability(x: np.ndarray, y: np.ndarray, window: int = 15) -> dict:
     }
 
 
-def screen_response(table: pd.DataFrame, study, response_id: str) -> ResponseScreen:
+def screen_response(table: pd.DataFrame, study, response_id: str, se_table: pd.DataFrame | None = None) -> ResponseScreen:
     """Screen one response against every driver configured for it.
 
     A numerical failure inside one hypothesis is recorded in its row's ``status`` and the
@@ -279,7 +287,8 @@ def screen_response(table: pd.DataFrame, study, response_id: str) -> ResponseScr
     for driver in study.drivers_for(response_id):
         lags = study.lags_for(driver)
         try:
-            s, h, f, nl = screen_hypothesis(table, response, driver, lags, study.screen)
+            se = None if se_table is None or response_id not in se_table else se_table[response_id].to_numpy(float)
+            s, h, f, nl = screen_hypothesis(table, response, driver, lags, study.screen, se)
         except (np.linalg.LinAlgError, ValueError, FloatingPointError, ZeroDivisionError) as exc:
             s = pd.DataFrame([{"response": response_id, "driver": driver["id"], "lag": k,
                                "model": "linear", "status": f"failed: {exc}"} for k in lags])

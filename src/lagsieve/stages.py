@@ -98,6 +98,18 @@ def check_study(config_path: str | Path):
         problems += check_positive(annual, s["id"], s.get("transform", "none"), long)
     if problems:
         raise InputErrors(problems)
+    if study.screen.get("weights") == "inverse-variance":
+        for i, r in enumerate(study.responses):
+            rows = annual[annual["series"] == r["id"]]
+            bad = rows[~(rows["se"] > 0)] if "se" in rows else rows
+            if len(bad):
+                problems.append(InputProblem(
+                    what=f"screen.weights is inverse-variance but {len(bad)} year(s) have no positive se "
+                         f"(first: {int(bad['year'].iloc[0])})",
+                    fix="add an se or cv column for this response, or set screen.weights: none",
+                    file=cfg, key=f"responses.{i}", series=r["id"]))
+        if problems:
+            raise InputErrors(problems)
     units = {s["id"]: s["unit"] for s in study.responses + study.drivers if s.get("unit")}
     warnings = list(warnings) + list(series_warnings(annual, study.screen["min_overlap"], units))
     return study, annual, notes, warnings
@@ -144,8 +156,14 @@ def run_screen(config_path, annual_csv, response_id: str, out_dir, threads: int 
     by_slug = {slug(r): r for r in study.response_ids}
     response_id = by_slug.get(response_id, response_id)
     table = load_table(study, annual_csv)
+    se = None
+    if study.screen.get("weights") == "inverse-variance":
+        from .alignment import se_table
+
+        transforms = {s["id"]: s.get("transform", "none") for s in study.responses + study.drivers}
+        se = se_table(pd.read_csv(annual_csv), transforms)
     with threadpool_limits(limits=max(1, int(threads))):
-        res = screen_response(table, study, response_id)
+        res = screen_response(table, study, response_id, se)
     out = Path(out_dir)
     write_csv(res.forecasts, out / "forecasts.csv")
     write_csv(res.nulls, out / "nulls.csv")
@@ -173,18 +191,39 @@ def run_evidence(config_path, annual_csv, work_dir, out_screen, out_evidence) ->
 
 
 # ---------------------------------------------------------------- report
+def _iso(t: float) -> str:
+    return time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime(t))
+
+
+def pdf_wanted(study: Study) -> bool:
+    """``report.pdf`` of the config; when the key is absent, a PDF is made."""
+    value = (study.raw.get("report") or {}).get("pdf")
+    return True if value is None else bool(value)
+
+
 def run_report(config_path, annual_csv, notes_csv, work_dir, screen_csv, evidence_csv,
-               out_report, out_provenance, figures_dir, started: float | None = None) -> None:
-    """Stage `report`: figures, the self-contained HTML report and provenance.json."""
+               out_report, out_provenance, figures_dir, started: float | None = None,
+               out_pdf=None, threads: int | None = None) -> None:
+    """Stage `report`: figures and tables under ``figures_dir``, the self-contained HTML
+    report, its PDF copy (``out_pdf``, default ``report.pdf`` beside the report, unless the
+    config sets ``report.pdf: false``) and provenance.json.
+
+    ``threads``: worker processes for drawing the figures (default: up to 4 CPUs).
+    """
     from .provenance import package_versions, sha256_file, tool_version
-    from .report import build_report
+    from .report import build_report, pdf_summary_lines, write_pdf
 
     t0 = time.time() if started is None else started
     study = load_study(config_path)
     table = load_table(study, annual_csv)
+    annual = pd.read_csv(annual_csv)
     dirs = response_dirs(work_dir, study)
-    read = lambda name: pd.concat([pd.read_csv(d / name) for d in dirs.values()
-                                   if (d / name).stat().st_size > 1], ignore_index=True)
+
+    def read(name):
+        parts = [pd.read_csv(d / name) for d in dirs.values() if (d / name).is_file() and (d / name).stat().st_size > 1]
+        return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(
+            columns=["response", "driver", "year", "test", "value", "observed"])
+
     forecasts, nulls = read("forecasts.csv"), read("nulls.csv")
     evidence = pd.read_csv(evidence_csv, keep_default_na=True)
     screen = pd.read_csv(screen_csv)
@@ -194,6 +233,7 @@ def run_report(config_path, annual_csv, notes_csv, work_dir, screen_csv, evidenc
         p = Path(spec["path"])
         p = p if p.is_absolute() else study.base_dir / p
         inputs[spec["path"]] = sha256_file(p)
+    screened = [(d / "screen.csv").stat().st_mtime for d in dirs.values() if (d / "screen.csv").is_file()]
     prov = {
         "study": study.study,
         "config_path": str(study.path),
@@ -203,9 +243,25 @@ def run_report(config_path, annual_csv, notes_csv, work_dir, screen_csv, evidenc
         "seed": study.screen["seed"],
         "tool_version": tool_version(),
         "versions": package_versions(),
-        "started": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime(t0)),
+        "inputs_prepared": _iso(Path(annual_csv).stat().st_mtime),
+        "screened": _iso(max(screened)) if screened else None,
+        "started": _iso(t0),
     }
-    html = build_report(study, table, screen, evidence, forecasts, nulls, notes, prov, figures_dir)
-    prov["finished"] = time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime())
+    workers = threads if threads else min(4, os.cpu_count() or 1)
+    html, figs = build_report(study, table, screen, evidence, forecasts, nulls, notes, prov, figures_dir,
+                              annual=annual, workers=workers)
     write_text(html, out_report)
+    pdf_path = Path(out_pdf) if out_pdf else Path(out_report).with_name("report.pdf")
+    if pdf_wanted(study):
+        order = ["evidence_map"] + [n for n in figs if n not in ("evidence_map", "coverage", "driver_correlation")] \
+            + [n for n in ("coverage", "driver_correlation") if n in figs]
+        prov["pdf"] = write_pdf(html, pdf_path, study_id=study.study, title=study.raw.get("title") or study.study,
+                                summary=pdf_summary_lines(study, evidence),
+                                figures=[(n.replace("__", " / "), figs[n][0]) for n in order if n in figs],
+                                invented=bool(study.raw.get("invented")))
+    else:
+        prov["pdf"] = None
+        if out_pdf is None and pdf_path.is_file():  # a copy left by an earlier run would be stale
+            pdf_path.unlink()
+    prov["report_finished"] = _iso(time.time())
     write_json(prov, out_provenance)

@@ -61,16 +61,18 @@ def _scale_from_start(a: np.ndarray, n_start: int) -> np.ndarray:
     return (a - mu) / sd
 
 
-def _expanding_solve(W: np.ndarray, y: np.ndarray, origins: np.ndarray):
-    """Least squares on rows [0, i) for every origin i, batched over leading axes of W.
+def _expanding_solve(W: np.ndarray, y: np.ndarray, origins: np.ndarray, w: np.ndarray | None = None):
+    """(Weighted) least squares on rows [0, i) for every origin i, batched over leading axes.
 
-    W: (..., T, p) design, y: (T,) response. Returns beta (..., n_origins, p) and the
-    training residual sum of squares (..., n_origins).
+    W: (..., T, p) design, y: (T,) response, w: (T,) optional weights. Returns beta
+    (..., n_origins, p) and the training (weighted) residual sum of squares (..., n_origins).
     """
     p = W.shape[-1]
-    xtx = np.cumsum(W[..., :, :, None] * W[..., :, None, :], axis=-3)  # (..., T, p, p)
-    xty = np.cumsum(W * y[:, None], axis=-2)  # (..., T, p)
-    yty = np.cumsum(y * y)
+    w = np.ones(len(y)) if w is None else np.asarray(w, float)
+    Ww = W * w[:, None]
+    xtx = np.cumsum(Ww[..., :, :, None] * W[..., :, None, :], axis=-3)  # (..., T, p, p)
+    xty = np.cumsum(Ww * y[:, None], axis=-2)  # (..., T, p)
+    yty = np.cumsum(w * y * y)
     A = xtx[..., origins - 1, :, :]
     b = xty[..., origins - 1, :]
     ridge = 1e-10 * np.trace(A, axis1=-2, axis2=-1)[..., None, None] * np.eye(p) / p
@@ -143,6 +145,7 @@ def rolling_origin(
     n_basis: int | None = None,
     chunk: int = 128,
     retune_every: int = 5,
+    weights: np.ndarray | None = None,
 ) -> RollingOriginResult:
     """Expanding-window one-step-ahead forecasts with the lag chosen inside each window.
 
@@ -164,7 +167,8 @@ def rolling_origin(
     With ``"gam"`` in ``models``, the candidate on the hardest baseline is chosen at every
     origin among the linear and the penalised-spline form of every lag by GCV on the
     training years (smoothing parameter included), so the choice of model is nested too;
-    see :func:`gam_candidate`.
+    see :func:`gam_candidate`. ``weights`` (T,), for example inverse variances of the
+    response, turn every fit into weighted least squares; forecast errors stay unweighted.
     """
     y = np.asarray(y, float)
     T = len(y)
@@ -178,12 +182,12 @@ def rolling_origin(
     base_fc, model_fc, chosen, added, mse_base, rss_lin, fc_lin = {}, {}, {}, {}, {}, {}, {}
     for b in BASELINES:  # three fixed model forms
         Z = baseline_design(b, yl, yr)  # (T, p)
-        beta0, _ = _expanding_solve(Z, y, origins)
+        beta0, _ = _expanding_solve(Z, y, origins, weights)
         base_fc[b] = (Z[origins] * beta0).sum(-1)
         W = np.concatenate(
             [np.broadcast_to(Z, (S, L) + Z.shape), Xs[..., None]], axis=-1
         )  # (S, L, T, p+1)
-        beta, rss = _expanding_solve(W, y, origins)  # (S, L, O, p+1), (S, L, O)
+        beta, rss = _expanding_solve(W, y, origins, weights)  # (S, L, O, p+1), (S, L, O)
         fc = (W[:, :, origins, :] * beta).sum(-1)  # (S, L, O)
         rss_lin[b], fc_lin[b] = rss, fc
         pick = np.argmin(rss, axis=1)  # (S, O)
@@ -205,7 +209,8 @@ def rolling_origin(
         edf_gam = np.empty_like(gcv_lin)
         for lo in range(0, S, chunk):  # chunks bound the memory of the stacked systems
             sl = slice(lo, lo + chunk)
-            fc_gam[sl], gcv_gam[sl], edf_gam[sl] = gam_candidate(Z, Xs[sl], y, origins, initial, K, retune_every)
+            fc_gam[sl], gcv_gam[sl], edf_gam[sl] = gam_candidate(Z, Xs[sl], y, origins, initial, K, retune_every,
+                                                                      weights)
         gcv_all = np.concatenate([gcv_lin, gcv_gam], axis=1)  # (S, 2L, O)
         fc_all = np.concatenate([fc_lin[hardest], fc_gam], axis=1)
         pick = np.argmin(gcv_all, axis=1)
@@ -233,7 +238,7 @@ def rolling_origin(
 
 
 def gam_candidate(Z: np.ndarray, Xs: np.ndarray, y: np.ndarray, origins: np.ndarray, initial: int,
-                  n_basis: int, retune_every: int = 5):
+                  n_basis: int, retune_every: int = 5, weights: np.ndarray | None = None):
     """Rolling-origin forecasts of baseline + f(driver) for every driver in the batch and lag.
 
     f is a cubic P-spline (Eilers & Marx 1996) with ``n_basis`` B-splines whose knots span
@@ -250,7 +255,7 @@ def gam_candidate(Z: np.ndarray, Xs: np.ndarray, y: np.ndarray, origins: np.ndar
     q0 = others.shape[1]
     P = np.zeros((q0 + n_basis, q0 + n_basis))
     P[q0:, q0:] = difference_penalty(n_basis, 2)
-    return expanding_penalised(W, P, y, origins, retune_every=retune_every)
+    return expanding_penalised(W, P, y, origins, retune_every=retune_every, weights=weights)
 
 
 def skill_score(mse_model: float | np.ndarray, mse_baseline: float | np.ndarray):
@@ -320,6 +325,7 @@ def retest(
     lags: np.ndarray,
     holdout: int,
     baseline: str = "trend",
+    weights: np.ndarray | None = None,
 ) -> RetestResult:
     """Fit on all but the last ``holdout`` rows (lag chosen there), score those rows.
 
@@ -336,17 +342,18 @@ def retest(
     yl = _scale_from_start(np.asarray(ylag, float), n_train)
     yr = _scale_from_start(np.asarray(year, float), n_train)
     yt = y[:n_train]
+    sw = np.sqrt(np.ones(T) if weights is None else np.asarray(weights, float))[:n_train]
     mse_b = {}
     for b in BASELINES:
         Z = baseline_design(b, yl, yr)
-        beta0 = np.linalg.lstsq(Z[:n_train], yt, rcond=None)[0]
+        beta0 = np.linalg.lstsq(Z[:n_train] * sw[:, None], yt * sw, rcond=None)[0]
         mse_b[b] = float(np.mean((y[n_train:] - (Z @ beta0)[n_train:]) ** 2))
     Z = baseline_design(baseline, yl, yr)
     best = None
     for li in range(Xs.shape[0]):  # a handful of lags
         W = np.column_stack([Z, Xs[li]])
-        beta, *_ = np.linalg.lstsq(W[:n_train], yt, rcond=None)
-        rss = float(np.sum((yt - W[:n_train] @ beta) ** 2))
+        beta, *_ = np.linalg.lstsq(W[:n_train] * sw[:, None], yt * sw, rcond=None)
+        rss = float(np.sum(sw**2 * (yt - W[:n_train] @ beta) ** 2))
         if best is None or rss < best[0]:
             best = (rss, li, W @ beta)
     mse_c = float(np.mean((y[n_train:] - best[2][n_train:]) ** 2))
