@@ -45,7 +45,7 @@ def test_evidence_contract_and_vocabulary(demo_run):
     assert list(ev.columns[: len(EVIDENCE_COLUMNS)]) == EVIDENCE_COLUMNS
     assert len(ev) == 27
     assert set(ev.grade) <= set(GRADES)
-    codes = {c for f in ev.flags.dropna() for c in f.split(";")}
+    codes = {c for f in ev["flags"].dropna() for c in f.split(";")}
     assert codes <= set(FLAGS)
     for _, g in ev.groupby("response"):
         assert sorted(g["rank"]) == list(range(1, len(g) + 1))

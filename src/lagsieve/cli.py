@@ -71,6 +71,10 @@ def cmd_run(args, extra: list[str]) -> int:
            "--config", f"study_config={cfg}", f"out={out}", *extra]
     env = dict(os.environ)
     env["PYTHONPATH"] = os.pathsep.join(filter(None, [str(REPO_ROOT / "src"), env.get("PYTHONPATH")]))
+    if args.resume:
+        # a killed run leaves Snakemake's lock and its incomplete-job markers behind
+        subprocess.run(cmd + ["--unlock"], env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+        cmd.append("--rerun-incomplete")
     proc = subprocess.run(cmd, env=env)
     if proc.returncode == 0:
         print(f"results in {out / study.study}")
@@ -103,6 +107,8 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("config")
     s.add_argument("--cores", type=int, default=max(1, os.cpu_count() or 1))
     s.add_argument("--out", help="results folder (default: results/ beside the config)")
+    s.add_argument("--resume", action="store_true",
+                   help="after an interrupted run: remove the stale lock and redo incomplete jobs")
     s = sub.add_parser("ledger", help="print the forecast track record of a study")
     s.add_argument("config")
     s.add_argument("--out", help="results folder (default: results/ beside the config)")
