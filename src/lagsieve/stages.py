@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import json
 import os
+import sys
 import tempfile
 import time
 from contextlib import contextmanager
@@ -26,6 +27,32 @@ EVIDENCE_COLUMNS = ["response", "driver", "category", "expected_sign", "lag", "m
                     "oos_skill_climatology", "oos_skill_persistence", "oos_skill_trend", "oos_n", "oos_p",
                     "oos_p_surrogate", "oos_hardest", "oos_lag", "oos_lag_share", "retest_skill", "retest_years",
                     "gam_gain", "edf", "shape", "grade", "flags", "rank", "collinear_with", "summary", "status"]
+
+
+# ---------------------------------------------------------------- job logs
+@contextmanager
+def logged(smk):
+    """Send a Snakemake job's warnings and errors to its ``log:`` file (when it has one)."""
+    import contextlib
+    import logging
+    import traceback
+    import warnings
+
+    logs = list(getattr(smk, "log", []) or [])
+    if not logs:
+        yield
+        return
+    Path(logs[0]).parent.mkdir(parents=True, exist_ok=True)
+    with open(logs[0], "w", encoding="utf-8") as fh, contextlib.redirect_stderr(fh):
+        logging.basicConfig(stream=fh, level=logging.INFO, force=True)
+        warnings.simplefilter("default")
+        try:
+            yield
+        except BaseException:
+            traceback.print_exc(file=fh)
+            fh.flush()
+            sys.__stderr__.write(f"lagsieve: job failed; see {logs[0]}\n")
+            raise
 
 
 # ---------------------------------------------------------------- atomic writes

@@ -6,6 +6,10 @@ rule align:
     output:
         annual=f"{OUT}/{{study}}/work/annual.csv",
         notes=f"{OUT}/{{study}}/work/notes.csv",
+    log:
+        f"{OUT}/{{study}}/logs/align.log",
+    conda:
+        "../envs/lagsieve.yaml"
     resources:
         mem_mb=1000,
         runtime=10,

@@ -8,6 +8,10 @@ rule evidence:
     output:
         screen=f"{OUT}/{{study}}/screen.csv",
         evidence=f"{OUT}/{{study}}/evidence.csv",
+    log:
+        f"{OUT}/{{study}}/logs/evidence.log",
+    conda:
+        "../envs/lagsieve.yaml"
     resources:
         mem_mb=1000,
         runtime=10,

@@ -9,6 +9,10 @@ rule screen:
         forecasts=f"{OUT}/{{study}}/work/responses/{{response}}/forecasts.csv",
         nulls=f"{OUT}/{{study}}/work/responses/{{response}}/nulls.csv",
     threads: 1
+    log:
+        f"{OUT}/{{study}}/logs/screen/{{response}}.log",
+    conda:
+        "../envs/lagsieve.yaml"
     resources:
         mem_mb=1000,
         runtime=30,

@@ -1,7 +1,8 @@
 # Thin wrapper: stage `screen` for one response (see lagsieve.stages.run_screen).
 from pathlib import Path
 
-from lagsieve.stages import run_screen
+from lagsieve.stages import logged, run_screen
 
-run_screen(snakemake.input.config, snakemake.input.annual, snakemake.wildcards.response,
-           Path(snakemake.output.screen).parent, threads=snakemake.threads)
+with logged(snakemake):
+    run_screen(snakemake.input.config, snakemake.input.annual, snakemake.wildcards.response,
+               Path(snakemake.output.screen).parent, threads=snakemake.threads)
