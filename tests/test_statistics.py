@@ -63,7 +63,7 @@ def test_correlation_p_floors_df_at_one():
 
 
 # ----------------------------------------------------------------- effective sample size
-# ten invented numbers for the hand computation
+# a worked example: ten numbers for the hand computation of eq. 1
 X10 = np.array([1.2, 0.8, 1.9, 2.4, 2.0, 2.9, 3.1, 2.6, 3.8, 4.0])
 Y10 = np.array([0.5, 0.9, 0.7, 1.6, 1.4, 1.1, 2.0, 2.2, 1.8, 2.7])
 
@@ -113,12 +113,14 @@ def test_effective_n_clipped_to_n_when_formula_exceeds_n():
 
 
 def test_effective_n_clipped_to_two_from_below():
-    # a ramp against itself with many lags: the raw formula gives N* < 2; clipped to 2.
-    v = np.arange(10.0)
-    J = 6
+    # x = y = (-1)^t, n = 10, all 9 lags: rho(j) = (-1)^j (10 - j) / 10, so
+    # sum rho^2 = 285 / 100 and the raw formula gives 1 / (0.1 + 0.2 * 2.85) = 1.49 < 2.
+    v = (-1.0) ** np.arange(10)
+    J = 9
     s = sum(_biased_acf_by_loop(v, j) ** 2 for j in range(1, J + 1))
+    assert s == pytest.approx(2.85, rel=1e-12)
     raw = 1.0 / (1.0 / 10 + (2.0 / 10) * s)
-    assert raw < 2.0
+    assert raw == pytest.approx(1.0 / 0.67, rel=1e-12)
     assert float(st.effective_n(v, v, max_lag=J)) == 2.0
 
 

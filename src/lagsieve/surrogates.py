@@ -140,6 +140,12 @@ def make_surrogates(
         s = ar_sieve(resid, n_surrogates, rng)
     else:
         raise ValueError(f"unknown surrogate method {method!r}")
+    if keep_trend:
+        # the randomised residuals carry a small chance slope of their own: remove each
+        # surrogate's least-squares line so that every surrogate has exactly the real trend
+        t = np.arange(s.shape[1], dtype=float) - (s.shape[1] - 1) / 2.0
+        slope = (s - s.mean(1, keepdims=True)) @ t / (t @ t)
+        s = s - s.mean(1, keepdims=True) - slope[:, None] * t[None, :]
     s = s + trend[None, :]
     s[:, bad] = np.nan
     return s
