@@ -21,6 +21,7 @@ include: "workflow/rules/align.smk"
 include: "workflow/rules/screen.smk"
 include: "workflow/rules/evidence.smk"
 include: "workflow/rules/report.smk"
+include: "workflow/rules/ledger.smk"
 
 
 rule all:

@@ -9,7 +9,10 @@ least squares on every observed year and forecasts the first response year not y
 T + 1. The three baselines (climatology, persistence, trend) are fitted on the same years and
 forecast the same year, so that the candidate can later be compared with what one would have
 forecast without the driver. A forecast needs the driver in year T + 1 - lag, so it can be made
-when lag >= 1, or when the driver has already been observed in T + 1.
+when lag >= 1, or when the driver has already been observed in T + 1; otherwise the reason is
+recorded with the grade. The candidate is always the straight-line form (also when the screen
+preferred a spline), and with ``screen.weights: inverse-variance`` every fit is weighted by
+1/se^2 as in the screen. Values are on the model's scale (the response's transform).
 
 Prediction interval (``LEVEL`` = 80 %, two-sided): the classical OLS prediction interval from
 the candidate's training residuals, forecast +- t(0.90; n - p) * s * sqrt(1 + w0' (W'W)^-1 w0),
@@ -35,9 +38,10 @@ Tables (SQLite, one file, several studies may share it)
                       SHA-256, the screen settings (JSON), counts of new/scored/superseded
 ``series_years``      per run, series and year: the annual value and its hash (the data
                       fingerprint used to list added and restated years)
-``grades``            per run and hypothesis: grade, lag, hardest baseline, the statistics the
-                      grade rules use, flags, and why no forecast was made (``note``)
-``forecasts``         one row per forecast: hypothesis, lag, baseline, origin year T, target year,
+``grades``            per run and hypothesis: grade, model, lag, hardest baseline, the
+                      statistics the grade rules use, flags, and why no forecast was made (``note``)
+``forecasts``         one row per forecast: hypothesis, grade, the form the screen preferred
+                      (``screen_model``), lag, baseline, scale, origin year T, target year,
                       driver year and value, forecast and interval, training-data hash, input
                       hashes, tool version, status (open, scored, superseded)
                       UNIQUE(study, response, driver, target_year, training_sha256)
@@ -63,7 +67,6 @@ from scipy import stats as _st
 
 from .alignment import forecast_frame
 from .config import Study, load_study
-from .errors import InputErrors, InputProblem
 from .validation import BASELINES, baseline_design
 
 SCHEMA_VERSION = "1"
@@ -105,6 +108,7 @@ CREATE TABLE IF NOT EXISTS grades (
     response        TEXT NOT NULL,
     driver          TEXT NOT NULL,
     grade           TEXT NOT NULL,
+    model           TEXT,
     lag             INTEGER,
     hardest         TEXT,
     q_value         REAL,
@@ -124,6 +128,7 @@ CREATE TABLE IF NOT EXISTS forecasts (
     response          TEXT NOT NULL,
     driver            TEXT NOT NULL,
     grade             TEXT NOT NULL,
+    screen_model      TEXT NOT NULL DEFAULT 'linear',
     lag               INTEGER NOT NULL,
     baseline          TEXT NOT NULL,
     scale             TEXT NOT NULL,
@@ -219,24 +224,29 @@ class NextYearForecast:
     training_sha256: str
     baselines: dict[str, tuple[float, float, float]] = field(default_factory=dict)  # b -> (fc, lo, hi)
     grade: str = ""  # the hypothesis' grade when the forecast was made
+    screen_model: str = "linear"  # the form the screen preferred (the forecast is always linear)
 
 
-def _ols_forecast(W: np.ndarray, y: np.ndarray, w0: np.ndarray, level: float):
-    """OLS fit of y on W; forecast at w0 with its two-sided prediction interval.
+def _ols_forecast(W: np.ndarray, y: np.ndarray, w0: np.ndarray, level: float, weights: np.ndarray | None = None):
+    """Least-squares fit of y on W; forecast at w0 with its two-sided prediction interval.
 
-    Returns (forecast, lower, upper, residual sd). Columns other than the first (intercept)
-    are centred by their training means first, which leaves the forecast unchanged and keeps
-    the normal equations well conditioned (the year column is about 2000).
+    Returns (forecast, lower, upper, residual sd). With ``weights`` (mean 1) the fit is
+    weighted least squares and the new year gets weight 1, the mean precision of the training
+    years (its standard error is not known yet). Columns other than the first (intercept) are
+    centred first, which leaves the forecast unchanged and keeps the normal equations well
+    conditioned (the year column is about 2000).
     """
     W = np.asarray(W, float).copy()
     w0 = np.asarray(w0, float).copy()
+    sw = np.ones(len(y)) if weights is None else np.sqrt(np.asarray(weights, float))
     mu = W[:, 1:].mean(axis=0)
     W[:, 1:] -= mu
     w0[1:] -= mu
-    n, p = W.shape
-    q, r = np.linalg.qr(W)
-    beta = np.linalg.solve(r, q.T @ y)
-    resid = y - W @ beta
+    Ws, ys = W * sw[:, None], np.asarray(y, float) * sw
+    n, p = Ws.shape
+    q, r = np.linalg.qr(Ws)
+    beta = np.linalg.solve(r, q.T @ ys)
+    resid = ys - Ws @ beta
     df = n - p
     s = float(np.sqrt(resid @ resid / df))
     lev = np.linalg.solve(r.T, w0)
@@ -265,27 +275,35 @@ def used_values(raw: pd.DataFrame, response: str, driver: str, lag: int, fit_yea
 
 
 def training_hash(raw: pd.DataFrame, transforms: dict[str, str], response: str, driver: str,
-                  lag: int, baseline: str, cells: list[tuple[str, int]]) -> str:
+                  lag: int, baseline: str, cells: list[tuple[str, int]], raw_se: pd.DataFrame | None = None) -> str:
     """SHA-256 of everything a forecast is made from: the model (lag, baseline, transforms) and
     the raw annual values of its cells (a missing cell is written as null). ``raw`` is wide:
-    years as index, one column per series, values before transforms."""
-    vals = []
-    for s, y in cells:
-        v = raw[s].get(y, np.nan) if s in raw.columns else np.nan
-        vals.append([s, int(y), None if pd.isna(v) else _fmt_value(v)])
+    years as index, one column per series, values before transforms. With ``raw_se`` (weighted
+    fits) the response's standard errors in its cells are part of it too."""
+    def cell(frame, s, y):
+        v = frame[s].get(y, np.nan) if s in frame.columns else np.nan
+        return None if pd.isna(v) else _fmt_value(v)
+
+    vals = [[s, int(y), cell(raw, s, y)] for s, y in cells]
     payload = {"response": response, "driver": driver, "lag": int(lag), "baseline": baseline,
                "transform": [transforms.get(response, "none"), transforms.get(driver, "none")],
                "cells": vals}
+    if raw_se is not None:
+        payload["se"] = [[s, int(y), cell(raw_se, s, y)] for s, y in cells if s == response]
     return _h(json.dumps(payload, sort_keys=True, separators=(",", ":")))
 
 
 def next_year_forecast(table: pd.DataFrame, raw: pd.DataFrame, transforms: dict[str, str],
                        response: str, driver: str, lag: int, baseline: str,
-                       level: float = LEVEL) -> tuple[NextYearForecast | None, str]:
+                       level: float = LEVEL, se: pd.DataFrame | None = None,
+                       raw_se: pd.DataFrame | None = None) -> tuple[NextYearForecast | None, str]:
     """Forecast the first response year not yet observed with the candidate model.
 
     ``table`` is the wide transformed annual table (:func:`lagsieve.stages.load_table`), ``raw``
-    the same before transforms. Returns (forecast, "") or (None, the reason no forecast can be
+    the same before transforms. With ``se`` (standard errors on the transformed scale, as
+    :func:`lagsieve.alignment.se_table`; given when ``screen.weights`` is inverse-variance)
+    every fit is weighted by 1/se^2, as in the screen; ``raw_se`` (before transforms) then
+    enters the training hash. Returns (forecast, "") or (None, the reason no forecast can be
     made, in words).
     """
     y_all = table[response]
@@ -303,17 +321,28 @@ def next_year_forecast(table: pd.DataFrame, raw: pd.DataFrame, transforms: dict[
     if len(y) - p_c < 3:
         return None, f"no forecast: {len(y)} usable years are too few for the candidate model"
     yT = float(y_all.loc[T])
+    wts = None
+    if se is not None:
+        from .alignment import inverse_variance_weights
+
+        wts = inverse_variance_weights(se[response].to_numpy(dtype=float)[rows])
     fcs = {}
-    for b in BASELINES:
-        Z = baseline_design(b, ylag, years)
-        z0 = baseline_design(b, np.array([yT]), np.array([target]))[0]
-        fcs[b] = _ols_forecast(Z, y, z0, level)[:3]
-    Z = baseline_design(baseline, ylag, years)
-    W = np.column_stack([Z, x])
-    w0 = np.append(baseline_design(baseline, np.array([yT]), np.array([target]))[0], float(xv))
-    fc, lo, hi, s = _ols_forecast(W, y, w0, level)
+    try:
+        for b in BASELINES:
+            Z = baseline_design(b, ylag, years)
+            z0 = baseline_design(b, np.array([yT]), np.array([target]))[0]
+            fcs[b] = _ols_forecast(Z, y, z0, level, wts)[:3]
+        Z = baseline_design(baseline, ylag, years)
+        W = np.column_stack([Z, x])
+        w0 = np.append(baseline_design(baseline, np.array([yT]), np.array([target]))[0], float(xv))
+        fc, lo, hi, s = _ols_forecast(W, y, w0, level, wts)
+    except np.linalg.LinAlgError as exc:
+        return None, f"no forecast: the least-squares fit failed ({exc})"
+    if not np.all(np.isfinite([fc, lo, hi, s] + [v for t in fcs.values() for v in t])):
+        return None, "no forecast: the fit gave a non-finite forecast or interval (a constant driver?)"
     cells = used_values(raw, response, driver, int(lag), years, T)
-    sha = training_hash(raw, transforms, response, driver, int(lag), baseline, cells)
+    sha = training_hash(raw, transforms, response, driver, int(lag), baseline, cells,
+                        raw_se if se is not None else None)
     return NextYearForecast(response=response, driver=driver, lag=int(lag), baseline=baseline, origin_year=T,
                             target_year=target, driver_year=dyear, driver_value=float(xv), forecast=fc,
                             lower=lo, upper=hi, level=level, n_train=int(len(y)), resid_sd=s,
@@ -376,15 +405,49 @@ def _str(v) -> str:
 def grade_rows(evidence: pd.DataFrame) -> pd.DataFrame:
     """The per-hypothesis part of evidence.csv that the ledger keeps (and whose change makes a
     new run)."""
-    cols = {"response": _str, "driver": _str, "grade": _str, "lag": _int, "oos_hardest": _str,
+    cols = {"response": _str, "driver": _str, "grade": _str, "model": _str, "lag": _int, "oos_hardest": _str,
             "q_value": _num, "p_surrogate": _num, "oos_skill": _num, "oos_p_surrogate": _num,
             "retest_skill": _num, "flags": _str, "last_year": _int}
-    out = pd.DataFrame({c: [f(v) for v in evidence[c]] if c in evidence else None for c, f in cols.items()})
+    out = pd.DataFrame({c: [f(v) for v in (evidence[c] if c in evidence else [None] * len(evidence))]
+                        for c, f in cols.items()})
     return out.rename(columns={"oos_hardest": "hardest"}).sort_values(["response", "driver"]).reset_index(drop=True)
 
 
-def _wide_raw(annual: pd.DataFrame) -> pd.DataFrame:
-    return annual.pivot(index="year", columns="series", values="value").astype(float)
+@dataclass
+class StudyData:
+    """The data of one run as the ledger needs them."""
+
+    table: pd.DataFrame  # wide, transformed (the screen's table)
+    raw: pd.DataFrame  # wide, before transforms (hashed)
+    transforms: dict[str, str]
+    se: pd.DataFrame | None = None  # transformed-scale standard errors, only for weighted fits
+    raw_se: pd.DataFrame | None = None
+
+    @classmethod
+    def load(cls, study: Study, annual_csv: str | Path) -> "StudyData":
+        from .stages import load_table
+
+        annual = pd.read_csv(annual_csv)
+        transforms = {s["id"]: s.get("transform", "none") for s in study.responses + study.drivers}
+        raw = annual.pivot(index="year", columns="series", values="value").astype(float)
+        se = raw_se = None
+        if study.screen.get("weights") == "inverse-variance":
+            from .alignment import se_table
+
+            se = se_table(annual, transforms)
+            raw_se = annual.pivot(index="year", columns="series", values="se").astype(float)
+        return cls(load_table(study, annual_csv), raw, transforms, se, raw_se)
+
+    def forecast(self, response, driver, lag, baseline, level=LEVEL):
+        return next_year_forecast(self.table, self.raw, self.transforms, response, driver, lag, baseline,
+                                  level, self.se, self.raw_se)
+
+    def training_sha(self, response, driver, lag, baseline, origin_year) -> str:
+        """The training hash a forecast made at ``origin_year`` would have on these data."""
+        years, *_ = training_years(self.table, response, driver, lag, origin_year)
+        cells = used_values(self.raw, response, driver, lag, years, origin_year)
+        return training_hash(self.raw, self.transforms, response, driver, lag, baseline, cells,
+                             self.raw_se if self.se is not None else None)
 
 
 def _input_hashes(study: Study) -> dict[str, str]:
@@ -417,24 +480,22 @@ def update_ledger(config_path: str | Path, annual_csv: str | Path, evidence_csv:
                   ledger_path: str | Path | None = None, now: str | None = None) -> dict:
     """Stage `ledger`: record this run's forecasts, score and supersede earlier ones.
 
-    Everything is computed first; the database is then written in one transaction. Returns the
-    summary (also written to ``summary_path`` as JSON after the transaction has committed).
+    ``study_dir`` is ``<out>/<study>`` (where a relative ``ledger.path`` is resolved);
+    ``ledger_path`` overrides the config. Everything is computed first; the database is then
+    written in one transaction. Returns the summary, also written to ``summary_path`` as JSON
+    after the transaction has committed: study, status (``recorded`` or ``unchanged``), run_id,
+    the numbers of forecasts new, scored and superseded, and the ledger's path.
     """
     from .provenance import sha256_file, tool_version
-    from .stages import load_table, write_json
+    from .stages import write_json
 
     study = load_study(config_path)
-    table = load_table(study, annual_csv)
-    annual = pd.read_csv(annual_csv)
-    raw = _wide_raw(annual)
-    transforms = {s["id"]: s.get("transform", "none") for s in study.responses + study.drivers}
+    data = StudyData.load(study, annual_csv)
     evidence = pd.read_csv(evidence_csv)
     grades = grade_rows(evidence)
-    fp = fingerprints(annual)
+    fp = fingerprints(pd.read_csv(annual_csv))
     data_sha = _digest_frame(fp[["series", "year", "value_sha"]])
     run_key = _h(data_sha + "|" + _digest_frame(grades))
-    inputs_json = json.dumps(_input_hashes(study), sort_keys=True)
-    version = tool_version()
     path = Path(ledger_path) if ledger_path else resolve_ledger_path(study, study_dir)
 
     made: list[NextYearForecast] = []
@@ -445,19 +506,22 @@ def update_ledger(config_path: str | Path, annual_csv: str | Path, evidence_csv:
         if g["lag"] is None or not g["hardest"]:
             notes[(g["response"], g["driver"])] = "no forecast: no selected lag or hardest baseline"
             continue
-        f, why = next_year_forecast(table, raw, transforms, g["response"], g["driver"], g["lag"], g["hardest"])
+        f, why = data.forecast(g["response"], g["driver"], g["lag"], g["hardest"])
         if f is None:
             notes[(g["response"], g["driver"])] = why
         else:
-            f.grade = g["grade"]
+            f.grade, f.screen_model = g["grade"], g["model"] or "linear"
             made.append(f)
-    new_fp = dict(zip(zip(fp["series"], fp["year"].astype(int)), fp["value_sha"]))
-
+    run = {"study": study.study, "run_key": run_key, "data_sha256": data_sha,
+           "inputs_sha256": json.dumps(_input_hashes(study), sort_keys=True), "tool_version": tool_version(),
+           "config_sha256": sha256_file(study.path),
+           "created_utc": now or time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
+           "screen_json": json.dumps({k: study.screen[k] for k in ("alpha", "fdr", "min_overlap", "surrogates",
+                                                                    "seed", "weights") if k in study.screen},
+                                     sort_keys=True)}
     con = connect(path)
     try:
-        summary = _write_run(con, study, run_key, data_sha, inputs_json, version, sha256_file(study.path),
-                             fp, new_fp, grades, notes, made, table, raw, transforms,
-                             now or time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()))
+        summary = write_run(con, run, fp, grades, notes, made, data)
     finally:
         con.close()
     summary["ledger"] = str(path)
@@ -466,36 +530,39 @@ def update_ledger(config_path: str | Path, annual_csv: str | Path, evidence_csv:
     return summary
 
 
-def _write_run(con, study, run_key, data_sha, inputs_json, version, config_sha, fp, new_fp, grades,
-               notes, made, table, raw, transforms, now) -> dict:
+def write_run(con: sqlite3.Connection, run: dict, fp: pd.DataFrame, grades: pd.DataFrame, notes: dict,
+              made: list[NextYearForecast], data: StudyData) -> dict:
+    """Write one run in one transaction; nothing when its run_key equals the latest run's."""
+    study = run["study"]
     with transaction(con):
         _ensure_schema(con)
         last = con.execute("SELECT run_id, run_key FROM runs WHERE study = ? ORDER BY run_id DESC LIMIT 1",
-                           (study.study,)).fetchone()
-        if last is not None and last["run_key"] == run_key:
-            return {"study": study.study, "status": "unchanged", "run_id": int(last["run_id"]),
+                           (study,)).fetchone()
+        if last is not None and last["run_key"] == run["run_key"]:
+            return {"study": study, "status": "unchanged", "run_id": int(last["run_id"]),
                     "new": 0, "scored": 0, "superseded": 0}
-        screen = {k: study.screen[k] for k in ("alpha", "fdr", "min_overlap", "surrogates", "seed") if k in study.screen}
-        cur = con.execute(
-            "INSERT INTO runs(study, run_key, created_utc, tool_version, config_sha256, inputs_sha256, data_sha256,"
-            " screen_json) VALUES (?,?,?,?,?,?,?,?)",
-            (study.study, run_key, now, version, config_sha, inputs_json, data_sha, json.dumps(screen, sort_keys=True)))
+        cols = ["study", "run_key", "created_utc", "tool_version", "config_sha256", "inputs_sha256", "data_sha256",
+                "screen_json"]
+        cur = con.execute(f"INSERT INTO runs({', '.join(cols)}) VALUES ({', '.join('?' * len(cols))})",
+                          [run[c] for c in cols])
         run_id = int(cur.lastrowid)
         con.executemany("INSERT INTO series_years(run_id, series, year, value, value_sha) VALUES (?,?,?,?,?)",
                         [(run_id, s, int(y), float(v), h) for s, y, v, h in
                          zip(fp["series"], fp["year"], fp["value"], fp["value_sha"])])
         con.executemany(
-            "INSERT INTO grades(run_id, response, driver, grade, lag, hardest, q_value, p_surrogate, oos_skill,"
-            " oos_p_surrogate, retest_skill, flags, last_year, note) VALUES (?,?,?,?,?,?,?,?,?,?,?,?,?,?)",
-            [(run_id, g["response"], g["driver"], g["grade"], g["lag"], g["hardest"] or None, g["q_value"],
-              g["p_surrogate"], g["oos_skill"], g["oos_p_surrogate"], g["retest_skill"], g["flags"], g["last_year"],
-              notes.get((g["response"], g["driver"]), "")) for g in grades.to_dict("records")])
-        n_sup = _supersede_open(con, study.study, run_id, new_fp, table, raw, transforms)
-        n_scored = _score_open(con, study.study, run_id, table)
-        n_new = _insert_forecasts(con, study.study, run_id, made, inputs_json, version, transforms)
+            "INSERT INTO grades(run_id, response, driver, grade, model, lag, hardest, q_value, p_surrogate, oos_skill,"
+            " oos_p_surrogate, retest_skill, flags, last_year, note) VALUES (?,?,?,?,?,?,?,?,?,?,?,?,?,?,?)",
+            [(run_id, g["response"], g["driver"], g["grade"], g["model"] or None, g["lag"], g["hardest"] or None,
+              g["q_value"], g["p_surrogate"], g["oos_skill"], g["oos_p_surrogate"], g["retest_skill"], g["flags"],
+              g["last_year"], notes.get((g["response"], g["driver"]), "")) for g in grades.to_dict("records")])
+        new_fp = dict(zip(zip(fp["series"], fp["year"].astype(int)), fp["value_sha"]))
+        n_sup = _supersede_open(con, study, run_id, new_fp, data)
+        n_scored = _score_open(con, study, run_id, data.table)
+        n_new = _insert_forecasts(con, study, run_id, made, run["inputs_sha256"], run["tool_version"],
+                                  data.transforms)
         con.execute("UPDATE runs SET n_new = ?, n_scored = ?, n_superseded = ? WHERE run_id = ?",
                     (n_new, n_scored, n_sup, run_id))
-    return {"study": study.study, "status": "recorded", "run_id": run_id, "new": n_new, "scored": n_scored,
+    return {"study": study, "status": "recorded", "run_id": run_id, "new": n_new, "scored": n_scored,
             "superseded": n_sup}
 
 
@@ -504,15 +571,13 @@ def _open_forecasts(con, study: str) -> list[sqlite3.Row]:
                        (study,)).fetchall()
 
 
-def _supersede_open(con, study, run_id, new_fp, table, raw, transforms) -> int:
+def _supersede_open(con, study: str, run_id: int, new_fp: dict, data: StudyData) -> int:
     """Mark superseded every open forecast whose training data changed since it was made."""
     n = 0
     for f in _open_forecasts(con, study):
-        if f["response"] not in table.columns or f["driver"] not in table.columns:
+        if f["response"] not in data.table.columns or f["driver"] not in data.table.columns:
             continue  # a series left the study: nothing to compare, the forecast can still be scored
-        years, *_ = training_years(table, f["response"], f["driver"], f["lag"], f["origin_year"])
-        cells = used_values(raw, f["response"], f["driver"], f["lag"], years, f["origin_year"])
-        sha = training_hash(raw, transforms, f["response"], f["driver"], f["lag"], f["baseline"], cells)
+        sha = data.training_sha(f["response"], f["driver"], f["lag"], f["baseline"], f["origin_year"])
         if sha == f["training_sha256"]:
             continue
         old = {(r["series"], int(r["year"])): r["value_sha"] for r in con.execute(
@@ -520,14 +585,14 @@ def _supersede_open(con, study, run_id, new_fp, table, raw, transforms) -> int:
             (f["run_id"], f["response"], f["driver"]))}
         why = (_diff_cells(old, new_fp, f["response"], f["origin_year"])
                + _diff_cells(old, new_fp, f["driver"], f["driver_year"]))
-        reason = "training data changed: " + ("; ".join(why) if why else "transform or model settings")
+        reason = "training data changed: " + ("; ".join(why) if why else "transform, weights or model settings")
         con.execute("UPDATE forecasts SET status = 'superseded', superseded_run = ?, superseded_reason = ? "
                     "WHERE forecast_id = ?", (run_id, reason, f["forecast_id"]))
         n += 1
     return n
 
 
-def _score_open(con, study, run_id, table) -> int:
+def _score_open(con, study: str, run_id: int, table: pd.DataFrame) -> int:
     """Score every open forecast whose target year has now been observed."""
     n = 0
     for f in _open_forecasts(con, study):
@@ -550,10 +615,11 @@ def _insert_forecasts(con, study, run_id, made, inputs_json, version, transforms
     n = 0
     for f in made:
         cur = con.execute(
-            "INSERT OR IGNORE INTO forecasts(run_id, study, response, driver, grade, lag, baseline, scale, origin_year,"
-            " target_year, driver_year, driver_value, forecast, lower, upper, level, n_train, resid_sd,"
-            " training_sha256, inputs_sha256, tool_version) VALUES (?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?)",
-            (run_id, study, f.response, f.driver, f.grade, f.lag, f.baseline, transforms.get(f.response, "none"),
+            "INSERT OR IGNORE INTO forecasts(run_id, study, response, driver, grade, screen_model, lag, baseline, scale,"
+            " origin_year, target_year, driver_year, driver_value, forecast, lower, upper, level, n_train, resid_sd,"
+            " training_sha256, inputs_sha256, tool_version) VALUES (?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?)",
+            (run_id, study, f.response, f.driver, f.grade, f.screen_model, f.lag, f.baseline,
+             transforms.get(f.response, "none"),
              f.origin_year, f.target_year, f.driver_year, f.driver_value, f.forecast, f.lower, f.upper, f.level,
              f.n_train, f.resid_sd, f.training_sha256, inputs_json, version))
         if cur.rowcount != 1:
@@ -563,3 +629,405 @@ def _insert_forecasts(con, study, run_id, made, inputs_json, version, transforms
                         [(fid, b, *v) for b, v in f.baselines.items()])
         n += 1
     return n
+
+
+# ---------------------------------------------------------------- reading the ledger
+def open_readonly(path: str | Path) -> sqlite3.Connection:
+    """Open an existing ledger for reading only (never creates the file)."""
+    con = sqlite3.connect(Path(path).resolve().as_uri() + "?mode=ro", uri=True)
+    con.row_factory = sqlite3.Row
+    return con
+
+
+def _frame(con, sql: str, args=()) -> pd.DataFrame:
+    cur = con.execute(sql, args)
+    cols = [d[0] for d in cur.description]
+    return pd.DataFrame([tuple(r) for r in cur.fetchall()], columns=cols)
+
+
+def runs_frame(con, study: str) -> pd.DataFrame:
+    return _frame(con, "SELECT * FROM runs WHERE study = ? ORDER BY run_id", (study,))
+
+
+def forecasts_frame(con, study: str) -> pd.DataFrame:
+    """One row per forecast with its score (if scored) and the baselines' forecasts and errors."""
+    f = _frame(con, "SELECT f.*, s.run_id AS scored_run, s.observed, s.error, s.inside FROM forecasts f "
+                    "LEFT JOIN scores s USING (forecast_id) WHERE f.study = ? ORDER BY f.forecast_id", (study,))
+    b = _frame(con, "SELECT b.forecast_id, b.baseline, b.forecast FROM baseline_forecasts b "
+                    "JOIN forecasts f USING (forecast_id) WHERE f.study = ?", (study,))
+    if f.empty:
+        return f
+    for bl in BASELINES:
+        m = b[b["baseline"] == bl].set_index("forecast_id")["forecast"]
+        f[f"fc_{bl}"] = f["forecast_id"].map(m)
+        f[f"err_{bl}"] = f["observed"] - f[f"fc_{bl}"]
+    f["err_hardest"] = [r[f"err_{r['baseline']}"] for _, r in f.iterrows()]
+    return f
+
+
+def _skill(e_model: pd.Series, e_base: pd.Series) -> float:
+    ok = e_model.notna() & e_base.notna()
+    den = float((e_base[ok] ** 2).sum())
+    return float(1.0 - (e_model[ok] ** 2).sum() / den) if ok.any() and den > 0 else float("nan")
+
+
+TRACK_COLUMNS = ["response", "driver", "made", "open", "scored", "superseded", "inside", "coverage", "mae",
+                 "skill_hardest", "beat_hardest"] + [f"skill_{b}" for b in BASELINES] + ["last"]
+
+
+def track_record(con, study: str) -> pd.DataFrame:
+    """Per hypothesis: forecasts made, open, scored, superseded; on the scored ones, how many fell
+    inside their interval (coverage), mean absolute error, and skill 1 - SSE(candidate) / SSE(b)
+    against the baselines' forecasts made at the same time (``skill_hardest``: against the
+    baseline the candidate was built on; ``beat_hardest``: forecasts with the smaller squared
+    error). Superseded forecasts are counted but never scored."""
+    f = forecasts_frame(con, study)
+    if f.empty:
+        return pd.DataFrame(columns=TRACK_COLUMNS)
+    rows = []
+    for (r, d), g in f.groupby(["response", "driver"], sort=True):
+        sc = g[g["status"] == "scored"]
+        last = g.iloc[-1]
+        lastw = (f"{int(last['target_year'])}: {last['forecast']:.3f} [{last['lower']:.3f}, {last['upper']:.3f}] "
+                 f"{last['status']}")
+        if last["status"] == "scored":
+            lastw += f" (observed {last['observed']:.3f}, {'inside' if last['inside'] else 'outside'})"
+        row = {"response": r, "driver": d, "made": len(g), "open": int((g["status"] == "open").sum()),
+               "scored": len(sc), "superseded": int((g["status"] == "superseded").sum()),
+               "inside": int(sc["inside"].sum()) if len(sc) else 0,
+               "coverage": float(sc["inside"].mean()) if len(sc) else float("nan"),
+               "mae": float(sc["error"].abs().mean()) if len(sc) else float("nan"),
+               "skill_hardest": _skill(sc["error"], sc["err_hardest"]),
+               "beat_hardest": int((sc["error"] ** 2 < sc["err_hardest"] ** 2).sum()),
+               "last": lastw}
+        for b in BASELINES:
+            row[f"skill_{b}"] = _skill(sc["error"], sc[f"err_{b}"])
+        rows.append(row)
+    return pd.DataFrame(rows, columns=TRACK_COLUMNS)
+
+
+def _years_text(years) -> str:
+    """1990, 1991, 1992, 1995 -> '1990-1992, 1995'."""
+    ys = sorted(int(y) for y in years)
+    out, i = [], 0
+    while i < len(ys):
+        j = i
+        while j + 1 < len(ys) and ys[j + 1] == ys[j] + 1:
+            j += 1
+        out.append(str(ys[i]) if i == j else f"{ys[i]}-{ys[j]}")
+        i = j + 1
+    return ", ".join(out)
+
+
+def data_changes(con, run_id: int, prev_id: int | None) -> pd.DataFrame:
+    """Per series: years added (after the previous last year, or filled into the past), restated
+    (value changed) and removed between two recorded runs."""
+    cur = _frame(con, "SELECT series, year, value_sha FROM series_years WHERE run_id = ?", (run_id,))
+    prev = (_frame(con, "SELECT series, year, value_sha FROM series_years WHERE run_id = ?", (prev_id,))
+            if prev_id is not None else cur.iloc[0:0])
+    rows = []
+    for s in sorted(set(cur["series"]) | set(prev["series"])):
+        a = dict(zip(prev.loc[prev.series == s, "year"], prev.loc[prev.series == s, "value_sha"]))
+        b = dict(zip(cur.loc[cur.series == s, "year"], cur.loc[cur.series == s, "value_sha"]))
+        last_prev = max(a) if a else None
+        new = [y for y in b if y not in a]
+        rows.append({"series": s,
+                     "added": [y for y in new if last_prev is None or y > last_prev],
+                     "filled_in": [y for y in new if last_prev is not None and y <= last_prev],
+                     "restated": [y for y in b if y in a and a[y] != b[y]],
+                     "removed": [y for y in a if y not in b]})
+    return pd.DataFrame(rows, columns=["series", "added", "filled_in", "restated", "removed"])
+
+
+def _crossing(name: str, a, b, thr: float, lower_is_better: bool) -> tuple[int, str] | None:
+    if a is None or b is None or (isinstance(a, float) and math.isnan(a)) or (isinstance(b, float) and math.isnan(b)):
+        return None
+    if abs(b - a) < 1e-9:
+        return None
+    verb = "rose" if b > a else "fell"
+    crossed = (a <= thr) != (b <= thr) if lower_is_better else (a > thr) != (b > thr)
+    if crossed:
+        return 2, f"{name} {verb} from {a:.2f} to {b:.2f} (threshold {thr:g})"
+    if abs(b - a) >= 0.05:
+        return 1, f"{name} {verb} from {a:.2f} to {b:.2f}"
+    return None
+
+
+def _grade_reason(prev: dict, cur: dict, screen: dict, scored: pd.DataFrame, superseded: pd.DataFrame) -> str:
+    parts = []
+    for _, f in scored.iterrows():
+        hit = bool(f["inside"])
+        b = f["baseline"]
+        better = f["error"] ** 2 < f[f"err_{b}"] ** 2
+        parts.append(f"the {int(f['target_year'])} forecast {'hit' if hit else 'missed'} "
+                     f"(observed {f['observed']:.3f}, {int(round(100 * f['level']))}% interval "
+                     f"{f['lower']:.3f} to {f['upper']:.3f}; {'closer than' if better else 'further off than'} "
+                     f"the {b} baseline)")
+    for _, f in superseded.iterrows():
+        parts.append(f"the {int(f['target_year'])} forecast was superseded ({f['superseded_reason']})")
+    alpha, fdr = float(screen.get("alpha", 0.05)), float(screen.get("fdr", 0.10))
+    cands = [
+        _crossing("re-test skill", prev.get("retest_skill"), cur.get("retest_skill"), 0.0, False),
+        _crossing("out-of-sample skill", prev.get("oos_skill"), cur.get("oos_skill"), 0.0, False),
+        _crossing("q-value", prev.get("q_value"), cur.get("q_value"), fdr, True),
+        _crossing("surrogate p", prev.get("p_surrogate"), cur.get("p_surrogate"), alpha, True),
+    ]
+    a, b = prev.get("oos_p_surrogate"), cur.get("oos_p_surrogate")
+    for thr in (0.05, 0.10, 0.20):
+        c = _crossing("surrogate p of skill", a, b, thr, True)
+        if c and c[0] == 2:
+            cands.append(c)
+            break
+    else:
+        cands.append(_crossing("surrogate p of skill", a, b, 0.05, True))
+    cands = [c for c in cands if c]
+    top = [t for i, t in cands if i == 2] or [t for i, t in cands if i == 1]
+    parts += top
+    fa = set(filter(None, str(prev.get("flags") or "").split(";")))
+    fb = set(filter(None, str(cur.get("flags") or "").split(";")))
+    parts += [f"new flag {x}" for x in sorted(fb - fa)] + [f"flag {x} cleared" for x in sorted(fa - fb)]
+    if prev.get("lag") != cur.get("lag"):
+        parts.append(f"selected lag {prev.get('lag')} -> {cur.get('lag')}")
+    return "; ".join(parts) if parts else "the statistics moved only slightly (see evidence.csv)"
+
+
+@dataclass
+class SinceLastRun:
+    """What changed between the latest recorded run of a study and the run before it."""
+
+    run: dict | None
+    previous: dict | None
+    data: pd.DataFrame
+    grade_changes: pd.DataFrame  # response, driver, before, after, reason
+    scored: pd.DataFrame  # forecasts scored at this run
+    superseded: pd.DataFrame  # forecasts superseded at this run
+    made: pd.DataFrame  # forecasts made at this run
+    notes: pd.DataFrame  # strong/moderate hypotheses without a forecast, and why
+    track: pd.DataFrame
+    n_runs: int = 0
+
+
+def since_previous_run(con, study: str, run_id: int | None = None) -> SinceLastRun:
+    """Changes recorded at run ``run_id`` (default: the latest) against the run before it."""
+    runs = runs_frame(con, study)
+    empty = pd.DataFrame()
+    if runs.empty:
+        return SinceLastRun(None, None, empty, empty, empty, empty, empty, empty, empty, 0)
+    if run_id is None:
+        run_id = int(runs["run_id"].iloc[-1])
+    cur_run = runs[runs.run_id == run_id].iloc[0].to_dict()
+    earlier = runs[runs.run_id < run_id]
+    prev_run = earlier.iloc[-1].to_dict() if len(earlier) else None
+    prev_id = int(prev_run["run_id"]) if prev_run else None
+    g_cur = _frame(con, "SELECT * FROM grades WHERE run_id = ?", (run_id,))
+    g_prev = _frame(con, "SELECT * FROM grades WHERE run_id = ?", (prev_id,)) if prev_id else g_cur.iloc[0:0]
+    f = forecasts_frame(con, study)
+    if f.empty:
+        f = pd.DataFrame(columns=["response", "driver", "run_id", "scored_run", "superseded_run", "status"])
+    scored = f[f["scored_run"] == run_id]
+    superseded = f[f["superseded_run"] == run_id]
+    made = f[f["run_id"] == run_id]
+    screen = json.loads(cur_run["screen_json"])
+    changes = []
+    if prev_id is not None:
+        a = {(r["response"], r["driver"]): r for r in g_prev.to_dict("records")}
+        b = {(r["response"], r["driver"]): r for r in g_cur.to_dict("records")}
+        for key in sorted(set(a) | set(b)):
+            pa, pb = a.get(key), b.get(key)
+            if pa and pb and pa["grade"] == pb["grade"]:
+                continue
+            sel = lambda df: df[(df["response"] == key[0]) & (df["driver"] == key[1])]
+            if pa is None:
+                reason = "new hypothesis in this run"
+            elif pb is None:
+                reason = "no longer screened"
+            else:
+                reason = _grade_reason(pa, pb, screen, sel(scored), sel(superseded))
+            changes.append({"response": key[0], "driver": key[1], "before": pa["grade"] if pa else "",
+                            "after": pb["grade"] if pb else "", "reason": reason})
+    notes = g_cur[(g_cur["note"] != "")][["response", "driver", "grade", "note"]] if len(g_cur) else empty
+    return SinceLastRun(cur_run, prev_run, data_changes(con, run_id, prev_id),
+                        pd.DataFrame(changes, columns=["response", "driver", "before", "after", "reason"]),
+                        scored, superseded, made, notes, track_record(con, study), len(runs))
+
+
+# ---------------------------------------------------------------- the report section
+_e = html.escape
+
+
+def _n(v, fmt="{:.3f}") -> str:
+    if v is None or (isinstance(v, float) and math.isnan(v)):
+        return ""
+    return fmt.format(float(v))
+
+
+def _table(header: list[str], rows: list[list[str]], cls: str = "sortable") -> str:
+    """An HTML table; every cell is escaped here."""
+    head = "".join(f"<th>{_e(h)}</th>" for h in header)
+    body = "".join("<tr>" + "".join(f"<td>{_e(str(c))}</td>" for c in r) + "</tr>" for r in rows)
+    return f'<table class="{cls}"><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>'
+
+
+def _study_id(study) -> str:
+    return study.study if isinstance(study, Study) else str(study)
+
+
+def ledger_section_html(ledger_path: str | Path, study, evidence_df: pd.DataFrame | None = None) -> str:
+    """The report section "Since the previous run", as an escaped HTML fragment (one <section>).
+
+    ``ledger_path``: the ledger file (see :func:`resolve_ledger_path`, or the ``ledger`` entry
+    of ``work/ledger_update.json``); ``study``: the study id or :class:`Study`; ``evidence_df``:
+    this report's evidence.csv, used to say whether the ledger has recorded these results.
+    Never raises for a missing or unreadable ledger: the section then says so.
+    """
+    sid = _study_id(study)
+    out = ['<section id="since-previous-run">', "<h2>Since the previous run</h2>"]
+    path = Path(ledger_path)
+    if not path.is_file():
+        out.append(f'<p class="muted">No forecast ledger at {_e(str(path))} yet: it is written by the '
+                   "<code>ledger</code> step of the workflow.</p></section>")
+        return "\n".join(out)
+    try:
+        con = open_readonly(path)
+        try:
+            if not _has_schema(con):
+                raise sqlite3.DatabaseError("no ledger tables")
+            s = since_previous_run(con, sid)
+            latest_grades = (_frame(con, "SELECT response, driver, grade, lag FROM grades WHERE run_id = ?",
+                                    (int(s.run["run_id"]),)) if s.run else None)
+        finally:
+            con.close()
+    except sqlite3.DatabaseError as exc:
+        out.append(f'<p class="muted">The forecast ledger {_e(str(path))} cannot be read ({_e(str(exc))}).</p></section>')
+        return "\n".join(out)
+    if s.run is None:
+        out.append(f'<p class="muted">The ledger {_e(str(path))} holds no run of study {_e(sid)} yet.</p></section>')
+        return "\n".join(out)
+    r = s.run
+    lead = (f"Ledger {path.name}: run {int(r['run_id'])} recorded {r['created_utc']} (lagsieve {r['tool_version']}), "
+            + (f"compared with run {int(s.previous['run_id'])} recorded {s.previous['created_utc']}."
+               if s.previous else "the first run of this study in the ledger: nothing to compare with yet."))
+    out.append(f'<p class="muted">{_e(lead)} A run is recorded only when the data or the grades change.</p>')
+    if evidence_df is not None and latest_grades is not None:
+        mine = grade_rows(evidence_df)[["response", "driver", "grade", "lag"]]
+        theirs = latest_grades.sort_values(["response", "driver"]).reset_index(drop=True)
+        same = (len(mine) == len(theirs)
+                and mine["grade"].tolist() == theirs["grade"].tolist()
+                and mine[["response", "driver"]].values.tolist() == theirs[["response", "driver"]].values.tolist())
+        if not same:
+            out.append('<p class="caution">The latest run in the ledger does not match the grades of this report: '
+                       "the ledger step has not recorded these results.</p>")
+    # data
+    out.append("<h3>Data</h3>")
+    d = s.data
+    if s.previous is None:
+        rows = [[x.series, _years_text(x.added)] for x in d.itertuples()]
+        out.append(_table(["series", "years recorded"], rows))
+    else:
+        ch = [x for x in d.itertuples() if x.added or x.filled_in or x.restated or x.removed]
+        if ch:
+            out.append(_table(["series", "years added", "years filled in", "years restated", "years removed"],
+                              [[x.series, _years_text(x.added), _years_text(x.filled_in), _years_text(x.restated),
+                                _years_text(x.removed)] for x in ch]))
+        else:
+            out.append("<p>No year was added or restated in any series.</p>")
+    # grades
+    if s.previous is not None:
+        out.append("<h3>Grade changes</h3>")
+        if len(s.grade_changes):
+            out.append(_table(["response", "driver", "change", "reason"],
+                              [[g.response, g.driver, f"{g.before or '(none)'} -> {g.after or '(none)'}", g.reason]
+                               for g in s.grade_changes.itertuples()]))
+        else:
+            out.append("<p>No hypothesis changed grade.</p>")
+    # forecasts
+    out.append("<h3>Forecasts scored at this run</h3>")
+    if len(s.scored):
+        out.append(_table(["response", "driver", "year", "forecast", "interval", "observed", "outcome",
+                           "hardest baseline", "baseline forecast"],
+                          [[f.response, f.driver, int(f.target_year), _n(f.forecast), f"{_n(f.lower)} to {_n(f.upper)}",
+                            _n(f.observed), "inside" if f.inside else "outside", f.baseline,
+                            _n(getattr(f, f"fc_{f.baseline}"))] for f in s.scored.itertuples()]))
+    else:
+        out.append("<p>None: no forecast year has arrived since the previous run.</p>")
+    if len(s.superseded):
+        out.append("<h3>Forecasts superseded at this run (not scored)</h3>")
+        out.append(_table(["response", "driver", "year", "forecast", "reason"],
+                          [[f.response, f.driver, int(f.target_year), _n(f.forecast), f.superseded_reason]
+                           for f in s.superseded.itertuples()]))
+    out.append("<h3>Forecasts made at this run</h3>")
+    if len(s.made):
+        out.append(_table(["response", "driver", "grade", "year", "forecast", "interval", "candidate"],
+                          [[f.response, f.driver, f.grade, int(f.target_year), _n(f.forecast),
+                            f"{_n(f.lower)} to {_n(f.upper)}",
+                            f"{f.baseline} + {f.driver} (lag {int(f.lag)}, straight line"
+                            + ("; the screen preferred a spline)" if f.screen_model == "gam" else ")")]
+                           for f in s.made.itertuples()]))
+    else:
+        out.append("<p>None.</p>")
+    if len(s.notes):
+        out.append("<p>Hypotheses graded strong or moderate without a forecast:</p>")
+        out.append(_table(["response", "driver", "grade", "why no forecast"],
+                          [[x.response, x.driver, x.grade, x.note] for x in s.notes.itertuples()]))
+    out.append("<h3>Track record</h3>")
+    if len(s.track):
+        out.append(_table(["response", "driver", "made", "open", "scored", "superseded", "inside interval",
+                           "MAE", "skill vs hardest", "closer than hardest", "latest"],
+                          [[t.response, t.driver, t.made, t.open, t.scored, t.superseded,
+                            f"{t.inside}/{t.scored}" if t.scored else "", _n(t.mae), _n(t.skill_hardest, "{:+.2f}"),
+                            f"{t.beat_hardest}/{t.scored}" if t.scored else "", t.last] for t in s.track.itertuples()]))
+    else:
+        out.append("<p>No forecast has been made yet.</p>")
+    out.append(f'<p class="muted">Each forecast is made with the candidate model (the hardest baseline plus the '
+               f"driver at its selected lag) fitted on every observed year, with an {int(LEVEL * 100)}% prediction "
+               "interval from its training residuals. Skill is 1 - SSE(candidate) / SSE(baseline) over the scored "
+               "years, against the baseline forecasts made at the same time. A forecast whose training data were "
+               "restated later is superseded and never scored.</p>")
+    out.append("</section>")
+    return "\n".join(out)
+
+
+# ---------------------------------------------------------------- command line
+def print_track_record(config_path: str | Path, out: str | Path | None = None, stream=None) -> int:
+    """`lagsieve ledger CONFIG [--out DIR]`: print the track record; 0, or 2 without a ledger."""
+    stream = stream or sys.stdout
+    study = load_study(config_path)
+    out_dir = Path(out) if out else study.path.parent / "results"
+    path = resolve_ledger_path(study, out_dir / study.study)
+    if not path.is_file():
+        print(f"{path}: no forecast ledger for study '{study.study}' yet; run `lagsieve run {config_path}` "
+              "first (or give the results folder with --out)", file=sys.stderr)
+        return EXIT_MISSING
+    try:
+        con = open_readonly(path)
+        try:
+            if not _has_schema(con):
+                raise sqlite3.DatabaseError("it holds no ledger tables")
+            runs = runs_frame(con, study.study)
+            track = track_record(con, study.study)
+        finally:
+            con.close()
+    except sqlite3.DatabaseError as exc:
+        print(f"{path}: not a readable forecast ledger ({exc}); move it aside and rerun the workflow", file=sys.stderr)
+        return EXIT_MISSING
+    if runs.empty:
+        print(f"{path}: no run of study '{study.study}' recorded yet; run `lagsieve run {config_path}` first",
+              file=sys.stderr)
+        return EXIT_MISSING
+    last = runs.iloc[-1]
+    nr = f"{len(runs)} run{'s' if len(runs) != 1 else ''}"
+    print(f"forecast track record of study '{study.study}': {nr} recorded, latest {last['created_utc']} "
+          f"(lagsieve {last['tool_version']}); {int(LEVEL * 100)}% prediction intervals; ledger {path}", file=stream)
+    if track.empty:
+        print("no forecast made yet (no hypothesis graded strong or moderate could be forecast)", file=stream)
+        return 0
+    show = track.assign(
+        hypothesis=track["response"] + " <- " + track["driver"],
+        inside=[f"{i}/{s}" if s else "-" for i, s in zip(track["inside"], track["scored"])],
+        mae=[_n(v) or "-" for v in track["mae"]],
+        skill_hardest=[_n(v, "{:+.2f}") or "-" for v in track["skill_hardest"]],
+        **{f"skill_{b}": [_n(v, "{:+.2f}") or "-" for v in track[f"skill_{b}"]] for b in BASELINES})
+    cols = ["hypothesis", "made", "open", "scored", "superseded", "inside", "mae", "skill_hardest"] + \
+           [f"skill_{b}" for b in BASELINES] + ["last"]
+    print(show[cols].to_string(index=False), file=stream)
+    return 0

@@ -17,6 +17,7 @@ class PlannedStudy:
     study: Study
     config_path: str
     input_paths: list[str]
+    response_inputs: dict[str, list[str]]  # response slug -> files holding it or its drivers
 
     @property
     def response_slugs(self) -> list[str]:
@@ -36,6 +37,24 @@ def study_configs(config: dict, default: str = "config/config.yaml") -> list[str
 FULL_CHECK_LIMIT = 50
 
 
+def _response_inputs(st: Study, annual, inputs: list[str]) -> dict[str, list[str]]:
+    """For every response, the input files that hold it or one of its drivers, so that a
+    screen job depends on exactly those files. Without the checked table (large batches),
+    every response depends on every input."""
+    if annual is None or "file" not in annual:
+        return {slug(r): list(inputs) for r in st.response_ids}
+    shown = [spec["path"] for spec in st.inputs]
+    by_series: dict[str, set[str]] = {}
+    for sid, f in zip(annual["series"], annual["file"]):
+        by_series.setdefault(sid, set()).add(str(f))
+    out = {}
+    for r in st.response_ids:
+        wanted = {r} | {d["id"] for d in st.drivers_for(r)}
+        files = set().union(*(by_series.get(w, set()) for w in wanted))
+        out[slug(r)] = [full for full, written in zip(inputs, shown) if written in files] or list(inputs)
+    return out
+
+
 def plan_studies(config: dict) -> dict[str, PlannedStudy]:
     """Load every study config; a user's mistake prints one line per problem and exits 2.
 
@@ -49,10 +68,11 @@ def plan_studies(config: dict) -> dict[str, PlannedStudy]:
     full = str(config.get("check_inputs", len(paths) <= FULL_CHECK_LIMIT)).lower() in ("true", "1", "yes")
     try:
         for path in paths:
+            annual = None
             if full:
                 from .stages import check_study
 
-                st = check_study(path)[0]
+                st, annual, _, _ = check_study(path)
             else:
                 st = load_study(path)
             if st.study in planned:
@@ -63,7 +83,7 @@ def plan_studies(config: dict) -> dict[str, PlannedStudy]:
             for spec in st.inputs:
                 p = Path(spec["path"])
                 inputs.append(str(p if p.is_absolute() else st.base_dir / p))
-            planned[st.study] = PlannedStudy(st, str(st.path), inputs)
+            planned[st.study] = PlannedStudy(st, str(st.path), inputs, _response_inputs(st, annual, inputs))
     except InputErrors as exc:
         for p in exc.problems:
             print(p.line(), file=sys.stderr)

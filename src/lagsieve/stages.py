@@ -173,22 +173,42 @@ def load_table(study: Study, annual_csv: str | Path) -> pd.DataFrame:
 
 
 # ---------------------------------------------------------------- screen
-def run_screen(config_path, annual_csv, response_id: str, out_dir, threads: int = 1) -> None:
-    """Stage `screen` for one response: screen rows, hypothesis rows, forecasts, nulls."""
+def response_annual(study: Study, response_id: str, files: list[str] | None = None) -> pd.DataFrame:
+    """The tidy annual data of one response and its drivers, read from ``files`` only (the
+    inputs that hold them; default: every input), exactly as `align` reads them."""
+    from .inputs import read_inputs, to_annual
+
+    specs = study.inputs
+    if files is not None:
+        keep = {str(Path(f).resolve()) for f in files}
+        specs = [sp for sp in study.inputs if str((study.base_dir / sp["path"]).resolve()) in keep]
+    long, _ = read_inputs(specs, study.base_dir)
+    wanted = {response_id} | {d["id"] for d in study.drivers_for(response_id)}
+    long = long[long["series"].isin(wanted)]
+    options = {k: v for k, v in study.series_options().items() if k in wanted}
+    annual, _ = to_annual(long, options)
+    return annual
+
+
+def run_screen(config_path, annual_csv, response_id: str, out_dir, threads: int = 1,
+               files: list[str] | None = None) -> None:
+    """Stage `screen` for one response: screen rows, hypothesis rows, forecasts, nulls.
+
+    With ``annual_csv`` the aligned study table is used; otherwise (the workflow) the
+    response's own input ``files`` are read, so that its job depends on those files only.
+    """
     from threadpoolctl import threadpool_limits
 
+    from .alignment import annual_table, se_table
     from .screening import screen_response
 
     study = load_study(config_path)
     by_slug = {slug(r): r for r in study.response_ids}
     response_id = by_slug.get(response_id, response_id)
-    table = load_table(study, annual_csv)
-    se = None
-    if study.screen.get("weights") == "inverse-variance":
-        from .alignment import se_table
-
-        transforms = {s["id"]: s.get("transform", "none") for s in study.responses + study.drivers}
-        se = se_table(pd.read_csv(annual_csv), transforms)
+    annual = pd.read_csv(annual_csv) if annual_csv is not None else response_annual(study, response_id, files)
+    transforms = {s["id"]: s.get("transform", "none") for s in study.responses + study.drivers}
+    table = annual_table(annual, transforms)
+    se = se_table(annual, transforms) if study.screen.get("weights") == "inverse-variance" else None
     with threadpool_limits(limits=max(1, int(threads))):
         res = screen_response(table, study, response_id, se)
     out = Path(out_dir)
@@ -238,6 +258,7 @@ def run_report(config_path, annual_csv, notes_csv, work_dir, screen_csv, evidenc
     ``threads``: worker processes for drawing the figures (default: up to 4 CPUs).
     """
     from .provenance import package_versions, sha256_file, tool_version
+    from .figures import FigureRenderer
     from .report import build_report, pdf_summary_lines, write_pdf
 
     t0 = time.time() if started is None else started
@@ -275,20 +296,22 @@ def run_report(config_path, annual_csv, notes_csv, work_dir, screen_csv, evidenc
         "started": _iso(t0),
     }
     workers = threads if threads else min(4, os.cpu_count() or 1)
-    html, figs = build_report(study, table, screen, evidence, forecasts, nulls, notes, prov, figures_dir,
-                              annual=annual, workers=workers)
-    write_text(html, out_report)
     pdf_path = Path(out_pdf) if out_pdf else Path(out_report).with_name("report.pdf")
-    if pdf_wanted(study):
-        order = ["evidence_map"] + [n for n in figs if n not in ("evidence_map", "coverage", "driver_correlation")] \
-            + [n for n in ("coverage", "driver_correlation") if n in figs]
-        prov["pdf"] = write_pdf(html, pdf_path, study_id=study.study, title=study.raw.get("title") or study.study,
-                                summary=pdf_summary_lines(study, evidence),
-                                figures=[(n.replace("__", " / "), figs[n][0]) for n in order if n in figs],
-                                invented=bool(study.raw.get("invented")))
-    else:
-        prov["pdf"] = None
-        if out_pdf is None and pdf_path.is_file():  # a copy left by an earlier run would be stale
-            pdf_path.unlink()
+    with FigureRenderer(figures_dir, workers) as renderer:
+        html, figs = build_report(study, table, screen, evidence, forecasts, nulls, notes, prov, figures_dir,
+                                  annual=annual, renderer=renderer)
+        write_text(html, out_report)
+        renderer.write_svgs()  # the SVG copies are written by the workers while the PDF is made
+        if pdf_wanted(study):
+            order = ["evidence_map"] + [n for n in figs if n not in ("evidence_map", "coverage", "driver_correlation")] \
+                + [n for n in ("coverage", "driver_correlation") if n in figs]
+            prov["pdf"] = write_pdf(html, pdf_path, study_id=study.study, title=study.raw.get("title") or study.study,
+                                    summary=pdf_summary_lines(study, evidence),
+                                    figures=[(n.replace("__", " / "), figs[n][0]) for n in order if n in figs],
+                                    invented=bool(study.raw.get("invented")))
+        else:
+            prov["pdf"] = None
+            if out_pdf is None and pdf_path.is_file():  # a copy left by an earlier run would be stale
+                pdf_path.unlink()
     prov["report_finished"] = _iso(time.time())
     write_json(prov, out_provenance)

@@ -20,4 +20,5 @@ def expand_all():
     outs = []
     for s in STUDIES:
         outs += [f"{OUT}/{s}/{name}" for name in ("screen.csv", "evidence.csv", "report.html", "provenance.json")]
+        outs.append(f"{OUT}/{s}/work/ledger_update.json")  # the forecast ledger's update (rule ledger)
     return outs

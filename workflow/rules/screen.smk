@@ -2,7 +2,7 @@ rule screen:
     """One response against all its drivers: lags, surrogates, rolling-origin forecasts."""
     input:
         config=cfg,
-        annual=f"{OUT}/{{study}}/work/annual.csv",
+        data=lambda w: STUDIES[w.study].response_inputs[w.response],
     output:
         screen=f"{OUT}/{{study}}/work/responses/{{response}}/screen.csv",
         hypotheses=f"{OUT}/{{study}}/work/responses/{{response}}/hypotheses.csv",

@@ -4,5 +4,5 @@ from pathlib import Path
 from lagsieve.stages import logged, run_screen
 
 with logged(snakemake):
-    run_screen(snakemake.input.config, snakemake.input.annual, snakemake.wildcards.response,
-               Path(snakemake.output.screen).parent, threads=snakemake.threads)
+    run_screen(snakemake.input.config, None, snakemake.wildcards.response,
+               Path(snakemake.output.screen).parent, threads=snakemake.threads, files=list(snakemake.input.data))

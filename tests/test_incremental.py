@@ -1,0 +1,160 @@
+"""Incremental reruns, read from Snakemake's own dry-run job list (Snakemake 9).
+
+What Snakemake decides, and what these tests pin down:
+
+* A file whose modification time is newer but whose bytes are unchanged does not trigger a
+  rerun: Snakemake 9 records the checksum of every input up to ``--max-checksum-file-size``
+  (1 MB by default) and skips an "updated" input with the recorded checksum.
+* The job list is fixed before any job runs. When `align` must rerun, every job downstream
+  of work/annual.csv is scheduled in the same invocation, even if align then writes the same
+  bytes; in a *later* invocation a byte-identical annual.csv reruns nothing.
+* Each `screen` job (one per response) depends on the input files that hold its response or
+  one of its drivers, not on the study-wide aligned table; so a year appended to a driver's
+  file reruns `align`, the screens of the responses that driver is screened against, and the
+  study-wide `evidence` and `ledger` — nothing else.
+* The forecast ledger is not a declared output: ``--delete-all-output`` leaves it, and the
+  rerun that follows adds nothing to it.
+
+The study is the invented demo with one extra driver in a file of its own, restricted to one
+response (``responses: [m:age2]``); the targets stop before the report to stay fast.
+"""
+from __future__ import annotations
+
+import json
+import os
+import re
+import sqlite3
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import pytest
+import yaml
+
+from lagsieve.demo import demo_config_text, write_demo
+
+pytestmark = pytest.mark.slow  # real Snakemake runs (about a minute)
+
+REPO = Path(__file__).resolve().parents[1]
+STUDY = "caldrin_shelf_demo"
+RESPONSES = ("m--age2", "m--age3-4", "m--age5plus")
+
+
+class Workflow:
+    def __init__(self, root: Path):
+        self.root = root
+        write_demo(root / "data")
+        rng = np.random.default_rng(7)
+        (root / "data" / "local.csv").write_text(
+            "series,year,value\n" + "".join(f"local_index,{y},{rng.normal():.3f}\n" for y in range(1984, 2023)))
+        cfg = yaml.safe_load(demo_config_text("data"))
+        cfg["screen"].update(surrogates=19, models=["linear"])
+        cfg["drivers"] = [d for d in cfg["drivers"] if d["id"] in ("forage_biomass", "bottom_temp", "shrimp_index")]
+        cfg["inputs"].append("data/local.csv")
+        cfg["drivers"].append({"id": "local_index", "category": "other", "responses": ["m:age2"], "lags": [1]})
+        self.config = root / "config.yaml"
+        self.config.write_text(yaml.safe_dump(cfg, sort_keys=False))
+        self.out = root / "results"
+        self.study = self.out / STUDY
+        self.targets = [str(self.study / "evidence.csv"), str(self.study / "work" / "ledger_update.json")]
+
+    def snakemake(self, *args) -> subprocess.CompletedProcess:
+        cmd = [sys.executable, "-m", "snakemake", *self.targets, "--snakefile", str(REPO / "Snakefile"),
+               "--directory", str(self.out), "--cores", "2", *args,
+               "--config", f"study_config={self.config}", f"out={self.out}"]
+        env = dict(os.environ, PYTHONPATH=str(REPO / "src"), MPLBACKEND="Agg")
+        proc = subprocess.run(cmd, capture_output=True, text=True, env=env, cwd=self.root)
+        assert proc.returncode == 0, proc.stdout[-3000:] + proc.stderr[-3000:]
+        return proc
+
+    def jobs(self, *args) -> list[tuple[str, str]]:
+        """The dry-run job list: (rule, response wildcard or '') for every job, sorted."""
+        return self.run("-n", *args)
+
+    def run(self, *args) -> list[tuple[str, str]]:
+        """Run Snakemake; the jobs it listed (planned with -n, else executed), sorted."""
+        proc = self.snakemake(*args)
+        text = proc.stdout + proc.stderr
+        if "Nothing to be done" in text:
+            return []
+        found = []
+        for block in re.split(r"\n(?=(?:local)?(?:rule|checkpoint) \w+:)", text)[1:]:
+            rule = re.match(r"(?:local)?(?:rule|checkpoint) (\w+):", block).group(1)
+            wc = re.search(r"^\s+wildcards: (.*)$", block, re.M)
+            resp = re.search(r"response=([^,\s]+)", wc.group(1)) if wc else None
+            found.append((rule, resp.group(1) if resp else ""))
+        assert found, text[-2000:]
+        return sorted(found)
+
+    def outputs(self) -> dict[str, bytes]:
+        return {r: (self.study / "work" / "responses" / r / "screen.csv").read_bytes() for r in RESPONSES}
+
+
+EVERYTHING = sorted([("align", ""), ("evidence", ""), ("ledger", "")] + [("screen", r) for r in RESPONSES])
+
+
+@pytest.fixture(scope="module")
+def wf(tmp_path_factory):
+    w = Workflow(tmp_path_factory.mktemp("incremental"))
+    assert w.jobs() == EVERYTHING
+    w.snakemake("-q")
+    return w
+
+
+def test_up_to_date_after_a_run(wf):
+    assert wf.jobs() == []
+    summary = json.loads((wf.study / "work" / "ledger_update.json").read_text())
+    assert summary["status"] == "recorded" and summary["run_id"] == 1
+
+
+def test_newer_file_with_the_same_bytes_reruns_nothing(wf):
+    later = time.time() + 5
+    for p in [wf.config, *sorted((wf.root / "data").glob("*.csv"))]:
+        os.utime(p, (later, later))
+    assert wf.jobs() == []
+
+
+def test_identical_annual_table_from_a_forced_align_reruns_nothing_later(wf):
+    annual = wf.study / "work" / "annual.csv"
+    before, mtime = annual.read_bytes(), annual.stat().st_mtime_ns
+    # decided before align runs: everything that reads annual.csv (not the screens, which read
+    # their own input files)
+    assert wf.jobs("--forcerun", "align") == sorted([("align", ""), ("evidence", ""), ("ledger", "")])
+    assert wf.run("--forcerun", "align", "--until", "align") == [("align", "")]
+    assert annual.stat().st_mtime_ns > mtime and annual.read_bytes() == before
+    assert wf.jobs() == []  # the checksum of annual.csv equals the recorded one
+
+
+def test_appended_year_of_a_driver_reruns_its_dependents(wf):
+    before = wf.outputs()
+    with open(wf.root / "data" / "local.csv", "a") as fh:
+        fh.write("local_index,2023,0.250\n")  # pairs (lag 1) with the response of 2024
+    only_age2 = sorted([("align", ""), ("evidence", ""), ("ledger", ""), ("screen", "m--age2")])
+    assert wf.jobs() == only_age2  # the dry-run job list: one screen, keyed by its response
+    assert wf.run() == only_age2
+    after = wf.outputs()
+    assert after["m--age2"] != before["m--age2"]  # the only response screened against local_index
+    assert after["m--age3-4"] == before["m--age3-4"] and after["m--age5plus"] == before["m--age5plus"]
+    summary = json.loads((wf.study / "work" / "ledger_update.json").read_text())
+    assert summary["status"] == "recorded" and summary["run_id"] == 2  # the data fingerprint changed...
+    assert (summary["scored"], summary["superseded"]) == (0, 0)  # ...but no response year arrived
+    assert wf.jobs() == []
+
+
+def test_delete_all_output_keeps_the_ledger(wf):
+    db = wf.study / "ledger.sqlite"
+    con = sqlite3.connect(str(db))
+    rows = list(con.iterdump())
+    con.close()
+    wf.snakemake("--delete-all-output")
+    assert not (wf.study / "evidence.csv").exists()
+    assert not (wf.study / "work" / "ledger_update.json").exists()
+    assert db.is_file()
+    wf.snakemake("-q")
+    summary = json.loads((wf.study / "work" / "ledger_update.json").read_text())
+    assert summary["status"] == "unchanged" and summary["new"] == 0
+    con = sqlite3.connect(str(db))
+    assert list(con.iterdump()) == rows
+    con.close()

@@ -1,0 +1,537 @@
+"""Tests of lagsieve.ledger: the forecast ledger over simulated yearly deliveries.
+
+The invented demo data (lagsieve.demo) are delivered as they would arrive: first every series
+up to 2022, then up to 2023, then up to 2024, and every delivery runs the stages (align,
+screen, evidence) and the ledger update directly (no Snakemake, 99 surrogates, linear models).
+The 2024 delivery also restates one past value of the true prey driver (forage_biomass 2010),
+so the forecasts made from the old value must be superseded, not scored.
+
+Independent checks: the forecast and its 80 % prediction interval against statsmodels OLS
+(``get_prediction(...).summary_frame(alpha=0.2)``, columns ``obs_ci_lower/upper``), the WLS
+variant against statsmodels WLS, observed values and errors against the delivered files.
+"""
+from __future__ import annotations
+
+import json
+import shutil
+import sqlite3
+
+import numpy as np
+import pandas as pd
+import pytest
+import yaml
+
+from lagsieve import ledger, stages
+from lagsieve.cli import main
+from lagsieve.config import load_study, slug
+from lagsieve.demo import demo_config_text, write_demo
+
+STUDY = "caldrin_shelf_demo"
+FILES = ("mortality_by_age.csv", "surveys_annual.csv", "indices_long.csv", "bottom_temperature_monthly.csv")
+RESTATED = ("forage_biomass", 2010, 1.25)  # series, year, factor applied in the 2024 delivery
+
+
+def dump(db) -> list[str]:
+    """The whole database as SQL text (tables and rows), to compare states exactly."""
+    con = sqlite3.connect(str(db))
+    try:
+        return list(con.iterdump())
+    finally:
+        con.close()
+
+
+class Deliveries:
+    """A study folder that receives the demo data year by year."""
+
+    def __init__(self, root):
+        self.root = root
+        self.full = root / "full"
+        write_demo(self.full)
+        cfg = yaml.safe_load(demo_config_text("data"))
+        cfg["screen"].update(surrogates=99, models=["linear"])
+        self.config = root / "config.yaml"
+        self.config.write_text(yaml.safe_dump(cfg, sort_keys=False))
+        self.out = root / "results" / STUDY
+        self.work = self.out / "work"
+        self.db = self.out / "ledger.sqlite"
+        self.summary = self.work / "ledger_update.json"
+
+    def deliver(self, last_year: int, restate: bool = False) -> None:
+        data = self.root / "data"
+        data.mkdir(exist_ok=True)
+        for name in FILES:
+            df = pd.read_csv(self.full / name)
+            df = df[df["year"] <= last_year].copy()
+            if restate and name == "surveys_annual.csv":
+                s, y, k = RESTATED
+                df.loc[df["year"] == y, s] = np.round(df.loc[df["year"] == y, s] * k, 1)
+            df.to_csv(data / name, index=False, lineterminator="\n", float_format="%.10g")
+
+    def stages(self) -> None:
+        study = load_study(self.config)
+        stages.run_align(self.config, self.work / "annual.csv", self.work / "notes.csv")
+        for r in study.response_ids:
+            stages.run_screen(self.config, self.work / "annual.csv", slug(r), self.work / "responses" / slug(r))
+        stages.run_evidence(self.config, self.work / "annual.csv", self.work, self.out / "screen.csv",
+                            self.out / "evidence.csv")
+
+    def update(self) -> dict:
+        return ledger.update_ledger(self.config, self.work / "annual.csv", self.out / "evidence.csv", self.out,
+                                    self.summary)
+
+    def keep(self, tag: str) -> dict:
+        """Copies of this run's evidence and annual table, for the checks."""
+        snap = self.root / "snap" / tag
+        snap.mkdir(parents=True)
+        for src in (self.out / "evidence.csv", self.work / "annual.csv"):
+            shutil.copy(src, snap / src.name)
+        return {"evidence": pd.read_csv(snap / "evidence.csv"), "annual": snap / "annual.csv", "dump": dump(self.db)}
+
+
+@pytest.fixture(scope="module")
+def history(tmp_path_factory):
+    """Run the three deliveries (plus a rerun, a killed run and a rerun after the last one)."""
+    d = Deliveries(tmp_path_factory.mktemp("ledger"))
+    h = {"d": d}
+    d.deliver(2022)
+    d.stages()
+    h["s2022"] = d.update()
+    h["r2022"] = d.keep("2022")
+    h["s2022_again"] = d.update()  # same data: nothing may be added
+    h["dump_2022_again"] = dump(d.db)
+    d.deliver(2023)
+    d.stages()
+    h["s2023"] = d.update()
+    h["r2023"] = d.keep("2023")
+    d.deliver(2024, restate=True)
+    d.stages()
+    summary_before = d.summary.read_text()
+    dump_before = dump(d.db)
+    calls = []
+    real = ledger._score_open
+
+    def killed(*args, **kwargs):
+        real(*args, **kwargs)  # the scores are written, then the process "dies"
+        calls.append(1)
+        raise KeyboardInterrupt("killed while writing the ledger")
+
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setattr(ledger, "_score_open", killed)
+        with pytest.raises(KeyboardInterrupt):
+            d.update()
+    h["kill"] = {"calls": len(calls), "dump_before": dump_before, "dump_after": dump(d.db),
+                 "summary_before": summary_before, "summary_after": d.summary.read_text()}
+    h["s2024"] = d.update()
+    h["r2024"] = d.keep("2024")
+    h["s2024_again"] = d.update()
+    h["dump_2024_again"] = dump(d.db)
+    return h
+
+
+def q(db, sql, args=()):
+    con = sqlite3.connect(str(db))
+    con.row_factory = sqlite3.Row
+    try:
+        return [dict(r) for r in con.execute(sql, args).fetchall()]
+    finally:
+        con.close()
+
+
+def forecastable(ev: pd.DataFrame) -> set[tuple[str, str]]:
+    """strong or moderate hypotheses whose driver is needed no later than the last year (lag >= 1)."""
+    g = ev[ev["grade"].isin(["strong", "moderate"]) & (ev["lag"] >= 1)]
+    return set(zip(g["response"], g["driver"]))
+
+
+def observed(d: Deliveries, response: str, year: int) -> float:
+    m = pd.read_csv(d.full / "mortality_by_age.csv")
+    group = response.split(":")[1]
+    return float(m.loc[(m["group"] == group) & (m["year"] == year), "value"].iloc[0])
+
+
+# ---------------------------------------------------------------- the forecast itself
+def _synthetic(n=30, seed=3):
+    rng = np.random.default_rng(seed)
+    years = np.arange(1990, 1990 + n)
+    x = rng.normal(size=n + 1)
+    y = 0.5 + 0.02 * (years - 1990) + 0.8 * x[:-1] + rng.normal(0, 0.3, n)  # driver leads by one year
+    table = pd.DataFrame({"r": y, "d": x[1:]}, index=pd.Index(years, name="year"))
+    table.loc[1990 + n - 1, "d"] = x[-1]
+    return table
+
+
+def test_forecast_matches_statsmodels_ols():
+    sm = pytest.importorskip("statsmodels.api")
+    table = _synthetic()
+    f, why = ledger.next_year_forecast(table, table, {}, "r", "d", 1, "trend")
+    assert why == "" and f is not None
+    T = int(table.index.max())
+    assert (f.origin_year, f.target_year, f.driver_year) == (T, T + 1, T)
+    yrs = table.index.to_numpy()
+    rows = yrs[1:]  # the first year has neither the previous response nor the lagged driver
+    X = np.column_stack([np.ones(len(rows)), rows.astype(float), table["d"].shift(1).loc[rows].to_numpy()])
+    fit = sm.OLS(table["r"].loc[rows].to_numpy(), X).fit()
+    pred = fit.get_prediction(np.array([[1.0, T + 1.0, table["d"].loc[T]]])).summary_frame(alpha=0.2)
+    assert f.n_train == len(rows) == 29
+    assert f.forecast == pytest.approx(pred["mean"].iloc[0], rel=1e-10)
+    assert f.lower == pytest.approx(pred["obs_ci_lower"].iloc[0], rel=1e-10)
+    assert f.upper == pytest.approx(pred["obs_ci_upper"].iloc[0], rel=1e-10)
+    assert f.resid_sd == pytest.approx(np.sqrt(fit.scale), rel=1e-10)
+    # baselines fitted on the same years: persistence is y_t = a + phi y_{t-1}
+    Xp = np.column_stack([np.ones(len(rows)), table["r"].shift(1).loc[rows].to_numpy()])
+    pp = sm.OLS(table["r"].loc[rows].to_numpy(), Xp).fit().get_prediction(
+        np.array([[1.0, table["r"].loc[T]]])).summary_frame(alpha=0.2)
+    fc, lo, hi = f.baselines["persistence"]
+    assert (fc, lo, hi) == pytest.approx((pp["mean"].iloc[0], pp["obs_ci_lower"].iloc[0], pp["obs_ci_upper"].iloc[0]),
+                                         rel=1e-10)
+    assert f.baselines["climatology"][0] == pytest.approx(table["r"].loc[rows].mean(), rel=1e-12)
+
+
+def test_weighted_forecast_matches_statsmodels_wls():
+    sm = pytest.importorskip("statsmodels.api")
+    table = _synthetic(seed=5)
+    se = pd.DataFrame({"r": np.linspace(0.1, 0.4, len(table)), "d": np.nan}, index=table.index)
+    f, _ = ledger.next_year_forecast(table, table, {}, "r", "d", 1, "climatology", se=se, raw_se=se)
+    rows = table.index.to_numpy()[1:]
+    w = 1 / se["r"].loc[rows].to_numpy() ** 2
+    w = w / w.mean()
+    X = np.column_stack([np.ones(len(rows)), table["d"].shift(1).loc[rows].to_numpy()])
+    fit = sm.WLS(table["r"].loc[rows].to_numpy(), X, weights=w).fit()
+    T = int(table.index.max())
+    pred = fit.get_prediction(np.array([[1.0, table["d"].loc[T]]]), weights=1.0).summary_frame(alpha=0.2)
+    assert f.forecast == pytest.approx(pred["mean"].iloc[0], rel=1e-10)
+    assert (f.lower, f.upper) == pytest.approx((pred["obs_ci_lower"].iloc[0], pred["obs_ci_upper"].iloc[0]), rel=1e-10)
+    # the se of the response are part of the training data
+    f2, _ = ledger.next_year_forecast(table, table, {}, "r", "d", 1, "climatology", se=se * 1.5, raw_se=se * 1.5)
+    assert f2.training_sha256 != f.training_sha256
+
+
+def test_lag_zero_needs_the_driver_of_the_target_year():
+    table = _synthetic()
+    T = int(table.index.max())
+    f, why = ledger.next_year_forecast(table, table, {}, "r", "d", 0, "trend")
+    assert f is None and why == f"no forecast: lag 0 needs d in {T + 1}, not yet observed"
+    ahead = table.reindex(list(table.index) + [T + 1])
+    ahead.loc[T + 1, "d"] = 0.7  # the driver is delivered before the response
+    f, why = ledger.next_year_forecast(ahead, ahead, {}, "r", "d", 0, "trend")
+    assert why == "" and (f.target_year, f.driver_year, f.driver_value) == (T + 1, T + 1, 0.7)
+
+
+def test_training_hash_changes_with_a_used_value_only():
+    table = _synthetic()
+    f, _ = ledger.next_year_forecast(table, table, {}, "r", "d", 1, "trend")
+    restated = table.copy()
+    restated.loc[2000, "d"] += 0.1
+    g, _ = ledger.next_year_forecast(restated, restated, {}, "r", "d", 1, "trend")
+    assert g.training_sha256 != f.training_sha256
+    unused = table.copy()
+    unused.loc[int(table.index.max()), "d"] += 0.1  # lag 1: the last driver year is the forecast's input...
+    h, _ = ledger.next_year_forecast(unused, unused, {}, "r", "d", 1, "trend")
+    assert h.training_sha256 != f.training_sha256
+    first = table.copy()
+    first.loc[1990, "r"] += 0.1  # 1990 is no fitted year, but the response one year before 1991
+    m, _ = ledger.next_year_forecast(first, first, {}, "r", "d", 1, "trend")
+    assert m.forecast == f.forecast and m.training_sha256 != f.training_sha256
+    other = table.assign(e=1.0)  # ...but another series is not
+    k, _ = ledger.next_year_forecast(other, other, {}, "r", "d", 1, "trend")
+    assert k.training_sha256 == f.training_sha256
+
+
+def test_a_fit_that_cannot_be_made_gives_a_reason_not_a_crash():
+    table = _synthetic()
+    table["d"] = 1.0  # a constant driver: the candidate's design is singular
+    f, why = ledger.next_year_forecast(table, table, {}, "r", "d", 1, "trend")
+    assert f is None and why.startswith("no forecast: the least-squares fit failed")
+    short = _synthetic(n=6)  # 5 usable years, 3 parameters of trend + driver: too few
+    f, why = ledger.next_year_forecast(short, short, {}, "r", "d", 1, "trend")
+    assert f is None and why == "no forecast: 5 usable years are too few for the candidate model"
+
+
+def test_ledger_in_a_folder_with_uri_characters(tmp_path):
+    db = tmp_path / "we#ird?%dir" / "l.sqlite"
+    s1, _ = _record(db, _synthetic(), "k1", "t1")
+    assert s1["status"] == "recorded"
+    html = ledger.ledger_section_html(db, "syn", None)
+    assert "the first run of this study in the ledger" in html and "cannot be read" not in html
+
+
+def test_resolve_ledger_path(tmp_path):
+    cfg = yaml.safe_load(demo_config_text("data"))
+    p = tmp_path / "c.yaml"
+    p.write_text(yaml.safe_dump(cfg))
+    assert ledger.resolve_ledger_path(load_study(p), tmp_path / "o") == tmp_path / "o" / "ledger.sqlite"
+    cfg["ledger"] = {"path": "books/track.sqlite"}
+    p.write_text(yaml.safe_dump(cfg))
+    assert ledger.resolve_ledger_path(load_study(p), tmp_path / "o") == tmp_path / "o" / "books" / "track.sqlite"
+    cfg["ledger"] = {"path": str(tmp_path / "abs.sqlite")}
+    p.write_text(yaml.safe_dump(cfg))
+    assert ledger.resolve_ledger_path(load_study(p), tmp_path / "o") == tmp_path / "abs.sqlite"
+
+
+def _tidy(table: pd.DataFrame) -> pd.DataFrame:
+    t = table.reset_index().melt(id_vars="year", var_name="series", value_name="value").dropna()
+    return t[["series", "year", "value"]]
+
+
+def _record(db, table: pd.DataFrame, key: str, now: str):
+    """One run of a synthetic study (response r, driver d, strong at lag 1) written to ``db``."""
+    data = ledger.StudyData(table=table, raw=table, transforms={})
+    f, _ = data.forecast("r", "d", 1, "trend")
+    f.grade = "strong"
+    grades = ledger.grade_rows(pd.DataFrame([{"response": "r", "driver": "d", "grade": "strong", "model": "linear",
+                                              "lag": 1, "oos_hardest": "trend"}]))
+    run = {"study": "syn", "run_key": key, "data_sha256": key, "inputs_sha256": "{}", "tool_version": "test",
+           "config_sha256": "-", "created_utc": now, "screen_json": "{}"}
+    con = ledger.connect(db)
+    try:
+        return ledger.write_run(con, run, ledger.fingerprints(_tidy(table)), grades, {}, [f], data), f
+    finally:
+        con.close()
+
+
+@pytest.mark.parametrize("where, inside", [("above", 0), ("middle", 1), ("below", 0)])
+def test_scoring_inside_and_outside_the_interval(tmp_path, where, inside):
+    db = tmp_path / "l.sqlite"
+    table = _synthetic()
+    s1, f = _record(db, table, "k1", "t1")
+    assert (s1["status"], s1["new"], s1["scored"]) == ("recorded", 1, 0)
+    obs = {"above": f.upper + 0.01, "middle": (f.lower + f.upper) / 2, "below": f.lower - 0.01}[where]
+    later = table.reindex(list(table.index) + [f.target_year])
+    later.loc[f.target_year, ["r", "d"]] = [obs, 0.0]
+    s2, _ = _record(db, later, "k2", "t2")
+    assert (s2["new"], s2["scored"], s2["superseded"]) == (1, 1, 0)
+    sc = q(db, "SELECT * FROM scores")
+    assert len(sc) == 1 and sc[0]["inside"] == inside and sc[0]["run_id"] == 2
+    assert sc[0]["observed"] == obs and sc[0]["error"] == pytest.approx(obs - f.forecast, abs=1e-15)
+    con = ledger.open_readonly(db)
+    tr = ledger.track_record(con, "syn").iloc[0]
+    con.close()
+    assert (tr["made"], tr["scored"], tr["open"], tr["inside"]) == (2, 1, 1, inside)
+    e_trend = obs - f.baselines["trend"][0]
+    assert tr["skill_trend"] == pytest.approx(1 - (obs - f.forecast) ** 2 / e_trend ** 2, rel=1e-12)
+    assert tr["beat_hardest"] == int((obs - f.forecast) ** 2 < e_trend ** 2)
+
+
+# ---------------------------------------------------------------- three deliveries
+def test_first_delivery_records_forecasts_for_2023(history):
+    d, ev = history["d"], history["r2022"]["evidence"]
+    assert history["s2022"]["status"] == "recorded" and history["s2022"]["run_id"] == 1
+    fc = q(d.db, "SELECT * FROM forecasts WHERE run_id = 1")
+    assert {(f["response"], f["driver"]) for f in fc} == forecastable(ev)
+    assert len(fc) == history["s2022"]["new"] >= 2
+    for f in fc:  # (the checks below look at the ledger after all deliveries)
+        e = ev[(ev.response == f["response"]) & (ev.driver == f["driver"])].iloc[0]
+        assert (f["origin_year"], f["target_year"], f["driver_year"]) == (2022, 2023, 2023 - e["lag"])
+        assert f["lag"] == e["lag"] and f["baseline"] == e["oos_hardest"] and f["grade"] == e["grade"]
+        assert f["status"] == "scored" and f["level"] == 0.8 and f["lower"] < f["forecast"] < f["upper"]
+        assert json.loads(f["inputs_sha256"]).keys() == {f"data/{n}" for n in FILES}
+        assert len(q(d.db, "SELECT * FROM baseline_forecasts WHERE forecast_id = ?", (f["forecast_id"],))) == 3
+    assert q(d.db, "SELECT count(*) AS n FROM scores WHERE run_id = 1")[0]["n"] == 0
+    assert any("'open'" in line and "INSERT INTO \"forecasts\"" in line for line in history["r2022"]["dump"])
+    assert not any("INSERT INTO \"scores\"" in line for line in history["r2022"]["dump"])
+    grades = q(d.db, "SELECT response, driver, grade, note FROM grades WHERE run_id = 1")
+    assert sorted((g["response"], g["driver"], g["grade"]) for g in grades) == \
+        sorted(zip(ev["response"], ev["driver"], ev["grade"]))
+    lag0 = ev[ev["grade"].isin(["strong", "moderate"]) & (ev["lag"] == 0)]
+    notes = {(g["response"], g["driver"]): g["note"] for g in grades}
+    for r, dr in zip(lag0["response"], lag0["driver"]):
+        assert notes[(r, dr)] == f"no forecast: lag 0 needs {dr} in 2023, not yet observed"
+
+
+def test_forecast_in_the_ledger_is_the_candidate_fitted_on_all_years(history):
+    """Recompute one recorded forecast from the 2022 annual table with statsmodels."""
+    sm = pytest.importorskip("statsmodels.api")
+    d = history["d"]
+    f = q(d.db, "SELECT * FROM forecasts WHERE run_id = 1 ORDER BY forecast_id LIMIT 1")[0]
+    study = load_study(d.config)
+    table = stages.load_table(study, history["r2022"]["annual"])
+    y, x = table[f["response"]], table[f["driver"]].shift(f["lag"])
+    ok = y.notna() & y.shift(1).notna() & x.notna() & (table.index <= 2022)
+    yrs = table.index[ok].to_numpy(float)
+    design = {"trend": lambda t, yl: [np.ones_like(t), t], "climatology": lambda t, yl: [np.ones_like(t)],
+              "persistence": lambda t, yl: [np.ones_like(t), yl]}[f["baseline"]]
+    X = np.column_stack(design(yrs, y.shift(1)[ok].to_numpy()) + [x[ok].to_numpy()])
+    x0 = np.array(design(np.array([2023.0]), np.array([y.loc[2022]])) + [np.array([table[f["driver"]].loc[f["driver_year"]]])]).T
+    pred = sm.OLS(y[ok].to_numpy(), X).fit().get_prediction(x0).summary_frame(alpha=0.2)
+    assert f["n_train"] == int(ok.sum())
+    assert f["forecast"] == pytest.approx(pred["mean"].iloc[0], rel=1e-9)
+    assert (f["lower"], f["upper"]) == pytest.approx((pred["obs_ci_lower"].iloc[0], pred["obs_ci_upper"].iloc[0]),
+                                                     rel=1e-9)
+
+
+def test_rerun_on_unchanged_data_adds_nothing(history):
+    s = history["s2022_again"]
+    assert s["status"] == "unchanged" and (s["new"], s["scored"], s["superseded"]) == (0, 0, 0)
+    assert history["dump_2022_again"] == history["r2022"]["dump"]
+    s = history["s2024_again"]
+    assert s["status"] == "unchanged" and history["dump_2024_again"] == history["r2024"]["dump"]
+
+
+def test_second_delivery_scores_the_2023_forecasts(history):
+    d = history["d"]
+    made = q(d.db, "SELECT f.*, s.observed, s.error, s.inside, s.run_id AS scored_run FROM forecasts f "
+                   "JOIN scores s USING (forecast_id) WHERE f.target_year = 2023")
+    assert len(made) == history["s2022"]["new"] == history["s2023"]["scored"]
+    for f in made:
+        obs = observed(d, f["response"], 2023)  # the response has no transform in the demo
+        assert f["status"] == "scored" and f["scored_run"] == 2
+        assert f["observed"] == pytest.approx(obs, abs=1e-12)
+        assert f["error"] == pytest.approx(obs - f["forecast"], abs=1e-12)
+        assert f["inside"] == int(f["lower"] <= obs <= f["upper"])
+    # the 2024 forecasts are made from the 2023 delivery
+    fc24 = q(d.db, "SELECT * FROM forecasts WHERE target_year = 2024")
+    assert {(f["response"], f["driver"]) for f in fc24} == forecastable(history["r2023"]["evidence"])
+    assert all(f["run_id"] == 2 and f["origin_year"] == 2023 for f in fc24)
+
+
+def test_restated_value_supersedes_instead_of_scoring(history):
+    d = history["d"]
+    series, year, _ = RESTATED
+    fc24 = q(d.db, "SELECT f.*, s.forecast_id AS scored FROM forecasts f LEFT JOIN scores s USING (forecast_id) "
+                   "WHERE f.target_year = 2024")
+    uses = [f for f in fc24 if f["driver"] == series]
+    others = [f for f in fc24 if f["driver"] != series]
+    assert uses and others, "the demo should give forecasts with and without the restated driver"
+    for f in uses:
+        assert f["status"] == "superseded" and f["scored"] is None and f["superseded_run"] == 3
+        assert f["superseded_reason"] == f"training data changed: {series} {year} restated"
+    for f in others:
+        assert f["status"] == "scored" and f["scored"] is not None
+        assert q(d.db, "SELECT observed FROM scores WHERE forecast_id = ?", (f["forecast_id"],))[0]["observed"] == \
+            pytest.approx(observed(d, f["response"], 2024), abs=1e-12)
+    assert history["s2024"]["superseded"] == len(uses) and history["s2024"]["scored"] == len(others)
+    # new forecasts for 2025 are made from the restated data
+    fc25 = q(d.db, "SELECT * FROM forecasts WHERE target_year = 2025")
+    assert {(f["response"], f["driver"]) for f in fc25} == forecastable(history["r2024"]["evidence"])
+    assert all(f["status"] == "open" and f["run_id"] == 3 for f in fc25)
+    # the fingerprints of run 3 record exactly one restated cell against run 2
+    con = ledger.open_readonly(d.db)
+    ch = ledger.data_changes(con, 3, 2).set_index("series")
+    con.close()
+    assert ch.loc[series, "restated"] == [year]
+    assert sum(len(v) for v in ch["restated"]) == 1
+    assert all(v == [2024] for v in ch["added"])
+
+
+def test_track_record_scores_against_the_baselines_made_at_the_same_time(history):
+    d = history["d"]
+    con = ledger.open_readonly(d.db)
+    tr = ledger.track_record(con, STUDY).set_index(["response", "driver"])
+    con.close()
+    rows = q(d.db, "SELECT f.response, f.driver, f.baseline, s.error, s.observed, s.inside, b.baseline AS b, "
+                   "b.forecast AS fb FROM forecasts f JOIN scores s USING (forecast_id) "
+                   "JOIN baseline_forecasts b USING (forecast_id)")
+    df = pd.DataFrame(rows)
+    for (r, dr), g in df.groupby(["response", "driver"]):
+        for b in ("climatology", "persistence", "trend"):
+            gb = g[g["b"] == b]
+            want = 1 - (gb["error"] ** 2).sum() / ((gb["observed"] - gb["fb"]) ** 2).sum()
+            assert tr.loc[(r, dr), f"skill_{b}"] == pytest.approx(want, rel=1e-12)
+        one = g.drop_duplicates("error")
+        assert tr.loc[(r, dr), "scored"] == len(one)
+        assert tr.loc[(r, dr), "inside"] == one["inside"].sum()
+        assert tr.loc[(r, dr), "mae"] == pytest.approx(one["error"].abs().mean(), rel=1e-12)
+    totals = q(d.db, "SELECT status, count(*) AS n FROM forecasts GROUP BY status")
+    by = {t["status"]: t["n"] for t in totals}
+    assert tr["superseded"].sum() == by["superseded"] and tr["open"].sum() == by["open"]
+    assert tr["made"].sum() == sum(by.values())
+
+
+def test_unique_constraints_forbid_duplicates(history):
+    d = history["d"]
+    n = q(d.db, "SELECT count(*) AS n, count(DISTINCT response || driver || target_year || training_sha256) AS k "
+                "FROM forecasts")[0]
+    assert n["n"] == n["k"]
+    f = q(d.db, "SELECT * FROM forecasts LIMIT 1")[0]
+    con = sqlite3.connect(str(d.db))
+    try:
+        cols = [c for c in f if c != "forecast_id"]
+        with pytest.raises(sqlite3.IntegrityError):
+            con.execute(f"INSERT INTO forecasts({', '.join(cols)}) VALUES ({', '.join('?' * len(cols))})",
+                        [f[c] for c in cols])
+        with pytest.raises(sqlite3.IntegrityError):
+            con.execute("INSERT INTO scores(forecast_id, run_id, observed, error, inside) "
+                        "SELECT forecast_id, run_id, observed, error, inside FROM scores LIMIT 1")
+        with pytest.raises(sqlite3.IntegrityError):
+            con.execute("INSERT INTO series_years SELECT * FROM series_years LIMIT 1")
+        con.rollback()
+    finally:
+        con.close()
+    runs = q(d.db, "SELECT run_id, run_key FROM runs ORDER BY run_id")
+    assert [r["run_id"] for r in runs] == [1, 2, 3] and len({r["run_key"] for r in runs}) == 3
+
+
+def test_killed_run_leaves_the_ledger_intact_and_the_next_run_completes(history):
+    k = history["kill"]
+    assert k["calls"] == 1  # the interruption came after scores had been written inside the transaction
+    assert k["dump_after"] == k["dump_before"]
+    assert k["summary_after"] == k["summary_before"]  # the summary is written only after the commit
+    s = history["s2024"]
+    assert s["status"] == "recorded" and s["run_id"] == 3 and s["new"] > 0
+    assert json.loads(history["d"].summary.read_text())["run_id"] == 3
+
+
+def test_since_previous_run_lists_data_grades_and_outcomes(history):
+    d = history["d"]
+    con = ledger.open_readonly(d.db)
+    try:
+        s2 = ledger.since_previous_run(con, STUDY, 2)
+        s3 = ledger.since_previous_run(con, STUDY)
+    finally:
+        con.close()
+    assert s2.previous["run_id"] == 1 and s3.run["run_id"] == 3
+    ev1, ev2 = history["r2022"]["evidence"], history["r2023"]["evidence"]
+    g1 = dict(zip(zip(ev1.response, ev1.driver), ev1.grade))
+    g2 = dict(zip(zip(ev2.response, ev2.driver), ev2.grade))
+    want = {k for k in g2 if g1.get(k) != g2[k]}
+    assert {(r, dr) for r, dr in zip(s2.grade_changes.response, s2.grade_changes.driver)} == want
+    scored_keys = set(zip(s2.scored.response, s2.scored.driver))
+    for c in s2.grade_changes.itertuples():
+        assert f"{c.before}" == g1[(c.response, c.driver)] and c.after == g2[(c.response, c.driver)]
+        if (c.response, c.driver) in scored_keys:
+            assert "the 2023 forecast " in c.reason and ("hit" in c.reason or "missed" in c.reason)
+        assert c.reason
+    html = ledger.ledger_section_html(d.db, STUDY, history["r2024"]["evidence"])
+    assert html.startswith('<section id="since-previous-run">') and html.rstrip().endswith("</section>")
+    assert "<h2>Since the previous run</h2>" in html
+    assert "run 3 recorded" in html and "compared with run 2" in html
+    assert "<td>forage_biomass</td><td>2024</td><td></td><td>2010</td>" in html
+    assert "training data changed: forage_biomass 2010 restated" in html
+    assert "does not match" not in html
+    stale = ledger.ledger_section_html(d.db, STUDY, history["r2022"]["evidence"])
+    assert "does not match the grades of this report" in stale
+
+
+def test_section_html_is_escaped_and_never_raises(tmp_path):
+    odd = tmp_path / "a<b&c" / "ledger.sqlite"
+    html = ledger.ledger_section_html(odd, STUDY, None)
+    assert "a&lt;b&amp;c" in html and "a<b" not in html and "No forecast ledger" in html
+    bad = tmp_path / "junk.sqlite"
+    bad.write_bytes(b"not a database at all" * 100)
+    assert "cannot be read" in ledger.ledger_section_html(bad, STUDY, None)
+    change = ledger._table(["x"], [["moderate -> weak: <b>"]])
+    assert "moderate -&gt; weak: &lt;b&gt;" in change
+
+
+def test_cli_prints_the_track_record(history, capsys):
+    d = history["d"]
+    assert main(["ledger", str(d.config), "--out", str(d.root / "results")]) == 0
+    out = capsys.readouterr().out.splitlines()
+    assert out[0].startswith(f"forecast track record of study '{STUDY}': 3 runs recorded")
+    con = ledger.open_readonly(d.db)
+    tr = ledger.track_record(con, STUDY)
+    con.close()
+    assert len(out) == 2 + len(tr)
+    for t in tr.itertuples():
+        line = next(x for x in out if f"{t.response} <- {t.driver} " in x)
+        assert line.split()[3:7] == [str(t.made), str(t.open), str(t.scored), str(t.superseded)]
+    # the default results folder is results/ beside the config, as for `lagsieve run`
+    assert main(["ledger", str(d.config)]) == 0
+
+
+def test_cli_without_a_ledger_prints_one_line_and_exits_2(tmp_path, capsys):
+    cfg = tmp_path / "config.yaml"
+    cfg.write_text(demo_config_text("data"))
+    assert main(["ledger", str(cfg), "--out", str(tmp_path / "nowhere")]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "no forecast ledger" in err[0] and str(tmp_path / "nowhere") in err[0]
