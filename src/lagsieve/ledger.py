@@ -10,8 +10,8 @@ T + 1. The three baselines (climatology, persistence, trend) are fitted on the s
 forecast the same year, so that the candidate can later be compared with what one would have
 forecast without the driver. A forecast needs the driver in year T + 1 - lag, so it can be made
 when lag >= 1, or when the driver has already been observed in T + 1; otherwise the reason is
-recorded with the grade. The candidate is always the straight-line form (also when the screen
-preferred a spline), and with ``screen.weights: inverse-variance`` every fit is weighted by
+recorded with the grade. The candidate takes the form the screen chose (a straight line, or a
+penalised spline of the driver when the screen's model is ``gam``), and with ``screen.weights: inverse-variance`` every fit is weighted by
 1/se^2 as in the screen. Values are on the model's scale (the response's transform).
 
 Prediction interval (``LEVEL`` = 80 %, two-sided): the classical OLS prediction interval from
@@ -224,7 +224,7 @@ class NextYearForecast:
     training_sha256: str
     baselines: dict[str, tuple[float, float, float]] = field(default_factory=dict)  # b -> (fc, lo, hi)
     grade: str = ""  # the hypothesis' grade when the forecast was made
-    screen_model: str = "linear"  # the form the screen preferred (the forecast is always linear)
+    screen_model: str = "linear"  # the form the screen chose; the forecast uses the same form
 
 
 def _ols_forecast(W: np.ndarray, y: np.ndarray, w0: np.ndarray, level: float, weights: np.ndarray | None = None):
@@ -254,6 +254,22 @@ def _ols_forecast(W: np.ndarray, y: np.ndarray, w0: np.ndarray, level: float, we
     fc = float(w0 @ beta)
     t = float(_st.t.ppf(0.5 + level / 2.0, df))
     return fc, fc - t * se, fc + t * se, s
+
+
+def _gam_forecast(x, y, Z, x0: float, z0, level: float, weights=None):
+    """Baseline + penalised spline of the driver, forecast at (x0, z0) with an approximate
+    prediction interval; returns (forecast, lower, upper, residual sd)."""
+    from .gam import fit_pspline, predict_pspline
+
+    other = Z[:, 1:]
+    trend = other[:, 0] if other.shape[1] else None
+    fit = fit_pspline(x, y, trend=trend, weights=weights)
+    fc = float(predict_pspline(fit, np.array([x0]), None if trend is None else np.array([z0[1]]))[0])
+    n, edf = float(fit.n_used), float(fit.edf)
+    df = max(n - edf, 1.0)
+    s = float(np.sqrt(fit.rss / df))
+    half = float(_st.t.ppf(0.5 + level / 2.0, df)) * s * float(np.sqrt(1.0 + edf / n))
+    return fc, fc - half, fc + half, s
 
 
 def training_years(table: pd.DataFrame, response: str, driver: str, lag: int, origin_year: int):
@@ -296,7 +312,8 @@ def training_hash(raw: pd.DataFrame, transforms: dict[str, str], response: str, 
 def next_year_forecast(table: pd.DataFrame, raw: pd.DataFrame, transforms: dict[str, str],
                        response: str, driver: str, lag: int, baseline: str,
                        level: float = LEVEL, se: pd.DataFrame | None = None,
-                       raw_se: pd.DataFrame | None = None) -> tuple[NextYearForecast | None, str]:
+                       raw_se: pd.DataFrame | None = None, model: str = "linear"
+                       ) -> tuple[NextYearForecast | None, str]:
     """Forecast the first response year not yet observed with the candidate model.
 
     ``table`` is the wide transformed annual table (:func:`lagsieve.stages.load_table`), ``raw``
@@ -305,6 +322,12 @@ def next_year_forecast(table: pd.DataFrame, raw: pd.DataFrame, transforms: dict[
     every fit is weighted by 1/se^2, as in the screen; ``raw_se`` (before transforms) then
     enters the training hash. Returns (forecast, "") or (None, the reason no forecast can be
     made, in words).
+
+    With ``model='gam'`` (the form the screen chose) the candidate is the baseline plus a
+    penalised spline of the driver (:func:`lagsieve.gam.fit_pspline`, the baseline's
+    non-intercept term entering as an unpenalised linear term, smoothing by GCV), and its
+    interval is the approximate t_{n - edf} interval with variance sigma^2 (1 + edf / n)
+    (average leverage in place of the exact leverage of the new point).
     """
     y_all = table[response]
     observed = y_all.dropna()
@@ -333,10 +356,14 @@ def next_year_forecast(table: pd.DataFrame, raw: pd.DataFrame, transforms: dict[
             z0 = baseline_design(b, np.array([yT]), np.array([target]))[0]
             fcs[b] = _ols_forecast(Z, y, z0, level, wts)[:3]
         Z = baseline_design(baseline, ylag, years)
-        W = np.column_stack([Z, x])
-        w0 = np.append(baseline_design(baseline, np.array([yT]), np.array([target]))[0], float(xv))
-        fc, lo, hi, s = _ols_forecast(W, y, w0, level, wts)
-    except np.linalg.LinAlgError as exc:
+        z0 = baseline_design(baseline, np.array([yT]), np.array([target]))[0]
+        if model == "gam" and len(y) >= 12:
+            fc, lo, hi, s = _gam_forecast(x, y, Z, float(xv), z0, level, wts)
+        else:
+            W = np.column_stack([Z, x])
+            w0 = np.append(z0, float(xv))
+            fc, lo, hi, s = _ols_forecast(W, y, w0, level, wts)
+    except (np.linalg.LinAlgError, ValueError) as exc:
         return None, f"no forecast: the least-squares fit failed ({exc})"
     if not np.all(np.isfinite([fc, lo, hi, s] + [v for t in fcs.values() for v in t])):
         return None, "no forecast: the fit gave a non-finite forecast or interval (a constant driver?)"
@@ -438,9 +465,9 @@ class StudyData:
             raw_se = annual.pivot(index="year", columns="series", values="se").astype(float)
         return cls(load_table(study, annual_csv), raw, transforms, se, raw_se)
 
-    def forecast(self, response, driver, lag, baseline, level=LEVEL):
+    def forecast(self, response, driver, lag, baseline, level=LEVEL, model="linear"):
         return next_year_forecast(self.table, self.raw, self.transforms, response, driver, lag, baseline,
-                                  level, self.se, self.raw_se)
+                                  level, self.se, self.raw_se, model)
 
     def training_sha(self, response, driver, lag, baseline, origin_year) -> str:
         """The training hash a forecast made at ``origin_year`` would have on these data."""
@@ -506,7 +533,7 @@ def update_ledger(config_path: str | Path, annual_csv: str | Path, evidence_csv:
         if g["lag"] is None or not g["hardest"]:
             notes[(g["response"], g["driver"])] = "no forecast: no selected lag or hardest baseline"
             continue
-        f, why = data.forecast(g["response"], g["driver"], g["lag"], g["hardest"])
+        f, why = data.forecast(g["response"], g["driver"], g["lag"], g["hardest"], model=g["model"] or "linear")
         if f is None:
             notes[(g["response"], g["driver"])] = why
         else:
@@ -960,8 +987,8 @@ def ledger_section_html(ledger_path: str | Path, study, evidence_df: pd.DataFram
         out.append(_table(["response", "driver", "grade", "year", "forecast", "interval", "candidate"],
                           [[f.response, f.driver, f.grade, int(f.target_year), _n(f.forecast),
                             f"{_n(f.lower)} to {_n(f.upper)}",
-                            f"{f.baseline} + {f.driver} (lag {int(f.lag)}, straight line"
-                            + ("; the screen preferred a spline)" if f.screen_model == "gam" else ")")]
+                            f"{f.baseline} + {f.driver} (lag {int(f.lag)}, "
+                            + ("penalised spline)" if f.screen_model == "gam" else "straight line)")]
                            for f in s.made.itertuples()]))
     else:
         out.append("<p>None.</p>")
