@@ -720,8 +720,10 @@ def expanding_penalised(
     q = W.shape[-1]
     w = np.ones(len(y)) if weights is None else np.asarray(weights, float)
     Ww = W * w[:, None]
-    A = np.cumsum(Ww[..., :, :, None] * W[..., :, None, :], axis=-3)[..., origins - 1, :, :]
-    b = np.cumsum(Ww * y[:, None], axis=-2)[..., origins - 1, :]
+    from .linalg import expanding_cross
+
+    A = expanding_cross(Ww, W, origins)
+    b = expanding_cross(Ww, y[:, None], origins)[..., 0]
     yty = np.cumsum(w * y * y)[origins - 1]
     n = origins.astype(float)
     A = A + 1e-9 * (np.trace(A, axis1=-2, axis2=-1)[..., None, None] / q) * np.eye(q)

@@ -276,29 +276,49 @@ def _stability(x: np.ndarray, y: np.ndarray, window: int = 15) -> dict:
     }
 
 
-def screen_response(table: pd.DataFrame, study, response_id: str, se_table: pd.DataFrame | None = None) -> ResponseScreen:
+def _screen_one(table, response, driver, lags, screen, se):
+    """screen_hypothesis with a numerical failure turned into a ``failed: <reason>`` row."""
+    rid = response["id"]
+    try:
+        return screen_hypothesis(table, response, driver, lags, screen, se)
+    except (np.linalg.LinAlgError, ValueError, FloatingPointError, ZeroDivisionError) as exc:
+        s = pd.DataFrame([{"response": rid, "driver": driver["id"], "lag": k, "model": "linear",
+                           "status": f"failed: {exc}"} for k in lags])
+        h = {"response": rid, "driver": driver["id"], "category": driver.get("category"),
+             "expected_sign": driver.get("expected_sign"), "status": f"failed: {exc}"}
+        return s, h, None, None
+
+
+def _screen_one_packed(args):
+    from threadpoolctl import threadpool_limits
+
+    with threadpool_limits(limits=1):
+        return _screen_one(*args)
+
+
+def screen_response(table: pd.DataFrame, study, response_id: str, se_table: pd.DataFrame | None = None,
+                    workers: int = 1) -> ResponseScreen:
     """Screen one response against every driver configured for it.
 
     A numerical failure inside one hypothesis is recorded in its row's ``status`` and the
-    rest of the response is still screened.
+    rest of the response is still screened. With ``workers > 1`` the drivers are screened in
+    that many processes; every random draw is keyed by the driver (``driver_rng``), so the
+    results are identical to a sequential run.
     """
     response = next(r for r in study.responses if r["id"] == response_id)
-    screens, hyps, fcs, nulls = [], [], [], []
-    for driver in study.drivers_for(response_id):
-        lags = study.lags_for(driver)
-        try:
-            se = None if se_table is None or response_id not in se_table else se_table[response_id].to_numpy(float)
-            s, h, f, nl = screen_hypothesis(table, response, driver, lags, study.screen, se)
-        except (np.linalg.LinAlgError, ValueError, FloatingPointError, ZeroDivisionError) as exc:
-            s = pd.DataFrame([{"response": response_id, "driver": driver["id"], "lag": k,
-                               "model": "linear", "status": f"failed: {exc}"} for k in lags])
-            h, f, nl = {"response": response_id, "driver": driver["id"], "category": driver.get("category"),
-                        "expected_sign": driver.get("expected_sign"), "status": f"failed: {exc}"}, None, None
-        screens.append(s)
-        hyps.append(h)
-        if f is not None:
-            fcs.append(f)
-        if nl is not None:
-            nulls.append(nl)
+    se = None if se_table is None or response_id not in se_table else se_table[response_id].to_numpy(float)
+    tasks = [(table, response, d, study.lags_for(d), study.screen, se) for d in study.drivers_for(response_id)]
+    if workers > 1 and len(tasks) > 1:
+        import multiprocessing as mp
+        from concurrent.futures import ProcessPoolExecutor
+
+        with ProcessPoolExecutor(max_workers=min(workers, len(tasks)), mp_context=mp.get_context("fork")) as ex:
+            results = list(ex.map(_screen_one_packed, tasks))
+    else:
+        results = [_screen_one(*t) for t in tasks]
+    screens = [r[0] for r in results]
+    hyps = [r[1] for r in results]
+    fcs = [r[2] for r in results if r[2] is not None]
+    nulls = [r[3] for r in results if r[3] is not None]
     cat = lambda frames: pd.concat(frames, ignore_index=True) if frames else pd.DataFrame()
     return ResponseScreen(cat(screens), pd.DataFrame(hyps), cat(fcs), cat(nulls))

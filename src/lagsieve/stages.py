@@ -209,8 +209,9 @@ def run_screen(config_path, annual_csv, response_id: str, out_dir, threads: int 
     transforms = {s["id"]: s.get("transform", "none") for s in study.responses + study.drivers}
     table = annual_table(annual, transforms)
     se = se_table(annual, transforms) if study.screen.get("weights") == "inverse-variance" else None
-    with threadpool_limits(limits=max(1, int(threads))):
-        res = screen_response(table, study, response_id, se)
+    workers = max(1, int(threads))
+    with threadpool_limits(limits=1):  # many small systems: processes, not BLAS threads, pay off
+        res = screen_response(table, study, response_id, se, workers=workers)
     out = Path(out_dir)
     write_csv(res.forecasts, out / "forecasts.csv")
     write_csv(res.nulls, out / "nulls.csv")

@@ -31,6 +31,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy import stats as _st
 
+from .linalg import expanding_cross
 from .gam import bspline_basis, default_n_basis, difference_penalty, expanding_penalised
 
 BASELINES = ("climatology", "persistence", "trend")
@@ -70,11 +71,9 @@ def _expanding_solve(W: np.ndarray, y: np.ndarray, origins: np.ndarray, w: np.nd
     p = W.shape[-1]
     w = np.ones(len(y)) if w is None else np.asarray(w, float)
     Ww = W * w[:, None]
-    xtx = np.cumsum(Ww[..., :, :, None] * W[..., :, None, :], axis=-3)  # (..., T, p, p)
-    xty = np.cumsum(Ww * y[:, None], axis=-2)  # (..., T, p)
+    A = expanding_cross(Ww, W, origins)  # (..., O, p, p)
+    b = expanding_cross(Ww, y[:, None], origins)[..., 0]  # (..., O, p)
     yty = np.cumsum(w * y * y)
-    A = xtx[..., origins - 1, :, :]
-    b = xty[..., origins - 1, :]
     ridge = 1e-10 * np.trace(A, axis1=-2, axis2=-1)[..., None, None] * np.eye(p) / p
     beta = np.linalg.solve(A + ridge, b[..., None])[..., 0]
     rss = yty[origins - 1] - (beta * b).sum(-1)

@@ -8,7 +8,7 @@ rule screen:
         hypotheses=f"{OUT}/{{study}}/work/responses/{{response}}/hypotheses.csv",
         forecasts=f"{OUT}/{{study}}/work/responses/{{response}}/forecasts.csv",
         nulls=f"{OUT}/{{study}}/work/responses/{{response}}/nulls.csv",
-    threads: 1
+    threads: 2
     log:
         f"{OUT}/{{study}}/logs/screen/{{response}}.log",
     conda:
