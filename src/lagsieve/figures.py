@@ -16,6 +16,7 @@ from __future__ import annotations
 import base64
 import io
 import os
+import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -24,7 +25,6 @@ import matplotlib
 matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
-import pandas as pd  # noqa: E402
 from matplotlib.colors import LinearSegmentedColormap, ListedColormap  # noqa: E402
 from matplotlib.patches import Patch, Rectangle  # noqa: E402
 
@@ -66,9 +66,21 @@ EMBED_DPI = 150        # embedded copy (displayed at 96 px per inch: sharp on de
 INVENTED_NOTE = "invented data"
 
 
-def mpl_text(s) -> str:
-    """A user string made safe for matplotlib: '$' would otherwise start mathematical text."""
-    return str(s).replace("\\", "\\\\").replace("$", r"\$")
+def mpl_text(s, width: int | None = None) -> str:
+    """A user string made safe for matplotlib ('$' would otherwise start mathematical text),
+    optionally wrapped onto lines of at most ``width`` characters."""
+    import textwrap
+
+    s = str(s)
+    if width and len(s) > width:
+        s = "\n".join(textwrap.wrap(s, width, break_long_words=True)[:3])
+    return s.replace("\\", "\\\\").replace("$", r"\$")
+
+
+def _short(s, n: int = 44) -> str:
+    """A label shortened for a legend entry (the full text is in the report around it)."""
+    s = str(s)
+    return s if len(s) <= n else s[: n - 1].rstrip() + "\u2026"
 
 
 def r_critical(n_eff, p: float = 0.05) -> np.ndarray:
@@ -84,10 +96,42 @@ def r_critical(n_eff, p: float = 0.05) -> np.ndarray:
         return t / np.sqrt(df + t ** 2)
 
 
+PANEL_SIZE = (5.0, 3.1)  # inches; every per-hypothesis panel has this size
+
+
 def _mark_invented(fig, invented: bool) -> None:
+    """A small note in the bottom-right corner (laid out with the figure, never over data)."""
     if invented:
-        fig.text(0.995, 0.005, INVENTED_NOTE, ha="right", va="bottom", fontsize=6.5,
-                 color="#9c3d0c", style="italic")
+        fig.supxlabel(INVENTED_NOTE, x=0.995, ha="right", fontsize=6.5, color="#9c3d0c", style="italic")
+
+
+def _top_legend(fig, ax, ncol: int = 3) -> None:
+    """The legend above the axes, outside the data area."""
+    handles, labels = ax.get_legend_handles_labels()
+    if handles:
+        fig.legend(handles, labels, loc="outside upper center", ncol=ncol, frameon=False, fontsize=6.8,
+                   handlelength=2.2, columnspacing=1.2)
+
+
+def _gapped(years, *series):
+    """Insert a NaN row wherever consecutive years are not adjacent, so lines break at gaps."""
+    years = np.asarray(years, float)
+    if len(years) < 2:
+        return (years,) + tuple(np.asarray(v, float) for v in series)
+    full = np.arange(years.min(), years.max() + 1)
+    pos = np.searchsorted(full, years)
+    out = []
+    for v in series:
+        a = np.full(len(full), np.nan)
+        a[pos] = np.asarray(v, float)
+        out.append(a)
+    return (full, *out)
+
+
+def _integer_years(ax) -> None:
+    from matplotlib.ticker import MaxNLocator
+
+    ax.xaxis.set_major_locator(MaxNLocator(integer=True, nbins=8))
 
 
 def _z(v):
@@ -126,7 +170,7 @@ def coverage(series: list[str], labels: list[str], roles: list[str], years, obse
             inner = ~obs[i] & (np.arange(len(years)) > first) & (np.arange(len(years)) < last)
             ax.scatter(years[inner], np.full(inner.sum(), i), marker="x", s=16, color="#b11d1d",
                        linewidths=1.0, zorder=3)
-    ax.set_yticks(range(k), [mpl_text(s) for s in labels])
+    ax.set_yticks(range(k), [mpl_text(_short(s, 45)) for s in labels])
     ax.set_ylim(k - 0.5, -0.5)
     ax.set_xlim(years.min() - 1, years.max() + 1)
     ax.grid(axis="y", visible=False)
@@ -135,8 +179,7 @@ def coverage(series: list[str], labels: list[str], roles: list[str], years, obse
                Patch(color=DRIVER_COLOUR, label="driver, observed"),
                Patch(facecolor="white", edgecolor="#555555", hatch="////", label="filled (interpolated)"),
                plt.Line2D([], [], marker="x", color="#b11d1d", ls="none", label="missing inside the series")]
-    ax.legend(handles=handles, loc="upper center", bbox_to_anchor=(0.5, -0.09 - 0.9 / (0.3 * k + 1.25)),
-              ncol=4, frameon=False)
+    fig.legend(handles=handles, loc="outside lower center", ncol=4, frameon=False, fontsize=7)
     _mark_invented(fig, invented)
     return fig
 
@@ -147,27 +190,33 @@ def driver_correlation(corr: np.ndarray, labels: list[str], threshold: float = 0
     threshold are outlined and their value starred."""
     import seaborn as sns
 
-    corr = np.asarray(corr, float)
+    full = np.asarray(corr, float)
     k = len(labels)
-    mask = np.triu(np.ones((k, k), bool))
-    side = max(4.2, 0.55 * k + 2.2)
-    fig, ax = plt.subplots(figsize=(side + 0.9, side), layout="constrained")
-    annot = np.empty((k, k), dtype=object)
-    for i in range(k):
-        for j in range(k):
+    corr = full[1:, :-1]  # the lower triangle without the diagonal: rows 2..k, columns 1..k-1
+    m = k - 1
+    mask = np.triu(np.ones((m, m), bool), k=1)
+    side = max(3.6, 0.5 * m + 2.4)
+    fig, ax = plt.subplots(figsize=(side + 1.2, side), layout="constrained")
+    annot = np.empty((m, m), dtype=object)
+    for i in range(m):
+        for j in range(m):
             v = corr[i, j]
-            annot[i, j] = "" if np.isnan(v) else (f"{v:.2f}*" if abs(v) > threshold and i != j else f"{v:.2f}")
-    sns.heatmap(corr, mask=mask, cmap=CORR_CMAP, vmin=-1, vmax=1, center=0, annot=annot, fmt="",
-                annot_kws={"fontsize": 7}, square=True, linewidths=0.6, linecolor="white",
-                cbar_kws={"label": "Pearson r (same year)", "shrink": 0.7}, ax=ax)
-    for i in range(k):
-        for j in range(i):
+            annot[i, j] = "" if np.isnan(v) else (f"{v:.2f}*" if abs(v) > threshold else f"{v:.2f}")
+    with warnings.catch_warnings():  # seaborn 0.13 calls a colormap method matplotlib plans to rename
+        warnings.simplefilter("ignore", PendingDeprecationWarning)
+        sns.heatmap(corr, mask=mask | np.isnan(corr), cmap=CORR_CMAP, vmin=-1, vmax=1, center=0, annot=annot,
+                    fmt="", annot_kws={"fontsize": 7}, square=True, linewidths=0.6, linecolor="white",
+                    cbar_kws={"label": "Pearson r (same year)", "shrink": 0.7}, ax=ax)
+    for i in range(m):
+        for j in range(i + 1):
             if abs(corr[i, j]) > threshold:
-                ax.add_patch(Rectangle((j + 0.04, i + 0.04), 0.92, 0.92, fill=False, edgecolor="#111111",
-                                       linewidth=2.0, zorder=5))
-    short = [mpl_text(s) for s in labels]
-    ax.set_xticks(np.arange(k) + 0.5, short, rotation=40, ha="right")
-    ax.set_yticks(np.arange(k) + 0.5, short, rotation=0)
+                ax.add_patch(Rectangle((j + 0.03, i + 0.03), 0.94, 0.94, fill=False, edgecolor="#000000",
+                                       linewidth=2.6, zorder=5))
+                ax.add_patch(Rectangle((j + 0.1, i + 0.1), 0.8, 0.8, fill=False, edgecolor="#ffffff",
+                                       linewidth=0.9, zorder=6))
+    short = [mpl_text(_short(s, 40)) for s in labels]
+    ax.set_xticks(np.arange(m) + 0.5, short[:-1], rotation=40, ha="right")
+    ax.set_yticks(np.arange(m) + 0.5, short[1:], rotation=0)
     ax.grid(False)
     ax.set_title(f"Outlined and starred: |r| > {threshold:g}, too collinear to separate", loc="left")
     _mark_invented(fig, invented)
@@ -186,8 +235,7 @@ def evidence_grid(grades: np.ndarray, lags: np.ndarray, row_labels: list[str], c
             if g[i, j] in GRADE_STYLE:
                 idx[i, j] = order.index(g[i, j])
     fig, ax = plt.subplots(figsize=(max(5.5, 0.95 * nc + 2.6), 0.62 * nr + 1.9), layout="constrained")
-    cmap = ListedColormap([GRADE_STYLE[k][0] for k in order])
-    cmap.set_bad("#ffffff")
+    cmap = ListedColormap([GRADE_STYLE[k][0] for k in order]).with_extremes(bad="#ffffff")
     ax.imshow(np.ma.masked_invalid(idx), cmap=cmap, vmin=-0.5, vmax=len(order) - 0.5, aspect="auto")
     for i in range(nr):
         for j in range(nc):
@@ -203,8 +251,8 @@ def evidence_grid(grades: np.ndarray, lags: np.ndarray, row_labels: list[str], c
                                            edgecolor="#bdbdbd", linewidth=0))
             else:
                 ax.text(j, i, "not tried", ha="center", va="center", fontsize=6.5, color="#888888")
-    ax.set_xticks(range(nc), [mpl_text(s) for s in col_labels], rotation=35, ha="right")
-    ax.set_yticks(range(nr), [mpl_text(s) for s in row_labels])
+    ax.set_xticks(range(nc), [mpl_text(_short(s, 40)) for s in col_labels], rotation=35, ha="right")
+    ax.set_yticks(range(nr), [mpl_text(_short(s, 45)) for s in row_labels])
     ax.set_xticks(np.arange(nc + 1) - 0.5, minor=True)
     ax.set_yticks(np.arange(nr + 1) - 0.5, minor=True)
     ax.grid(False)
@@ -220,15 +268,17 @@ def evidence_grid(grades: np.ndarray, lags: np.ndarray, row_labels: list[str], c
 def overlay(years, y, x, lag: int, response: str, driver: str, invented: bool = False):
     """Both series standardised (mean 0, sd 1) on the response's years, the driver shifted
     by its lag so that what is compared is what the screen compared."""
-    fig, ax = plt.subplots(figsize=(5.4, 2.9), layout="constrained")
+    fig, ax = plt.subplots(figsize=PANEL_SIZE, layout="constrained")
     ax.axhline(0, color="#bbbbbb", lw=0.8)
-    ax.plot(years, _z(y), "-o", ms=3, lw=1.4, color=RESPONSE_COLOUR, label=mpl_text(response))
+    yrs, zy, zx = _gapped(years, _z(y), _z(x))
+    ax.plot(yrs, zy, "-o", ms=3, lw=1.4, color=RESPONSE_COLOUR, label=mpl_text(_short(response, 60)))
     shifted = "same year" if lag == 0 else f"{lag} year{'s' if lag > 1 else ''} earlier"
-    ax.plot(years, _z(x), "--s", ms=2.8, lw=1.2, color=DRIVER_COLOUR,
-            label=mpl_text(f"{driver} ({shifted})"))
+    ax.plot(yrs, zx, "--s", ms=2.8, lw=1.2, color=DRIVER_COLOUR,
+            label=mpl_text(f"{_short(driver, 48)} ({shifted})"))
     ax.set_xlabel("year of the response")
     ax.set_ylabel("standardised value (z)")
-    ax.legend(loc="upper left", frameon=False, ncol=1)
+    _integer_years(ax)
+    _top_legend(fig, ax, ncol=1)
     _mark_invented(fig, invented)
     return fig
 
@@ -239,7 +289,7 @@ def scatter(x, y, lag: int, response: str, driver: str, smooth: dict | None = No
     fit when a GAM was screened for this pair."""
     x = np.asarray(x, float)
     y = np.asarray(y, float)
-    fig, ax = plt.subplots(figsize=(4.3, 2.9), layout="constrained")
+    fig, ax = plt.subplots(figsize=PANEL_SIZE, layout="constrained")
     ax.scatter(x, y, s=15, color=RESPONSE_COLOUR, alpha=0.85, edgecolors="white", linewidths=0.4,
                label="years")
     if len(x) >= 3 and np.ptp(x) > 0:
@@ -249,11 +299,11 @@ def scatter(x, y, lag: int, response: str, driver: str, smooth: dict | None = No
         ax.plot(g, a + b * g, color=DRIVER_COLOUR, lw=1.6, label=f"linear fit (r = {r:.2f}, n = {len(x)})")
     if smooth is not None:
         ax.plot(smooth["grid"], smooth["fit"], color=SMOOTH_COLOUR, lw=1.6, ls=(0, (5, 2)),
-                label=f"penalised spline (edf {smooth['edf']:.1f})")
+                label=f"penalised spline (edf {smooth['edf']:.1f})" + (", mean year" if smooth.get("trend") else ""))
     lead = "same year" if lag == 0 else f"{lag}-year lead"
-    ax.set_xlabel(mpl_text(f"{driver}, {lead}"))
-    ax.set_ylabel(mpl_text(response))
-    ax.legend(frameon=False, loc="best")
+    ax.set_xlabel(mpl_text(f"{driver}, {lead}", 70))
+    ax.set_ylabel(mpl_text(response, 45))
+    _top_legend(fig, ax, ncol=3)
     _mark_invented(fig, invented)
     return fig
 
@@ -264,30 +314,25 @@ def lag_profile(lags, r, r_crit, chosen: int, r_detrended=None, invented: bool =
     lags = np.asarray(lags, float)
     r = np.asarray(r, float)
     rc = np.asarray(r_crit, float)
-    fig, ax = plt.subplots(figsize=(4.3, 2.9), layout="constrained")
+    fig, ax = plt.subplots(figsize=PANEL_SIZE, layout="constrained")
     edges = np.concatenate([[lags[0] - 0.5], lags + 0.5])
     band = np.concatenate([rc, rc[-1:]])
     ax.fill_between(edges, -band, band, step="post", color="#d9d9d9", alpha=0.8, lw=0,
                     label="not significant (p > 0.05, n_eff)")
     ax.axhline(0, color="#888888", lw=0.8)
     colours = [RESPONSE_COLOUR if lg == chosen else "#8fb3d6" for lg in lags]
-    ax.bar(lags, r, width=0.55, color=colours, edgecolor=RESPONSE_COLOUR, linewidth=0.8, label="r",
-           zorder=3)
+    ax.bar(lags, r, width=0.55, color=colours, edgecolor=RESPONSE_COLOUR, linewidth=0.8,
+           label="r (dark: chosen lag)", zorder=3)
     if r_detrended is not None:
         ax.scatter(lags, r_detrended, marker="D", s=22, facecolors="white", edgecolors=DRIVER_COLOUR,
                    linewidths=1.2, zorder=4, label="r after detrending")
-    if chosen in set(lags.astype(int)):
-        i = int(np.flatnonzero(lags == chosen)[0])
-        top = r[i] if np.isfinite(r[i]) else 0.0
-        ax.annotate("chosen lag", (chosen, top), xytext=(0, 10 if top >= 0 else -14),
-                    textcoords="offset points", ha="center", fontsize=7, color=RESPONSE_COLOUR)
     lim = np.nanmax(np.abs(np.concatenate([r, rc, [0.3]] + ([np.asarray(r_detrended, float)]
                                                             if r_detrended is not None else []))))
     ax.set_ylim(-1.25 * lim, 1.25 * lim)
-    ax.set_xticks(lags.astype(int))
-    ax.set_xlabel("driver lead (years)")
+    ax.set_xticks(lags.astype(int), [f"{int(v)}*" if v == chosen else f"{int(v)}" for v in lags])
+    ax.set_xlabel("driver lead (years; * chosen)")
     ax.set_ylabel("Pearson r")
-    ax.legend(frameon=False, fontsize=6.5, loc="lower left", ncol=1)
+    _top_legend(fig, ax, ncol=3)
     ax.grid(axis="x", visible=False)
     _mark_invented(fig, invented)
     return fig
@@ -297,16 +342,19 @@ def forecasts(years, observed, baselines: dict, model, hardest: str, response: s
               invented: bool = False):
     """Out-of-sample one-step forecasts: observed, the three baselines, and the hardest
     baseline plus the driver (every forecast made from earlier years only)."""
-    fig, ax = plt.subplots(figsize=(5.4, 2.9), layout="constrained")
-    ax.plot(years, observed, "-o", ms=3.2, lw=1.2, color="#111111", label="observed", zorder=4)
-    for name, values in baselines.items():
+    fig, ax = plt.subplots(figsize=PANEL_SIZE, layout="constrained")
+    names = list(baselines)
+    yrs, obs, mod, *base = _gapped(years, observed, model, *[baselines[n] for n in names])
+    ax.plot(yrs, obs, "-o", ms=3.2, lw=1.2, color="#111111", label="observed", zorder=4)
+    for name, values in zip(names, base):
         colour, dash, _ = BASELINE_STYLES.get(name, ("#777777", "--", None))
-        ax.plot(years, values, color=colour, ls=dash, lw=1.1, label=f"{name} baseline")
-    ax.plot(years, model, "-s", ms=2.8, lw=1.6, color=DRIVER_COLOUR, zorder=5,
-            label=mpl_text(f"{hardest} + {driver}"))
+        ax.plot(yrs, values, color=colour, ls=dash, lw=1.1, label=f"{name} baseline")
+    ax.plot(yrs, mod, "-s", ms=2.8, lw=1.6, color=DRIVER_COLOUR, zorder=5,
+            label=mpl_text(f"{hardest} + {_short(driver, 30)}"))
     ax.set_xlabel("forecast year")
-    ax.set_ylabel(mpl_text(response))
-    ax.legend(frameon=False, ncol=2, fontsize=6.5, loc="best")
+    ax.set_ylabel(mpl_text(response, 45))
+    _integer_years(ax)
+    _top_legend(fig, ax, ncol=2)
     _mark_invented(fig, invented)
     return fig
 
@@ -315,18 +363,35 @@ def null_distributions(panels: list[dict], invented: bool = False):
     """Histograms of the statistic over the surrogate drivers with the real driver's value.
     ``panels``: dicts with values, observed, label, p, title."""
     n = len(panels)
-    fig, axes = plt.subplots(1, n, figsize=(2.9 * n + 0.4, 2.7), layout="constrained", squeeze=False)
-    for ax, p in zip(axes[0], panels):
+    fig, axes = plt.subplots(1, n, figsize=PANEL_SIZE, layout="constrained", squeeze=False)
+    for k, (ax, p) in enumerate(zip(axes[0], panels)):
         v = np.asarray(p["values"], float)
         v = v[np.isfinite(v)]
-        ax.hist(v, bins=30, color="#b8d4ec", edgecolor="white", linewidth=0.4, label="surrogates")
-        ax.axvline(p["observed"], color=DRIVER_COLOUR, lw=2, label="real driver")
+        obs = float(p["observed"])
+        # a few surrogates can be far out (e.g. a skill of -40 against a good baseline); show
+        # the bulk and say how many lie beyond the left edge
+        lo = obs
+        if len(v):
+            q1, q25, q75 = np.quantile(v, [0.01, 0.25, 0.75])
+            far = np.min(v) < q25 - 4.0 * (q75 - q25)
+            lo = min(q1 if far else np.min(v), obs)
+        span = (max(np.max(v), obs) - lo) if len(v) else 1.0
+        lo -= 0.05 * span
+        shown = v[v >= lo]
+        ax.hist(shown, bins=int(np.clip(len(shown) // 10, 8, 30)), color="#b8d4ec", edgecolor="white", linewidth=0.4, label="surrogates")
+        ax.axvline(obs, color=DRIVER_COLOUR, lw=2, label="real driver")
+        ax.set_xlim(lo, max(np.max(v) if len(v) else obs, obs) + 0.05 * span)
         ax.set_xlabel(mpl_text(p["label"]))
-        ax.set_ylabel("surrogate count")
-        ptxt = "" if p.get("p") is None or not np.isfinite(p["p"]) else f"  p = {p['p']:.3f}"
+        if k == 0:
+            ax.set_ylabel("surrogates")
+        ptxt = "" if p.get("p") is None or not np.isfinite(p["p"]) else f", p = {p['p']:.3f}"
         ax.set_title(mpl_text(p["title"]) + ptxt, loc="left")
+        hidden = len(v) - len(shown)
+        if hidden:
+            ax.text(0.02, 0.97, f"{hidden} lower\nnot shown", transform=ax.transAxes, fontsize=6,
+                    va="top", color="#555555")
         ax.grid(axis="x", visible=False)
-        ax.legend(frameon=False, fontsize=6.5, loc="upper left")
+    _top_legend(fig, axes[0][0], ncol=2)
     _mark_invented(fig, invented)
     return fig
 
@@ -335,7 +400,7 @@ def gam_effect(grid, curve, lower, upper, x_obs, driver: str, response: str, sta
                invented: bool = False):
     """Partial effect of the driver from the penalised spline, with its pointwise 95% band
     and a rug of the observed driver values."""
-    fig, ax = plt.subplots(figsize=(4.3, 2.9), layout="constrained")
+    fig, ax = plt.subplots(figsize=PANEL_SIZE, layout="constrained")
     ax.fill_between(grid, lower, upper, color=SMOOTH_COLOUR, alpha=0.18, lw=0, label="95% band")
     ax.plot(grid, curve, color=SMOOTH_COLOUR, lw=1.8, label="partial effect")
     ax.axhline(0, color="#888888", lw=0.8)
@@ -343,10 +408,10 @@ def gam_effect(grid, curve, lower, upper, x_obs, driver: str, response: str, sta
     span = np.nanmax(upper) - ymin
     ax.plot(x_obs, np.full(len(x_obs), ymin - 0.04 * span), "|", color=INK, ms=8, mew=0.8,
             label="observed driver values")
-    ax.set_xlabel(mpl_text(driver))
-    ax.set_ylabel(mpl_text(f"effect on {response}"))
+    ax.set_xlabel(mpl_text(driver, 70))
+    ax.set_ylabel(mpl_text(f"effect on {response}", 45))
     ax.set_title(mpl_text(stats_line), loc="left", fontsize=7.5)
-    ax.legend(frameon=False, fontsize=6.5, loc="best")
+    _top_legend(fig, ax, ncol=3)
     _mark_invented(fig, invented)
     return fig
 
@@ -371,59 +436,150 @@ def to_png_base64(fig, dpi: int = EMBED_DPI) -> str:
     return base64.b64encode(buf.getvalue()).decode("ascii")
 
 
-def save(fig, figures_dir: str | Path, name: str) -> tuple[str, tuple[int, int]]:
-    """Write ``name``.png (300 dpi) and ``name``.svg; return the embedded PNG (base64, at
-    150 dpi, downsampled from the 300 dpi file) and its display size in CSS pixels; close
-    the figure."""
+def save_png(fig, figures_dir: str | Path, name: str) -> tuple[str, tuple[int, int]]:
+    """Lay the figure out and draw it once at 300 dpi; write ``name``.png; return the embedded
+    copy (base64 PNG at 150 dpi, halved from the 300 dpi raster) and its display size in CSS
+    pixels. The layout is then frozen, so a later SVG uses the same positions without laying
+    the figure out again."""
     from PIL import Image
 
     d = Path(figures_dir)
     d.mkdir(parents=True, exist_ok=True)
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=PNG_DPI, metadata={"Software": None})
-    (d / f"{name}.png").write_bytes(buf.getvalue())
-    fig.savefig(d / f"{name}.svg", format="svg", metadata={"Date": None, "Creator": None})
     width_in, height_in = fig.get_size_inches()
-    plt.close(fig)
-    buf.seek(0)
-    with Image.open(buf) as im:
-        im = im.convert("RGB")
-        small = im.resize((max(1, round(im.width * EMBED_DPI / PNG_DPI)),
-                           max(1, round(im.height * EMBED_DPI / PNG_DPI))), Image.LANCZOS)
+    fig.set_dpi(PNG_DPI)
+    fig.canvas.draw()
+    fig.set_layout_engine(None)  # keep the positions; with no engine, saving does not lay out again
+    im = Image.fromarray(np.asarray(fig.canvas.buffer_rgba()), "RGBA").convert("RGB")
+    im.save(d / f"{name}.png", format="PNG", dpi=(PNG_DPI, PNG_DPI), compress_level=1)
+    small = im.reduce(PNG_DPI // EMBED_DPI)
     out = io.BytesIO()
-    small.save(out, format="PNG", optimize=False, compress_level=6)
+    small.save(out, format="PNG", compress_level=1)
     return base64.b64encode(out.getvalue()).decode("ascii"), (round(width_in * 96), round(height_in * 96))
 
 
-def render_job(job: FigureJob, figures_dir: str) -> tuple[str, str, tuple[int, int]]:
+def save_svg(fig, figures_dir: str | Path, name: str) -> None:
+    fig.savefig(Path(figures_dir) / f"{name}.svg", format="svg", metadata={"Date": None, "Creator": None})
+
+
+def save(fig, figures_dir: str | Path, name: str) -> tuple[str, tuple[int, int]]:
+    """Write ``name``.png (300 dpi) and ``name``.svg, close the figure; see :func:`save_png`."""
+    b64, size = save_png(fig, figures_dir, name)
+    save_svg(fig, figures_dir, name)
+    plt.close(fig)
+    return b64, size
+
+
+def _draw_job(job: FigureJob, figures_dir: str):
+    """Build and rasterise one job; return (name, base64, size, pickled figure or None). When
+    the figure cannot be pickled its SVG is written at once."""
+    import pickle
+
     with plt.rc_context(RC):
         fig = BUILDERS[job.builder](**job.kwargs)
-        b64, size = save(fig, figures_dir, job.name)
-    return job.name, b64, size
+        b64, size = save_png(fig, figures_dir, job.name)
+        try:
+            blob = pickle.dumps(fig)
+        except Exception:  # some artist that does not pickle: write the SVG here instead
+            blob = None
+            save_svg(fig, figures_dir, job.name)
+        plt.close(fig)
+    return job.name, b64, size, blob
 
 
-def _render_star(args):
-    return render_job(*args)
+def _svg_job(name: str, blob: bytes, figures_dir: str) -> str:
+    import pickle
+
+    with plt.rc_context(RC):
+        fig = pickle.loads(blob)
+        save_svg(fig, figures_dir, name)
+        plt.close(fig)
+    return name
+
+
+def _draw_star(args):
+    return _draw_job(*args)
+
+
+def _svg_star(args):
+    return _svg_job(*args)
+
+
+class FigureRenderer:
+    """Draws figure jobs, in worker processes when ``workers > 1`` and the platform can fork.
+
+    Rasters (PNG, needed by the page) come first with :meth:`draw`; the SVG copies are written
+    afterwards by :meth:`write_svgs`, which returns at once when workers are available, so the
+    caller can do other work (the PDF) while they are written; :meth:`close` waits for them.
+    Use as a context manager.
+    """
+
+    def __init__(self, figures_dir: str | Path, workers: int = 1):
+        self.figures_dir = str(figures_dir)
+        self.workers = max(1, int(workers))
+        self._pool = None
+        self._pending: list = []
+        self._blobs: dict[str, bytes] = {}
+        if self.workers > 1 and hasattr(os, "fork"):
+            import multiprocessing as mp
+            from concurrent.futures import ProcessPoolExecutor
+
+            try:
+                self._pool = ProcessPoolExecutor(max_workers=self.workers, mp_context=mp.get_context("fork"))
+            except (OSError, RuntimeError, ValueError):  # no process creation here: draw serially
+                self._pool = None
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.close()
+        return False
+
+    def draw(self, jobs: list[FigureJob]) -> dict:
+        """Write every job's PNG; returns name -> (base64 PNG, (width, height) in CSS px)."""
+        args = [(j, self.figures_dir) for j in jobs]
+        results = None
+        if self._pool is not None and len(jobs) > 1:
+            from concurrent.futures.process import BrokenProcessPool
+
+            try:
+                results = list(self._pool.map(_draw_star, args, chunksize=1))
+            except BrokenProcessPool:
+                self._pool = None
+        if results is None:
+            results = [_draw_job(*a) for a in args]
+        out = {}
+        for name, b64, size, blob in results:
+            out[name] = (b64, size)
+            if blob is not None:
+                self._blobs[name] = blob
+        return out
+
+    def write_svgs(self) -> None:
+        items = [(n, b, self.figures_dir) for n, b in self._blobs.items()]
+        self._blobs = {}
+        if self._pool is not None:
+            self._pending += [self._pool.submit(_svg_star, a) for a in items]
+        else:
+            for a in items:
+                _svg_job(*a)
+
+    def close(self) -> None:
+        if self._blobs:
+            self.write_svgs()
+        try:
+            for f in self._pending:
+                f.result()
+        finally:
+            self._pending = []
+            if self._pool is not None:
+                self._pool.shutdown(wait=True)
+                self._pool = None
 
 
 def render_jobs(jobs: list[FigureJob], figures_dir: str | Path, workers: int = 1) -> dict:
-    """Draw every job; returns name -> (base64 PNG, (width, height) in CSS px).
-
-    With ``workers > 1`` on a platform that can fork, the jobs are shared among worker
-    processes (figures are independent); otherwise they are drawn one after the other.
-    """
-    figures_dir = str(figures_dir)
-    workers = max(1, min(int(workers), len(jobs)))
-    results = None
-    if workers > 1 and hasattr(os, "fork"):
-        import multiprocessing as mp
-        from concurrent.futures import ProcessPoolExecutor
-
-        try:
-            with ProcessPoolExecutor(max_workers=workers, mp_context=mp.get_context("fork")) as ex:
-                results = list(ex.map(_render_star, [(j, figures_dir) for j in jobs], chunksize=2))
-        except (OSError, RuntimeError):  # e.g. no process creation allowed here: draw serially
-            results = None
-    if results is None:
-        results = [render_job(j, figures_dir) for j in jobs]
-    return {name: (b64, size) for name, b64, size in results}
+    """Draw every job (PNG 300 dpi and SVG under ``figures_dir``); returns name -> (base64
+    PNG, (width, height) in CSS px)."""
+    with FigureRenderer(figures_dir, workers) as r:
+        figs = r.draw(jobs)
+    return figs

@@ -258,8 +258,10 @@ def run_report(config_path, annual_csv, notes_csv, work_dir, screen_csv, evidenc
 
     ``threads``: worker processes for drawing the figures (default: up to 4 CPUs).
     """
-    from .provenance import package_versions, sha256_file, tool_version
+    import importlib.metadata as md
+
     from .figures import FigureRenderer
+    from .provenance import package_versions, sha256_file, tool_version
     from .report import build_report, pdf_summary_lines, write_pdf
 
     t0 = time.time() if started is None else started
@@ -296,11 +298,19 @@ def run_report(config_path, annual_csv, notes_csv, work_dir, screen_csv, evidenc
         "screened": _iso(max(screened)) if screened else None,
         "started": _iso(t0),
     }
+    for name in ("pillow", "weasyprint"):  # the report's own libraries
+        try:
+            prov["versions"].setdefault(name, md.version(name))
+        except md.PackageNotFoundError:
+            prov["versions"].setdefault(name, "not installed")
     workers = threads if threads else min(4, os.cpu_count() or 1)
     pdf_path = Path(out_pdf) if out_pdf else Path(out_report).with_name("report.pdf")
     with FigureRenderer(figures_dir, workers) as renderer:
+        from .ledger import ledger_section_html, resolve_ledger_path
+
+        since = ledger_section_html(resolve_ledger_path(study, Path(out_report).parent), study, evidence)
         html, figs = build_report(study, table, screen, evidence, forecasts, nulls, notes, prov, figures_dir,
-                                  annual=annual, renderer=renderer)
+                                  annual=annual, renderer=renderer, extra_sections=since)
         write_text(html, out_report)
         renderer.write_svgs()  # the SVG copies are written by the workers while the PDF is made
         if pdf_wanted(study):

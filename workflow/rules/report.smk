@@ -1,17 +1,43 @@
+# The report stage: self-contained HTML, figures and tables (figures/), provenance and, unless
+# the study config sets `report.pdf: false`, a PDF copy (report.pdf beside the HTML).
+# report.pdf is a declared output when every study of the run wants it; in a run that mixes
+# studies with and without it, the PDFs are still written but not tracked by Snakemake.
+from lagsieve.stages import pdf_wanted as _pdf_wanted
+
+REPORT_INPUT = dict(
+    config=cfg,
+    annual=f"{OUT}/{{study}}/work/annual.csv",
+    notes=f"{OUT}/{{study}}/work/notes.csv",
+    screen=f"{OUT}/{{study}}/screen.csv",
+    evidence=f"{OUT}/{{study}}/evidence.csv",
+    forecasts=response_files("forecasts.csv"),
+    nulls=response_files("nulls.csv"),
+    ledger=f"{OUT}/{{study}}/work/ledger_update.json",  # the report shows the ledger's changes
+)
+REPORT_OUTPUT = {
+    "report": report(f"{OUT}/{{study}}/report.html", caption="../report/report_html.rst",
+                     category="Report", labels={"study": "{study}", "file": "report (HTML)"}),
+    "provenance": f"{OUT}/{{study}}/provenance.json",
+    "figures": report(directory(f"{OUT}/{{study}}/figures"), patterns=["{name}.png"],
+                      caption="../report/figures.rst", category="Figures",
+                      labels={"study": "{study}", "figure": "{name}"}),
+}
+if STUDIES and all(_pdf_wanted(p.study) for p in STUDIES.values()):
+    REPORT_OUTPUT["pdf"] = report(f"{OUT}/{{study}}/report.pdf", caption="../report/report_pdf.rst",
+                                  category="Report", labels={"study": "{study}", "file": "report (PDF)"})
+
+
 rule report:
-    """The self-contained HTML report, its figures and the provenance record."""
+    """The self-contained HTML report, its figures and tables, the PDF copy and provenance."""
     input:
-        config=cfg,
-        annual=f"{OUT}/{{study}}/work/annual.csv",
-        notes=f"{OUT}/{{study}}/work/notes.csv",
-        screen=f"{OUT}/{{study}}/screen.csv",
-        evidence=f"{OUT}/{{study}}/evidence.csv",
-        forecasts=response_files("forecasts.csv"),
-        nulls=response_files("nulls.csv"),
+        **REPORT_INPUT,
     output:
-        report=f"{OUT}/{{study}}/report.html",
-        provenance=f"{OUT}/{{study}}/provenance.json",
-        figures=directory(f"{OUT}/{{study}}/figures"),
+        **REPORT_OUTPUT,
+    log:
+        f"{OUT}/{{study}}/logs/report.log",
+    conda:
+        "../envs/lagsieve.yaml"
+    threads: 2
     resources:
         mem_mb=2000,
         runtime=10,

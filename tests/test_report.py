@@ -1,0 +1,390 @@
+"""Tests of the evidence report (lagsieve.report, lagsieve.figures, stages.run_report).
+
+Two studies are screened once per session by calling the stage functions directly:
+
+* ``demo``: the invented demo study of ``config/config.yaml`` with fewer surrogates (99) and
+  two hypotheses per response in detail, so the session stays short;
+* ``tiny``: two responses and three drivers of the demo data, with hostile labels and title
+  (``<script>alert(1)</script>``, quotes, ``$`` signs) to check escaping.
+
+The helpers here are also used by ``test_browser.py``.
+"""
+from __future__ import annotations
+
+import base64
+import hashlib
+import io
+import json
+import re
+from concurrent.futures import ProcessPoolExecutor
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+import yaml
+
+from lagsieve import stages
+from lagsieve.config import REPO_ROOT, load_study, slug
+from lagsieve.evidence import FLAGS, GRADE_RULES
+
+HOSTILE = "<script>alert(1)</script>"
+HOSTILE_TITLE = 'Tiny <img src=x onerror="alert(2)"> & "study"'
+DOLLAR_LABEL = 'Cost of $5 & "quoted" <b>bold</b>'
+
+
+# ----------------------------------------------------------------------------- helpers
+def _screen_one(args):
+    cfg, annual, rid, out = args
+    stages.run_screen(cfg, annual, rid, out)
+    return rid
+
+
+def run_study(cfg: Path, out: Path, parallel: bool = True) -> Path:
+    """align, screen (responses in parallel), evidence; returns the study's result folder."""
+    study = load_study(cfg)
+    res = out / study.study
+    work = res / "work"
+    stages.run_align(cfg, work / "annual.csv", work / "notes.csv")
+    jobs = [(cfg, work / "annual.csv", rid, work / "responses" / slug(rid)) for rid in study.response_ids]
+    if parallel and len(jobs) > 1:
+        import multiprocessing as mp
+
+        with ProcessPoolExecutor(max_workers=2, mp_context=mp.get_context("fork")) as ex:
+            list(ex.map(_screen_one, jobs))
+    else:
+        for j in jobs:
+            _screen_one(j)
+    stages.run_evidence(cfg, work / "annual.csv", work, res / "screen.csv", res / "evidence.csv")
+    return res
+
+
+def make_report(cfg: Path, res: Path, out: Path | None = None, screen_csv: Path | None = None) -> Path:
+    """run_report for a screened study into ``out`` (default: the result folder)."""
+    out = out or res
+    work = res / "work"
+    stages.run_report(cfg, work / "annual.csv", work / "notes.csv", work, screen_csv or res / "screen.csv",
+                      res / "evidence.csv", out / "report.html", out / "provenance.json", out / "figures",
+                      threads=2)
+    return out
+
+
+def write_config(path: Path, raw: dict) -> Path:
+    path.parent.mkdir(parents=True, exist_ok=True)
+    path.write_text(yaml.safe_dump(raw, sort_keys=False, allow_unicode=True), encoding="utf-8")
+    return path
+
+
+def tiny_config(dirpath: Path, **over) -> Path:
+    """Two responses, three drivers of the demo data, hostile labels; ``over`` replaces keys."""
+    demo_dir = REPO_ROOT / "resources" / "demo"
+    raw = {
+        "study": "tiny_escape",
+        "title": HOSTILE_TITLE,
+        "description": "Test study </style><script>alert(3)</script>",
+        "invented": True,
+        "inputs": [str(demo_dir / f) for f in ("mortality_by_age.csv", "surveys_annual.csv", "indices_long.csv")],
+        "responses": [{"id": "m:age2", "label": "M age 2", "unit": "per year"},
+                      {"id": "m:age5plus", "label": "M age 5+"}],
+        "drivers": [
+            {"id": "forage_biomass", "label": HOSTILE, "transform": "log", "expected_sign": "negative",
+             "category": "prey", "unit": "kt"},
+            {"id": "bottom_oxygen", "label": DOLLAR_LABEL, "expected_sign": "negative", "category": "oxygen"},
+            {"id": "pinniped_abundance", "transform": "log", "expected_sign": "positive", "category": "predator"},
+        ],
+        "screen": {"lags": [0, 1], "models": ["linear", "gam"], "surrogates": 49, "seed": 7, "fdr": 0.1,
+                   "validation": {"initial_years": 15, "holdout_years": 5}},
+        "report": {"top": 2},
+    }
+    raw.update(over)
+    return write_config(dirpath / "config.yaml", raw)
+
+
+def data_uris(html_text: str) -> list[bytes]:
+    return [base64.b64decode(m) for m in re.findall(r'src="data:image/png;base64,([A-Za-z0-9+/=]+)"', html_text)]
+
+
+def png_ok(data: bytes) -> tuple[bool, float]:
+    from PIL import Image
+
+    with Image.open(io.BytesIO(data)) as im:
+        fmt = im.format
+        arr = np.asarray(im.convert("RGB"), dtype=float)
+    return fmt == "PNG", float(arr.std())
+
+
+# ----------------------------------------------------------------------------- fixtures
+@pytest.fixture(scope="session")
+def demo(tmp_path_factory):
+    base = tmp_path_factory.mktemp("demo")
+    src = REPO_ROOT / "config" / "config.yaml"
+    raw = yaml.safe_load(src.read_text(encoding="utf-8"))
+    raw["inputs"] = [str((src.parent / p).resolve()) for p in raw["inputs"]]
+    raw["screen"]["surrogates"] = 99
+    raw.setdefault("report", {})["top"] = 2
+    cfg = write_config(base / "config.yaml", raw)
+    res = run_study(cfg, base / "results")
+    make_report(cfg, res)
+    html_text = (res / "report.html").read_text(encoding="utf-8")
+    return {"cfg": cfg, "res": res, "html": html_text, "study": load_study(cfg),
+            "evidence": pd.read_csv(res / "evidence.csv")}
+
+
+@pytest.fixture(scope="session")
+def tiny(tmp_path_factory):
+    base = tmp_path_factory.mktemp("tiny")
+    cfg = tiny_config(base)
+    res = run_study(cfg, base / "results")
+    make_report(cfg, res)
+    return {"cfg": cfg, "res": res, "html": (res / "report.html").read_text(encoding="utf-8"),
+            "base": base}
+
+
+# ----------------------------------------------------------------------------- escaping, self-containment
+def test_hostile_strings_are_escaped(tiny):
+    h = tiny["html"]
+    assert HOSTILE not in h
+    assert "&lt;script&gt;alert(1)&lt;/script&gt;" in h
+    assert "<img src=x" not in h and 'onerror="alert' not in h
+    assert "<script>alert(3)" not in h and "</style><script>" not in h
+    assert "<b>bold</b>" not in h and "&lt;b&gt;bold&lt;/b&gt;" in h
+    assert h.count("<script") == 1 and h.count("</style>") == 1  # only the page's own script and style
+    # the hostile label reached the figures too: the figure with it still renders
+    assert all(png_ok(d)[0] for d in data_uris(h))
+
+
+def test_page_is_self_contained(tiny):
+    h = tiny["html"]
+    assert not re.search(r'(src|href)\s*=\s*"(?!data:image/png;base64,|#)', h)
+    assert "<link" not in h and "@import" not in h and "url(" not in h
+    assert not re.search(r"https?://", h)
+    # the Content-Security-Policy allows exactly the page's own script and style (by hash)
+    import html as hh
+
+    csp = hh.unescape(re.search(r'http-equiv="Content-Security-Policy" content="([^"]+)"', h).group(1))
+    script = re.search(r"<script>(.*?)</script>", h, re.S).group(1)
+    style = re.search(r"<style>(.*?)</style>", h, re.S).group(1)
+
+    def digest(t):
+        return base64.b64encode(hashlib.sha256(t.encode()).digest()).decode()
+
+    assert "default-src 'none'" in csp and "img-src data:" in csp
+    assert digest(script) in csp and digest(style) in csp
+
+
+def test_embedded_images_are_png_and_not_blank(demo):
+    uris = data_uris(demo["html"])
+    assert len(uris) >= 10
+    for d in uris:
+        is_png, std = png_ok(d)
+        assert is_png and std > 0
+
+
+# ----------------------------------------------------------------------------- content
+def test_summary_in_plain_words(demo):
+    import html as h
+
+    ev, text, st = demo["evidence"], demo["html"], demo["study"]
+    summary = text.split('id="summary"')[1].split('id="overview"')[0]
+    labels = {d["id"]: d.get("label", d["id"]) for d in st.drivers}
+    supported = ev[ev["grade"].isin(["strong", "moderate"])]
+    assert len(supported), "the demo should have supported hypotheses"
+    for row in supported.to_dict("records"):
+        assert h.escape(row["summary"]) in summary
+        assert h.escape(labels[row["driver"]]) in summary
+    for row in ev[~ev["grade"].isin(["strong", "moderate"])].to_dict("records"):
+        assert h.escape(labels[row["driver"]]) in summary  # every set-aside driver is named, with its reason
+    assert "Set aside" in summary
+
+
+def test_invented_banner_and_cautions(demo):
+    h = demo["html"]
+    assert "Invented data." in h and "invented demonstration data" in h
+    for words in ("Association is not cause", "generates hypotheses", "do not replace"):
+        assert words in h
+
+
+def test_flags_and_grades_have_words(demo):
+    import html as hh
+
+    h, ev = demo["html"], demo["evidence"]
+    for codes in ev["flags"].dropna():
+        for c in codes.split(";"):
+            assert f'<span class="flag" title="{hh.escape(FLAGS[c])}">{c}</span>' in h
+    legend = h.split('id="table"')[1].split('id="hypotheses"')[0]
+    for c, sentence in FLAGS.items():
+        assert hh.escape(sentence) in legend and f">{c}<" in legend
+    for g in GRADE_RULES:
+        assert hh.escape(GRADE_RULES[g]) in legend
+    for g in ev["grade"].unique():  # colour always comes with the grade in words
+        assert re.search(rf'<span class="grade g-\d" title="[^"]*">{re.escape(g)}</span>', h)
+
+
+def test_table_rows_and_sort_keys(demo):
+    h, ev = demo["html"], demo["evidence"]
+    body = h.split('<table id="evidence-table"')[1].split("</table>")[0]
+    assert body.count("<tr data-response=") == len(ev)
+    assert 'data-key="r" data-type="num"' in body
+
+
+def test_panels_of_top_hypotheses(demo):
+    h, ev = demo["html"], demo["evidence"]
+    top = int(demo["study"].report["top"])
+    for rid in demo["study"].response_ids:
+        for row in ev[ev.response == rid].sort_values("rank").head(top).to_dict("records"):
+            key = f"{slug(rid)}__{slug(row['driver'])}"
+            assert f'id="h-{key}"' in h
+            for kind in ("overlay", "scatter", "lags", "forecasts", "nulls"):
+                assert (demo["res"] / "figures" / f"{key}__{kind}.png").is_file()
+    for alt in ("standardised overlay", "lag profile of r", "out-of-sample forecasts", "surrogate null"):
+        assert f'alt="{alt}' in h
+    for name in ("evidence_map", "coverage", "driver_correlation"):
+        assert (demo["res"] / "figures" / f"{name}.png").is_file()
+
+
+def test_methods_generated_from_run(demo):
+    from lagsieve.report import Context, methods_paragraphs
+
+    h, st = demo["html"], demo["study"]
+    methods = h.split('id="methods-text"')[1].split("</div>")[0]
+    assert "99 surrogate series" in methods
+    assert "shares the real driver&#x27;s linear trend" in methods or "shares the real driver's linear trend" in methods
+    assert f"false discovery rate of {st.screen['fdr']:g}" in methods
+    assert f"seed {st.screen['seed']}" in methods
+    assert "Ebisuzaki" in methods and "Benjamini" in methods and "Pyper" in methods
+    ctx = Context(study=st, table=pd.DataFrame({"x": [1.0]}, index=[2000]), screen=pd.DataFrame(),
+                  evidence=demo["evidence"], forecasts=pd.DataFrame(), nulls=pd.DataFrame(),
+                  notes=pd.DataFrame(), annual=None, provenance={})
+    st.screen["surrogate_keep_trend"] = False
+    try:
+        text = " ".join(methods_paragraphs(ctx)[0])
+    finally:
+        st.screen["surrogate_keep_trend"] = True
+    assert "not preserved" in text
+
+
+def test_provenance_block(demo):
+    h, res = demo["html"], demo["res"]
+    prov = json.loads((res / "provenance.json").read_text())
+    for digest in prov["inputs_sha256"].values():
+        assert digest in h
+    assert prov["config_sha256"] in h
+    assert prov["started"] and prov["finished"] and prov["pdf"] in ("weasyprint", "matplotlib")
+    assert f"lagsieve {prov['tool_version']}" in h
+
+
+# ----------------------------------------------------------------------------- exports
+def test_figure_and_table_exports(demo):
+    from PIL import Image
+
+    figs = demo["res"] / "figures"
+    manifest = pd.read_csv(figs / "figures.csv")
+    assert len(manifest) >= 10
+    for name in manifest["figure"]:
+        with Image.open(figs / f"{name}.png") as im:
+            assert round(im.info["dpi"][0]) == 300 and im.width > 1000
+        svg = (figs / f"{name}.svg").read_text(encoding="utf-8")
+        assert "<svg" in svg and "</svg>" in svg
+    for table in ("evidence_table", "summary", "coverage", "driver_correlations", "evidence_map"):
+        assert len(pd.read_csv(figs / f"{table}.csv")) > 0
+    assert len(pd.read_csv(figs / "evidence_table.csv")) == len(demo["evidence"])
+
+
+def test_pdf_has_pages_and_study_id(demo):
+    from pypdf import PdfReader
+
+    reader = PdfReader(demo["res"] / "report.pdf")
+    assert len(reader.pages) >= 1
+    text = "".join(p.extract_text() or "" for p in reader.pages[:3])
+    assert demo["study"].study in text.replace("\n", "")
+
+
+def test_pdf_fallback_with_matplotlib(tiny, tmp_path):
+    from pypdf import PdfReader
+
+    from lagsieve.report import write_pdf
+
+    uris = re.findall(r'src="data:image/png;base64,([A-Za-z0-9+/=]+)"', tiny["html"])[:3]
+    out = tmp_path / "report.pdf"
+    engine = write_pdf(tiny["html"], out, study_id="tiny_escape", title=HOSTILE_TITLE,
+                       summary=["M age 2 (m:age2)", f"    {DOLLAR_LABEL}, set aside"],
+                       figures=[("fig", u) for u in uris], invented=True, engine="matplotlib")
+    assert engine == "matplotlib"
+    reader = PdfReader(out)
+    assert len(reader.pages) >= 2
+    assert "tiny_escape" in reader.pages[0].extract_text()
+
+
+# ----------------------------------------------------------------------------- options
+def test_gam_panel_only_where_fitted(tiny, tmp_path):
+    res = tiny["res"]
+    cfg = tiny_config(tmp_path / "cfg", report={"top": 1, "pdf": False})
+    screen = pd.read_csv(res / "screen.csv")
+    linear = screen[screen["model"] == "linear"]
+    # without GAM rows: no partial-effect panel
+    no_gam = tmp_path / "screen_linear.csv"
+    linear.to_csv(no_gam, index=False)
+    out1 = make_report(cfg, res, tmp_path / "a", screen_csv=no_gam)
+    h1 = (out1 / "report.html").read_text(encoding="utf-8")
+    assert 'alt="GAM partial effect' not in h1 and not list((out1 / "figures").glob("*__gam.png"))
+    # with GAM rows (as the screen writes them; made here if this version of the screen does not)
+    gam = screen[screen["model"] == "gam"]
+    if gam.empty:
+        gam = linear.assign(model="gam", edf=3.2, deviance_explained=0.4, p_smooth=0.01, shape="threshold")
+    with_gam = tmp_path / "screen_gam.csv"
+    pd.concat([linear, gam]).to_csv(with_gam, index=False)
+    out2 = make_report(cfg, res, tmp_path / "b", screen_csv=with_gam)
+    h2 = (out2 / "report.html").read_text(encoding="utf-8")
+    assert 'alt="GAM partial effect' in h2 and list((out2 / "figures").glob("*__gam.png"))
+    assert "penalised spline" in h2
+
+
+def test_no_pdf_and_no_banner_when_configured(tiny):
+    base = tiny["base"] / "plain"
+    cfg = tiny_config(base, invented=False, report={"top": 1, "pdf": False}, study="tiny_plain")
+    res = tiny["res"]
+    # reuse the screened tiny study (same data and settings); only the report options differ
+    out = make_report(cfg, res, base / "out")
+    h = (out / "report.html").read_text(encoding="utf-8")
+    assert not (out / "report.pdf").exists()
+    assert "Invented data." not in h and "invented demonstration data" not in h
+    assert json.loads((out / "provenance.json").read_text())["pdf"] is None
+
+
+def test_r_critical():
+    from lagsieve.figures import r_critical
+
+    rc = r_critical([27.0, 12.0, 2.0, 1.0])
+    assert rc[0] == pytest.approx(0.3809, abs=2e-4)
+    assert rc[1] > rc[0]
+    assert np.isnan(rc[2]) and np.isnan(rc[3])
+
+
+def test_mpl_text_escapes_dollar():
+    from lagsieve.figures import mpl_text
+
+    assert mpl_text("$5 and $6") == r"\$5 and \$6"
+
+
+def test_report_survives_missing_pieces(tiny, tmp_path):
+    """No forecasts, no nulls, a failed hypothesis without a lag, a driver without a label: the
+    report still renders, and leaves out (never fakes) the panels it has no data for."""
+    from lagsieve.report import build_report
+
+    res, cfg = tiny["res"], tiny["cfg"]
+    study = load_study(cfg)
+    table = stages.load_table(study, res / "work" / "annual.csv")
+    ev = pd.read_csv(res / "evidence.csv")
+    i = ev.index[ev["rank"] == 1][0]
+    ev.loc[i, ["lag", "r", "oos_skill", "q_value"]] = np.nan
+    ev.loc[i, ["grade", "flags", "status"]] = ["insufficient-data", "failed", "failed: singular matrix"]
+    ev.loc[i, "summary"] = np.nan
+    html_text, figs = build_report(study, table, pd.read_csv(res / "screen.csv"), ev, pd.DataFrame(),
+                                   pd.DataFrame(), pd.read_csv(res / "work" / "notes.csv"),
+                                   {"tool_version": "test", "inputs_sha256": {}, "versions": {}, "config": {}},
+                                   tmp_path / "figures", workers=2)
+    assert "computation failed" in html_text
+    assert not any(n.endswith(("__forecasts", "__nulls")) for n in figs)
+    assert any(n.endswith("__overlay") for n in figs)
+    for d in data_uris(html_text):
+        assert png_ok(d)[0]
