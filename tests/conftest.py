@@ -44,3 +44,14 @@ def demo_run(tmp_path_factory):
     proc = lagsieve("run", cfg, "--cores", "2", cwd=elsewhere)
     assert proc.returncode == 0, proc.stdout[-3000:] + proc.stderr[-3000:]
     return cfg, root / "study" / "results" / "caldrin_shelf_demo"
+
+
+def ar1(rng, n, phi, burn=100):
+    """A simulated AR(1) series x_t = phi x_{t-1} + e_t (standard normal e), after a burn-in."""
+    import numpy as np
+
+    e = rng.normal(size=n + burn)
+    x = np.zeros(n + burn)
+    for t in range(1, n + burn):
+        x[t] = phi * x[t - 1] + e[t]
+    return x[burn:]

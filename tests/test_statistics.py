@@ -17,15 +17,11 @@ import pytest
 import statsmodels.api as sm
 from scipy import stats
 
+from conftest import ar1
 from lagsieve import statistics as st
 
 
-def _ar1(rng, n, phi, burn=100):
-    e = rng.normal(size=n + burn)
-    x = np.zeros(n + burn)
-    for t in range(1, n + burn):
-        x[t] = phi * x[t - 1] + e[t]
-    return x[burn:]
+_ar1 = ar1  # shared simulator (conftest)
 
 
 # ----------------------------------------------------------------- Pearson r and p

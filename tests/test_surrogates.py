@@ -18,16 +18,12 @@ import numpy as np
 import pytest
 from statsmodels.regression.linear_model import yule_walker
 
+from conftest import ar1
 from lagsieve import statistics as st
 from lagsieve import surrogates as su
 
 
-def _ar1(rng, n, phi, burn=100):
-    e = rng.normal(size=n + burn)
-    x = np.zeros(n + burn)
-    for t in range(1, n + burn):
-        x[t] = phi * x[t - 1] + e[t]
-    return x[burn:]
+_ar1 = ar1  # shared simulator (conftest)
 
 
 # ----------------------------------------------------------------- phase randomisation

@@ -20,6 +20,7 @@ import pytest
 import statsmodels.api as sm
 from scipy import stats
 
+from conftest import ar1
 from lagsieve import config, evidence, screening
 from lagsieve import statistics as st
 from lagsieve import validation as va
@@ -27,11 +28,7 @@ from lagsieve.alignment import forecast_frame, shift_batch
 
 
 def _ar1(rng, n, phi, burn=50):
-    e = rng.normal(size=n + burn)
-    x = np.zeros(n + burn)
-    for t in range(1, n + burn):
-        x[t] = phi * x[t - 1] + e[t]
-    return x[burn:]
+    return ar1(rng, n, phi, burn)
 
 
 def _screen(**kw):
