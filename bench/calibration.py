@@ -1,0 +1,337 @@
+"""False-positive and power benchmark of the lagsieve grade rule on simulated worlds.
+
+Every world is one response and one driver with a known truth. It is screened exactly as
+the pipeline screens a hypothesis: ``lagsieve.screening.screen_hypothesis`` on an annual
+table, then ``lagsieve.evidence.build_evidence`` on its hypothesis row, with the screen
+settings ``SCREEN_DEFAULTS`` except lags [0, 1, 2], the models and the number of surrogates
+given here (validation settings: the defaults, i.e. chosen from the number of years).
+
+Worlds (n = number of response years; the driver starts max(lags) = 2 years earlier, as a
+survey that predates the assessment, so every lag has n overlapping years):
+
+null (response and driver independent)
+  ar1_0.3, ar1_0.8  independent stationary AR(1) pairs, unit marginal variance
+  random_walk        independent Gaussian random walks
+  trends             both series: linear rise of 2 noise sd over the record + AR(1) noise
+                     (phi = 0.5, unit marginal sd); the trends are independent by
+                     construction, but shared in direction, so naive r is large
+  step_vs_trend      driver: a step of 2 noise sd at a year drawn uniformly in the middle
+                     40% of the record + AR(1) noise; response: a linear trend + AR(1) noise
+
+planted (a real lagged effect)
+  x is stationary AR(1) (phi = 0.5, unit variance); y_t = b x_{t-k} + e_t with white e of
+  unit variance and b = rho / sqrt(1 - rho^2), so corr(y_t, x_{t-k}) = rho exactly in the
+  population; rho = 0.5 and 0.7, planted lag k = 0, 1, 2.
+
+Every driver is screened with expected_sign 'any' (no sign stated beforehand), so nothing
+is gained from a known direction.
+
+Reported per cell: for null worlds the naive false-positive rate (linear p_naive < 0.05 at
+lag 0, and at the selected lag), P(strong) and P(strong or moderate); for planted worlds
+P(strong), P(strong or moderate) and the share whose selected lag equals the planted lag.
+Each with a 95% Wilson score interval (statsmodels ``proportion_confint(method='wilson')``).
+
+Usage::
+
+    python bench/calibration.py --quick                 # ~40 worlds per cell
+    python bench/calibration.py --reps 200 --models linear
+    python bench/calibration.py --reps 100 --models linear,gam --n 40   # only n = 40 cells
+
+Seeds: world i of cell c uses ``numpy.random.SeedSequence([seed, c, i])`` for both its data
+and its surrogate seed, so results do not depend on the number of processes.
+"""
+from __future__ import annotations
+
+import os
+
+for _v in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_v, "1")  # one BLAS thread per worker process
+
+import argparse
+import copy
+import multiprocessing as mp
+import sys
+import time
+import warnings
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+from statsmodels.stats.proportion import proportion_confint
+
+from lagsieve.config import SCREEN_DEFAULTS
+from lagsieve.evidence import build_evidence
+from lagsieve.screening import screen_hypothesis
+
+LAGS = [0, 1, 2]
+LEAD = max(LAGS)  # extra driver years before the first response year
+NULL_WORLDS = ("ar1_0.3", "ar1_0.8", "random_walk", "trends", "step_vs_trend")
+RHOS = (0.5, 0.7)
+NS = (25, 40, 60)
+TREND_RISE = 2.0  # rise over the record, in noise sd
+STEP_SIZE = 2.0
+NOISE_PHI = 0.5
+DRIVER_PHI = 0.5  # AR(1) coefficient of the driver in planted worlds
+ALPHA = 0.05
+CI = "Wilson score 95% (statsmodels proportion_confint, method='wilson')"
+
+
+# ----------------------------------------------------------------------------- worlds
+def ar1(rng: np.random.Generator, n: int, phi: float) -> np.ndarray:
+    """Stationary AR(1) with unit marginal variance."""
+    e = rng.normal(size=n) * np.sqrt(1.0 - phi * phi)
+    out = np.empty(n)
+    out[0] = rng.normal()
+    for t in range(1, n):
+        out[t] = phi * out[t - 1] + e[t]
+    return out
+
+
+def simulate(world: str, n: int, rng: np.random.Generator, rho: float = 0.0, lag: int = 0):
+    """(driver over n + LEAD years, response over the last n years) of one world."""
+    m = n + LEAD
+    t = np.arange(m, dtype=float) / (m - 1)
+    if world.startswith("ar1_"):
+        phi = float(world.split("_")[1])
+        x, y = ar1(rng, m, phi), ar1(rng, m, phi)
+    elif world == "random_walk":
+        x, y = np.cumsum(rng.normal(size=m)), np.cumsum(rng.normal(size=m))
+    elif world == "trends":
+        x = TREND_RISE * t + ar1(rng, m, NOISE_PHI)
+        y = TREND_RISE * t + ar1(rng, m, NOISE_PHI)
+    elif world == "step_vs_trend":
+        brk = int(rng.integers(round(0.3 * m), round(0.7 * m) + 1))
+        x = STEP_SIZE * (np.arange(m) >= brk) + ar1(rng, m, NOISE_PHI)
+        y = TREND_RISE * t + ar1(rng, m, NOISE_PHI)
+    elif world == "planted":
+        x = ar1(rng, m, DRIVER_PHI)
+        b = rho / np.sqrt(1.0 - rho * rho)
+        y = np.full(m, np.nan)
+        y[lag:] = b * x[: m - lag] + rng.normal(size=m - lag)
+    else:
+        raise ValueError(world)
+    y = y.copy()
+    y[:LEAD] = np.nan  # the response record starts LEAD years after the driver's
+    return x, y
+
+
+def table_of(x: np.ndarray, y: np.ndarray) -> pd.DataFrame:
+    years = pd.Index(np.arange(1970, 1970 + len(x)), name="year")
+    return pd.DataFrame({"resp": y, "drv": x}, index=years)
+
+
+# ----------------------------------------------------------------------------- one world
+def screen_settings(models: list[str], surrogates: int) -> dict:
+    scr = copy.deepcopy(SCREEN_DEFAULTS)
+    scr.update(lags=list(LAGS), models=list(models), surrogates=int(surrogates))
+    return scr
+
+
+def run_world(task: tuple) -> dict:
+    cell_id, rep, seed, world, n, rho, lag, models, surrogates = task
+    ss = np.random.SeedSequence([seed, cell_id, rep])
+    data_seed, surr_seed = ss.generate_state(2)
+    rng = np.random.default_rng(data_seed)
+    x, y = simulate(world, n, rng, rho, lag)
+    table = table_of(x, y)
+    scr = screen_settings(models, surrogates)
+    scr["seed"] = int(surr_seed)
+    t0 = time.perf_counter()
+    out = {"cell": cell_id, "rep": rep}
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            rows, hyp, _, _ = screen_hypothesis(table, {"id": "resp"}, {"id": "drv", "expected_sign": "any"},
+                                                LAGS, scr)
+            ev = build_evidence(pd.DataFrame([hyp]), table, scr).iloc[0]
+        lin0 = rows[(rows["model"] == "linear") & (rows["lag"] == 0)]
+        out.update(grade=ev["grade"], lag=ev.get("lag"), p_naive_sel=ev.get("p_naive"),
+                   p_naive_lag0=float(lin0["p_naive"].iloc[0]) if len(lin0) else np.nan,
+                   model=ev.get("model"), status=str(ev.get("status")))
+    except Exception as exc:  # recorded, counted as failures in the table
+        out.update(grade="error", lag=np.nan, p_naive_sel=np.nan, p_naive_lag0=np.nan, model=None,
+                   status=f"error: {type(exc).__name__}: {exc}")
+    out["seconds"] = time.perf_counter() - t0
+    return out
+
+
+def _init_worker():
+    try:
+        from threadpoolctl import threadpool_limits
+
+        threadpool_limits(1)
+    except ImportError:
+        pass
+
+
+# ----------------------------------------------------------------------------- summary
+def rate(k: int, n: int) -> tuple[float, float, float]:
+    if n == 0:
+        return (np.nan, np.nan, np.nan)
+    lo, hi = proportion_confint(k, n, alpha=0.05, method="wilson")
+    return (k / n, float(lo), float(hi))
+
+
+def cells() -> list[dict]:
+    out = []
+    for world in NULL_WORLDS:
+        for n in NS:
+            out.append(dict(kind="null", world=world, n=n, rho=0.0, lag=np.nan))
+    for rho in RHOS:
+        for lag in LAGS:
+            for n in NS:
+                out.append(dict(kind="planted", world="planted", n=n, rho=rho, lag=lag))
+    for i, c in enumerate(out):
+        c["cell"] = i
+    return out
+
+
+def summarise(cell_list: list[dict], results: pd.DataFrame) -> pd.DataFrame:
+    rows = []
+    for c in cell_list:
+        r = results[results["cell"] == c["cell"]]
+        ok = r[r["grade"] != "error"]
+        m = len(ok)
+        g = ok["grade"]
+        row = dict(kind=c["kind"], world=c["world"], n=c["n"], rho=c["rho"] if c["kind"] == "planted" else np.nan,
+                   planted_lag=c["lag"], reps=m, errors=int((r["grade"] == "error").sum()),
+                   insufficient=int((g == "insufficient-data").sum()))
+        parts = {
+            "naive_lag0": int((ok["p_naive_lag0"] < ALPHA).sum()),
+            "naive_selected": int((ok["p_naive_sel"] < ALPHA).sum()),
+            "strong": int((g == "strong").sum()),
+            "strong_or_moderate": int(g.isin(["strong", "moderate"]).sum()),
+            "spurious_trend": int((g == "spurious-trend").sum()),
+        }
+        if c["kind"] == "planted":
+            parts["lag_correct"] = int((ok["lag"] == c["lag"]).sum())
+        for name, k in parts.items():
+            est, lo, hi = rate(k, m)
+            row[name], row[f"{name}_lo"], row[f"{name}_hi"] = est, lo, hi
+        row["median_seconds_per_world"] = float(r["seconds"].median()) if len(r) else np.nan
+        rows.append(row)
+    return pd.DataFrame(rows)
+
+
+def targets(summary: pd.DataFrame) -> list[str]:
+    """Plain lines: each target, met or missed, with its figure."""
+    lines = []
+    nulls = summary[summary["kind"] == "null"]
+    if nulls.empty:
+        return lines
+    for _, r in nulls.iterrows():
+        ok1 = r["strong"] <= 0.05
+        ok2 = r["strong_or_moderate"] <= 0.10
+        if not (ok1 and ok2):
+            lines.append(f"MISSED null {r['world']} n={r['n']}: P(strong) = {r['strong']:.3f} (target <= 0.05), "
+                         f"P(strong or moderate) = {r['strong_or_moderate']:.3f} (target <= 0.10)")
+    worst_s = nulls.loc[nulls["strong"].idxmax()]
+    worst_sm = nulls.loc[nulls["strong_or_moderate"].idxmax()]
+    n_met = int(((nulls["strong"] <= 0.05) & (nulls["strong_or_moderate"] <= 0.10)).sum())
+    lines.append(f"null worlds meeting both targets: {n_met} of {len(nulls)}; highest P(strong) "
+                 f"{worst_s['strong']:.3f} ({worst_s['world']}, n={worst_s['n']}); highest P(strong or moderate) "
+                 f"{worst_sm['strong_or_moderate']:.3f} ({worst_sm['world']}, n={worst_sm['n']})")
+    p = summary[(summary["kind"] == "planted") & (summary["rho"] == 0.7) & (summary["n"] == 40)]
+    for _, r in p.iterrows():
+        verdict = "met" if r["strong_or_moderate"] >= 0.80 else "MISSED"
+        lines.append(f"{verdict}: planted |r| = 0.7, lag {int(r['planted_lag'])}, n = 40: P(strong or moderate) = "
+                     f"{r['strong_or_moderate']:.3f} [{r['strong_or_moderate_lo']:.3f}, {r['strong_or_moderate_hi']:.3f}]"
+                     f" (target >= 0.80)")
+    return lines
+
+
+def fmt(est, lo, hi) -> str:
+    if np.isnan(est):
+        return ""
+    return f"{est:.3f} [{lo:.3f}, {hi:.3f}]"
+
+
+def markdown(summary: pd.DataFrame, header: str, target_lines: list[str]) -> str:
+    out = [header, ""]
+    out += ["### Null worlds (no relationship)", "",
+            "| world | n | worlds | naive FP, lag 0 | naive FP, selected lag | P(strong) | P(strong or moderate) | P(spurious-trend) |",
+            "| --- | ---: | ---: | --- | --- | --- | --- | --- |"]
+    for _, r in summary[summary["kind"] == "null"].iterrows():
+        out.append(f"| {r['world']} | {r['n']} | {r['reps']} | {fmt(r['naive_lag0'], r['naive_lag0_lo'], r['naive_lag0_hi'])} | "
+                   f"{fmt(r['naive_selected'], r['naive_selected_lo'], r['naive_selected_hi'])} | "
+                   f"{fmt(r['strong'], r['strong_lo'], r['strong_hi'])} | "
+                   f"{fmt(r['strong_or_moderate'], r['strong_or_moderate_lo'], r['strong_or_moderate_hi'])} | "
+                   f"{fmt(r['spurious_trend'], r['spurious_trend_lo'], r['spurious_trend_hi'])} |")
+    out += ["", "### Planted lagged effects", "",
+            "| rho | planted lag | n | worlds | P(strong) | P(strong or moderate) | selected lag = planted |",
+            "| ---: | ---: | ---: | ---: | --- | --- | --- |"]
+    for _, r in summary[summary["kind"] == "planted"].iterrows():
+        out.append(f"| {r['rho']:.1f} | {int(r['planted_lag'])} | {r['n']} | {r['reps']} | "
+                   f"{fmt(r['strong'], r['strong_lo'], r['strong_hi'])} | "
+                   f"{fmt(r['strong_or_moderate'], r['strong_or_moderate_lo'], r['strong_or_moderate_hi'])} | "
+                   f"{fmt(r['lag_correct'], r['lag_correct_lo'], r['lag_correct_hi'])} |")
+    out += ["", "### Targets", ""] + [f"- {t}" for t in target_lines]
+    errs = int(summary["errors"].sum())
+    ins = int(summary["insufficient"].sum())
+    out += ["", f"Worlds that raised an error: {errs}; graded insufficient-data: {ins} "
+                f"(they count in the denominators as not strong, not moderate)."]
+    return "\n".join(out) + "\n"
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    ap.add_argument("--reps", type=int, default=200, help="worlds per cell (default 200)")
+    ap.add_argument("--quick", action="store_true", help="40 worlds per cell")
+    ap.add_argument("--models", default="linear", help="'linear' or 'linear,gam' (default linear)")
+    ap.add_argument("--surrogates", type=int, default=199, help="surrogates per hypothesis (default 199)")
+    ap.add_argument("--seed", type=int, default=20240601)
+    ap.add_argument("--processes", type=int, default=2)
+    ap.add_argument("--n", default=None, help="only these record lengths, e.g. '40' or '25,60' (default all)")
+    ap.add_argument("--out", default=None,
+                    help="output stem (default bench/results/calibration, or calibration_linear_gam with gam)")
+    args = ap.parse_args(argv)
+    reps = 40 if args.quick else args.reps
+    models = [m.strip() for m in args.models.split(",") if m.strip()]
+    if not set(models) <= {"linear", "gam"} or "linear" not in models:
+        ap.error("--models must be 'linear' or 'linear,gam'")
+    here = Path(__file__).resolve().parent
+    stem = Path(args.out) if args.out else here / "results" / ("calibration" if models == ["linear"] else "calibration_linear_gam")
+    stem.parent.mkdir(parents=True, exist_ok=True)
+    cl = cells()
+    if args.n:
+        keep = {int(v) for v in args.n.split(",")}
+        cl = [c for c in cl if c["n"] in keep]
+    tasks = [(c["cell"], i, args.seed, c["world"], c["n"], c["rho"], 0 if np.isnan(c["lag"]) else int(c["lag"]),
+              models, args.surrogates) for c in cl for i in range(reps)]
+    t0 = time.time()
+    print(f"calibration: {len(cl)} cells x {reps} worlds = {len(tasks)} worlds, models {models}, "
+          f"{args.surrogates} surrogates, {args.processes} processes", file=sys.stderr, flush=True)
+    results = []
+    if args.processes > 1:
+        with mp.get_context("fork").Pool(args.processes, initializer=_init_worker) as pool:
+            for i, r in enumerate(pool.imap_unordered(run_world, tasks, chunksize=4)):
+                results.append(r)
+                if (i + 1) % 500 == 0:
+                    print(f"  {i + 1}/{len(tasks)} worlds, {time.time() - t0:.0f} s", file=sys.stderr, flush=True)
+    else:
+        _init_worker()
+        results = [run_world(t) for t in tasks]
+    wall = time.time() - t0
+    res = pd.DataFrame(results).sort_values(["cell", "rep"])
+    summary = summarise(cl, res)
+    header = (f"## lagsieve calibration: {reps} worlds per cell\n\n"
+              f"models {','.join(models)}; lags {LAGS}; {args.surrogates} surrogates "
+              f"({SCREEN_DEFAULTS['surrogate_method']}, keep trend); other screen settings SCREEN_DEFAULTS "
+              f"(alpha {SCREEN_DEFAULTS['alpha']}, fdr {SCREEN_DEFAULTS['fdr']}, min_overlap {SCREEN_DEFAULTS['min_overlap']}, "
+              f"validation defaults); expected_sign any; seed {args.seed}.\n"
+              f"Intervals: {CI}. Naive FP = linear p_naive < {ALPHA}.\n"
+              f"Wall time {wall:.0f} s on {args.processes} processes; median {res['seconds'].median():.3f} s per world.")
+    tl = targets(summary)
+    md = markdown(summary, header, tl)
+    summary.insert(0, "models", ",".join(models))
+    summary.insert(1, "surrogates", args.surrogates)
+    summary.to_csv(stem.with_suffix(".csv"), index=False, float_format="%.4f")
+    stem.with_suffix(".md").write_text(md, encoding="utf-8")
+    res.to_csv(stem.parent / (stem.name + "_worlds.csv"), index=False, float_format="%.6g")
+    print(md)
+    print(f"wrote {stem.with_suffix('.md')}, {stem.with_suffix('.csv')} and {stem.name}_worlds.csv")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,262 @@
+"""How the workflow scales with the number of studies run in one Snakemake invocation.
+
+For each N (default 10, 50, 200) the script writes N small invented studies into a
+temporary folder (1 response x 3 drivers, 40 years, one long CSV each; surrogates 99,
+models [linear], other settings the defaults), lists them in one Snakemake config file
+(``studies: [...]``, given with ``--configfile``) and runs them all in ONE invocation::
+
+    snakemake --snakefile Snakefile --directory OUT --cores 2 --configfile batch.yaml
+
+It reports the wall time, the peak resident memory of the whole process tree (Snakemake
+and every job it started, sampled with psutil every 0.2 s, summed over the processes alive
+at that moment) and the peak of the Snakemake process alone, against N. A run longer than
+``--max-seconds`` is stopped (its process group, which this script started) and reported
+as such, with the number of studies finished by then.
+
+Then planning alone is timed: ``snakemake -n --quiet`` over 5,000 such studies (default
+``--plan-n 5000``). plan.py loads every config at parse time and, for up to 50 studies,
+also reads and checks every input file; beyond 50 it checks the configs only.
+
+Why ``--configfile`` and not ``--config studies=[...]``: the list of 5,000 paths is one
+command-line argument of about 300 kB, beyond Linux's 128 kB limit for a single argument.
+
+Results: bench/results/scale.csv and scale.md (printed too).
+"""
+from __future__ import annotations
+
+import argparse
+import os
+import signal
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import psutil
+import yaml
+
+REPO = Path(__file__).resolve().parents[1]
+YEARS = np.arange(1981, 2021)
+
+
+def write_study(folder: Path, i: int, rng: np.random.Generator) -> Path:
+    """One invented study: response m and drivers d1 (lag-1 effect), d2 (trend), d3 (noise)."""
+    folder.mkdir(parents=True, exist_ok=True)
+    n = len(YEARS)
+    d1 = np.empty(n)
+    d1[0] = rng.normal()
+    for t in range(1, n):
+        d1[t] = 0.5 * d1[t - 1] + rng.normal() * np.sqrt(0.75)
+    d2 = np.linspace(0, 2, n) + rng.normal(size=n)
+    d3 = rng.normal(size=n)
+    m = 0.3 + 0.05 * np.r_[0.0, d1[:-1]] + 0.02 * np.linspace(0, 2, n) + 0.03 * rng.normal(size=n)
+    lines = ["series,year,value"]
+    for name, v in (("m", m), ("d1", d1), ("d2", d2), ("d3", d3)):
+        lines += [f"{name},{y},{x:.6f}" for y, x in zip(YEARS, v)]
+    (folder / "data.csv").write_text("\n".join(lines) + "\n", encoding="utf-8")
+    cfg = {
+        "study": f"s{i:05d}",
+        "title": f"Invented scaling study {i}",
+        "invented": True,
+        "inputs": ["data.csv"],
+        "responses": [{"id": "m", "kind": "mortality"}],
+        "drivers": [{"id": "d1"}, {"id": "d2"}, {"id": "d3"}],
+        "screen": {"surrogates": 99, "models": ["linear"], "seed": i + 1},
+    }
+    path = folder / "config.yaml"
+    path.write_text(yaml.safe_dump(cfg, sort_keys=False), encoding="utf-8")
+    return path
+
+
+def write_batch(root: Path, n: int, seed: int) -> Path:
+    rng = np.random.default_rng(seed)
+    paths = [str(write_study(root / "studies" / f"s{i:05d}", i, rng)) for i in range(n)]
+    batch = root / "batch.yaml"
+    batch.write_text(yaml.safe_dump({"studies": paths, "out": str(root / "results")}), encoding="utf-8")
+    return batch
+
+
+def snakemake_cmd(root: Path, batch: Path, cores: int, extra=()) -> list[str]:
+    return [sys.executable, "-m", "snakemake", "--snakefile", str(REPO / "Snakefile"), "--directory",
+            str(root / "results"), "--cores", str(cores), "--configfile", str(batch), *extra]
+
+
+def tree_rss(proc: psutil.Process) -> tuple[int, int]:
+    """(RSS of proc + all its descendants, RSS of proc alone), bytes."""
+    try:
+        own = proc.memory_info().rss
+        kids = proc.children(recursive=True)
+    except psutil.Error:
+        return 0, 0
+    total = own
+    for k in kids:
+        try:
+            total += k.memory_info().rss
+        except psutil.Error:
+            pass
+    return total, own
+
+
+def run_measured(cmd: list[str], env: dict, max_seconds: float, log: Path) -> dict:
+    t0 = time.perf_counter()
+    with open(log, "w") as fh:
+        p = subprocess.Popen(cmd, env=env, stdout=fh, stderr=subprocess.STDOUT, start_new_session=True)
+        ps = psutil.Process(p.pid)
+        peak_tree = peak_own = 0
+        stopped = False
+        while p.poll() is None:
+            tot, own = tree_rss(ps)
+            peak_tree, peak_own = max(peak_tree, tot), max(peak_own, own)
+            if time.perf_counter() - t0 > max_seconds:
+                os.killpg(p.pid, signal.SIGTERM)  # the group this script started
+                stopped = True
+                p.wait(timeout=60)
+                break
+            time.sleep(0.2)
+    return dict(wall=time.perf_counter() - t0, rc=p.returncode, peak_tree_mb=peak_tree / 2**20,
+                peak_snakemake_mb=peak_own / 2**20, stopped=stopped)
+
+
+def jobs_done(log: Path) -> dict[str, int]:
+    """Finished jobs per rule, from the Snakemake log ('Finished jobid: 7 (Rule: screen)')."""
+    import re
+
+    counts: dict[str, int] = {}
+    for rule in re.findall(r"Finished jobid: \d+ \(Rule: (\w+)\)", log.read_text(errors="replace")):
+        counts[rule] = counts.get(rule, 0) + 1
+    counts.pop("all", None)
+    return counts
+
+
+def job_durations(log: Path) -> dict[str, float]:
+    """Median wall seconds per job, by rule, from the Snakemake log: each job's start stamp
+    (the '[date]' line before 'localrule X:' with its 'jobid: N') to its 'Finished jobid: N'
+    stamp; the stamps have one-second resolution."""
+    import re
+    from datetime import datetime
+
+    stamp = None
+    start, rule_of, dur = {}, {}, {}
+    pending_rule = None
+    for line in log.read_text(errors="replace").splitlines():
+        m = re.match(r"^\[(\w{3} \w{3} +\d+ [\d:]+ \d{4})\]$", line)
+        if m:
+            stamp = datetime.strptime(m.group(1).replace("  ", " "), "%a %b %d %H:%M:%S %Y")
+            continue
+        m = re.match(r"^(?:local)?rule (\w+):$", line)
+        if m:
+            pending_rule = (m.group(1), stamp)
+            continue
+        m = re.match(r"^\s+jobid: (\d+)$", line)
+        if m and pending_rule:
+            start[m.group(1)], rule_of[m.group(1)] = pending_rule[1], pending_rule[0]
+            pending_rule = None
+            continue
+        m = re.match(r"^Finished jobid: (\d+)", line)
+        if m and m.group(1) in start and stamp is not None:
+            dur.setdefault(rule_of[m.group(1)], []).append((stamp - start[m.group(1)]).total_seconds())
+    dur.pop("all", None)
+    return {k: float(np.median(v)) for k, v in sorted(dur.items())}
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    ap.add_argument("--n", default="10,50,200", help="study counts to run (default 10,50,200)")
+    ap.add_argument("--plan-n", type=int, default=5000, help="studies for the planning-only timing (0 skips it)")
+    ap.add_argument("--plan-max-seconds", type=float, default=900, help="give up the planning timing after this long")
+    ap.add_argument("--cores", type=int, default=2)
+    ap.add_argument("--max-seconds", type=float, default=900, help="stop a run after this long (default 900)")
+    ap.add_argument("--seed", type=int, default=11)
+    ap.add_argument("--out", default=str(REPO / "bench" / "results" / "scale"))
+    args = ap.parse_args(argv)
+    env = dict(os.environ, PYTHONPATH=os.pathsep.join(filter(None, [str(REPO / "src"), os.environ.get("PYTHONPATH")])),
+               MPLBACKEND="Agg")
+    rows = []
+    with tempfile.TemporaryDirectory(prefix="lagsieve-scale-") as tmp:
+        for n in [int(v) for v in args.n.split(",") if v]:
+            root = Path(tmp) / f"n{n}"
+            batch = write_batch(root, n, args.seed)
+            t0 = time.perf_counter()
+            plan = subprocess.run(snakemake_cmd(root, batch, args.cores, ["-n", "--quiet"]), env=env,
+                                  capture_output=True, text=True)
+            t_plan = time.perf_counter() - t0
+            if plan.returncode != 0:
+                raise SystemExit(f"dry run failed for N={n}:\n{plan.stderr[-3000:]}")
+            print(f"N={n}: planning (snakemake -n --quiet) {t_plan:.1f} s; running ...", flush=True)
+            m = run_measured(snakemake_cmd(root, batch, args.cores), env, args.max_seconds, root / "snakemake.log")
+            done = sum((root / "results" / f"s{i:05d}" / "report.html").exists() for i in range(n))
+            per_rule = jobs_done(root / "snakemake.log")
+            durations = job_durations(root / "snakemake.log")
+            logs = Path(args.out).parent / "scale_logs"
+            logs.mkdir(parents=True, exist_ok=True)
+            subprocess.run(["cp", str(root / "snakemake.log"), str(logs / f"n{n}.log")], check=False)
+            n_jobs = sum(per_rule.values())
+            ok = m["rc"] == 0 and done == n
+            if not ok and not m["stopped"]:
+                print((root / "snakemake.log").read_text()[-3000:], file=sys.stderr)
+            rows.append(dict(studies=n, jobs=5 * n, finished=done, jobs_done=n_jobs, wall_s=m["wall"],
+                             s_per_job=m["wall"] / max(n_jobs, 1), s_per_study=5 * m["wall"] / max(n_jobs, 1),
+                             jobs_by_rule=" ".join(f"{k}={v}" for k, v in sorted(per_rule.items())),
+                             median_job_s=" ".join(f"{k}={v:.0f}" for k, v in durations.items()),
+                             peak_tree_rss_mb=m["peak_tree_mb"], peak_snakemake_rss_mb=m["peak_snakemake_mb"],
+                             plan_s=t_plan, status="ok" if ok else ("stopped at --max-seconds" if m["stopped"] else f"failed rc={m['rc']}")))
+            r = rows[-1]
+            print(f"N={n}: {r['status']}, {done}/{n} studies complete, {n_jobs}/{5 * n} jobs ({r['jobs_by_rule']}) "
+                  f"in {r['wall_s']:.0f} s ({r['s_per_job']:.2f} s per job, {r['s_per_study']:.1f} s per 5 jobs); "
+                  f"median job wall s by rule: {r['median_job_s']}; "
+                  f"peak RSS tree {r['peak_tree_rss_mb']:.0f} MB, snakemake alone {r['peak_snakemake_rss_mb']:.0f} MB",
+                  flush=True)
+            # free the disk between sizes
+            subprocess.run(["rm", "-rf", str(root)], check=False)
+        plan_row = None
+        if args.plan_n:
+            root = Path(tmp) / f"plan{args.plan_n}"
+            t0 = time.perf_counter()
+            batch = write_batch(root, args.plan_n, args.seed)
+            t_write = time.perf_counter() - t0
+            t0 = time.perf_counter()
+            try:
+                plan = subprocess.run(snakemake_cmd(root, batch, args.cores, ["-n", "--quiet"]), env=env,
+                                      capture_output=True, text=True, timeout=args.plan_max_seconds)
+                status = "ok" if plan.returncode == 0 else f"failed rc={plan.returncode}: {plan.stderr[-500:]}"
+            except subprocess.TimeoutExpired:
+                status = f"not finished after {args.plan_max_seconds:.0f} s (stopped)"
+            t_plan = time.perf_counter() - t0
+            plan_row = dict(studies=args.plan_n, plan_s=t_plan, status=status, write_s=t_write)
+            print(f"planning only, {args.plan_n} studies ({5 * args.plan_n} jobs): {t_plan:.1f} s ({status}); "
+                  f"target < 60 s", flush=True)
+    df = pd.DataFrame(rows)
+    out = Path(args.out)
+    out.parent.mkdir(parents=True, exist_ok=True)
+    df.to_csv(out.with_suffix(".csv"), index=False, float_format="%.3f")
+    md = ["## lagsieve scaling: N studies in one Snakemake run", "",
+          f"Each study: 1 response x 3 drivers, 40 years, lags 0-3, 99 surrogates, models [linear]; "
+          f"5 jobs (align, screen, evidence, report, ledger); --cores {args.cores}.", "",
+          "A run stopped at --max-seconds is measured by the jobs it finished (Snakemake runs the align jobs "
+          "of all studies first, so whole studies finish late); s per study = 5 x s per job.", "",
+          "| studies | jobs | jobs finished | studies complete | wall (s) | s per job | s per study | median job wall (s) by rule | peak RSS, tree (MB) | peak RSS, snakemake (MB) | planning -n (s) | status |",
+          "| ---: | ---: | ---: | ---: | ---: | ---: | ---: | --- | ---: | ---: | ---: | --- |"]
+    for r in rows:
+        md.append(f"| {r['studies']} | {r['jobs']} | {r['jobs_done']} ({r['jobs_by_rule']}) | {r['finished']} | "
+                  f"{r['wall_s']:.0f} | {r['s_per_job']:.2f} | {r['s_per_study']:.1f} | {r['median_job_s']} | "
+                  f"{r['peak_tree_rss_mb']:.0f} | {r['peak_snakemake_rss_mb']:.0f} | {r['plan_s']:.1f} | {r['status']} |")
+    if len(rows) >= 2:
+        a, b = rows[0], rows[-1]
+        md += ["", f"Seconds per job from N={a['studies']} to N={b['studies']}: {a['s_per_job']:.2f} -> "
+                   f"{b['s_per_job']:.2f} (ratio {b['s_per_job'] / a['s_per_job']:.2f}; 1.00 = linear growth of the "
+                   f"total). Note the job mix differs between complete and stopped runs."]
+    if plan_row:
+        md += ["", f"Planning only (`snakemake -n --quiet`), {plan_row['studies']} studies, {5 * plan_row['studies']} jobs: "
+                   f"{plan_row['plan_s']:.1f} s ({plan_row['status']}; target < 60 s). Configs only are checked beyond 50 studies."]
+        pd.DataFrame([plan_row]).to_csv(out.parent / (out.name + "_plan.csv"), index=False, float_format="%.3f")
+    text = "\n".join(md) + "\n"
+    out.with_suffix(".md").write_text(text, encoding="utf-8")
+    print(text)
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
