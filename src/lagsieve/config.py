@@ -6,6 +6,7 @@ runs the same from any working directory.
 from __future__ import annotations
 
 import copy
+import functools
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -15,6 +16,9 @@ import jsonschema
 import yaml
 
 from .errors import InputErrors, InputProblem
+
+# libyaml's safe loader when PyYAML was built with it (same safety, about ten times faster)
+SafeLoader = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
 
 REPO_ROOT = Path(__file__).resolve().parents[2]
 SCHEMA_PATH = REPO_ROOT / "workflow" / "schemas" / "config.schema.yaml"
@@ -81,9 +85,12 @@ class Study:
         return sorted(driver.get("lags") or self.screen["lags"])
 
 
-def _schema() -> dict:
+@functools.lru_cache(maxsize=1)
+def _validator() -> jsonschema.Draft202012Validator:
+    """The config schema's validator, built once per process (planning thousands of studies
+    would otherwise re-read and re-compile the schema for each)."""
     with open(SCHEMA_PATH, encoding="utf-8") as fh:
-        return yaml.safe_load(fh)
+        return jsonschema.Draft202012Validator(yaml.load(fh, Loader=SafeLoader))
 
 
 def _key_path(err: jsonschema.ValidationError) -> str:
@@ -122,7 +129,7 @@ def load_study(path: str | Path) -> Study:
         raise InputErrors([InputProblem(what="config file not found", fix="give the path to an existing study config (lagsieve init DIR writes one)", file=shown)])
     try:
         with open(path, encoding="utf-8-sig") as fh:
-            raw = yaml.safe_load(fh)
+            raw = yaml.load(fh, Loader=SafeLoader)
     except yaml.YAMLError as exc:
         mark = getattr(exc, "problem_mark", None)
         row = mark.line + 1 if mark is not None else None
@@ -132,8 +139,7 @@ def load_study(path: str | Path) -> Study:
         raise InputErrors([InputProblem(what="config is not UTF-8 text", fix="save it as UTF-8", file=shown)]) from None
     if not isinstance(raw, dict):
         raise InputErrors([InputProblem(what="config is empty or not a mapping of keys", fix="start from the config that `lagsieve init` writes", file=shown)])
-    validator = jsonschema.Draft202012Validator(_schema())
-    errs = sorted(validator.iter_errors(raw), key=lambda e: list(map(str, e.absolute_path)))
+    errs = sorted(_validator().iter_errors(raw), key=lambda e: list(map(str, e.absolute_path)))
     problems = [_schema_problem(e, shown) for e in errs]
     if problems:
         raise InputErrors(problems)

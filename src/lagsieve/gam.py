@@ -726,7 +726,7 @@ def expanding_penalised(
     b = expanding_cross(Ww, y[:, None], origins)[..., 0]
     yty = np.cumsum(w * y * y)[origins - 1]
     n = origins.astype(float)
-    A = A + 1e-9 * (np.trace(A, axis1=-2, axis2=-1)[..., None, None] / q) * np.eye(q)
+    A = A + 1e-11 * (np.trace(A, axis1=-2, axis2=-1)[..., None, None] / q) * np.eye(q)
     tune = np.arange(0, len(origins), max(1, int(retune_every)))
     At, bt, yt, nt = A[..., tune, :, :], b[..., tune, :], yty[tune], n[tune]
     Li = np.linalg.inv(np.linalg.cholesky(At))
