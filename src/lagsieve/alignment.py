@@ -55,10 +55,14 @@ def se_table(annual: pd.DataFrame, transforms: dict[str, str]) -> pd.DataFrame:
     return wide
 
 
-def inverse_variance_weights(se: np.ndarray) -> np.ndarray:
-    """Weights 1 / se^2 scaled to mean 1 (the scale does not change a weighted fit)."""
+def inverse_variance_weights(se: np.ndarray, n_ref: int | None = None) -> np.ndarray:
+    """Weights 1 / se^2 scaled to mean 1 over the first ``n_ref`` values (default: all).
+
+    The scale does not change a weighted least-squares fit, but it does change a penalised
+    one at a given smoothing parameter; scaling on the first training window keeps later
+    years' standard errors out of earlier forecasts."""
     w = 1.0 / np.asarray(se, float) ** 2
-    return w / np.mean(w)
+    return w / np.mean(w[: n_ref or len(w)])
 
 
 def lagged(table: pd.DataFrame, series: str, lag: int) -> np.ndarray:

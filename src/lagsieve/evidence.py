@@ -16,10 +16,11 @@ GRADE_ORDER = {"strong": 0, "moderate": 1, "weak": 2, "spurious-trend": 3, "none
 
 GRADE_RULES = {
     "strong": "q-value <= FDR level, surrogate p of out-of-sample skill <= 0.05, skill > 0 against every "
-              "baseline (climatology, persistence, trend), the sign stated beforehand, and neither "
-              "trend-shared nor failed-retest.",
-    "moderate": "surrogate p (best lag, paid for) <= alpha, skill > 0 against the hardest baseline with "
-                "surrogate p of skill <= 0.10, the sign stated beforehand, and not trend-shared.",
+              "baseline (climatology, persistence, trend), the sign stated beforehand, a re-test on the "
+              "latest years that was possible, and neither trend-shared nor failed-retest.",
+    "moderate": "surrogate p (best lag and model, paid for) <= alpha, skill > 0 against the hardest baseline "
+                "with surrogate p of skill <= 0.10, the sign stated beforehand, and not trend-shared; or strong, "
+                "but collinear with a driver that is also strong and forecasts the same response better.",
     "weak": "some support (autocorrelation-adjusted p <= alpha, surrogate p <= 0.10, or positive skill "
             "with surrogate p of skill <= 0.20) but short of moderate.",
     "none": "no support after adjustment.",
@@ -71,7 +72,8 @@ def flags_for(row: dict, alpha: float, fdr: float) -> list[str]:
     p_det = _get(row, "p_detrended")
     sk_trend = _get(row, "oos_skill_trend")
     n = _get(row, "n", 0)
-    if p_naive <= alpha and (p_det > alpha or p_s > alpha or (not np.isnan(sk_trend) and sk_trend <= 0)):
+    # a detrended test that could not be computed does not clear the trend
+    if p_naive <= alpha and (not p_det <= alpha or not p_s <= alpha or (not np.isnan(sk_trend) and sk_trend <= 0)):
         f.append("trend-shared")
     if _get(row, "n_eff") < n / 2:
         f.append("autocorrelated")
@@ -105,8 +107,9 @@ def grade_row(row: dict, flags: list[str], alpha: float, fdr: float, min_overlap
     skills = [_get(row, f"oos_skill_{b}") for b in ("climatology", "persistence", "trend")]
     q, ps, pos = _get(row, "q_value"), _get(row, "p_surrogate"), _get(row, "oos_p_surrogate")
     sk = _get(row, "oos_skill")
+    retested = not np.isnan(_get(row, "retest_skill"))
     if q <= fdr and pos <= 0.05 and all(s > 0 for s in skills) and sign_ok and not trend \
-            and "failed-retest" not in flags:
+            and "failed-retest" not in flags and retested:
         return "strong"
     if ps <= alpha and sk > 0 and pos <= 0.10 and sign_ok and not trend:
         return "moderate"

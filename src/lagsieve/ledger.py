@@ -3,8 +3,8 @@ next year, and score those predictions when the year arrives.
 
 A hypothesis graded ``strong`` or ``moderate`` claims that its driver helps to forecast the
 response. The ledger holds it to that claim on years it has not seen. At every run, for each
-such hypothesis, the *candidate* model (the hardest baseline of ``evidence.csv``, column
-``oos_hardest``, plus the driver at its selected lag, column ``lag``) is fitted by ordinary
+such hypothesis, the *candidate* model (the baseline of ``evidence.csv``'s candidate, column
+``oos_baseline``, plus the driver at its selected lag, column ``lag``) is fitted by ordinary
 least squares on every observed year and forecasts the first response year not yet observed,
 T + 1. The three baselines (climatology, persistence, trend) are fitted on the same years and
 forecast the same year, so that the candidate can later be compared with what one would have
@@ -437,6 +437,8 @@ def grade_rows(evidence: pd.DataFrame) -> pd.DataFrame:
             "retest_skill": _num, "flags": _str, "last_year": _int}
     out = pd.DataFrame({c: [f(v) for v in (evidence[c] if c in evidence else [None] * len(evidence))]
                         for c, f in cols.items()})
+    if "oos_baseline" in evidence.columns:  # the baseline the candidate is built on
+        out["oos_hardest"] = [_str(v) for v in evidence["oos_baseline"]]
     return out.rename(columns={"oos_hardest": "hardest"}).sort_values(["response", "driver"]).reset_index(drop=True)
 
 

@@ -126,7 +126,12 @@ def screen_hypothesis(table: pd.DataFrame, response: dict, driver: dict, lags: l
         stats.append(stat)
         per_lag[k] = (x[0], y, yrs)
         if use_gam:
-            g_row, g_stat = gam_screen_row(x, y, yrs, screen)
+            try:
+                g_row, g_stat = gam_screen_row(x, y, yrs, screen)
+                if sign != "any":  # the spline's gain counts only in the direction stated beforehand
+                    g_stat = g_stat * np.sign(stat)
+            except ValueError as exc:  # too few years for the spline at this lag
+                g_row, g_stat = {"status": f"skipped: {exc}"}, np.full(B + 1, np.nan)
             rows.append(dict(base, model="gam", **g_row))
             gam_stats.append(g_stat)
         rows.append(dict(base, r=r, p_naive=float(st.correlation_p(r, n)), n_eff=neff,
@@ -170,7 +175,7 @@ def screen_hypothesis(table: pd.DataFrame, response: dict, driver: dict, lags: l
         models = tuple(m for m in ("linear", "gam") if m in screen["models"])
         w = None
         if screen.get("weights") == "inverse-variance" and response_se is not None:
-            w = inverse_variance_weights(response_se[ff.rows])
+            w = inverse_variance_weights(response_se[ff.rows], n_ref=initial)
         ro = rolling_origin(ff.y, ff.ylag, ff.years, X, np.asarray(lags), initial, models=models, weights=w)
         sk = ro.skill
         for b in BASELINES:
@@ -179,10 +184,11 @@ def screen_hypothesis(table: pd.DataFrame, response: dict, driver: dict, lags: l
         ms = ro.min_skill
         hyp["oos_skill"] = float(ms[0])
         hyp["oos_hardest"] = ro.hardest
+        hyp["oos_baseline"] = ro.candidate
         e_m, e_b = ro.errors()
         hyp["oos_p"] = diebold_mariano(e_m, e_b).p_value
         hyp["oos_p_surrogate"] = surrogate_p(ms)
-        lag_counts = pd.Series(ro.chosen_lag[ro.hardest][0]).value_counts()
+        lag_counts = pd.Series(ro.candidate_lag[0]).value_counts()
         hyp["oos_lag"] = int(lag_counts.index[0])
         hyp["oos_lag_share"] = float(lag_counts.iloc[0] / ro.n)
         if ro.chosen_model is not None:
@@ -202,9 +208,12 @@ def screen_hypothesis(table: pd.DataFrame, response: dict, driver: dict, lags: l
             fc["gam_only"] = ro.gam_forecast[0]
             fc["linear_only"] = ro.linear_forecast[0]
         fc["hardest"] = ro.hardest
-        fc["extrapolated"] = _extrapolated(X[0], ro.chosen_lag[ro.hardest][0], np.asarray(lags), initial)
+        fc["candidate"] = ro.candidate_fc[0]
+        fc["candidate_baseline"] = ro.candidate_baseline[0]
+        fc["candidate_lag"] = ro.candidate_lag[0]
+        fc["extrapolated"] = _extrapolated(X[0], ro.candidate_lag[0], np.asarray(lags), initial)
         if len(ff.years) - holdout >= max(10, initial // 2):
-            rt = retest(ff.y, ff.ylag, ff.years, X[0], np.asarray(lags), holdout, ro.hardest, weights=w)
+            rt = retest(ff.y, ff.ylag, ff.years, X[0], np.asarray(lags), holdout, ro.candidate, weights=w)
             hyp["retest_skill"] = rt.min_skill
             hyp["retest_years"] = f"{int(rt.years[0])}-{int(rt.years[-1])}"
     if use_gam:
@@ -251,11 +260,11 @@ def min_p_combined(stats: list[np.ndarray]) -> float:
     taken across statistics, and the observed minimum is ranked among the surrogates'."""
     ps = []
     for st_ in stats:
-        null = st_[1:]
-        # p of every batch member against the surrogate distribution (ties count as >=)
-        srt = np.sort(null)
-        ge = len(null) - np.searchsorted(srt, st_, side="left")
-        ps.append((1 + ge) / (len(null) + 1))
+        v = np.where(np.isnan(st_), -np.inf, st_)  # a missing statistic supports nothing
+        srt = np.sort(v)
+        # for every member: 1 + how many OTHER members (the observed one included) reach it
+        ge_all = len(v) - np.searchsorted(srt, v, side="left")  # counts the member itself
+        ps.append(ge_all / len(v))
     pmin = np.min(np.stack(ps), axis=0)
     return float((1 + np.sum(pmin[1:] <= pmin[0])) / len(pmin))
 

@@ -86,10 +86,13 @@ class RollingOriginResult:
 
     Axis 0 of every driver-dependent array is the driver batch: index 0 is the real driver.
 
-    The *hardest* baseline is the one with the lowest out-of-sample MSE: the forecast one
-    would use anyway. The *candidate* is that baseline plus the driver. ``skill[b]`` is the
-    candidate's skill against baseline b, so its minimum over the baselines is the skill
-    against the hardest one; ``added_skill[b]`` is what the driver adds to baseline b itself.
+    The *candidate* is a baseline plus the driver; at every origin its baseline, lag (and
+    with GAMs its form) are chosen by GCV on the training years only, so no later year
+    decides the form of any forecast. The *hardest* baseline is, in hindsight,
+    the one with the lowest out-of-sample MSE; it is used only to score. ``skill[b]`` is the
+    candidate's skill against baseline b and ``min_skill`` its minimum over the baselines
+    (the skill against the hardest one); ``added_skill[b]`` is what the driver adds to
+    baseline b itself.
     """
 
     years: np.ndarray  # (n_origins,) the forecast years
@@ -99,6 +102,10 @@ class RollingOriginResult:
     chosen_lag: dict[str, np.ndarray]  # baseline -> (S, n_origins) lag chosen in training
     added_skill: dict[str, np.ndarray]  # baseline -> (S,): 1 - MSE(b + driver) / MSE(b)
     hardest: str
+    candidate: str = "trend"  # the baseline the real driver's candidate used most often
+    candidate_fc: np.ndarray | None = None  # (S, n_origins) the candidate's forecasts
+    candidate_lag: np.ndarray | None = None  # (S, n_origins) its lag at every origin
+    candidate_baseline: np.ndarray | None = None  # (S, n_origins) its baseline at every origin
     lags: np.ndarray = field(default_factory=lambda: np.zeros(0, int))
     chosen_model: np.ndarray | None = None  # (S, n_origins) 'linear' or 'gam' (with gam)
     gam_gain: np.ndarray | None = None  # (S,) 1 - MSE(gam only) / MSE(linear only)
@@ -111,8 +118,8 @@ class RollingOriginResult:
 
     @property
     def candidate_forecast(self) -> np.ndarray:
-        """(S, n_origins) forecasts of the hardest baseline plus the driver."""
-        return self.model_forecast[self.hardest]
+        """(S, n_origins) forecasts of the candidate (a baseline plus the driver)."""
+        return self.candidate_fc
 
     @property
     def skill(self) -> dict[str, np.ndarray]:
@@ -122,8 +129,8 @@ class RollingOriginResult:
 
     @property
     def min_skill(self) -> np.ndarray:
-        """Skill against the hardest baseline, per driver in the batch: shape (S,)."""
-        return self.added_skill[self.hardest]
+        """Skill against the hardest baseline (the minimum over baselines), per driver: (S,)."""
+        return np.min(np.stack(list(self.skill.values())), axis=0)
 
     def errors(self, which: int = 0) -> tuple[np.ndarray, np.ndarray]:
         """(candidate errors, hardest-baseline errors) of driver ``which``."""
@@ -163,7 +170,7 @@ def rolling_origin(
     AIC). Driver and year columns are scaled with statistics of the first ``initial`` rows
     only, which leaves every forecast unchanged in exact arithmetic and keeps later years out.
 
-    With ``"gam"`` in ``models``, the candidate on the hardest baseline is chosen at every
+    With ``"gam"`` in ``models``, the candidate on its baseline is chosen at every
     origin among the linear and the penalised-spline form of every lag by GCV on the
     training years (smoothing parameter included), so the choice of model is nested too;
     see :func:`gam_candidate`. ``weights`` (T,), for example inverse variances of the
@@ -178,10 +185,11 @@ def rolling_origin(
     yl = _scale_from_start(np.asarray(ylag, float), initial)
     yr = _scale_from_start(np.asarray(year, float), initial)
     S, L, _ = Xs.shape
-    base_fc, model_fc, chosen, added, mse_base, rss_lin, fc_lin = {}, {}, {}, {}, {}, {}, {}
+    base_fc, model_fc, chosen, added, mse_base, rss_lin, fc_lin, aic0 = {}, {}, {}, {}, {}, {}, {}, {}
     for b in BASELINES:  # three fixed model forms
         Z = baseline_design(b, yl, yr)  # (T, p)
-        beta0, _ = _expanding_solve(Z, y, origins, weights)
+        beta0, rss0 = _expanding_solve(Z, y, origins, weights)
+        aic0[b] = initial * np.log(max(rss0[0], 1e-300) / initial) + 2 * Z.shape[1]  # first window
         base_fc[b] = (Z[origins] * beta0).sum(-1)
         W = np.concatenate(
             [np.broadcast_to(Z, (S, L) + Z.shape), Xs[..., None]], axis=-1
@@ -196,33 +204,43 @@ def rolling_origin(
         mse_m = np.mean((y[origins][None, :] - model_fc[b]) ** 2, axis=-1)
         added[b] = skill_score(mse_m, mse_base[b]) if mse_base[b] > 0 else np.full(S, np.nan)
     hardest = min(BASELINES, key=lambda b: mse_base[b])
+    cand0 = min(BASELINES, key=lambda b: aic0[b])  # the spline is built on this baseline
+    n_tr = origins.astype(float)
+    # the pool of candidate forms at every origin: every baseline + the driver at every lag,
+    # (and the spline on the first window's AIC baseline); the least GCV on the training
+    # years wins, for the real driver and every surrogate alike
+    gcv_pool = [n_tr * rss_lin[b] / (n_tr - (baseline_design(b, yl[:1], yr[:1]).shape[1] + 1)) ** 2
+                for b in BASELINES]
+    fc_pool = [fc_lin[b] for b in BASELINES]
+    lag_pool = np.tile(np.asarray(lags), len(BASELINES))
+    base_pool = np.repeat(np.arange(len(BASELINES)), L)
     extra = {}
     if "gam" in models:
-        Z = baseline_design(hardest, yl, yr)
-        p_lin = Z.shape[1] + 1
-        n_tr = origins.astype(float)
-        gcv_lin = n_tr * rss_lin[hardest] / (n_tr - p_lin) ** 2  # (S, L, O)
-        K = n_basis or default_n_basis(T)
-        fc_gam = np.empty_like(gcv_lin)
-        gcv_gam = np.empty_like(gcv_lin)
-        edf_gam = np.empty_like(gcv_lin)
+        Z = baseline_design(cand0, yl, yr)
+        K = n_basis or default_n_basis(3 * initial)  # fixed by the scheme, not by later years
+        fc_gam = np.empty((S, L, len(origins)))
+        gcv_gam = np.empty_like(fc_gam)
+        edf_gam = np.empty_like(fc_gam)
         for lo in range(0, S, chunk):  # chunks bound the memory of the stacked systems
             sl = slice(lo, lo + chunk)
             fc_gam[sl], gcv_gam[sl], edf_gam[sl] = gam_candidate(Z, Xs[sl], y, origins, initial, K, retune_every,
                                                                       weights)
-        gcv_all = np.concatenate([gcv_lin, gcv_gam], axis=1)  # (S, 2L, O)
-        fc_all = np.concatenate([fc_lin[hardest], fc_gam], axis=1)
-        pick = np.argmin(gcv_all, axis=1)
-        model_fc[hardest] = np.take_along_axis(fc_all, pick[:, None, :], axis=1)[:, 0, :]
-        chosen[hardest] = np.concatenate([np.asarray(lags), np.asarray(lags)])[pick]
-        gam_only_pick = np.argmin(gcv_gam, axis=1)
-        gam_only = np.take_along_axis(fc_gam, gam_only_pick[:, None, :], axis=1)[:, 0, :]
-        lin_only = np.take_along_axis(fc_lin[hardest], np.argmin(rss_lin[hardest], axis=1)[:, None, :], axis=1)[:, 0, :]
+        gcv_pool.append(gcv_gam)
+        fc_pool.append(fc_gam)
+        lag_pool = np.r_[lag_pool, np.asarray(lags)]
+        base_pool = np.r_[base_pool, np.full(L, BASELINES.index(cand0))]
         mse = lambda f: np.mean((y[origins][None, :] - f) ** 2, axis=-1)
-        added[hardest] = skill_score(mse(model_fc[hardest]), mse_base[hardest])
-        extra = dict(chosen_model=np.where(pick >= len(lags), "gam", "linear"),
-                     gam_gain=skill_score(mse(gam_only), mse(lin_only)),
-                     gam_forecast=gam_only, linear_forecast=lin_only)
+        gam_only = np.take_along_axis(fc_gam, np.argmin(gcv_gam, axis=1)[:, None, :], axis=1)[:, 0, :]
+        lin_only = np.take_along_axis(fc_lin[cand0], np.argmin(rss_lin[cand0], axis=1)[:, None, :], axis=1)[:, 0, :]
+        extra = dict(gam_gain=skill_score(mse(gam_only), mse(lin_only)), gam_forecast=gam_only,
+                     linear_forecast=lin_only)
+    gcv_all = np.concatenate(gcv_pool, axis=1)  # (S, pool, O)
+    pick = np.argmin(gcv_all, axis=1)  # (S, O)
+    cand_fc = np.take_along_axis(np.concatenate(fc_pool, axis=1), pick[:, None, :], axis=1)[:, 0, :]
+    if "gam" in models:
+        extra["chosen_model"] = np.where(pick >= len(BASELINES) * L, "gam", "linear")
+    chosen_base = base_pool[pick]
+    counts = np.bincount(chosen_base[0], minlength=len(BASELINES))
     return RollingOriginResult(
         years=np.asarray(year)[origins],
         observed=y[origins],
@@ -231,6 +249,10 @@ def rolling_origin(
         chosen_lag=chosen,
         added_skill=added,
         hardest=hardest,
+        candidate=BASELINES[int(np.argmax(counts))],
+        candidate_fc=cand_fc,
+        candidate_lag=lag_pool[pick],
+        candidate_baseline=np.asarray(BASELINES)[chosen_base],
         lags=np.asarray(lags),
         **extra,
     )
