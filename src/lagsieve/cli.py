@@ -76,7 +76,7 @@ def cmd_run(args, extra: list[str]) -> int:
         subprocess.run(cmd + ["--unlock"], env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
         cmd.append("--rerun-incomplete")
     proc = subprocess.run(cmd, env=env)
-    if proc.returncode == 0:
+    if proc.returncode == 0 and not ({"-n", "--dry-run", "--dryrun"} & set(extra)):
         print(f"results in {out / study.study}")
     return proc.returncode
 

@@ -8,7 +8,7 @@ from __future__ import annotations
 import copy
 import functools
 import re
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -37,7 +37,7 @@ SCREEN_DEFAULTS: dict[str, Any] = {
     "gam_trend": True,
     "validation": {},
 }
-REPORT_DEFAULTS: dict[str, Any] = {"top": 3, "pdf": False}
+REPORT_DEFAULTS: dict[str, Any] = {"top": 3, "pdf": True}  # the PDF is made when a PDF library is present
 
 SAFE_ID = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]*(:[A-Za-z0-9][A-Za-z0-9_.-]*)?$")
 
@@ -61,7 +61,6 @@ class Study:
     screen: dict
     report: dict
     ledger_path: str | None = None
-    extra: dict = field(default_factory=dict)
 
     @property
     def response_ids(self) -> list[str]:
@@ -177,9 +176,6 @@ def _build(path: Path, raw: dict) -> Study:
         for rid in d.get("responses", []) or []:
             if rid not in resp_ids:
                 problems.append(InputProblem(what=f"names response '{rid}', which is not in responses", fix="use an id listed under responses", file=shown, key=f"drivers.{i}.responses", series=d["id"]))
-    val = screen["validation"]
-    if "initial_years" in val and "holdout_years" in val and val["holdout_years"] >= val["initial_years"] * 2:
-        pass  # allowed; hypotheses too short for it become insufficient-data
     if problems:
         raise InputErrors(problems)
     ledger = (raw.get("ledger") or {}).get("path")

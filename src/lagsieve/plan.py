@@ -55,7 +55,7 @@ def _response_inputs(st: Study, annual, inputs: list[str]) -> dict[str, list[str
     return out
 
 
-def plan_studies(config: dict) -> dict[str, PlannedStudy]:
+def plan_studies(config: dict, check: bool = True) -> dict[str, PlannedStudy]:
     """Load every study config; a user's mistake prints one line per problem and exits 2.
 
     Up to ``FULL_CHECK_LIMIT`` studies (or with ``check_inputs=true`` in Snakemake's
@@ -65,7 +65,7 @@ def plan_studies(config: dict) -> dict[str, PlannedStudy]:
     """
     planned: dict[str, PlannedStudy] = {}
     paths = study_configs(config)
-    full = str(config.get("check_inputs", len(paths) <= FULL_CHECK_LIMIT)).lower() in ("true", "1", "yes")
+    full = check and str(config.get("check_inputs", len(paths) <= FULL_CHECK_LIMIT)).lower() in ("true", "1", "yes")
     try:
         for path in paths:
             annual = None

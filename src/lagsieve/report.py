@@ -749,11 +749,14 @@ def _series_table(ctx: Context, tables: dict) -> str:
             agg = s.get("aggregate")
             agg_w = f"{agg.get('how', 'mean')} of months {_range_words(agg['months'])}" if agg else ""
             rows.append("<tr>" + "".join(f"<td>{x}</td>" for x in (
-                f"<code>{e(s['id'])}</code>", e(s.get("label", "")), role, e(s.get("unit", "")),
+                f"<code>{e(s['id'])}</code>", e(s.get("label", "")),
+                e(f"response ({s.get('kind', 'other')})") if role == "response" else e(f"driver ({s.get('category', 'other')})"),
+                e(s.get("unit", "")),
                 e(s.get("transform", "none")), e(agg_w),
                 "" if role == "response" else e(_range_words(s.get("lags") or ctx.study.screen["lags"])),
                 e(s.get("expected_sign", "")) if role == "driver" else "", e(yrs))) + "</tr>")
-    head = "".join(f"<th>{h}</th>" for h in ("id", "label", "role", "unit", "transform", "annual value", "lags",
+    head = "".join(f"<th>{h}</th>" for h in ("id", "label", "role (kind or category)", "unit", "transform",
+                                             "annual value", "lags",
                                              "expected sign", "years (n)"))
     return f'<div class="scroll"><table class="plain"><thead><tr>{head}</tr></thead><tbody>{"".join(rows)}</tbody></table></div>'
 
