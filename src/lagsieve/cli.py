@@ -11,7 +11,7 @@ import sys
 from pathlib import Path
 
 from .config import REPO_ROOT
-from .errors import InputErrors
+from .errors import InputErrors, report_problems
 
 EXIT_USER = 2
 
@@ -45,9 +45,7 @@ def cmd_check(args) -> int:
     try:
         study, annual, notes, warnings = _check(args.config)
     except InputErrors as exc:
-        for p in exc.problems:
-            print(p.line(), file=sys.stderr)
-        return EXIT_USER
+        return report_problems(exc)
     for w in warnings:
         print(w.line(), file=sys.stderr)
     years = annual["year"]
@@ -60,9 +58,7 @@ def cmd_run(args, extra: list[str]) -> int:
     try:
         study, *_ = _check(args.config)
     except InputErrors as exc:
-        for p in exc.problems:
-            print(p.line(), file=sys.stderr)
-        return EXIT_USER
+        return report_problems(exc)
     cfg = Path(args.config).resolve()
     out = Path(args.out).resolve() if args.out else cfg.parent / "results"
     out.mkdir(parents=True, exist_ok=True)
@@ -89,9 +85,7 @@ def cmd_ledger(args) -> int:
     try:
         return print_track_record(args.config, args.out)
     except InputErrors as exc:
-        for p in exc.problems:
-            print(p.line(), file=sys.stderr)
-        return EXIT_USER
+        return report_problems(exc)
 
 
 def build_parser() -> argparse.ArgumentParser:

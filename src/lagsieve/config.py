@@ -77,6 +77,10 @@ class Study:
             out[s["id"]] = {k: s[k] for k in ("transform", "aggregate", "fill", "max_gap", "unit") if k in s}
         return out
 
+    def transforms(self) -> dict[str, str]:
+        """The configured transform of every series, by id."""
+        return {s["id"]: s.get("transform", "none") for s in self.responses + self.drivers}
+
     def drivers_for(self, response_id: str) -> list[dict]:
         return [d for d in self.drivers if not d.get("responses") or response_id in d["responses"]]
 

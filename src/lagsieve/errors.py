@@ -49,6 +49,16 @@ class InputErrors(Exception):
         return "\n".join(p.line() for p in self.problems)
 
 
+def report_problems(exc: "InputErrors", stream=None) -> int:
+    """Print one line per problem (to stderr by default); return the user-error exit status 2."""
+    import sys
+
+    stream = sys.stderr if stream is None else stream
+    for p in exc.problems:
+        print(p.line(), file=stream)
+    return 2
+
+
 def fail(what: str, fix: str, **where) -> None:
     """Raise a single problem as :class:`InputErrors`."""
     raise InputErrors([InputProblem(what=what, fix=fix, **where)])

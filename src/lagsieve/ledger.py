@@ -457,7 +457,7 @@ class StudyData:
         from .stages import load_table
 
         annual = pd.read_csv(annual_csv)
-        transforms = {s["id"]: s.get("transform", "none") for s in study.responses + study.drivers}
+        transforms = study.transforms()
         raw = annual.pivot(index="year", columns="series", values="value").astype(float)
         se = raw_se = None
         if study.screen.get("weights") == "inverse-variance":

@@ -9,7 +9,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from .config import Study, load_study, slug
-from .errors import InputErrors
+from .errors import InputErrors, report_problems
 
 
 @dataclass(frozen=True)
@@ -85,7 +85,5 @@ def plan_studies(config: dict, check: bool = True) -> dict[str, PlannedStudy]:
                 inputs.append(str(p if p.is_absolute() else st.base_dir / p))
             planned[st.study] = PlannedStudy(st, str(st.path), inputs, _response_inputs(st, annual, inputs))
     except InputErrors as exc:
-        for p in exc.problems:
-            print(p.line(), file=sys.stderr)
-        sys.exit(2)
+        sys.exit(report_problems(exc))
     return planned

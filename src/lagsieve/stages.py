@@ -168,7 +168,7 @@ def run_align(config_path: str | Path, out_annual: str | Path, out_notes: str | 
 def load_table(study: Study, annual_csv: str | Path) -> pd.DataFrame:
     """The wide, transformed annual table of a study from the `align` output."""
     annual = pd.read_csv(annual_csv)
-    transforms = {s["id"]: s.get("transform", "none") for s in study.responses + study.drivers}
+    transforms = study.transforms()
     return annual_table(annual, transforms)
 
 
@@ -206,7 +206,7 @@ def run_screen(config_path, annual_csv, response_id: str, out_dir, threads: int 
     by_slug = {slug(r): r for r in study.response_ids}
     response_id = by_slug.get(response_id, response_id)
     annual = pd.read_csv(annual_csv) if annual_csv is not None else response_annual(study, response_id, files)
-    transforms = {s["id"]: s.get("transform", "none") for s in study.responses + study.drivers}
+    transforms = study.transforms()
     table = annual_table(annual, transforms)
     se = se_table(annual, transforms) if study.screen.get("weights") == "inverse-variance" else None
     workers = max(1, int(threads))
