@@ -212,42 +212,42 @@ MALFORMED = [
      "the file is empty", "put a header line and data rows"),
     ("blank_lines_only", {"e.csv": "\n  \n\r\n"}, _table("e.csv"), "e.csv", None, None,
      "the file is empty", "put a header line"),
-    ("header_only", {"h.csv": "year,cod_m\n"}, _table("h.csv"), "h.csv", 1, None,
+    ("header_only", {"h.csv": "year,velk_m\n"}, _table("h.csv"), "h.csv", 1, None,
      "header but no data rows", "add rows below the header"),
-    ("no_year_column", {"y.csv": "yr,cod_m\n2000,1\n"}, _table("y.csv"), "y.csv", 1, None,
-     "no year column (columns found: yr, cod_m)", "add a 'year' column"),
+    ("no_year_column", {"y.csv": "yr,velk_m\n2000,1\n"}, _table("y.csv"), "y.csv", 1, None,
+     "no year column (columns found: yr, velk_m)", "add a 'year' column"),
     ("no_header", {"y.csv": "2000,0.5\n2001,0.6\n"}, _table("y.csv"), "y.csv", 1, None,
      "no year column", "the first line must be a header"),
     ("no_value_column", {"v.csv": "series,year,val\ncod,2000,1\n"}, _table("v.csv"), "v.csv", 1,
      None, "no value column", "add a 'value' column"),
     ("non_numeric_value", {"l.csv": "series,year,value\ncod,2000,1\ncod,2001,abc\n"},
-     _table("l.csv"), "l.csv", 3, "cod", "value 'abc' is not a number", "write a plain number"),
-    ("non_integer_year", {"w.csv": "year,cod_m\n2000,1\n2000.5,2\n"}, _table("w.csv"), "w.csv",
+     _table("l.csv"), "l.csv", 3, "velk", "value 'abc' is not a number", "write a plain number"),
+    ("non_integer_year", {"w.csv": "year,velk_m\n2000,1\n2000.5,2\n"}, _table("w.csv"), "w.csv",
      3, None, "year '2000.5' is not a whole number", "whole number such as 1998"),
-    ("year_too_early", {"w.csv": "year,cod_m\n1750,1\n"}, _table("w.csv"), "w.csv", 2, None,
+    ("year_too_early", {"w.csv": "year,velk_m\n1750,1\n"}, _table("w.csv"), "w.csv", 2, None,
      "year 1750 is outside 1800-2200", "four-digit year"),
     ("year_too_late", {"w.csv": "series,year,value\ncod,2000,1\ncod,20001,1\n"},
-     _table("w.csv"), "w.csv", 3, "cod", "year 20001 is outside 1800-2200", "four-digit year"),
-    ("empty_year", {"w.csv": "year,cod_m\n2000,1\n,2\n"}, _table("w.csv"), "w.csv", 3, None,
+     _table("w.csv"), "w.csv", 3, "velk", "year 20001 is outside 1800-2200", "four-digit year"),
+    ("empty_year", {"w.csv": "year,velk_m\n2000,1\n,2\n"}, _table("w.csv"), "w.csv", 3, None,
      "year is empty", "give every row a year"),
     ("month_column_13", {"m.csv": "series,year,month,value\ncod,2000,13,1\n"}, _table("m.csv"),
-     "m.csv", 2, "cod", "month 13 is outside 1-12", "number 1-12"),
+     "m.csv", 2, "velk", "month 13 is outside 1-12", "number 1-12"),
     ("month_13_in_date", {"m.csv": "date,sst\n2000-01,1\n2000-13,2\n"}, _table("m.csv"),
      "m.csv", 3, None, "month 13 in date '2000-13' is outside 1-12", "YYYY-MM"),
     ("bad_yyyy_mm", {"m.csv": "date,sst\n2000-01,1\n2000/02,2\n"}, _table("m.csv"), "m.csv", 3,
      None, "date '2000/02' is not a year or a YYYY-MM date", "YYYY-MM (for example 2003-07)"),
     ("duplicate_year", {"d.csv": "series,year,value\ncod,2000,1\ncod,2001,2\ncod,2000,3\n"},
-     _table("d.csv"), "d.csv", 4, "cod", "2000 appears twice (first on row 2)",
+     _table("d.csv"), "d.csv", 4, "velk", "2000 appears twice (first on row 2)",
      "keep one row per series and year"),
     ("duplicate_month", {"d.csv": "series,year,month,value\nsst,2000,1,1\nsst,2000,2,2\n"
                                   "sst,2000,1,3\n"},
      _table("d.csv"), "d.csv", 4, "sst", "2000-01 appears twice (first on row 2)",
      "keep one row per series and month"),
-    ("same_series_two_files", {"a.csv": "year,cod_m\n2000,1\n",
-                               "b.csv": "series,year,value\nhad,2000,1\ncod_m,2001,2\n"},
-     _inputs(["a.csv", "b.csv"]), "b.csv", 3, "cod_m", "also in a.csv (first on row 2)",
+    ("same_series_two_files", {"a.csv": "year,velk_m\n2000,1\n",
+                               "b.csv": "series,year,value\norr,2000,1\nvelk_m,2001,2\n"},
+     _inputs(["a.csv", "b.csv"]), "b.csv", 3, "velk_m", "also in a.csv (first on row 2)",
      "keep each series in one input file"),
-    ("file_listed_twice", {"a.csv": "year,cod_m\n2000,1\n"},
+    ("file_listed_twice", {"a.csv": "year,velk_m\n2000,1\n"},
      _inputs(["a.csv", {"path": "./a.csv"}]), "./a.csv", None, None,
      "listed twice under inputs (also as 'a.csv')", "list each file once"),
     ("empty_series_name", {"s.csv": "series,year,value\ncod,2000,1\n,2001,1\n"},
@@ -257,73 +257,73 @@ MALFORMED = [
     ("shell_in_group", {"s.csv": "series,group,year,value\ncod,$(rm -rf ~),2000,1\n"},
      _table("s.csv"), "s.csv", 2, None, "group name '$(rm -rf ~)' has characters",
      "only letters, digits"),
-    ("bad_wide_column", {"s.csv": "year,cod m\n2000,1\n"}, _table("s.csv"), "s.csv", 1, None,
-     "column name 'cod m' has characters", "only letters, digits"),
+    ("bad_wide_column", {"s.csv": "year,velk m\n2000,1\n"}, _table("s.csv"), "s.csv", 1, None,
+     "column name 'velk m' has characters", "only letters, digits"),
     ("long_series_id", {"s.csv": "series,year,value\n" + "a" * 81 + ",2000,1\n"},
      _table("s.csv"), "s.csv", 2, None, "longer than 80 characters", "shorter name"),
-    ("infinite_value", {"i.csv": "year,cod_m\n2000,1\n2001,-inf\n"}, _table("i.csv"), "i.csv",
-     3, "cod_m", "value '-inf' is infinite", "replace it with a finite number"),
-    ("overflowing_value", {"i.csv": "year,cod_m\n2000,1e400\n"}, _table("i.csv"), "i.csv", 2,
-     "cod_m", "too large to be a finite number", "finite numbers"),
+    ("infinite_value", {"i.csv": "year,velk_m\n2000,1\n2001,-inf\n"}, _table("i.csv"), "i.csv",
+     3, "velk_m", "value '-inf' is infinite", "replace it with a finite number"),
+    ("overflowing_value", {"i.csv": "year,velk_m\n2000,1e400\n"}, _table("i.csv"), "i.csv", 2,
+     "velk_m", "too large to be a finite number", "finite numbers"),
     ("negative_se", {"e.csv": "series,year,value,se\ncod,2000,1,0.1\ncod,2001,1,-0.2\n"},
-     _table("e.csv"), "e.csv", 3, "cod", "se -0.2 is negative", "must be 0 or more"),
+     _table("e.csv"), "e.csv", 3, "velk", "se -0.2 is negative", "must be 0 or more"),
     ("negative_cv", {"e.csv": "series,year,value,cv\ncod,2000,1,-0.3\n"}, _table("e.csv"),
-     "e.csv", 2, "cod", "cv -0.3 is negative", "must be 0 or more"),
+     "e.csv", 2, "velk", "cv -0.3 is negative", "must be 0 or more"),
     ("se_and_cv", {"e.csv": "series,year,value,se,cv\ncod,2000,1,0.1,0.1\n"}, _table("e.csv"),
      "e.csv", 1, None, "both an se and a cv column", "keep one of them"),
-    ("duplicate_wide_columns", {"w.csv": "Year,cod_m,temp,COD_M \n2000,1,2,3\n"},
-     _table("w.csv"), "w.csv", 1, None, "column 'COD_M' appears twice (columns 2 and 4)",
+    ("duplicate_wide_columns", {"w.csv": "Year,velk_m,temp,VELK_M \n2000,1,2,3\n"},
+     _table("w.csv"), "w.csv", 1, None, "column 'VELK_M' appears twice (columns 2 and 4)",
      "rename or remove one"),
-    ("unnamed_column_with_values", {"w.csv": "year,,cod_m\n2000,,1\n2001,5,2\n"},
+    ("unnamed_column_with_values", {"w.csv": "year,,velk_m\n2000,,1\n2001,5,2\n"},
      _table("w.csv"), "w.csv", 1, None, "column 2 has no name but holds values (first on row 3)",
      "give the column a name"),
-    ("se_in_wide", {"w.csv": "year,cod_m,se\n2000,1,0.1\n"}, _table("w.csv"), "w.csv", 1, None,
+    ("se_in_wide", {"w.csv": "year,velk_m,se\n2000,1,0.1\n"}, _table("w.csv"), "w.csv", 1, None,
      "column 'se' belongs to the long layout", "add 'series' and 'value' columns"),
-    ("wide_text", {"w.csv": "year,cod_m,temp\n2000,1,2\n2001,low,3\n"}, _table("w.csv"),
-     "w.csv", 3, "cod_m", "value 'low' is not a number", "write a plain number"),
+    ("wide_text", {"w.csv": "year,velk_m,temp\n2000,1,2\n2001,low,3\n"}, _table("w.csv"),
+     "w.csv", 3, "velk_m", "value 'low' is not a number", "write a plain number"),
     ("xlsx_sheet_missing", {"b.xlsx": xlsx([["year", "a"], [2000, 1]])},
      _table({"path": "b.xlsx", "sheet": "Data2"}), "b.xlsx", None, None,
      "sheet 'Data2' does not exist (sheets: Data)", "set sheet to one of the sheet names"),
     ("xlsx_sheet_position", {"b.xlsx": xlsx([["year", "a"], [2000, 1]])},
      _table({"path": "b.xlsx", "sheet": 3}), "b.xlsx", None, None,
      "sheet 3 does not exist (the workbook has 1 sheet(s): Data)", "counting from 0"),
-    ("xlsx_text_cell", {"b.xlsx": xlsx([["year", "cod_m"], [2000, 1], [2001, "#DIV/0!"]],
+    ("xlsx_text_cell", {"b.xlsx": xlsx([["year", "velk_m"], [2000, 1], [2001, "#DIV/0!"]],
                                        start_row=3)},
-     _table("b.xlsx"), "b.xlsx", 5, "cod_m", "value '#DIV/0!' is not a number",
+     _table("b.xlsx"), "b.xlsx", 5, "velk_m", "value '#DIV/0!' is not a number",
      "write a plain number"),
-    ("decimal_comma_semicolon", {"c.csv": "year;cod_m\n2000;0,25\n"}, _table("c.csv"), "c.csv",
-     2, "cod_m", "value '0,25' has a decimal comma", "set decimal: ',' for this input"),
-    ("decimal_comma_comma", {"c.csv": "year,cod_m\n2000,0,25\n"}, _table("c.csv"), "c.csv", 2,
+    ("decimal_comma_semicolon", {"c.csv": "year;velk_m\n2000;0,25\n"}, _table("c.csv"), "c.csv",
+     2, "velk_m", "value '0,25' has a decimal comma", "set decimal: ',' for this input"),
+    ("decimal_comma_comma", {"c.csv": "year,velk_m\n2000,0,25\n"}, _table("c.csv"), "c.csv", 2,
      None, "the row has 3 cells but the header has 2", "set decimal: ',' for this input"),
-    ("decimal_point_with_comma_option", {"c.csv": "year;cod_m\n2000;0,25\n2001;0.5\n"},
-     _table({"path": "c.csv", "decimal": ","}), "c.csv", 3, "cod_m",
+    ("decimal_point_with_comma_option", {"c.csv": "year;velk_m\n2000;0,25\n2001;0.5\n"},
+     _table({"path": "c.csv", "decimal": ","}), "c.csv", 3, "velk_m",
      "value '0.5' uses a decimal point", "remove decimal: ','"),
     ("mixed_monthly_annual", {"m.csv": "series,year,month,value\ncod,2000,1,1\ncod,2000,2,1\n"
-                                       "cod,2001,,2\n"},
-     _table("m.csv"), "m.csv", 4, "cod",
+                                       "velk,2001,,2\n"},
+     _table("m.csv"), "m.csv", 4, "velk",
      "monthly rows (first on row 2) and annual rows (first on row 4)",
      "give every row of the series a month"),
     ("several_units", {"u.csv": "series,year,value,unit\ncod,2000,1,kg\ncod,2001,2,kg\n"
-                                "cod,2002,3,t\n"},
-     _table("u.csv"), "u.csv", 4, "cod", "unit 't' differs from unit 'kg' on row 2",
+                                "velk,2002,3,t\n"},
+     _table("u.csv"), "u.csv", 4, "velk", "unit 't' differs from unit 'kg' on row 2",
      "use one unit for the whole series"),
-    ("nul_byte", {"n.csv": b"year,cod_m\n2000,1\x00\n"}, _table("n.csv"), "n.csv", 2, None,
+    ("nul_byte", {"n.csv": b"year,velk_m\n2000,1\x00\n"}, _table("n.csv"), "n.csv", 2, None,
      "binary data (a NUL byte on line 2)", "plain-text table"),
     ("latin1", {"n.csv": "year,temp\n2000,1\n# température\n".encode("latin-1")},
      _table("n.csv"), "n.csv", 3, None, "not UTF-8 text (byte 0xe9 on line 3)",
      "save it as UTF-8"),
     ("utf16", {"n.csv": "year,temp\n2000,1\n".encode("utf-16")}, _table("n.csv"), "n.csv",
      None, None, "UTF-16 text, not UTF-8", "save it as UTF-8"),
-    ("no_values", {"n.csv": "year,cod_m\n2000,\n2001,NA\n"}, _table("n.csv"), "n.csv", None,
+    ("no_values", {"n.csv": "year,velk_m\n2000,\n2001,NA\n"}, _table("n.csv"), "n.csv", None,
      None, "the file holds no values", "fill in the value cells"),
-    ("unknown_option", {"a.csv": "year,cod_m\n2000,1\n"},
+    ("unknown_option", {"a.csv": "year,velk_m\n2000,1\n"},
      _table({"path": "a.csv", "sheets": 1}), "a.csv", None, None,
      "unknown input option(s) sheets", "use only path, sheet, decimal and delimiter"),
     ("monthly_without_aggregate", {"m.csv": MONTHLY}, _annual("m.csv", {"sst": {}}), "m.csv",
      None, "sst", "values are monthly",
      "add aggregate: {months: [...]} to its entry in the config"),
-    ("aggregate_on_annual", {"a.csv": "year,cod_m\n2000,1\n2001,2\n"},
-     _annual("a.csv", {"cod_m": {"aggregate": {"months": [1, 2]}}}), "a.csv", None, "cod_m",
+    ("aggregate_on_annual", {"a.csv": "year,velk_m\n2000,1\n2001,2\n"},
+     _annual("a.csv", {"velk_m": {"aggregate": {"months": [1, 2]}}}), "a.csv", None, "velk_m",
      "values are annual", "remove aggregate from its entry in the config"),
     ("aggregate_months_absent", {"m.csv": MONTHLY},
      _annual("m.csv", {"sst": {"aggregate": {"months": [6, 7]}}}), "m.csv", None, "sst",
@@ -368,14 +368,14 @@ def test_all_problems_of_a_file_are_reported(tmp_path):
         read_table("x.csv", tmp_path)
     lines = assert_one_line_each(info.value)
     assert [p.row for p in info.value.problems] == [2, 3, 4, 5, 7]
-    assert lines[0].startswith("x.csv:2: series 'cod': value 'abc'")
-    assert lines[4] == ("x.csv:7: series 'cod': 2003 appears twice (first on row 6); keep one "
+    assert lines[0].startswith("x.csv:2: series 'velk': value 'abc'")
+    assert lines[4] == ("x.csv:7: series 'velk': 2003 appears twice (first on row 6); keep one "
                         "row per series and year")
 
 
 def test_problems_are_capped_per_file(tmp_path):
     body = "".join(f"{1900 + i},bad\n" for i in range(100))
-    write(tmp_path, "x.csv", "year,cod_m\n" + body)
+    write(tmp_path, "x.csv", "year,velk_m\n" + body)
     with pytest.raises(InputErrors) as info:
         read_table("x.csv", tmp_path)
     lines = assert_one_line_each(info.value)
@@ -392,11 +392,11 @@ def test_newline_in_a_cell_stays_on_one_line(tmp_path):
     assert lines == ["x.csv:2: series name 'co\\nd' has characters other than letters, digits, "
                      "'_', '.' and '-', or does not start with a letter or digit; use only "
                      "letters, digits, '_', '.' and '-', starting with a letter or digit (for "
-                     "example 'cod_m')"]
+                     "example 'velk_m')"]
 
 
 def test_read_inputs_collects_problems_of_all_files(tmp_path):
-    write(tmp_path, "a.csv", "year,cod_m\n2000,x\n")
+    write(tmp_path, "a.csv", "year,velk_m\n2000,x\n")
     write(tmp_path, "b.csv", "yr,had\n2000,1\n")
     write(tmp_path, "c.csv", "year,ok\n2000,1\n")
     with pytest.raises(InputErrors) as info:
@@ -409,14 +409,14 @@ def test_read_inputs_collects_problems_of_all_files(tmp_path):
 def test_long_csv(tmp_path):
     write(tmp_path, "long.csv",
           "Series , YEAR,Value,SE,Unit,notes\n"
-          "m_cod,1990,0.21,0.02,per year,\n"
+          "m_velk,1990,0.21,0.02,per year,\n"
           "\n"
-          "m_cod,1991,0.25,,per year,x\n"
+          "m_velk,1991,0.25,,per year,x\n"
           "cond,1990,1.05,0.01,,\n"
           "cond,1991,,0.01,,no data\n")
     df, warns = read_table("long.csv", tmp_path)
     assert_valid_frame(df)
-    assert df["series"].tolist() == ["m_cod", "m_cod", "cond"]
+    assert df["series"].tolist() == ["m_velk", "m_velk", "cond"]
     assert df["year"].tolist() == [1990, 1991, 1990]
     assert df["month"].isna().all()
     assert df["value"].tolist() == [0.21, 0.25, 1.05]
@@ -430,13 +430,13 @@ def test_long_csv(tmp_path):
 
 
 def test_wide_csv(tmp_path):
-    write(tmp_path, "wide.csv", "year,m_cod,Temp_Bottom\n1990,0.2,4.5\n1991,,4.7\n1992,0.3,\n")
+    write(tmp_path, "wide.csv", "year,m_velk,Temp_Bottom\n1990,0.2,4.5\n1991,,4.7\n1992,0.3,\n")
     df, warns = read_table("wide.csv", tmp_path)
     assert_valid_frame(df)
     got = {(s, y): (v, r) for s, y, v, r in df[["series", "year", "value", "row"]].itertuples(
         index=False)}
-    assert got == {("m_cod", 1990): (0.2, 2), ("Temp_Bottom", 1990): (4.5, 2),
-                   ("Temp_Bottom", 1991): (4.7, 3), ("m_cod", 1992): (0.3, 4)}
+    assert got == {("m_velk", 1990): (0.2, 2), ("Temp_Bottom", 1990): (4.5, 2),
+                   ("Temp_Bottom", 1991): (4.7, 3), ("m_velk", 1992): (0.3, 4)}
     assert warns == []
 
 
@@ -450,32 +450,32 @@ def test_wide_with_month_and_empty_column(tmp_path):
 
 
 def test_tsv_and_txt_sniffing(tmp_path):
-    write(tmp_path, "t.tsv", "year\tm_cod\n2000\t0.5\n2001\t0.75\n")
+    write(tmp_path, "t.tsv", "year\tm_velk\n2000\t0.5\n2001\t0.75\n")
     df, _ = read_table("t.tsv", tmp_path)
     assert df["value"].tolist() == [0.5, 0.75]
-    write(tmp_path, "t.txt", "year|m_cod\n2000|0.5\n")
+    write(tmp_path, "t.txt", "year|m_velk\n2000|0.5\n")
     df, _ = read_table("t.txt", tmp_path)
     assert df["value"].tolist() == [0.5]
-    write(tmp_path, "s.csv", "year;m_cod\n2000;1.5\n")
+    write(tmp_path, "s.csv", "year;m_velk\n2000;1.5\n")
     df, _ = read_table("s.csv", tmp_path)
     assert df["value"].tolist() == [1.5]
-    write(tmp_path, "g.csv", "year:m_cod\n2000:1.5\n")
+    write(tmp_path, "g.csv", "year:m_velk\n2000:1.5\n")
     df, _ = read_table({"path": "g.csv", "delimiter": ":"}, tmp_path)
     assert df["value"].tolist() == [1.5]
 
 
 def test_bom_and_crlf(tmp_path):
-    write(tmp_path, "b.csv", b"\xef\xbb\xbfyear,m_cod\r\n2000,0.5\r\n2001,0.6\r\n")
+    write(tmp_path, "b.csv", b"\xef\xbb\xbfyear,m_velk\r\n2000,0.5\r\n2001,0.6\r\n")
     df, _ = read_table("b.csv", tmp_path)
     assert df["year"].tolist() == [2000, 2001]
     assert df["row"].tolist() == [2, 3]
 
 
 def test_decimal_comma(tmp_path):
-    write(tmp_path, "c.csv", "year;m_cod;temp\n2000;0,25;-1,5\n2001;1;2,0e1\n")
+    write(tmp_path, "c.csv", "year;m_velk;temp\n2000;0,25;-1,5\n2001;1;2,0e1\n")
     df, _ = read_table({"path": "c.csv", "decimal": ","}, tmp_path)
     got = dict(zip(zip(df["series"], df["year"]), df["value"]))
-    assert got == {("m_cod", 2000): 0.25, ("temp", 2000): -1.5, ("m_cod", 2001): 1.0,
+    assert got == {("m_velk", 2000): 0.25, ("temp", 2000): -1.5, ("m_velk", 2001): 1.0,
                    ("temp", 2001): 20.0}
     write(tmp_path, "t.tsv", "series\tyear\tvalue\tcv\ncod\t2000\t2,5\t0,1\n")
     df, _ = read_table({"path": "t.tsv", "decimal": ","}, tmp_path)
@@ -483,14 +483,14 @@ def test_decimal_comma(tmp_path):
 
 
 def test_xlsx(tmp_path):
-    rows = [["Year", "m_cod", "temp"], [1990, 0.2, 4.5], [1991.0, None, "4.75"], [1992, 0.3, 5]]
+    rows = [["Year", "m_velk", "temp"], [1990, 0.2, 4.5], [1991.0, None, "4.75"], [1992, 0.3, 5]]
     write(tmp_path, "w.xlsx", xlsx(rows, start_row=3, extra_sheets=["Other"]))
     df, warns = read_table("w.xlsx", tmp_path)
     assert_valid_frame(df)
     got = {(s, y): (v, r) for s, y, v, r in df[["series", "year", "value", "row"]].itertuples(
         index=False)}
-    assert got == {("m_cod", 1990): (0.2, 4), ("temp", 1990): (4.5, 4), ("temp", 1991): (4.75, 5),
-                   ("m_cod", 1992): (0.3, 6), ("temp", 1992): (5.0, 6)}
+    assert got == {("m_velk", 1990): (0.2, 4), ("temp", 1990): (4.5, 4), ("temp", 1991): (4.75, 5),
+                   ("m_velk", 1992): (0.3, 6), ("temp", 1992): (5.0, 6)}
     assert any("reading the first sheet 'Data' of 2" in w.line() for w in warns)
     by_name, warns = read_table({"path": "w.xlsx", "sheet": "Data"}, tmp_path)
     by_position, _ = read_table({"path": "w.xlsx", "sheet": 0}, tmp_path)
@@ -510,16 +510,16 @@ def test_xlsx_long_with_dates(tmp_path):
 
 
 def test_parquet(tmp_path):
-    source = pd.DataFrame({"series": ["cod", "cod", "had"], "year": [2000, 2001, 2000],
+    source = pd.DataFrame({"series": ["velk", "velk", "had"], "year": [2000, 2001, 2000],
                            "value": [0.5, np.nan, 0.7], "se": [0.1, 0.2, np.nan]})
     source.to_parquet(tmp_path / "l.parquet")
     df, warns = read_table("l.parquet", tmp_path)
     assert_valid_frame(df)
-    assert df["series"].tolist() == ["cod", "had"]
+    assert df["series"].tolist() == ["velk", "had"]
     assert df["value"].tolist() == [0.5, 0.7]
     assert df["row"].tolist() == [2, 4]
     assert df["se"].iloc[0] == 0.1 and math.isnan(df["se"].iloc[1])
-    wide = pd.DataFrame({"m_cod": [0.1, 0.2]}, index=pd.Index([1999, 2000], name="year"))
+    wide = pd.DataFrame({"m_velk": [0.1, 0.2]}, index=pd.Index([1999, 2000], name="year"))
     wide.to_parquet(tmp_path / "w.parquet")
     df, _ = read_table("w.parquet", tmp_path)
     assert df["year"].tolist() == [1999, 2000] and df["value"].tolist() == [0.1, 0.2]
@@ -560,25 +560,25 @@ def test_quoted_multiline_cell_keeps_line_numbers(tmp_path):
 
 
 def test_read_inputs_concatenates(tmp_path):
-    write(tmp_path, "a.csv", "year,m_cod\n2000,0.1\n")
+    write(tmp_path, "a.csv", "year,m_velk\n2000,0.1\n")
     (tmp_path / "sub").mkdir()
     write(tmp_path / "sub", "b.csv", "series,year,value\ntemp,2000,4\n")
     df, warns = read_inputs(["a.csv", {"path": "sub/b.csv"}], tmp_path)
     assert_valid_frame(df)
-    assert df["series"].tolist() == ["m_cod", "temp"]
+    assert df["series"].tolist() == ["m_velk", "temp"]
     assert df["file"].tolist() == ["a.csv", "sub/b.csv"]
     assert warns == []
 
 
 def test_sheet_on_a_csv_is_a_warning(tmp_path):
-    write(tmp_path, "a.csv", "year,m_cod\n2000,0.1\n")
+    write(tmp_path, "a.csv", "year,m_velk\n2000,0.1\n")
     _, warns = read_table({"path": "a.csv", "sheet": "x"}, tmp_path)
     assert [w.line() for w in warns] == ["warning: a.csv: sheet is only used for .xlsx files "
                                          "and is ignored"]
 
 
 def test_absolute_path(tmp_path):
-    path = write(tmp_path, "a.csv", "year,m_cod\n2000,0.1\n")
+    path = write(tmp_path, "a.csv", "year,m_velk\n2000,0.1\n")
     df, _ = read_table(str(path), tmp_path / "elsewhere")
     assert df["file"].tolist() == [str(path)]
 
@@ -710,12 +710,12 @@ def test_linear_fill_with_max_gap(tmp_path):
 
 
 def test_to_annual_keeps_only_configured_series_and_columns(tmp_path):
-    write(tmp_path, "a.csv", "series,year,value,se,unit\ncod,2000,1,0.1,kg\nhad,2000,2,,kg\n")
+    write(tmp_path, "a.csv", "series,year,value,se,unit\ncod,2000,1,0.1,kg\norr,2000,2,,kg\n")
     long, _ = read_table("a.csv", tmp_path)
-    annual, notes = to_annual(long, {"cod": {}, "not_in_data": {}})
+    annual, notes = to_annual(long, {"velk": {}, "not_in_data": {}})
     assert list(annual.columns) == ["series", "year", "value", "se", "filled", "unit", "file",
                                     "row"]
-    assert annual["series"].tolist() == ["cod"]
+    assert annual["series"].tolist() == ["velk"]
     assert annual["se"].tolist() == [0.1] and annual["unit"].tolist() == ["kg"]
     assert annual["row"].tolist() == [2] and annual["filled"].dtype == bool
     assert notes == []
@@ -801,7 +801,7 @@ def test_series_warnings_ignore_filled_years():
 
 # ----------------------------------------------------------------------------- fuzzing
 
-NAMES = ["series", "year", "month", "value", "se", "cv", "unit", "group", "date", "cod_m",
+NAMES = ["series", "year", "month", "value", "se", "cv", "unit", "group", "date", "velk_m",
          "Temp", "x y", "", "YEAR", "value"]
 CELL = st.one_of(
     st.just(""),
@@ -809,7 +809,7 @@ CELL = st.one_of(
     st.integers(-3, 14).map(str),
     st.floats(allow_nan=True, allow_infinity=True).map(repr),
     st.floats(-1e3, 1e3).map(lambda x: f"{x:.3f}".replace(".", ",")),
-    st.sampled_from(["NA", "nan", "inf", "cod", "../x", "2000-01", "2000-13", "Jan", "kg",
+    st.sampled_from(["NA", "nan", "inf", "velk", "../x", "2000-01", "2000-13", "Jan", "kg",
                      '"', '""', "a;b", "1,5", " 7 ", "#N/A", "$(x)", "1e400", "-0"]),
     st.text(max_size=6),
 )
@@ -840,7 +840,7 @@ def csv_text(draw):
         rows = draw(st.lists(st.lists(CELL, min_size=0, max_size=len(header) + 1),
                              max_size=8))
     elif layout == "wide":
-        header = ["year"] + draw(st.lists(st.sampled_from(["cod_m", "Temp", "x.1", "sst-2"]),
+        header = ["year"] + draw(st.lists(st.sampled_from(["velk_m", "Temp", "x.1", "sst-2"]),
                                           min_size=1, max_size=3, unique=True))
         years = draw(st.lists(st.integers(1990, 2030), min_size=1, max_size=8, unique=True))
         rows = [[cell(str(y))] + [cell(number_text(draw(finite), decimal))
@@ -851,7 +851,7 @@ def csv_text(draw):
         header = ["series", "year", "value"] + extras
         rows = []
         for _ in range(draw(st.integers(1, 8))):
-            good = {"series": draw(st.sampled_from(["cod", "had", "x.1"])),
+            good = {"series": draw(st.sampled_from(["velk", "had", "x.1"])),
                     "year": str(draw(st.integers(1990, 2000))),
                     "value": number_text(draw(finite), decimal),
                     "month": str(draw(st.integers(1, 12))),

@@ -109,7 +109,7 @@ _FIX_NUMBER = "write a plain number such as 0.25, or leave the cell empty for a 
 _FIX_DECIMAL = "set decimal: ',' for this input"
 _FIX_NAME = (
     "use only letters, digits, '_', '.' and '-', starting with a letter or digit "
-    "(for example 'cod_m')"
+    "(for example 'velk_m')"
 )
 
 
@@ -678,7 +678,7 @@ def _parse_grid(grid: _Grid, spec: _Spec, col: _Collector,
         looks_like_data = all(_NUM_DOT.match(n) or _NUM_COMMA.match(n) or _YEAR_MONTH.match(n)
                               for n in names if n)
         found = ", ".join(_show(raw_names[j]) for j in keep)
-        fix = ("the first line must be a header naming the columns, e.g. year,cod_m"
+        fix = ("the first line must be a header naming the columns, e.g. year,velk_m"
                if looks_like_data else
                "add a 'year' column (or 'date' written YYYY-MM), or rename the time column")
         col.fatal(f"no year column (columns found: {found})", fix, row=hrow)
