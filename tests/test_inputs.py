@@ -218,25 +218,25 @@ MALFORMED = [
      "no year column (columns found: yr, velk_m)", "add a 'year' column"),
     ("no_header", {"y.csv": "2000,0.5\n2001,0.6\n"}, _table("y.csv"), "y.csv", 1, None,
      "no year column", "the first line must be a header"),
-    ("no_value_column", {"v.csv": "series,year,val\ncod,2000,1\n"}, _table("v.csv"), "v.csv", 1,
+    ("no_value_column", {"v.csv": "series,year,val\nvelk,2000,1\n"}, _table("v.csv"), "v.csv", 1,
      None, "no value column", "add a 'value' column"),
-    ("non_numeric_value", {"l.csv": "series,year,value\ncod,2000,1\ncod,2001,abc\n"},
+    ("non_numeric_value", {"l.csv": "series,year,value\nvelk,2000,1\nvelk,2001,abc\n"},
      _table("l.csv"), "l.csv", 3, "velk", "value 'abc' is not a number", "write a plain number"),
     ("non_integer_year", {"w.csv": "year,velk_m\n2000,1\n2000.5,2\n"}, _table("w.csv"), "w.csv",
      3, None, "year '2000.5' is not a whole number", "whole number such as 1998"),
     ("year_too_early", {"w.csv": "year,velk_m\n1750,1\n"}, _table("w.csv"), "w.csv", 2, None,
      "year 1750 is outside 1800-2200", "four-digit year"),
-    ("year_too_late", {"w.csv": "series,year,value\ncod,2000,1\ncod,20001,1\n"},
+    ("year_too_late", {"w.csv": "series,year,value\nvelk,2000,1\nvelk,20001,1\n"},
      _table("w.csv"), "w.csv", 3, "velk", "year 20001 is outside 1800-2200", "four-digit year"),
     ("empty_year", {"w.csv": "year,velk_m\n2000,1\n,2\n"}, _table("w.csv"), "w.csv", 3, None,
      "year is empty", "give every row a year"),
-    ("month_column_13", {"m.csv": "series,year,month,value\ncod,2000,13,1\n"}, _table("m.csv"),
+    ("month_column_13", {"m.csv": "series,year,month,value\nvelk,2000,13,1\n"}, _table("m.csv"),
      "m.csv", 2, "velk", "month 13 is outside 1-12", "number 1-12"),
     ("month_13_in_date", {"m.csv": "date,sst\n2000-01,1\n2000-13,2\n"}, _table("m.csv"),
      "m.csv", 3, None, "month 13 in date '2000-13' is outside 1-12", "YYYY-MM"),
     ("bad_yyyy_mm", {"m.csv": "date,sst\n2000-01,1\n2000/02,2\n"}, _table("m.csv"), "m.csv", 3,
      None, "date '2000/02' is not a year or a YYYY-MM date", "YYYY-MM (for example 2003-07)"),
-    ("duplicate_year", {"d.csv": "series,year,value\ncod,2000,1\ncod,2001,2\ncod,2000,3\n"},
+    ("duplicate_year", {"d.csv": "series,year,value\nvelk,2000,1\nvelk,2001,2\nvelk,2000,3\n"},
      _table("d.csv"), "d.csv", 4, "velk", "2000 appears twice (first on row 2)",
      "keep one row per series and year"),
     ("duplicate_month", {"d.csv": "series,year,month,value\nsst,2000,1,1\nsst,2000,2,2\n"
@@ -250,11 +250,11 @@ MALFORMED = [
     ("file_listed_twice", {"a.csv": "year,velk_m\n2000,1\n"},
      _inputs(["a.csv", {"path": "./a.csv"}]), "./a.csv", None, None,
      "listed twice under inputs (also as 'a.csv')", "list each file once"),
-    ("empty_series_name", {"s.csv": "series,year,value\ncod,2000,1\n,2001,1\n"},
+    ("empty_series_name", {"s.csv": "series,year,value\nvelk,2000,1\n,2001,1\n"},
      _table("s.csv"), "s.csv", 3, None, "series name is empty", "give every row a series name"),
     ("path_in_series_name", {"s.csv": "series,year,value\n../../x,2000,1\n"}, _table("s.csv"),
      "s.csv", 2, None, "series name '../../x' has characters", "only letters, digits"),
-    ("shell_in_group", {"s.csv": "series,group,year,value\ncod,$(rm -rf ~),2000,1\n"},
+    ("shell_in_group", {"s.csv": "series,group,year,value\nvelk,$(rm -rf ~),2000,1\n"},
      _table("s.csv"), "s.csv", 2, None, "group name '$(rm -rf ~)' has characters",
      "only letters, digits"),
     ("bad_wide_column", {"s.csv": "year,velk m\n2000,1\n"}, _table("s.csv"), "s.csv", 1, None,
@@ -265,11 +265,11 @@ MALFORMED = [
      3, "velk_m", "value '-inf' is infinite", "replace it with a finite number"),
     ("overflowing_value", {"i.csv": "year,velk_m\n2000,1e400\n"}, _table("i.csv"), "i.csv", 2,
      "velk_m", "too large to be a finite number", "finite numbers"),
-    ("negative_se", {"e.csv": "series,year,value,se\ncod,2000,1,0.1\ncod,2001,1,-0.2\n"},
+    ("negative_se", {"e.csv": "series,year,value,se\nvelk,2000,1,0.1\nvelk,2001,1,-0.2\n"},
      _table("e.csv"), "e.csv", 3, "velk", "se -0.2 is negative", "must be 0 or more"),
-    ("negative_cv", {"e.csv": "series,year,value,cv\ncod,2000,1,-0.3\n"}, _table("e.csv"),
+    ("negative_cv", {"e.csv": "series,year,value,cv\nvelk,2000,1,-0.3\n"}, _table("e.csv"),
      "e.csv", 2, "velk", "cv -0.3 is negative", "must be 0 or more"),
-    ("se_and_cv", {"e.csv": "series,year,value,se,cv\ncod,2000,1,0.1,0.1\n"}, _table("e.csv"),
+    ("se_and_cv", {"e.csv": "series,year,value,se,cv\nvelk,2000,1,0.1,0.1\n"}, _table("e.csv"),
      "e.csv", 1, None, "both an se and a cv column", "keep one of them"),
     ("duplicate_wide_columns", {"w.csv": "Year,velk_m,temp,VELK_M \n2000,1,2,3\n"},
      _table("w.csv"), "w.csv", 1, None, "column 'VELK_M' appears twice (columns 2 and 4)",
@@ -298,12 +298,12 @@ MALFORMED = [
     ("decimal_point_with_comma_option", {"c.csv": "year;velk_m\n2000;0,25\n2001;0.5\n"},
      _table({"path": "c.csv", "decimal": ","}), "c.csv", 3, "velk_m",
      "value '0.5' uses a decimal point", "remove decimal: ','"),
-    ("mixed_monthly_annual", {"m.csv": "series,year,month,value\ncod,2000,1,1\ncod,2000,2,1\n"
+    ("mixed_monthly_annual", {"m.csv": "series,year,month,value\nvelk,2000,1,1\nvelk,2000,2,1\n"
                                        "velk,2001,,2\n"},
      _table("m.csv"), "m.csv", 4, "velk",
      "monthly rows (first on row 2) and annual rows (first on row 4)",
      "give every row of the series a month"),
-    ("several_units", {"u.csv": "series,year,value,unit\ncod,2000,1,kg\ncod,2001,2,kg\n"
+    ("several_units", {"u.csv": "series,year,value,unit\nvelk,2000,1,kg\nvelk,2001,2,kg\n"
                                 "velk,2002,3,t\n"},
      _table("u.csv"), "u.csv", 4, "velk", "unit 't' differs from unit 'kg' on row 2",
      "use one unit for the whole series"),
@@ -362,8 +362,8 @@ def test_malformed_cases_are_distinct_and_many():
 
 
 def test_all_problems_of_a_file_are_reported(tmp_path):
-    write(tmp_path, "x.csv", "series,year,value,se\ncod,2000,abc,\ncod,1700,1,\n"
-                             "../x,2001,1,\ncod,2002,1,-1\ncod,2003,1,\ncod,2003,2,\n")
+    write(tmp_path, "x.csv", "series,year,value,se\nvelk,2000,abc,\nvelk,1700,1,\n"
+                             "../x,2001,1,\nvelk,2002,1,-1\nvelk,2003,1,\nvelk,2003,2,\n")
     with pytest.raises(InputErrors) as info:
         read_table("x.csv", tmp_path)
     lines = assert_one_line_each(info.value)
@@ -477,7 +477,7 @@ def test_decimal_comma(tmp_path):
     got = dict(zip(zip(df["series"], df["year"]), df["value"]))
     assert got == {("m_velk", 2000): 0.25, ("temp", 2000): -1.5, ("m_velk", 2001): 1.0,
                    ("temp", 2001): 20.0}
-    write(tmp_path, "t.tsv", "series\tyear\tvalue\tcv\ncod\t2000\t2,5\t0,1\n")
+    write(tmp_path, "t.tsv", "series\tyear\tvalue\tcv\nvelk\t2000\t2,5\t0,1\n")
     df, _ = read_table({"path": "t.tsv", "decimal": ","}, tmp_path)
     assert df["value"].tolist() == [2.5] and df["se"].tolist() == pytest.approx([0.25])
 
@@ -546,14 +546,14 @@ def test_groups_make_ids(tmp_path):
 
 
 def test_cv_becomes_se(tmp_path):
-    write(tmp_path, "c.csv", "series,year,value,cv\ncod,2000,-2.0,0.1\ncod,2001,4,\n")
+    write(tmp_path, "c.csv", "series,year,value,cv\nvelk,2000,-2.0,0.1\nvelk,2001,4,\n")
     df, _ = read_table("c.csv", tmp_path)
     assert df["se"].iloc[0] == pytest.approx(0.2)
     assert math.isnan(df["se"].iloc[1])
 
 
 def test_quoted_multiline_cell_keeps_line_numbers(tmp_path):
-    write(tmp_path, "q.csv", 'series,year,value,note\ncod,2000,1,"two\nlines"\ncod,2001,x,\n')
+    write(tmp_path, "q.csv", 'series,year,value,note\nvelk,2000,1,"two\nlines"\nvelk,2001,x,\n')
     with pytest.raises(InputErrors) as info:
         read_table("q.csv", tmp_path)
     assert [p.row for p in info.value.problems] == [4]
@@ -584,7 +584,7 @@ def test_absolute_path(tmp_path):
 
 
 @pytest.mark.parametrize("name,maker", [
-    ("a.csv", lambda p: p.write_text("series,year,value\ncod,2000,x\n")),
+    ("a.csv", lambda p: p.write_text("series,year,value\nvelk,2000,x\n")),
     ("b.csv", lambda p: p.write_text("year,m\n2000,1\n2001,2\n")),
     ("c.xlsx", xlsx([["year", "m"], [2000, 1]])),
     ("d.parquet", lambda p: pd.DataFrame({"year": [2000], "m": [1.0]}).to_parquet(p)),
@@ -710,7 +710,7 @@ def test_linear_fill_with_max_gap(tmp_path):
 
 
 def test_to_annual_keeps_only_configured_series_and_columns(tmp_path):
-    write(tmp_path, "a.csv", "series,year,value,se,unit\ncod,2000,1,0.1,kg\norr,2000,2,,kg\n")
+    write(tmp_path, "a.csv", "series,year,value,se,unit\nvelk,2000,1,0.1,kg\norr,2000,2,,kg\n")
     long, _ = read_table("a.csv", tmp_path)
     annual, notes = to_annual(long, {"velk": {}, "not_in_data": {}})
     assert list(annual.columns) == ["series", "year", "value", "se", "filled", "unit", "file",
