@@ -161,14 +161,19 @@ def _problems(events: list[dict]) -> list[str]:
     return out
 
 
+def _open(dt, url: str) -> None:
+    """Enable the DevTools domains the checks read, load ``url`` and let its events arrive."""
+    for domain in ("Page", "Runtime", "Log", "Network"):
+        dt.call(f"{domain}.enable")
+    dt.call("Page.navigate", url=url)
+    dt.wait_for("Page.loadEventFired", timeout=60)
+    dt.drain(0.5)
+
+
 def test_page_loads_clean_and_table_sorts(report_file, devtools):
     html, evidence = report_file
     dt = devtools
-    for domain in ("Page", "Runtime", "Log", "Network"):
-        dt.call(f"{domain}.enable")
-    dt.call("Page.navigate", url=html.as_uri())
-    dt.wait_for("Page.loadEventFired", timeout=60)
-    dt.drain(0.5)
+    _open(dt, html.as_uri())
 
     images = dt.js("Array.from(document.images).map(i => [i.complete, i.naturalWidth, i.naturalHeight])")
     assert len(images) >= 5
@@ -230,9 +235,5 @@ def test_detector_sees_a_blocked_script(report_file, devtools, tmp_path):
     broken.write_text(html.read_text(encoding="utf-8").replace("'use strict';", "'use strict'; ", 1),
                       encoding="utf-8")
     dt = devtools
-    for domain in ("Page", "Runtime", "Log", "Network"):
-        dt.call(f"{domain}.enable")
-    dt.call("Page.navigate", url=broken.as_uri())
-    dt.wait_for("Page.loadEventFired", timeout=60)
-    dt.drain(0.5)
+    _open(dt, broken.as_uri())
     assert _problems(dt.events)
