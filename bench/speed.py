@@ -21,7 +21,7 @@ with the default first window (16 years, so 24 origins). The inputs are built th
             normal equations, so its forecasts agree to about 1e-6, not better; the 1e-5
             (relative) assertion is therefore made against a dense numpy loop (one ``np.linalg.solve``
             per fit, basis from ``pygam.utils.b_spline_basis``), and pygam's agreement is
-            reported separately. lagsieve's expanding_penalised adds 1e-11 tr(A)/q to its
+            reported separately. lagsieve's expanding_penalised adds 1e-11 tr(A)/q (A of the first window) to its
             normal equations; the loop is run twice, without that ridge (the exact fit; its
             gap is printed, and fails the run only with ``--strict``) and with it (asserted
             to 1e-8: the same model). pygam takes tens of milliseconds per fit, so it runs on a
@@ -245,7 +245,7 @@ def design_raw(h, hardest, s, li):
 def dense_gam_loop(h, hardest, lam, ridge: float = 0.0):
     """One dense penalised solve per (surrogate, lag, origin) at lagsieve's lambda.
 
-    ``ridge`` > 0 adds ridge * tr(W'W) / q to the diagonal, as lagsieve's
+    ``ridge`` > 0 adds ridge * tr(W'W) / q (W'W of the first window) to the diagonal, as lagsieve's
     expanding_penalised does with 1e-11 (used only to show where a difference comes from,
     on lagsieve's scaled design)."""
     S, L = h["X"].shape[:2]
@@ -264,10 +264,11 @@ def dense_gam_loop(h, hardest, lam, ridge: float = 0.0):
                 W, q0, K, _ = design_raw(h, hardest, s, li)
             P = np.zeros((W.shape[1], W.shape[1]))
             P[q0:, q0:] = lgam.difference_penalty(K, 2)
+            A0 = W[:origins[0]].T @ W[:origins[0]]  # the first window fixes the ridge's size
             for j, o in enumerate(origins):
                 A = W[:o].T @ W[:o]
                 if ridge:
-                    A = A + ridge * np.trace(A) / A.shape[0] * np.eye(A.shape[0])
+                    A = A + ridge * np.trace(A0) / A.shape[0] * np.eye(A.shape[0])
                 fc[s, li, j] = W[o] @ np.linalg.solve(A + lam[s, li, j] * P, W[:o].T @ y[:o])
     return fc
 
