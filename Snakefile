@@ -17,11 +17,9 @@ wildcard_constraints:
 
 
 include: "workflow/rules/common.smk"
-include: "workflow/rules/align.smk"
 include: "workflow/rules/screen.smk"
 include: "workflow/rules/evidence.smk"
 include: "workflow/rules/report.smk"
-include: "workflow/rules/ledger.smk"
 
 
 rule all:

@@ -5,18 +5,20 @@ What Snakemake decides, and what these tests pin down:
 * A file whose modification time is newer but whose bytes are unchanged does not trigger a
   rerun: Snakemake 9 records the checksum of every input up to ``--max-checksum-file-size``
   (1 MB by default) and skips an "updated" input with the recorded checksum.
-* The job list is fixed before any job runs. When `align` must rerun, every job downstream
-  of work/annual.csv is scheduled in the same invocation, even if align then writes the same
-  bytes; in a *later* invocation a byte-identical annual.csv reruns nothing.
+* The job list is fixed before any job runs. When `evidence` (which aligns the inputs, then
+  grades) must rerun, every job downstream of its outputs is scheduled in the same
+  invocation, even if it then writes the same bytes; in a *later* invocation byte-identical
+  outputs rerun nothing.
 * Each `screen` job (one per response) depends on the input files that hold its response or
   one of its drivers, not on the study-wide aligned table; so a year appended to a driver's
-  file reruns `align`, the screens of the responses that driver is screened against, and the
-  study-wide `evidence` and `ledger` — nothing else.
+  file reruns the screens of the responses that driver is screened against and the
+  study-wide `evidence` and `report` (which updates the ledger first) — nothing else.
 * The forecast ledger is not a declared output: ``--delete-all-output`` leaves it, and the
   rerun that follows adds nothing to it.
 
 The study is the invented demo with one extra driver in a file of its own, restricted to one
-response (``responses: [m:age2]``); the targets stop before the report to stay fast.
+response (``responses: [m:age2]``); to stay fast it uses 19 surrogates, linear models, one
+panel per response and no PDF.
 """
 from __future__ import annotations
 
@@ -51,6 +53,7 @@ class Workflow:
             "series,year,value\n" + "".join(f"local_index,{y},{rng.normal():.3f}\n" for y in range(1984, 2023)))
         cfg = yaml.safe_load(demo_config_text("data"))
         cfg["screen"].update(surrogates=19, models=["linear"])
+        cfg["report"] = {"top": 1, "pdf": False}
         cfg["drivers"] = [d for d in cfg["drivers"] if d["id"] in ("forage_biomass", "bottom_temp", "shrimp_index")]
         cfg["inputs"].append("data/local.csv")
         cfg["drivers"].append({"id": "local_index", "category": "other", "responses": ["m:age2"], "lags": [1]})
@@ -58,7 +61,7 @@ class Workflow:
         self.config.write_text(yaml.safe_dump(cfg, sort_keys=False))
         self.out = root / "results"
         self.study = self.out / STUDY
-        self.targets = [str(self.study / "evidence.csv"), str(self.study / "work" / "ledger_update.json")]
+        self.targets = [str(self.study / "report.html")]
 
     def snakemake(self, *args) -> subprocess.CompletedProcess:
         cmd = [sys.executable, "-m", "snakemake", *self.targets, "--snakefile", str(REPO / "Snakefile"),
@@ -92,7 +95,7 @@ class Workflow:
         return {r: (self.study / "work" / "responses" / r / "screen.csv").read_bytes() for r in RESPONSES}
 
 
-EVERYTHING = sorted([("align", ""), ("evidence", ""), ("ledger", "")] + [("screen", r) for r in RESPONSES])
+EVERYTHING = sorted([("evidence", ""), ("report", "")] + [("screen", r) for r in RESPONSES])
 
 
 @pytest.fixture(scope="module")
@@ -116,13 +119,13 @@ def test_newer_file_with_the_same_bytes_reruns_nothing(wf):
     assert wf.jobs() == []
 
 
-def test_identical_annual_table_from_a_forced_align_reruns_nothing_later(wf):
+def test_identical_outputs_of_a_forced_evidence_job_rerun_nothing_later(wf):
     annual = wf.study / "work" / "annual.csv"
     before, mtime = annual.read_bytes(), annual.stat().st_mtime_ns
-    # decided before align runs: everything that reads annual.csv (not the screens, which read
-    # their own input files)
-    assert wf.jobs("--forcerun", "align") == sorted([("align", ""), ("evidence", ""), ("ledger", "")])
-    assert wf.run("--forcerun", "align", "--until", "align") == [("align", "")]
+    # decided before evidence runs: everything that reads its outputs (not the screens, which
+    # read their own input files)
+    assert wf.jobs("--forcerun", "evidence") == sorted([("evidence", ""), ("report", "")])
+    assert wf.run("--forcerun", "evidence", "--until", "evidence") == [("evidence", "")]
     assert annual.stat().st_mtime_ns > mtime and annual.read_bytes() == before
     assert wf.jobs() == []  # the checksum of annual.csv equals the recorded one
 
@@ -131,7 +134,7 @@ def test_appended_year_of_a_driver_reruns_its_dependents(wf):
     before = wf.outputs()
     with open(wf.root / "data" / "local.csv", "a") as fh:
         fh.write("local_index,2023,0.250\n")  # pairs (lag 1) with the response of 2024
-    only_age2 = sorted([("align", ""), ("evidence", ""), ("ledger", ""), ("screen", "m--age2")])
+    only_age2 = sorted([("evidence", ""), ("report", ""), ("screen", "m--age2")])
     assert wf.jobs() == only_age2  # the dry-run job list: one screen, keyed by its response
     assert wf.run() == only_age2
     after = wf.outputs()

@@ -43,7 +43,7 @@ def test_profile_uses_the_slurm_executor_with_documented_resources():
         assert key in default, key
     # every rule of the workflow has its own resources, so a new rule is not forgotten
     rules = _workflow_rules()
-    assert {"align", "screen", "evidence", "report"} <= rules
+    assert {"screen", "evidence", "report"} <= rules
     assert set(prof["set-resources"]) == rules
     for rule, res in prof["set-resources"].items():
         assert res["mem_mb"] > 0 and res["runtime"] > 0, rule

@@ -61,7 +61,7 @@ def plan_studies(config: dict, check: bool = True) -> dict[str, PlannedStudy]:
     Up to ``FULL_CHECK_LIMIT`` studies (or with ``check_inputs=true`` in Snakemake's
     config) every input file is checked too, before any job starts, so a bad input never
     leaves a partial result; larger batches check the configs only and leave the inputs to
-    each study's `align` job (``lagsieve check`` checks a study on its own).
+    each study's jobs (``lagsieve check`` checks a study on its own).
     """
     planned: dict[str, PlannedStudy] = {}
     paths = study_configs(config)

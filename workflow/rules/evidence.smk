@@ -1,11 +1,15 @@
 rule evidence:
-    """Study-wide q-values, flags, grades and ranks."""
+    """Align every input of the study on one annual axis (stage `align`), then study-wide
+    q-values, flags, grades and ranks (stage `evidence`). The two stages share one job so that
+    a study costs one job per response plus two."""
     input:
         config=cfg,
-        annual=f"{OUT}/{{study}}/work/annual.csv",
+        data=lambda w: STUDIES[w.study].input_paths,
         hypotheses=response_files("hypotheses.csv"),
         screens=response_files("screen.csv"),
     output:
+        annual=f"{OUT}/{{study}}/work/annual.csv",
+        notes=f"{OUT}/{{study}}/work/notes.csv",
         screen=f"{OUT}/{{study}}/screen.csv",
         evidence=f"{OUT}/{{study}}/evidence.csv",
     log:

@@ -1,5 +1,6 @@
-# The report stage: self-contained HTML, figures and tables (figures/), provenance and, unless
-# the study config sets `report.pdf: false`, a PDF copy (report.pdf beside the HTML).
+# The report job: first the forecast ledger's update (stage `ledger`), then the report stage:
+# self-contained HTML, figures and tables (figures/), provenance and, unless the study config
+# sets `report.pdf: false`, a PDF copy (report.pdf beside the HTML).
 # report.pdf is a declared output when every study of the run wants it; in a run that mixes
 # studies with and without it, the PDFs are still written but not tracked by Snakemake.
 from lagsieve.stages import pdf_wanted as _pdf_wanted
@@ -12,12 +13,15 @@ REPORT_INPUT = dict(
     evidence=f"{OUT}/{{study}}/evidence.csv",
     forecasts=response_files("forecasts.csv"),
     nulls=response_files("nulls.csv"),
-    ledger=f"{OUT}/{{study}}/work/ledger_update.json",  # the report shows the ledger's changes
 )
 REPORT_OUTPUT = {
     "report": report(f"{OUT}/{{study}}/report.html", caption="../report/report_html.rst",
                      category="Report", labels={"study": "{study}", "file": "report (HTML)"}),
     "provenance": f"{OUT}/{{study}}/provenance.json",
+    # The ledger (default <out>/<study>/ledger.sqlite, config key ledger.path) is written as a
+    # side effect and is deliberately not a declared output, so `snakemake --delete-all-output`
+    # and forced reruns never remove it; the declared output is the summary of this update.
+    "ledger": f"{OUT}/{{study}}/work/ledger_update.json",
     "figures": report(directory(f"{OUT}/{{study}}/figures"), patterns=["{name}.png"],
                       caption="../report/figures.rst", category="Figures",
                       labels={"study": "{study}", "figure": "{name}"}),
@@ -28,7 +32,9 @@ if STUDIES and all(_pdf_wanted(p.study) for p in STUDIES.values()):
 
 
 rule report:
-    """The self-contained HTML report, its figures and tables, the PDF copy and provenance."""
+    """Forecast ledger (record next-year forecasts of strong and moderate hypotheses, score and
+    supersede earlier ones), then the self-contained HTML report, its figures and tables, the
+    PDF copy and provenance."""
     input:
         **REPORT_INPUT,
     output:

@@ -1,8 +1,9 @@
-# Thin wrapper: stage `evidence` (see lagsieve.stages.run_evidence).
+# Thin wrapper: stages `align` and `evidence` (see lagsieve.stages.run_align, run_evidence).
 from pathlib import Path
 
-from lagsieve.stages import logged, run_evidence
+from lagsieve.stages import logged, run_align, run_evidence
 
 with logged(snakemake):
-    run_evidence(snakemake.input.config, snakemake.input.annual, Path(snakemake.input.annual).parent,
+    run_align(snakemake.input.config, snakemake.output.annual, snakemake.output.notes)
+    run_evidence(snakemake.input.config, snakemake.output.annual, Path(snakemake.output.annual).parent,
                  snakemake.output.screen, snakemake.output.evidence)

@@ -1,9 +1,13 @@
-# Thin wrapper: stage `report` (see lagsieve.stages.run_report).
+# Thin wrapper: stages `ledger` and `report` (see lagsieve.ledger.update_ledger,
+# lagsieve.stages.run_report). The ledger is updated first: the report shows its changes.
 from pathlib import Path
 
+from lagsieve.ledger import update_ledger
 from lagsieve.stages import logged, run_report
 
 with logged(snakemake):
+    update_ledger(snakemake.input.config, snakemake.input.annual, snakemake.input.evidence,
+                  Path(snakemake.input.evidence).parent, snakemake.output.ledger)
     run_report(snakemake.input.config, snakemake.input.annual, snakemake.input.notes,
                Path(snakemake.input.annual).parent, snakemake.input.screen, snakemake.input.evidence,
                snakemake.output.report, snakemake.output.provenance, snakemake.output.figures,
