@@ -2,14 +2,18 @@
 
 For each N (default 10, 50, 200) the script writes N small invented studies into a
 temporary folder (1 response x 3 drivers, 40 years, one long CSV each; surrogates 99,
-models [linear], other settings the defaults), lists them in one Snakemake config file
+models [linear], a report with one panel per response and no PDF unless ``--pdf``; other
+settings the defaults), lists them in one Snakemake config file
 (``studies: [...]``, given with ``--configfile``) and runs them all in ONE invocation::
 
     snakemake --snakefile Snakefile --directory OUT --cores 2 --configfile batch.yaml
 
 It reports the wall time, the peak resident memory of the whole process tree (Snakemake
 and every job it started, sampled with psutil every 0.2 s, summed over the processes alive
-at that moment) and the peak of the Snakemake process alone, against N. A run longer than
+at that moment), the peak of the Snakemake process alone and the peak of one job (a job's
+process and its worker processes, summed), against N, and fits wall = a + b N by least
+squares (b: seconds per study; linear growth means the seconds per study do not rise
+with N). Each study is R + 2 = 3 jobs (screen, evidence, report). A run longer than
 ``--max-seconds`` is stopped (its process group, which this script started) and reported
 as such, with the number of studies finished by then.
 
@@ -42,7 +46,10 @@ REPO = Path(__file__).resolve().parents[1]
 YEARS = np.arange(1981, 2021)
 
 
-def write_study(folder: Path, i: int, rng: np.random.Generator) -> Path:
+JOBS_PER_STUDY = 3  # one screen (one response) + evidence + report
+
+
+def write_study(folder: Path, i: int, rng: np.random.Generator, pdf: bool = False) -> Path:
     """One invented study: response m and drivers d1 (lag-1 effect), d2 (trend), d3 (noise)."""
     folder.mkdir(parents=True, exist_ok=True)
     n = len(YEARS)
@@ -65,15 +72,16 @@ def write_study(folder: Path, i: int, rng: np.random.Generator) -> Path:
         "responses": [{"id": "m", "kind": "mortality"}],
         "drivers": [{"id": "d1"}, {"id": "d2"}, {"id": "d3"}],
         "screen": {"surrogates": 99, "models": ["linear"], "seed": i + 1},
+        "report": {"top": 1, "pdf": bool(pdf)},
     }
     path = folder / "config.yaml"
     path.write_text(yaml.safe_dump(cfg, sort_keys=False), encoding="utf-8")
     return path
 
 
-def write_batch(root: Path, n: int, seed: int) -> Path:
+def write_batch(root: Path, n: int, seed: int, pdf: bool = False) -> Path:
     rng = np.random.default_rng(seed)
-    paths = [str(write_study(root / "studies" / f"s{i:05d}", i, rng)) for i in range(n)]
+    paths = [str(write_study(root / "studies" / f"s{i:05d}", i, rng, pdf)) for i in range(n)]
     batch = root / "batch.yaml"
     batch.write_text(yaml.safe_dump({"studies": paths, "out": str(root / "results")}), encoding="utf-8")
     return batch
@@ -84,20 +92,28 @@ def snakemake_cmd(root: Path, batch: Path, cores: int, extra=()) -> list[str]:
             str(root / "results"), "--cores", str(cores), "--configfile", str(batch), *extra]
 
 
-def tree_rss(proc: psutil.Process) -> tuple[int, int]:
-    """(RSS of proc + all its descendants, RSS of proc alone), bytes."""
+def tree_rss(proc: psutil.Process) -> tuple[int, int, int]:
+    """(RSS of proc + all its descendants, RSS of proc alone, largest RSS of one child of proc
+    together with its own descendants: one job and its workers), bytes."""
     try:
         own = proc.memory_info().rss
-        kids = proc.children(recursive=True)
+        kids = proc.children(recursive=False)
     except psutil.Error:
-        return 0, 0
-    total = own
+        return 0, 0, 0
+    total, job_max = own, 0
     for k in kids:
         try:
-            total += k.memory_info().rss
+            sub = k.memory_info().rss
+            for g in k.children(recursive=True):
+                try:
+                    sub += g.memory_info().rss
+                except psutil.Error:
+                    pass
         except psutil.Error:
-            pass
-    return total, own
+            continue
+        total += sub
+        job_max = max(job_max, sub)
+    return total, own, job_max
 
 
 def run_measured(cmd: list[str], env: dict, max_seconds: float, log: Path) -> dict:
@@ -105,11 +121,11 @@ def run_measured(cmd: list[str], env: dict, max_seconds: float, log: Path) -> di
     with open(log, "w") as fh:
         p = subprocess.Popen(cmd, env=env, stdout=fh, stderr=subprocess.STDOUT, start_new_session=True)
         ps = psutil.Process(p.pid)
-        peak_tree = peak_own = 0
+        peak_tree = peak_own = peak_job = 0
         stopped = False
         while p.poll() is None:
-            tot, own = tree_rss(ps)
-            peak_tree, peak_own = max(peak_tree, tot), max(peak_own, own)
+            tot, own, job = tree_rss(ps)
+            peak_tree, peak_own, peak_job = max(peak_tree, tot), max(peak_own, own), max(peak_job, job)
             if time.perf_counter() - t0 > max_seconds:
                 os.killpg(p.pid, signal.SIGTERM)  # the group this script started
                 stopped = True
@@ -117,7 +133,7 @@ def run_measured(cmd: list[str], env: dict, max_seconds: float, log: Path) -> di
                 break
             time.sleep(0.2)
     return dict(wall=time.perf_counter() - t0, rc=p.returncode, peak_tree_mb=peak_tree / 2**20,
-                peak_snakemake_mb=peak_own / 2**20, stopped=stopped)
+                peak_snakemake_mb=peak_own / 2**20, peak_job_mb=peak_job / 2**20, stopped=stopped)
 
 
 def jobs_done(log: Path) -> dict[str, int]:
@@ -168,7 +184,8 @@ def main(argv=None) -> int:
     ap.add_argument("--plan-n", type=int, default=5000, help="studies for the planning-only timing (0 skips it)")
     ap.add_argument("--plan-max-seconds", type=float, default=900, help="give up the planning timing after this long")
     ap.add_argument("--cores", type=int, default=2)
-    ap.add_argument("--max-seconds", type=float, default=900, help="stop a run after this long (default 900)")
+    ap.add_argument("--max-seconds", type=float, default=2400, help="stop a run after this long (default 2400)")
+    ap.add_argument("--pdf", action="store_true", help="write each study's PDF report too (slower)")
     ap.add_argument("--seed", type=int, default=11)
     ap.add_argument("--out", default=str(REPO / "bench" / "results" / "scale"))
     args = ap.parse_args(argv)
@@ -178,7 +195,7 @@ def main(argv=None) -> int:
     with tempfile.TemporaryDirectory(prefix="lagsieve-scale-") as tmp:
         for n in [int(v) for v in args.n.split(",") if v]:
             root = Path(tmp) / f"n{n}"
-            batch = write_batch(root, n, args.seed)
+            batch = write_batch(root, n, args.seed, args.pdf)
             t0 = time.perf_counter()
             plan = subprocess.run(snakemake_cmd(root, batch, args.cores, ["-n", "--quiet"]), env=env,
                                   capture_output=True, text=True)
@@ -197,25 +214,27 @@ def main(argv=None) -> int:
             ok = m["rc"] == 0 and done == n
             if not ok and not m["stopped"]:
                 print((root / "snakemake.log").read_text()[-3000:], file=sys.stderr)
-            rows.append(dict(studies=n, jobs=5 * n, finished=done, jobs_done=n_jobs, wall_s=m["wall"],
-                             s_per_job=m["wall"] / max(n_jobs, 1), s_per_study=5 * m["wall"] / max(n_jobs, 1),
+            rows.append(dict(studies=n, jobs=JOBS_PER_STUDY * n, finished=done, jobs_done=n_jobs, wall_s=m["wall"],
+                             s_per_job=m["wall"] / max(n_jobs, 1),
+                             s_per_study=JOBS_PER_STUDY * m["wall"] / max(n_jobs, 1),
                              jobs_by_rule=" ".join(f"{k}={v}" for k, v in sorted(per_rule.items())),
                              median_job_s=" ".join(f"{k}={v:.0f}" for k, v in durations.items()),
                              peak_tree_rss_mb=m["peak_tree_mb"], peak_snakemake_rss_mb=m["peak_snakemake_mb"],
+                             peak_job_rss_mb=m["peak_job_mb"],
                              plan_s=t_plan, status="ok" if ok else ("stopped at --max-seconds" if m["stopped"] else f"failed rc={m['rc']}")))
             r = rows[-1]
-            print(f"N={n}: {r['status']}, {done}/{n} studies complete, {n_jobs}/{5 * n} jobs ({r['jobs_by_rule']}) "
-                  f"in {r['wall_s']:.0f} s ({r['s_per_job']:.2f} s per job, {r['s_per_study']:.1f} s per 5 jobs); "
-                  f"median job wall s by rule: {r['median_job_s']}; "
-                  f"peak RSS tree {r['peak_tree_rss_mb']:.0f} MB, snakemake alone {r['peak_snakemake_rss_mb']:.0f} MB",
-                  flush=True)
+            print(f"N={n}: {r['status']}, {done}/{n} studies complete, {n_jobs}/{JOBS_PER_STUDY * n} jobs "
+                  f"({r['jobs_by_rule']}) in {r['wall_s']:.0f} s ({r['s_per_job']:.2f} s per job, "
+                  f"{r['s_per_study']:.2f} s per study); median job wall s by rule: {r['median_job_s']}; "
+                  f"peak RSS tree {r['peak_tree_rss_mb']:.0f} MB, snakemake alone {r['peak_snakemake_rss_mb']:.0f} MB, "
+                  f"one job {r['peak_job_rss_mb']:.0f} MB", flush=True)
             # free the disk between sizes
             subprocess.run(["rm", "-rf", str(root)], check=False)
         plan_row = None
         if args.plan_n:
             root = Path(tmp) / f"plan{args.plan_n}"
             t0 = time.perf_counter()
-            batch = write_batch(root, args.plan_n, args.seed)
+            batch = write_batch(root, args.plan_n, args.seed, args.pdf)
             t_write = time.perf_counter() - t0
             t0 = time.perf_counter()
             try:
@@ -226,31 +245,40 @@ def main(argv=None) -> int:
                 status = f"not finished after {args.plan_max_seconds:.0f} s (stopped)"
             t_plan = time.perf_counter() - t0
             plan_row = dict(studies=args.plan_n, plan_s=t_plan, status=status, write_s=t_write)
-            print(f"planning only, {args.plan_n} studies ({5 * args.plan_n} jobs): {t_plan:.1f} s ({status}); "
+            print(f"planning only, {args.plan_n} studies ({JOBS_PER_STUDY * args.plan_n} jobs): {t_plan:.1f} s ({status}); "
                   f"target < 60 s", flush=True)
     df = pd.DataFrame(rows)
     out = Path(args.out)
     out.parent.mkdir(parents=True, exist_ok=True)
     df.to_csv(out.with_suffix(".csv"), index=False, float_format="%.3f")
     md = ["## lagsieve scaling: N studies in one Snakemake run", "",
-          f"Each study: 1 response x 3 drivers, 40 years, lags 0-3, 99 surrogates, models [linear]; "
-          f"5 jobs (align, screen, evidence, report, ledger); --cores {args.cores}.", "",
-          "A run stopped at --max-seconds is measured by the jobs it finished (Snakemake runs the align jobs "
-          "of all studies first, so whole studies finish late); s per study = 5 x s per job.", "",
-          "| studies | jobs | jobs finished | studies complete | wall (s) | s per job | s per study | median job wall (s) by rule | peak RSS, tree (MB) | peak RSS, snakemake (MB) | planning -n (s) | status |",
-          "| ---: | ---: | ---: | ---: | ---: | ---: | ---: | --- | ---: | ---: | ---: | --- |"]
+          f"Each study: 1 response x 3 drivers, 40 years, lags 0-3, 99 surrogates, models [linear], report with "
+          f"one panel per response, {'with' if args.pdf else 'without'} PDF; {JOBS_PER_STUDY} jobs (screen, "
+          f"evidence, report); --cores {args.cores}.", "",
+          "| studies | jobs | jobs finished | studies complete | wall (s) | s per study | median job wall (s) by rule "
+          "| peak RSS, tree (MB) | peak RSS, snakemake (MB) | peak RSS, one job (MB) | planning -n (s) | status |",
+          "| ---: | ---: | ---: | ---: | ---: | ---: | --- | ---: | ---: | ---: | ---: | --- |"]
     for r in rows:
         md.append(f"| {r['studies']} | {r['jobs']} | {r['jobs_done']} ({r['jobs_by_rule']}) | {r['finished']} | "
-                  f"{r['wall_s']:.0f} | {r['s_per_job']:.2f} | {r['s_per_study']:.1f} | {r['median_job_s']} | "
-                  f"{r['peak_tree_rss_mb']:.0f} | {r['peak_snakemake_rss_mb']:.0f} | {r['plan_s']:.1f} | {r['status']} |")
-    if len(rows) >= 2:
-        a, b = rows[0], rows[-1]
-        md += ["", f"Seconds per job from N={a['studies']} to N={b['studies']}: {a['s_per_job']:.2f} -> "
-                   f"{b['s_per_job']:.2f} (ratio {b['s_per_job'] / a['s_per_job']:.2f}; 1.00 = linear growth of the "
-                   f"total). Note the job mix differs between complete and stopped runs."]
+                  f"{r['wall_s']:.0f} | {r['s_per_study']:.2f} | {r['median_job_s']} | "
+                  f"{r['peak_tree_rss_mb']:.0f} | {r['peak_snakemake_rss_mb']:.0f} | {r['peak_job_rss_mb']:.0f} | "
+                  f"{r['plan_s']:.1f} | {r['status']} |")
+    complete = [r for r in rows if r["status"] == "ok"]
+    if len(complete) >= 2:
+        ns = np.array([r["studies"] for r in complete], float)
+        wall = np.array([r["wall_s"] for r in complete])
+        b, a = np.polyfit(ns, wall, 1)
+        resid = wall - (a + b * ns)
+        first, last = complete[0], complete[-1]
+        md += ["", f"Least-squares line through the complete runs: wall = {a:.1f} s + {b:.2f} s x studies "
+                   f"(largest residual {np.max(np.abs(resid)):.1f} s). Seconds per study: "
+                   + ", ".join(f"{r['s_per_study']:.2f} at N={r['studies']}" for r in complete)
+                   + f" (ratio last/first {last['s_per_study'] / first['s_per_study']:.2f}; at or below 1 means the "
+                   "total grows no faster than linearly)."]
     if plan_row:
-        md += ["", f"Planning only (`snakemake -n --quiet`), {plan_row['studies']} studies, {5 * plan_row['studies']} jobs: "
-                   f"{plan_row['plan_s']:.1f} s ({plan_row['status']}; target < 60 s). Configs only are checked beyond 50 studies."]
+        md += ["", f"Planning only (`snakemake -n --quiet`), {plan_row['studies']} studies, "
+                   f"{JOBS_PER_STUDY * plan_row['studies']} jobs: {plan_row['plan_s']:.1f} s ({plan_row['status']}; "
+                   "target < 60 s). Configs only are checked beyond 50 studies."]
         pd.DataFrame([plan_row]).to_csv(out.parent / (out.name + "_plan.csv"), index=False, float_format="%.3f")
     text = "\n".join(md) + "\n"
     out.with_suffix(".md").write_text(text, encoding="utf-8")

@@ -500,8 +500,8 @@ def _draw_star(args):
     return _draw_job(*args)
 
 
-def _svg_star(args):
-    return _svg_job(*args)
+def _svgs_star(items):
+    return [_svg_job(*a) for a in items]
 
 
 class FigureRenderer:
@@ -556,10 +556,14 @@ class FigureRenderer:
         return out
 
     def write_svgs(self) -> None:
+        """Write the SVG copies in the background: with ``workers`` processes, in
+        ``workers - 1`` of them, so that one CPU stays free for the caller (the PDF is laid
+        out meanwhile, and would otherwise compete with every worker)."""
         items = [(n, b, self.figures_dir) for n, b in self._blobs.items()]
         self._blobs = {}
         if self._pool is not None:
-            self._pending += [self._pool.submit(_svg_star, a) for a in items]
+            lanes = max(1, self.workers - 1)
+            self._pending += [self._pool.submit(_svgs_star, items[i::lanes]) for i in range(lanes) if items[i::lanes]]
         else:
             for a in items:
                 _svg_job(*a)

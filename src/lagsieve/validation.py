@@ -65,18 +65,30 @@ def _scale_from_start(a: np.ndarray, n_start: int) -> np.ndarray:
 def _expanding_solve(W: np.ndarray, y: np.ndarray, origins: np.ndarray, w: np.ndarray | None = None):
     """(Weighted) least squares on rows [0, i) for every origin i, batched over leading axes.
 
-    W: (..., T, p) design, y: (T,) response, w: (T,) optional weights. Returns beta
-    (..., n_origins, p) and the training (weighted) residual sum of squares (..., n_origins).
+    W: (..., T, p) design whose column 0 is the intercept, y: (T,) response, w: (T,) optional
+    weights. Returns beta (..., n_origins, p) and the training (weighted) residual sum of
+    squares (..., n_origins).
+
+    The response is centred on the mean of the rows before the first origin (training rows
+    of every window) and that mean is added back to the intercept, which is exact with an
+    intercept in the design; it keeps the tiny ridge (1e-10 tr(A) / p, against exact rank
+    deficiency) from moving forecasts in proportion to the response's level.
     """
     p = W.shape[-1]
+    if not np.all(W[..., 0] == 1.0):
+        raise ValueError("column 0 of the design must be the intercept")
     w = np.ones(len(y)) if w is None else np.asarray(w, float)
+    o0 = int(origins[0])
+    level = float(np.sum(w[:o0] * y[:o0]) / np.sum(w[:o0]))
+    yc = y - level
     Ww = W * w[:, None]
     A = expanding_cross(Ww, W, origins)  # (..., O, p, p)
-    b = expanding_cross(Ww, y[:, None], origins)[..., 0]  # (..., O, p)
-    yty = np.cumsum(w * y * y)
+    b = expanding_cross(Ww, yc[:, None], origins)[..., 0]  # (..., O, p)
+    yty = np.cumsum(w * yc * yc)
     ridge = 1e-10 * np.trace(A, axis1=-2, axis2=-1)[..., None, None] * np.eye(p) / p
     beta = np.linalg.solve(A + ridge, b[..., None])[..., 0]
     rss = yty[origins - 1] - (beta * b).sum(-1)
+    beta[..., 0] += level
     return beta, rss
 
 
@@ -276,7 +288,13 @@ def gam_candidate(Z: np.ndarray, Xs: np.ndarray, y: np.ndarray, origins: np.ndar
     q0 = others.shape[1]
     P = np.zeros((q0 + n_basis, q0 + n_basis))
     P[q0:, q0:] = difference_penalty(n_basis, 2)
-    return expanding_penalised(W, P, y, origins, retune_every=retune_every, weights=weights)
+    # centred on the first window's mean and shifted back: exact, because constants lie in
+    # the span of the basis and in the null space of the penalty; it keeps the solver's tiny
+    # ridge from acting in proportion to the response's level
+    w = np.ones(len(y)) if weights is None else np.asarray(weights, float)
+    level = float(np.sum(w[:initial] * y[:initial]) / np.sum(w[:initial]))
+    fc, gcv, edf = expanding_penalised(W, P, y - level, origins, retune_every=retune_every, weights=weights)
+    return fc + level, gcv, edf
 
 
 def skill_score(mse_model: float | np.ndarray, mse_baseline: float | np.ndarray):
