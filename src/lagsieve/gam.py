@@ -759,29 +759,43 @@ def expanding_penalised(
     nt = o_t.astype(float)
     ridge = 1e-11 * np.trace(At[..., 0, :, :], axis1=-2, axis2=-1) / q  # (...,)
     At = At + ridge[..., None, None, None] * np.eye(q)
-    # shifted Demmler-Reinsch form: C = A + mu P is well conditioned even when A is not (a
-    # B-spline with no training data in its support), and with C = L L', L^-1 P L^-T = U T U',
-    # A + lambda P = L U (I + (lambda - mu) T) U' L'
+    # Shifted Demmler-Reinsch form on the penalised subspace. With P = R'R (R: r x q, from one
+    # eigen-decomposition of P shared by the batch) and C = A + mu P, which is well
+    # conditioned even when A is not (a B-spline with no training data in its support),
+    # R C^-1 R' = V diag(theta) V' gives, for every lambda, with s = 1 / (1 + (lambda - mu) theta):
+    #   (A + lambda P)^-1 = C^-1 - H diag((lambda - mu) s) H',   H = C^-1 R' V,
+    #   edf = (q - r) + sum s (1 - mu theta),
+    #   RSS = y'y - b'C^-1 b + sum h^2 s^2 ((lambda - mu)^2 theta - mu),   h = H'b,
+    # so only an r x r eigen-problem is solved per system (r = q - 2 - unpenalised columns).
+    pe, pv = np.linalg.eigh(0.5 * (P + P.T))
+    pos = pe > 1e-10 * max(float(pe.max()), 0.0)
+    R = (pv[:, pos] * np.sqrt(pe[pos])).T  # (r, q)
+    n_null = q - R.shape[0]
     mu = np.trace(At, axis1=-2, axis2=-1) / max(float(np.trace(P)), 1e-300)  # (..., R)
-    Li = np.linalg.inv(np.linalg.cholesky(At + mu[..., None, None] * P))
-    M = Li @ P @ np.swapaxes(Li, -1, -2)
-    theta, U = np.linalg.eigh(0.5 * (M + np.swapaxes(M, -1, -2)))
-    theta = np.clip(theta, 0.0, 1.0 / mu[..., None])  # (..., R, q); mu theta in [0, 1]
-    G = np.swapaxes(U, -1, -2) @ Li  # (A + lambda P)^-1 = G' diag(s) G
-    c = (G @ bt[..., None])[..., 0]  # (..., R, q)
-    keep = 1.0 - mu[..., None] * theta  # (..., R, q): the data's share of each direction
-    s = 1.0 / (1.0 + (lam[:, None] - mu[..., None, None]) * theta[..., None, :])  # (..., R, n_lam, q)
-    kept = keep[..., None, :]
-    rss_t = np.maximum(yt[:, None] - np.einsum("...rq,...rlq->...rl", c * c, 2.0 * s - s * s * kept), 0.0)
-    edf_t = (s * kept).sum(-1)
+    Ci = np.linalg.inv(At + mu[..., None, None] * P)
+    Ci = 0.5 * (Ci + np.swapaxes(Ci, -1, -2))
+    RC = R @ Ci  # (..., R, r, q)
+    theta, V = np.linalg.eigh(0.5 * ((RC @ R.T) + np.swapaxes(RC @ R.T, -1, -2)))
+    theta = np.clip(theta, 0.0, 1.0 / mu[..., None])  # (..., R, r); mu theta in [0, 1]
+    H = np.swapaxes(RC, -1, -2) @ V  # (..., R, q, r)
+    hb = np.einsum("...qr,...q->...r", H, bt)
+    Cib = (Ci @ bt[..., None])[..., 0]
+    rss_mu = yt - np.einsum("...q,...q->...", bt, Cib)  # (..., R) before the penalised terms
+    shift = lam[:, None] - mu[..., None, None]  # (..., R, n_lam, 1)
+    s = 1.0 / (1.0 + shift * theta[..., None, :])  # (..., R, n_lam, r)
+    ee = (hb * hb)[..., None, :]
+    rss_t = np.maximum(rss_mu[..., None] + np.sum(ee * s * s * (shift**2 * theta[..., None, :]
+                                                                 - mu[..., None, None]), axis=-1), 0.0)
+    edf_t = n_null + (s * (1.0 - mu[..., None, None] * theta[..., None, :])).sum(-1)
     with np.errstate(divide="ignore", invalid="ignore"):
         gcv_t = nt[:, None] * rss_t / np.maximum(nt[:, None] - gamma * edf_t, 1e-9) ** 2
     best = np.argmin(gcv_t, axis=-1)  # (..., R)
-    s_b = np.take_along_axis(s, best[..., None, None], axis=-2)[..., 0, :]  # (..., R, q)
+    s_b = np.take_along_axis(s, best[..., None, None], axis=-2)[..., 0, :]  # (..., R, r)
     edf_b = np.take_along_axis(edf_t, best[..., None], axis=-1)[..., 0]
     # coefficients and inverse at each tuning origin, then carried forward within its block
-    Hinv = np.swapaxes(G, -1, -2) @ (s_b[..., :, None] * G)
-    beta = np.einsum("...rkq,...rk->...rq", G, s_b * c)
+    f = (lam[best] - mu)[..., None] * s_b  # (..., R, r)
+    Hinv = Ci - H @ (f[..., :, None] * np.swapaxes(H, -1, -2))
+    beta = Cib - np.einsum("...qr,...r->...q", H, f * hb)
     fc = np.empty(W.shape[:-2] + (n_o,))
     beta_o = np.empty(W.shape[:-2] + (n_o, q))
     for m in range(step):
