@@ -321,8 +321,15 @@ def screen_response(table: pd.DataFrame, study, response_id: str, se_table: pd.D
         import multiprocessing as mp
         from concurrent.futures import ProcessPoolExecutor
 
+        # longest first (years observed x lags, a proxy of the work), so that the last task to
+        # start is a short one and the workers finish close together; results keep the order
+        cost = [int(table[t[2]["id"]].notna().sum()) * len(t[3]) for t in tasks]
+        order = sorted(range(len(tasks)), key=lambda i: -cost[i])
         with ProcessPoolExecutor(max_workers=min(workers, len(tasks)), mp_context=mp.get_context("fork")) as ex:
-            results = list(ex.map(_screen_one_packed, tasks))
+            done = list(ex.map(_screen_one_packed, [tasks[i] for i in order]))
+        results = [None] * len(tasks)
+        for i, r in zip(order, done):
+            results[i] = r
     else:
         results = [_screen_one(*t) for t in tasks]
     screens = [r[0] for r in results]
