@@ -708,12 +708,12 @@ def expanding_penalised(
     smoothing parameter chosen by GCV inside the training window.
 
     W : (..., T, q) design (fixed across origins), P : (q, q) penalty (zero rows/columns for
-    unpenalised terms), y : (T,), ``origins`` consecutive integers. At a tuning origin, with
-    A = W'W = L L' (Cholesky) and L^-1 P L^-T = U D U', the fit at any lambda is
-    beta = L^-T U (I + lambda D)^-1 U' L^-1 W'y, so RSS, edf = sum 1 / (1 + lambda d) and
-    GCV = n RSS / (n - gamma edf)^2 (Craven & Wahba 1979) follow for the whole grid from one
-    eigen-decomposition (the Demmler-Reinsch form; Wood 2017, section 5.4 — section number
-    from memory).
+    unpenalised terms), y : (T,), ``origins`` consecutive integers. At a tuning origin one
+    eigen-decomposition gives RSS, edf and GCV = n RSS / (n - gamma edf)^2 (Craven & Wahba
+    1979) for the whole grid of lambda: the Demmler-Reinsch form (Wood 2017, section 5.4 —
+    section number from memory), here shifted to C = A + mu P, A = W'W, so that it stays
+    accurate when A is nearly singular, and restricted to the penalised subspace (see the
+    comments in the code for the formulas).
 
     The smoothing parameter is re-chosen every ``retune_every`` origins (1 = every origin)
     and held in between, while the coefficients are refitted at every origin; either way
@@ -775,7 +775,8 @@ def expanding_penalised(
     Ci = np.linalg.inv(At + mu[..., None, None] * P)
     Ci = 0.5 * (Ci + np.swapaxes(Ci, -1, -2))
     RC = R @ Ci  # (..., R, r, q)
-    theta, V = np.linalg.eigh(0.5 * ((RC @ R.T) + np.swapaxes(RC @ R.T, -1, -2)))
+    N = RC @ R.T
+    theta, V = np.linalg.eigh(0.5 * (N + np.swapaxes(N, -1, -2)))
     theta = np.clip(theta, 0.0, 1.0 / mu[..., None])  # (..., R, r); mu theta in [0, 1]
     H = np.swapaxes(RC, -1, -2) @ V  # (..., R, q, r)
     hb = np.einsum("...qr,...q->...r", H, bt)
@@ -800,7 +801,7 @@ def expanding_penalised(
     beta_o = np.empty(W.shape[:-2] + (n_o, q))
     for m in range(step):
         idx = tune + m
-        live = idx < np.minimum(np.r_[tune[1:], n_o], n_o)  # blocks that still have origin idx
+        live = idx < np.r_[tune[1:], n_o]  # blocks that still have origin idx
         if not live.any():
             break
         if m:  # add training row origins[idx - 1] to every live block
