@@ -62,6 +62,12 @@ def _scale_from_start(a: np.ndarray, n_start: int) -> np.ndarray:
     return (a - mu) / sd
 
 
+def _first_window_level(y: np.ndarray, w: np.ndarray | None, n_start: int) -> float:
+    """(Weighted) mean of the first ``n_start`` rows: training rows of every window."""
+    w = np.ones(len(y)) if w is None else np.asarray(w, float)
+    return float(np.sum(w[:n_start] * y[:n_start]) / np.sum(w[:n_start]))
+
+
 def _expanding_solve(W: np.ndarray, y: np.ndarray, origins: np.ndarray, w: np.ndarray | None = None):
     """(Weighted) least squares on rows [0, i) for every origin i, batched over leading axes.
 
@@ -77,9 +83,8 @@ def _expanding_solve(W: np.ndarray, y: np.ndarray, origins: np.ndarray, w: np.nd
     p = W.shape[-1]
     if not np.all(W[..., 0] == 1.0):
         raise ValueError("column 0 of the design must be the intercept")
+    level = _first_window_level(y, w, int(origins[0]))
     w = np.ones(len(y)) if w is None else np.asarray(w, float)
-    o0 = int(origins[0])
-    level = float(np.sum(w[:o0] * y[:o0]) / np.sum(w[:o0]))
     yc = y - level
     Ww = W * w[:, None]
     A = expanding_cross(Ww, W, origins)  # (..., O, p, p)
@@ -291,8 +296,7 @@ def gam_candidate(Z: np.ndarray, Xs: np.ndarray, y: np.ndarray, origins: np.ndar
     # centred on the first window's mean and shifted back: exact, because constants lie in
     # the span of the basis and in the null space of the penalty; it keeps the solver's tiny
     # ridge from acting in proportion to the response's level
-    w = np.ones(len(y)) if weights is None else np.asarray(weights, float)
-    level = float(np.sum(w[:initial] * y[:initial]) / np.sum(w[:initial]))
+    level = _first_window_level(y, weights, initial)
     fc, gcv, edf = expanding_penalised(W, P, y - level, origins, retune_every=retune_every, weights=weights)
     return fc + level, gcv, edf
 
