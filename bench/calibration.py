@@ -1,8 +1,8 @@
 """False-positive and power benchmark of the lagsieve grade rule on simulated worlds.
 
 Every world is one response and one driver with a known truth. It is screened exactly as
-the pipeline screens a hypothesis: ``lagsieve.screening.screen_hypothesis`` on an annual
-table, then ``lagsieve.evidence.build_evidence`` on its hypothesis row, with the screen
+the pipeline screens a hypothesis: ``lagsieve.screen.response.screen_hypothesis`` on an annual
+table, then ``lagsieve.evidence.grading.build_evidence`` on its hypothesis row, with the screen
 settings ``SCREEN_DEFAULTS`` except lags [0, 1, 2], the models and the number of surrogates
 given here (validation settings: the defaults, i.e. chosen from the number of years).
 
@@ -59,9 +59,9 @@ import numpy as np
 import pandas as pd
 from statsmodels.stats.proportion import proportion_confint
 
-from lagsieve.config import SCREEN_DEFAULTS
-from lagsieve.evidence import build_evidence
-from lagsieve.screening import screen_hypothesis
+from lagsieve.io.config import SCREEN_DEFAULTS
+from lagsieve.evidence.grading import build_evidence
+from lagsieve.screen.response import screen_hypothesis
 
 LAGS = [0, 1, 2]
 LEAD = max(LAGS)  # extra driver years before the first response year

@@ -60,10 +60,10 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from lagsieve import gam as lgam
-from lagsieve.alignment import forecast_frame, shift_batch
-from lagsieve.screening import driver_batch, validation_windows
-from lagsieve.validation import BASELINES, _scale_from_start, baseline_design, gam_candidate, rolling_origin
+from lagsieve.stats import splines as lgam
+from lagsieve.prep.align import forecast_frame, shift_batch
+from lagsieve.screen.response import driver_batch, validation_windows
+from lagsieve.stats.backtest import BASELINES, _scale_from_start, baseline_design, gam_candidate, rolling_origin
 
 LAGS = np.array([0, 1, 2, 3])
 N_ROWS = 40
@@ -194,7 +194,7 @@ def batched_gam(h, hardest):
 
 @contextlib.contextmanager
 def lam_grid(values):
-    """Temporarily replace lagsieve.gam.DEFAULT_LAM_GRID (read at call time by
+    """Temporarily replace lagsieve.stats.splines.DEFAULT_LAM_GRID (read at call time by
     expanding_penalised) so that gam_candidate runs at one fixed smoothing parameter."""
     old = lgam.DEFAULT_LAM_GRID
     lgam.DEFAULT_LAM_GRID = np.asarray(values, float)

@@ -221,7 +221,7 @@ def test_page_loads_clean_and_table_sorts(report_file, devtools):
 
 def labels_of(evidence: pd.DataFrame, html: Path) -> dict:
     """driver id -> label, from the study config beside the results."""
-    from lagsieve.config import load_study
+    from lagsieve.io.config import load_study
 
     study = load_study(html.parents[2] / "config.yaml")
     return {d["id"]: d.get("label") or d["id"] for d in study.drivers}

@@ -1,8 +1,8 @@
-"""Tests for lagsieve.evidence: flags, grades, ranks, q-values, collinearity caps, and the
+"""Tests for lagsieve.evidence.grading: flags, grades, ranks, q-values, collinearity caps, and the
 Granger-Newbold spurious-regression setting end to end.
 
 Outside sources named beside each check:
-- Rules under test: evidence.FLAGS and evidence.GRADE_RULES (the tool's documented vocabulary).
+- Rules under test: vocabulary.FLAGS and vocabulary.GRADE_RULES (the tool's documented vocabulary).
 - BH q-values: Benjamini & Hochberg 1995, J. R. Stat. Soc. B 57:289-300 (checked against
   statsmodels.stats.multitest.multipletests(method="fdr_bh")).
 - Spurious regressions between independent random walks: Granger & Newbold 1974,
@@ -18,8 +18,12 @@ import pandas as pd
 import pytest
 from statsmodels.stats.multitest import multipletests
 
-from lagsieve import config, evidence, screening
-from lagsieve.evidence import build_evidence, cap_collinear, flags_for, grade_row
+from lagsieve.io import config
+
+from lagsieve.evidence import vocabulary
+
+from lagsieve.screen import response as screening
+from lagsieve.evidence.grading import build_evidence, cap_collinear, flags_for, grade_row
 
 ALPHA, FDR, MIN_OVERLAP = 0.05, 0.10, 15
 
@@ -83,7 +87,7 @@ def test_flag_lag_selected():
 def test_flag_short_overlap():
     assert "short-overlap" in _flags(n=24)
     assert "short-overlap" not in _flags(n=25)
-    assert evidence.SHORT_OVERLAP_YEARS == 25
+    assert vocabulary.SHORT_OVERLAP_YEARS == 25
 
 
 def test_flag_influential_year():
@@ -128,7 +132,7 @@ def test_every_flag_code_is_documented():
                      loo_max_change=0.5, window_sign_flip=True, retest_skill=-1, q_value=0.01,
                      collinear_with="b", r=-0.6)
     f = flags_for(row, ALPHA, FDR)
-    assert set(f) == set(evidence.FLAGS) - {"failed"}
+    assert set(f) == set(vocabulary.FLAGS) - {"failed"}
 
 
 # ----------------------------------------------------------------- one test per grade
@@ -180,7 +184,7 @@ def test_grade_insufficient_data():
 
 
 def test_grade_vocabulary_documented():
-    assert set(evidence.GRADES) == set(evidence.GRADE_RULES) == set(evidence.GRADE_ORDER)
+    assert set(vocabulary.GRADES) == set(vocabulary.GRADE_RULES) == set(vocabulary.GRADE_ORDER)
 
 
 # ----------------------------------------------------------------- build_evidence
@@ -261,7 +265,7 @@ def test_build_evidence_caps_collinear_strong_driver():
     for r in rows:
         r.pop("q_value"), r.pop("collinear_with")
     table = _study_table()
-    assert abs(table["a"].corr(table["b"])) > evidence.COLLINEAR_R
+    assert abs(table["a"].corr(table["b"])) > vocabulary.COLLINEAR_R
     ev = build_evidence(pd.DataFrame(rows), table, _screen())
     g = dict(zip(ev.driver, ev.grade))
     assert g == {"a": "moderate", "b": "strong", "c": "strong"}

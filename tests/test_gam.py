@@ -1,4 +1,4 @@
-"""Tests for lagsieve.gam (batched P-splines).
+"""Tests for lagsieve.stats.splines (batched P-splines).
 
 Sources named beside each check:
 - P-splines: Eilers & Marx 1996, Statistical Science 11:89-121 (B-splines on equally
@@ -17,8 +17,7 @@ import numpy as np
 import pytest
 from scipy import linalg, stats
 
-from lagsieve import gam
-
+from lagsieve.stats import splines as gam
 pygam = pytest.importorskip("pygam")
 from pygam import LinearGAM, s  # noqa: E402
 from pygam.penalties import derivative as pygam_derivative  # noqa: E402

@@ -6,8 +6,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from lagsieve.config import SCREEN_DEFAULTS
-from lagsieve.screening import screen_hypothesis
+from lagsieve.io.config import SCREEN_DEFAULTS
+from lagsieve.screen.response import screen_hypothesis
 
 
 def _world(seed: int, shape: str, n: int = 45):

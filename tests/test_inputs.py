@@ -1,4 +1,4 @@
-"""Tests of lagsieve.inputs: reading tables, annual series, warnings.
+"""Tests of lagsieve.io.readers: reading tables, annual series, warnings.
 
 Malformed inputs covered (one parametrised case each in ``MALFORMED``; every case asserts
 InputErrors, one line per problem, the file name, the row and series where they apply, and a
@@ -67,7 +67,6 @@ from __future__ import annotations
 import hashlib
 import math
 import re
-import sys
 from pathlib import Path
 
 import numpy as np
@@ -76,13 +75,8 @@ import pytest
 from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
 
-try:  # the package may not be installed while developing
-    import lagsieve.inputs  # noqa: F401
-except ModuleNotFoundError:  # pragma: no cover
-    sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "src"))
-
-from lagsieve.errors import InputErrors, InputProblem, InputWarning  # noqa: E402
-from lagsieve.inputs import (  # noqa: E402
+from lagsieve.errors import InputErrors, InputProblem, InputWarning
+from lagsieve.io.readers import (
     FRAME_COLUMNS,
     check_positive,
     read_inputs,

@@ -1,4 +1,4 @@
-"""Tests for lagsieve.multiplicity.bh_qvalues.
+"""Tests for lagsieve.stats.multiplicity.bh_qvalues.
 
 Outside sources named beside each check:
 - statsmodels.stats.multitest.multipletests(p, method="fdr_bh")[1] (adjusted p-values).
@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 from statsmodels.stats.multitest import multipletests
 
-from lagsieve.multiplicity import bh_qvalues
+from lagsieve.stats.multiplicity import bh_qvalues
 
 
 @pytest.mark.parametrize("seed", range(5))

@@ -9,8 +9,8 @@ import json
 
 import pandas as pd
 
-from lagsieve.evidence import FLAGS, GRADES
-from lagsieve.stages import EVIDENCE_COLUMNS, SCREEN_COLUMNS
+from lagsieve.evidence.vocabulary import FLAGS, GRADES
+from lagsieve.pipeline import EVIDENCE_COLUMNS, SCREEN_COLUMNS
 
 CONTRACT_SCREEN = ["response", "driver", "lag", "model", "n", "first_year", "last_year", "r", "p_naive",
                    "n_eff", "p_adjusted", "r_detrended", "r_diff", "slope", "slope_se"]

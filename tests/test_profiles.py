@@ -10,7 +10,6 @@ import os
 import re
 import subprocess
 import sys
-from pathlib import Path
 
 import pytest
 import yaml

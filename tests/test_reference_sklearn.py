@@ -6,7 +6,7 @@ import numpy as np
 from sklearn.linear_model import LinearRegression
 from sklearn.model_selection import TimeSeriesSplit
 
-from lagsieve.validation import rolling_origin
+from lagsieve.stats.backtest import rolling_origin
 
 
 def test_rolling_origin_equals_sklearn_expanding_splits():

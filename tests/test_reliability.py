@@ -14,8 +14,9 @@ import pytest
 import yaml
 
 from conftest import REPO, init_study, lagsieve
-from lagsieve import screening, stages
-from lagsieve.config import load_study, slug
+from lagsieve.screen import response as screening
+from lagsieve import pipeline as stages
+from lagsieve.io.config import load_study, slug
 
 
 def _run_stages(cfg, out):

@@ -1,4 +1,4 @@
-"""Tests of the evidence report (lagsieve.report, lagsieve.figures, stages.run_report).
+"""Tests of the evidence report (lagsieve.report.html, lagsieve.report.figures, stages.run_report).
 
 Two studies are screened once per session by calling the stage functions directly:
 
@@ -24,9 +24,11 @@ import pandas as pd
 import pytest
 import yaml
 
-from lagsieve import stages
-from lagsieve.config import REPO_ROOT, load_study, slug
-from lagsieve.evidence import FLAGS, GRADE_RULES
+from lagsieve import pipeline as stages
+from lagsieve.io.config import load_study, slug
+
+REPO = Path(__file__).resolve().parents[1]
+from lagsieve.evidence.vocabulary import FLAGS, GRADE_RULES
 
 HOSTILE = "<script>alert(1)</script>"
 HOSTILE_TITLE = 'Tiny <img src=x onerror="alert(2)"> & "study"'
@@ -77,7 +79,7 @@ def write_config(path: Path, raw: dict) -> Path:
 
 def tiny_config(dirpath: Path, **over) -> Path:
     """Two responses, three drivers of the demo data, hostile labels; ``over`` replaces keys."""
-    demo_dir = REPO_ROOT / "resources" / "demo"
+    demo_dir = REPO / "resources" / "demo"
     raw = {
         "study": "tiny_escape",
         "title": HOSTILE_TITLE,
@@ -117,7 +119,7 @@ def png_ok(data: bytes) -> tuple[bool, float]:
 @pytest.fixture(scope="session")
 def demo(tmp_path_factory):
     base = tmp_path_factory.mktemp("demo")
-    src = REPO_ROOT / "config" / "config.yaml"
+    src = REPO / "config" / "config.yaml"
     raw = yaml.safe_load(src.read_text(encoding="utf-8"))
     raw["inputs"] = [str((src.parent / p).resolve()) for p in raw["inputs"]]
     raw["screen"]["surrogates"] = 99
@@ -243,7 +245,7 @@ def test_panels_of_top_hypotheses(demo):
 
 
 def test_methods_generated_from_run(demo):
-    from lagsieve.report import Context, methods_paragraphs
+    from lagsieve.report.html import Context, methods_paragraphs
 
     h, st = demo["html"], demo["study"]
     methods = h.split('id="methods-text"')[1].split("</div>")[0]
@@ -302,7 +304,7 @@ def test_pdf_has_pages_and_study_id(demo):
 def test_pdf_fallback_with_matplotlib(tiny, tmp_path):
     from pypdf import PdfReader
 
-    from lagsieve.report import write_pdf
+    from lagsieve.report.html import write_pdf
 
     uris = re.findall(r'src="data:image/png;base64,([A-Za-z0-9+/=]+)"', tiny["html"])[:3]
     out = tmp_path / "report.pdf"
@@ -352,7 +354,7 @@ def test_no_pdf_and_no_banner_when_configured(tiny):
 
 
 def test_r_critical():
-    from lagsieve.figures import r_critical
+    from lagsieve.report.figures import r_critical
 
     rc = r_critical([27.0, 12.0, 2.0, 1.0])
     assert rc[0] == pytest.approx(0.3809, abs=2e-4)
@@ -361,7 +363,7 @@ def test_r_critical():
 
 
 def test_mpl_text_escapes_dollar():
-    from lagsieve.figures import mpl_text
+    from lagsieve.report.figures import mpl_text
 
     assert mpl_text("$5 and $6") == r"\$5 and \$6"
 
@@ -369,7 +371,7 @@ def test_mpl_text_escapes_dollar():
 def test_report_survives_missing_pieces(tiny, tmp_path):
     """No forecasts, no nulls, a failed hypothesis without a lag, a driver without a label: the
     report still renders, and leaves out (never fakes) the panels it has no data for."""
-    from lagsieve.report import build_report
+    from lagsieve.report.html import build_report
 
     res, cfg = tiny["res"], tiny["cfg"]
     study = load_study(cfg)

@@ -1,4 +1,4 @@
-"""Tests for lagsieve.statistics (batched correlation statistics).
+"""Tests for lagsieve.stats.correlation (batched correlation statistics).
 
 Outside sources named beside each check:
 - Pearson r and its t-test p: scipy.stats.pearsonr.
@@ -18,9 +18,7 @@ import statsmodels.api as sm
 from scipy import stats
 
 from conftest import ar1
-from lagsieve import statistics as st
-
-
+from lagsieve.stats import correlation as st
 _ar1 = ar1  # shared simulator (conftest)
 
 

@@ -19,10 +19,8 @@ import pytest
 from statsmodels.regression.linear_model import yule_walker
 
 from conftest import ar1
-from lagsieve import statistics as st
-from lagsieve import surrogates as su
-
-
+from lagsieve.stats import correlation as st
+from lagsieve.stats import surrogates as su
 _ar1 = ar1  # shared simulator (conftest)
 
 

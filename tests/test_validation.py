@@ -1,5 +1,5 @@
-"""Tests for lagsieve.validation (rolling-origin forecasts, baselines, skill, DM-HLN, re-test)
-and for the out-of-sample parts of lagsieve.screening.screen_hypothesis.
+"""Tests for lagsieve.stats.backtest (rolling-origin forecasts, baselines, skill, DM-HLN, re-test)
+and for the out-of-sample parts of lagsieve.screen.response.screen_hypothesis.
 
 Outside sources named beside each check:
 - Diebold & Mariano 1995, J. Bus. Econ. Stat. 13:253-263, with the small-sample correction of
@@ -21,10 +21,12 @@ import statsmodels.api as sm
 from scipy import stats
 
 from conftest import ar1
-from lagsieve import config, evidence, screening
-from lagsieve import statistics as st
-from lagsieve import validation as va
-from lagsieve.alignment import forecast_frame, shift_batch
+from lagsieve.io import config
+from lagsieve.evidence import grading as evidence
+from lagsieve.screen import response as screening
+from lagsieve.stats import correlation as st
+from lagsieve.stats import backtest as va
+from lagsieve.prep.align import forecast_frame, shift_batch
 
 
 def _ar1(rng, n, phi, burn=50):

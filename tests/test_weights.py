@@ -5,8 +5,8 @@ import numpy as np
 import pandas as pd
 import statsmodels.api as sm
 
-from lagsieve.alignment import inverse_variance_weights, se_table
-from lagsieve.validation import rolling_origin
+from lagsieve.prep.align import inverse_variance_weights, se_table
+from lagsieve.stats.backtest import rolling_origin
 
 
 def test_weighted_rolling_origin_matches_statsmodels_wls():

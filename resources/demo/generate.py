@@ -10,10 +10,10 @@ import sys
 from pathlib import Path
 
 try:
-    from lagsieve.demo import DEFAULT_SEED, write_demo
+    from lagsieve.demo.simulate import DEFAULT_SEED, write_demo
 except ImportError:  # running from a source checkout without installing the package
     sys.path.insert(0, str(Path(__file__).resolve().parents[2] / "src"))
-    from lagsieve.demo import DEFAULT_SEED, write_demo
+    from lagsieve.demo.simulate import DEFAULT_SEED, write_demo
 
 
 def main(argv: list[str]) -> int:

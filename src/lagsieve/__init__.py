@@ -2,7 +2,7 @@
 
 All computation is importable without Snakemake; see DEVELOPERS.md for the module map.
 """
-from .provenance import tool_version
+from lagsieve.io.provenance import tool_version
 
 __version__ = tool_version()
 __all__ = ["__version__"]

@@ -10,8 +10,8 @@ import subprocess
 import sys
 from pathlib import Path
 
-from .config import REPO_ROOT
-from .errors import InputErrors, report_problems
+from lagsieve.io.config import WORKFLOW
+from lagsieve.errors import InputErrors, report_problems
 
 EXIT_USER = 2
 
@@ -22,7 +22,7 @@ def _err(msg: str) -> int:
 
 
 def cmd_init(args) -> int:
-    from .demo import demo_config_text, write_demo
+    from lagsieve.demo.simulate import demo_config_text, write_demo
 
     d = Path(args.dir)
     cfg = d / "config.yaml"
@@ -36,7 +36,7 @@ def cmd_init(args) -> int:
 
 
 def _check(config: str):
-    from .stages import check_study
+    from lagsieve.pipeline import check_study
 
     return check_study(config)
 
@@ -62,11 +62,10 @@ def cmd_run(args, extra: list[str]) -> int:
     cfg = Path(args.config).resolve()
     out = Path(args.out).resolve() if args.out else cfg.parent / "results"
     out.mkdir(parents=True, exist_ok=True)
-    cmd = [sys.executable, "-m", "snakemake", "--snakefile", str(REPO_ROOT / "Snakefile"),
+    cmd = [sys.executable, "-m", "snakemake", "--snakefile", str(WORKFLOW / "Snakefile"),
            "--directory", str(out), "--cores", str(args.cores),
            "--config", f"study_config={cfg}", f"out={out}", *extra]
     env = dict(os.environ)
-    env["PYTHONPATH"] = os.pathsep.join(filter(None, [str(REPO_ROOT / "src"), env.get("PYTHONPATH")]))
     if args.resume:
         # a killed run leaves Snakemake's lock and its incomplete-job markers behind
         subprocess.run(cmd + ["--unlock"], env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
@@ -79,7 +78,7 @@ def cmd_run(args, extra: list[str]) -> int:
 
 def cmd_ledger(args) -> int:
     try:
-        from .ledger import print_track_record
+        from lagsieve.ledger.store import print_track_record
     except ImportError:
         return _err("the forecast ledger is not available in this version")
     try:

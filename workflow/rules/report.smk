@@ -3,7 +3,7 @@
 # sets `report.pdf: false`, a PDF copy (report.pdf beside the HTML).
 # report.pdf is a declared output when every study of the run wants it; in a run that mixes
 # studies with and without it, the PDFs are still written but not tracked by Snakemake.
-from lagsieve.stages import pdf_wanted as _pdf_wanted
+from lagsieve.pipeline import pdf_wanted as _pdf_wanted
 
 REPORT_INPUT = dict(
     config=cfg,

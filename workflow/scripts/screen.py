@@ -1,7 +1,7 @@
-# Thin wrapper: stage `screen` for one response (see lagsieve.stages.run_screen).
+# Thin wrapper: stage `screen` for one response (see lagsieve.pipeline.run_screen).
 from pathlib import Path
 
-from lagsieve.stages import logged, run_screen
+from lagsieve.pipeline import logged, run_screen
 
 with logged(snakemake):
     run_screen(snakemake.input.config, None, snakemake.wildcards.response,

@@ -6,6 +6,7 @@ runs the same from any working directory.
 from __future__ import annotations
 
 import copy
+import importlib.resources
 import functools
 import re
 from dataclasses import dataclass
@@ -15,13 +16,13 @@ from typing import Any
 import jsonschema
 import yaml
 
-from .errors import InputErrors, InputProblem
+from lagsieve.errors import InputErrors, InputProblem
 
 # libyaml's safe loader when PyYAML was built with it (same safety, about ten times faster)
 SafeLoader = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
 
-REPO_ROOT = Path(__file__).resolve().parents[2]
-SCHEMA_PATH = REPO_ROOT / "workflow" / "schemas" / "config.schema.yaml"
+WORKFLOW = importlib.resources.files("lagsieve.workflow")  # the Snakefile, rules and schema
+SCHEMA_FILE = WORKFLOW / "schemas" / "config.schema.yaml"
 
 SCREEN_DEFAULTS: dict[str, Any] = {
     "lags": [0, 1, 2, 3],
@@ -92,7 +93,7 @@ class Study:
 def _validator() -> jsonschema.Draft202012Validator:
     """The config schema's validator, built once per process (planning thousands of studies
     would otherwise re-read and re-compile the schema for each)."""
-    with open(SCHEMA_PATH, encoding="utf-8") as fh:
+    with SCHEMA_FILE.open(encoding="utf-8") as fh:
         return jsonschema.Draft202012Validator(yaml.load(fh, Loader=SafeLoader))
 
 

@@ -53,7 +53,7 @@ from typing import Any, Iterable, Mapping
 import numpy as np
 import pandas as pd
 
-from .errors import InputErrors, InputProblem, InputWarning
+from lagsieve.errors import InputErrors, InputProblem, InputWarning
 
 __all__ = [
     "YEAR_MIN",

@@ -14,11 +14,11 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from . import statistics as st
-from .alignment import forecast_frame, inverse_variance_weights, shift_batch
-from .surrogates import make_surrogates
-from .gam import fit_pspline, partial_effect, shape_word, smooth_p_value
-from .validation import BASELINES, diebold_mariano, retest, rolling_origin
+from lagsieve.stats import correlation as st
+from lagsieve.prep.align import forecast_frame, inverse_variance_weights, shift_batch
+from lagsieve.stats.surrogates import make_surrogates
+from lagsieve.stats.splines import fit_pspline, partial_effect, shape_word, smooth_p_value
+from lagsieve.stats.backtest import BASELINES, diebold_mariano, retest, rolling_origin
 
 MIN_FORECASTS = 5
 

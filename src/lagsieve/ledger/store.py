@@ -65,9 +65,9 @@ import numpy as np
 import pandas as pd
 from scipy import stats as _st
 
-from .alignment import forecast_frame
-from .config import Study, load_study
-from .validation import BASELINES, baseline_design
+from lagsieve.prep.align import forecast_frame
+from lagsieve.io.config import Study, load_study
+from lagsieve.stats.backtest import BASELINES, baseline_design
 
 SCHEMA_VERSION = "1"
 LEVEL = 0.80
@@ -259,7 +259,7 @@ def _ols_forecast(W: np.ndarray, y: np.ndarray, w0: np.ndarray, level: float, we
 def _gam_forecast(x, y, Z, x0: float, z0, level: float, weights=None):
     """Baseline + penalised spline of the driver, forecast at (x0, z0) with an approximate
     prediction interval; returns (forecast, lower, upper, residual sd)."""
-    from .gam import fit_pspline, predict_pspline
+    from lagsieve.stats.splines import fit_pspline, predict_pspline
 
     other = Z[:, 1:]
     trend = other[:, 0] if other.shape[1] else None
@@ -316,15 +316,15 @@ def next_year_forecast(table: pd.DataFrame, raw: pd.DataFrame, transforms: dict[
                        ) -> tuple[NextYearForecast | None, str]:
     """Forecast the first response year not yet observed with the candidate model.
 
-    ``table`` is the wide transformed annual table (:func:`lagsieve.stages.load_table`), ``raw``
+    ``table`` is the wide transformed annual table (:func:`lagsieve.pipeline.load_table`), ``raw``
     the same before transforms. With ``se`` (standard errors on the transformed scale, as
-    :func:`lagsieve.alignment.se_table`; given when ``screen.weights`` is inverse-variance)
+    :func:`lagsieve.prep.align.se_table`; given when ``screen.weights`` is inverse-variance)
     every fit is weighted by 1/se^2, as in the screen; ``raw_se`` (before transforms) then
     enters the training hash. Returns (forecast, "") or (None, the reason no forecast can be
     made, in words).
 
     With ``model='gam'`` (the form the screen chose) the candidate is the baseline plus a
-    penalised spline of the driver (:func:`lagsieve.gam.fit_pspline`, the baseline's
+    penalised spline of the driver (:func:`lagsieve.stats.splines.fit_pspline`, the baseline's
     non-intercept term entering as an unpenalised linear term, smoothing by GCV), and its
     interval is the approximate t_{n - edf} interval with variance sigma^2 (1 + edf / n)
     (average leverage in place of the exact leverage of the new point).
@@ -346,7 +346,7 @@ def next_year_forecast(table: pd.DataFrame, raw: pd.DataFrame, transforms: dict[
     yT = float(y_all.loc[T])
     wts = None
     if se is not None:
-        from .alignment import inverse_variance_weights
+        from lagsieve.prep.align import inverse_variance_weights
 
         wts = inverse_variance_weights(se[response].to_numpy(dtype=float)[rows])
     fcs = {}
@@ -454,14 +454,14 @@ class StudyData:
 
     @classmethod
     def load(cls, study: Study, annual_csv: str | Path) -> "StudyData":
-        from .stages import load_table
+        from lagsieve.pipeline import load_table
 
         annual = pd.read_csv(annual_csv)
         transforms = study.transforms()
         raw = annual.pivot(index="year", columns="series", values="value").astype(float)
         se = raw_se = None
         if study.screen.get("weights") == "inverse-variance":
-            from .alignment import se_table
+            from lagsieve.prep.align import se_table
 
             se = se_table(annual, transforms)
             raw_se = annual.pivot(index="year", columns="series", values="se").astype(float)
@@ -480,7 +480,7 @@ class StudyData:
 
 
 def _input_hashes(study: Study) -> dict[str, str]:
-    from .provenance import sha256_file
+    from lagsieve.io.files import sha256_file
 
     out = {}
     for spec in study.inputs:
@@ -515,8 +515,9 @@ def update_ledger(config_path: str | Path, annual_csv: str | Path, evidence_csv:
     after the transaction has committed: study, status (``recorded`` or ``unchanged``), run_id,
     the numbers of forecasts new, scored and superseded, and the ledger's path.
     """
-    from .provenance import sha256_file, tool_version
-    from .stages import write_json
+    from lagsieve.io.files import sha256_file
+    from lagsieve.io.provenance import tool_version
+    from lagsieve.io.files import write_json
 
     study = load_study(config_path)
     data = StudyData.load(study, annual_csv)

@@ -3,20 +3,20 @@ its outputs atomically (temporary name, then rename). The Snakemake scripts are 
 """
 from __future__ import annotations
 
-import json
 import os
 import sys
-import tempfile
 import time
 from contextlib import contextmanager
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
-from .alignment import annual_table
-from .config import Study, load_study, slug
-from .errors import InputErrors, InputProblem
+from lagsieve.prep.align import annual_table
+from lagsieve.io.config import Study, load_study, slug
+from lagsieve.errors import InputErrors, InputProblem, report_problems
+from lagsieve.io.files import sha256_file, write_csv, write_json, write_text
 
 SCREEN_COLUMNS = ["response", "driver", "lag", "model", "n", "first_year", "last_year", "r", "p_naive",
                   "n_eff", "p_adjusted", "r_detrended", "p_detrended", "r_diff", "slope", "slope_se",
@@ -55,37 +55,6 @@ def logged(smk):
             raise
 
 
-# ---------------------------------------------------------------- atomic writes
-@contextmanager
-def atomic_path(path: str | Path):
-    """Yield a temporary path beside ``path``; on success rename it into place."""
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
-    os.close(fd)
-    try:
-        yield Path(tmp)
-        os.replace(tmp, path)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise
-
-
-def write_csv(df: pd.DataFrame, path: str | Path) -> None:
-    with atomic_path(path) as tmp:
-        df.to_csv(tmp, index=False, float_format="%.10g", lineterminator="\n")
-
-
-def write_text(text: str, path: str | Path) -> None:
-    with atomic_path(path) as tmp:
-        Path(tmp).write_text(text, encoding="utf-8")
-
-
-def write_json(obj, path: str | Path) -> None:
-    write_text(json.dumps(obj, indent=2, sort_keys=True, default=str) + "\n", path)
-
-
 def ordered(df: pd.DataFrame, columns: list[str]) -> pd.DataFrame:
     """Contract columns first (created empty when their stage has not produced them)."""
     out = df.copy()
@@ -95,13 +64,91 @@ def ordered(df: pd.DataFrame, columns: list[str]) -> pd.DataFrame:
     return out[columns + [c for c in out.columns if c not in columns]]
 
 
+# ---------------------------------------------------------------- plan (what the Snakefile needs at parse time)
+@dataclass(frozen=True)
+class PlannedStudy:
+    study: Study
+    config_path: str
+    input_paths: list[str]
+    response_inputs: dict[str, list[str]]  # response slug -> files holding it or its drivers
+
+    @property
+    def response_slugs(self) -> list[str]:
+        return [slug(r) for r in self.study.response_ids]
+
+
+def study_configs(config: dict, default: str = "config/config.yaml") -> list[str]:
+    """Config paths from Snakemake's config: ``study_config`` (one path, or several separated by
+    commas) or ``studies`` (a list), else the default demo config."""
+    if config.get("studies"):
+        items = config["studies"]
+        return [str(p) for p in (items if isinstance(items, list) else str(items).split(","))]
+    value = config.get("study_config", default)
+    return [p for p in str(value).split(",") if p]
+
+
+FULL_CHECK_LIMIT = 50
+
+
+def _response_inputs(st: Study, annual, inputs: list[str]) -> dict[str, list[str]]:
+    """For every response, the input files that hold it or one of its drivers, so that a
+    screen job depends on exactly those files. Without the checked table (large batches),
+    every response depends on every input."""
+    if annual is None or "file" not in annual:
+        return {slug(r): list(inputs) for r in st.response_ids}
+    shown = [spec["path"] for spec in st.inputs]
+    by_series: dict[str, set[str]] = {}
+    for sid, f in zip(annual["series"], annual["file"]):
+        by_series.setdefault(sid, set()).add(str(f))
+    out = {}
+    for r in st.response_ids:
+        wanted = {r} | {d["id"] for d in st.drivers_for(r)}
+        files = set().union(*(by_series.get(w, set()) for w in wanted))
+        out[slug(r)] = [full for full, written in zip(inputs, shown) if written in files] or list(inputs)
+    return out
+
+
+def plan_studies(config: dict, check: bool = True) -> dict[str, PlannedStudy]:
+    """Load every study config; a user's mistake prints one line per problem and exits 2.
+
+    Up to ``FULL_CHECK_LIMIT`` studies (or with ``check_inputs=true`` in Snakemake's
+    config) every input file is checked too, before any job starts, so a bad input never
+    leaves a partial result; larger batches check the configs only and leave the inputs to
+    each study's jobs (``lagsieve check`` checks a study on its own).
+    """
+    planned: dict[str, PlannedStudy] = {}
+    paths = study_configs(config)
+    full = check and str(config.get("check_inputs", len(paths) <= FULL_CHECK_LIMIT)).lower() in ("true", "1", "yes")
+    try:
+        for path in paths:
+            annual = None
+            if full:
+                from lagsieve.pipeline import check_study
+
+                st, annual, _, _ = check_study(path)
+            else:
+                st = load_study(path)
+            if st.study in planned:
+                print(f"{path}: key 'study': id '{st.study}' is used by two configs; give each study its own id",
+                      file=sys.stderr)
+                sys.exit(2)
+            inputs = []
+            for spec in st.inputs:
+                p = Path(spec["path"])
+                inputs.append(str(p if p.is_absolute() else st.base_dir / p))
+            planned[st.study] = PlannedStudy(st, str(st.path), inputs, _response_inputs(st, annual, inputs))
+    except InputErrors as exc:
+        sys.exit(report_problems(exc))
+    return planned
+
+
 # ---------------------------------------------------------------- check and align
 def check_study(config_path: str | Path):
     """Load the config and every input; return (study, annual, notes, warnings).
 
     Raises :class:`InputErrors` with one problem per line for anything the user must fix.
     """
-    from .inputs import check_positive, read_inputs, series_warnings, to_annual
+    from lagsieve.io.readers import check_positive, read_inputs, series_warnings, to_annual
 
     study = load_study(config_path)
     long, warnings = read_inputs(study.inputs, study.base_dir)
@@ -176,7 +223,7 @@ def load_table(study: Study, annual_csv: str | Path) -> pd.DataFrame:
 def response_annual(study: Study, response_id: str, files: list[str] | None = None) -> pd.DataFrame:
     """The tidy annual data of one response and its drivers, read from ``files`` only (the
     inputs that hold them; default: every input), exactly as `align` reads them."""
-    from .inputs import read_inputs, to_annual
+    from lagsieve.io.readers import read_inputs, to_annual
 
     specs = study.inputs
     if files is not None:
@@ -199,8 +246,8 @@ def run_screen(config_path, annual_csv, response_id: str, out_dir, threads: int 
     """
     from threadpoolctl import threadpool_limits
 
-    from .alignment import annual_table, se_table
-    from .screening import screen_response
+    from lagsieve.prep.align import annual_table, se_table
+    from lagsieve.screen.response import screen_response
 
     study = load_study(config_path)
     by_slug = {slug(r): r for r in study.response_ids}
@@ -226,7 +273,7 @@ def response_dirs(work: str | Path, study: Study) -> dict[str, Path]:
 # ---------------------------------------------------------------- evidence
 def run_evidence(config_path, annual_csv, work_dir, out_screen, out_evidence) -> None:
     """Stage `evidence`: study-wide q-values, flags, grades and ranks."""
-    from .evidence import build_evidence
+    from lagsieve.evidence.grading import build_evidence
 
     study = load_study(config_path)
     table = load_table(study, annual_csv)
@@ -260,9 +307,9 @@ def run_report(config_path, annual_csv, notes_csv, work_dir, screen_csv, evidenc
     """
     import importlib.metadata as md
 
-    from .figures import FigureRenderer
-    from .provenance import package_versions, sha256_file, tool_version
-    from .report import build_report, pdf_summary_lines, write_pdf
+    from lagsieve.report.figures import FigureRenderer
+    from lagsieve.io.provenance import package_versions, tool_version
+    from lagsieve.report.html import build_report, pdf_summary_lines, write_pdf
 
     t0 = time.time() if started is None else started
     study = load_study(config_path)
@@ -306,7 +353,7 @@ def run_report(config_path, annual_csv, notes_csv, work_dir, screen_csv, evidenc
     workers = threads if threads else min(4, os.cpu_count() or 1)
     pdf_path = Path(out_pdf) if out_pdf else Path(out_report).with_name("report.pdf")
     with FigureRenderer(figures_dir, workers) as renderer:
-        from .ledger import ledger_section_html, resolve_ledger_path
+        from lagsieve.ledger.store import ledger_section_html, resolve_ledger_path
 
         since = ledger_section_html(resolve_ledger_path(study, Path(out_report).parent), study, evidence)
         html, figs = build_report(study, table, screen, evidence, forecasts, nulls, notes, prov, figures_dir,

@@ -25,10 +25,10 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from . import figures as fg
-from .alignment import lagged_pair
-from .config import slug
-from .evidence import FLAGS, GRADE_RULES, GRADES
+from lagsieve.report import figures as fg
+from lagsieve.prep.align import lagged_pair
+from lagsieve.io.config import slug
+from lagsieve.evidence.vocabulary import FLAGS, GRADE_RULES, GRADES
 
 # ----------------------------------------------------------------------------- fixed text
 CAUTIONS = [
@@ -233,7 +233,7 @@ def _gam_rows(ctx: Context, rid, did) -> pd.DataFrame:
 def _gam_fit(ctx: Context, rid, did, lag: int):
     """Refit the penalised spline of one pair for the figures (same settings as the screen:
     GCV smoothness, default basis, optional year term); None when it cannot be fitted."""
-    from .gam import fit_pspline, partial_effect
+    from lagsieve.stats.splines import fit_pspline, partial_effect
 
     pair = lagged_pair(ctx.table, rid, did, lag)
     if pair.n < 8 or np.ptp(pair.x) <= 0:
@@ -299,7 +299,7 @@ def plan_figures(ctx: Context) -> tuple[list[fg.FigureJob], dict, dict]:
     tables["coverage"] = pd.DataFrame(cov_rows)
 
     # driver collinearity
-    from .evidence import COLLINEAR_R, driver_correlations
+    from lagsieve.evidence.grading import COLLINEAR_R, driver_correlations
 
     drv = [d for d in dids if d in ctx.table.columns]
     if len(drv) >= 2:
@@ -622,7 +622,7 @@ def _data(ctx: Context, figs: dict, tables: dict) -> str:
                 f"<li><code>{e(_str(r['series']))}</code>: {e(_str(r['reason']))}</li>"
                 for r in warns.to_dict("records")) + "</ul>")
     if "driver_correlation" in figs:
-        from .evidence import COLLINEAR_R
+        from lagsieve.evidence.vocabulary import COLLINEAR_R
 
         out.append('<h3>Collinearity of the drivers</h3>')
         out.append(_img(figs, "driver_correlation", "driver-driver correlation heatmap",
@@ -1038,7 +1038,7 @@ def _page(ctx: Context, body: str) -> str:
 
 # ----------------------------------------------------------------------------- build
 def _write_tables(ctx: Context, tables: dict, panels: dict, jobs: list, figures_dir: Path) -> None:
-    from .stages import write_csv
+    from lagsieve.io.files import write_csv
 
     write_csv(ctx.evidence, figures_dir / "evidence_table.csv")
     rows = []
@@ -1133,7 +1133,7 @@ def write_pdf(html_text: str, path: str | Path, *, study_id: str, title: str, su
     PdfPages writes the title, cautions and summary as text followed by the figures
     (``figures``: (caption, base64 PNG) pairs).
     """
-    from .stages import atomic_path
+    from lagsieve.io.files import atomic_path
 
     engine = engine or pdf_engine()
     if engine == "weasyprint":
@@ -1158,7 +1158,7 @@ def _pdf_matplotlib(path, *, study_id, title, summary, figures, invented) -> Non
     import matplotlib.pyplot as plt
     from matplotlib.backends.backend_pdf import PdfPages
 
-    from .stages import atomic_path
+    from lagsieve.io.files import atomic_path
 
     lines: list[tuple[str, float, str]] = [(f"Driver screening: {title}", 13, "bold"), (f"study {study_id}", 9, "normal")]
     if invented:

@@ -521,7 +521,7 @@ def truth_markdown(data: DemoData) -> str:
     a("# TRUTH: how the invented demo data were made")
     a("")
     a("**All data in this folder are INVENTED.** \"Merrow hake\", the \"Caldrin Shelf\", its surveys "
-      "and its assessment model do not exist; every number was drawn by `lagsieve.demo` from "
+      "and its assessment model do not exist; every number was drawn by `lagsieve.demo.simulate` from "
       f"`numpy.random.default_rng({data.seed})`. Nothing here describes a real stock, place, "
       "survey or agency. This file is written by the generator "
       "(`python resources/demo/generate.py`), not by hand, so it matches the data.")
@@ -683,7 +683,7 @@ def demo_config_text(data_dir: str = "resources/demo") -> str:
     d = str(data_dir).replace("\\", "/").rstrip("/") or "."
     return f'''\
 # lagsieve study configuration: the INVENTED demonstration study.
-# Every number in the data files is invented by lagsieve.demo (seed {DEFAULT_SEED}).
+# Every number in the data files is invented by lagsieve.demo.simulate (seed {DEFAULT_SEED}).
 # "Merrow hake", the "Caldrin Shelf", its surveys and its assessment do not exist.
 # TRUTH.md next to the data says how the data were made and what the screen should find.
 # Paths below are relative to the folder of this file.

@@ -31,8 +31,8 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy import stats as _st
 
-from .linalg import expanding_cross
-from .gam import bspline_basis, default_n_basis, difference_penalty, expanding_penalised
+from lagsieve.stats.linalg import expanding_cross
+from lagsieve.stats.splines import bspline_basis, default_n_basis, difference_penalty, expanding_penalised
 
 BASELINES = ("climatology", "persistence", "trend")
 

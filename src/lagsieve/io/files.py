@@ -1,0 +1,54 @@
+"""Files the stages write and read: atomic writes (temporary name, then rename) and hashes.
+
+Every output of lagsieve goes through :func:`atomic_path`, so a killed job never leaves a
+half-written file under a final name.
+"""
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+import tempfile
+from contextlib import contextmanager
+from pathlib import Path
+
+import pandas as pd
+
+
+@contextmanager
+def atomic_path(path: str | Path):
+    """Yield a temporary path beside ``path``; on success rename it into place."""
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    os.close(fd)
+    try:
+        yield Path(tmp)
+        os.replace(tmp, path)
+    except BaseException:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+        raise
+
+
+def write_csv(df: pd.DataFrame, path: str | Path) -> None:
+    with atomic_path(path) as tmp:
+        df.to_csv(tmp, index=False, float_format="%.10g", lineterminator="\n")
+
+
+def write_text(text: str, path: str | Path) -> None:
+    with atomic_path(path) as tmp:
+        Path(tmp).write_text(text, encoding="utf-8")
+
+
+def write_json(obj, path: str | Path) -> None:
+    write_text(json.dumps(obj, indent=2, sort_keys=True, default=str) + "\n", path)
+
+
+def sha256_file(path: str | Path, chunk: int = 1 << 20) -> str:
+    """SHA-256 hex digest of a file, read in chunks (the file is opened read-only)."""
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for block in iter(lambda: fh.read(chunk), b""):
+            h.update(block)
+    return h.hexdigest()
