@@ -1,37 +1,22 @@
-"""Shared fixtures: a copy of the invented demo study in a temporary folder."""
+"""Shared fixtures: a copy of the invented demo study in a temporary folder, run once.
+
+Plain helpers (run the command line, write a study, simulate a series) are in helpers.py.
+A test that uses ``demo_run`` runs Snakemake, so it is marked ``slow`` here (no test can
+forget it): ``python -m pytest -m "not slow"`` leaves every Snakemake run out.
+"""
 from __future__ import annotations
 
-import os
-import subprocess
-import sys
-from pathlib import Path
-
 import pytest
-import yaml
 
-REPO = Path(__file__).resolve().parents[1]
+from helpers import init_study, lagsieve
 
-
-def lagsieve(*args, cwd=None, check=False):
-    """Run the command line in a subprocess (as a user would), return CompletedProcess."""
-    env = dict(os.environ, PYTHONPATH=str(REPO / "src"), MPLBACKEND="Agg")
-    proc = subprocess.run([sys.executable, "-m", "lagsieve.cli", *map(str, args)], cwd=cwd, env=env,
-                          capture_output=True, text=True)
-    if check and proc.returncode != 0:
-        raise AssertionError(proc.stdout + proc.stderr)
-    return proc
+SLOW_FIXTURES = {"demo_run"}
 
 
-def init_study(folder: Path, **screen) -> Path:
-    """`lagsieve init` into ``folder``; override screen settings; return the config path."""
-    proc = lagsieve("init", folder, check=True)
-    assert "wrote" in proc.stdout
-    cfg = folder / "config.yaml"
-    if screen:
-        data = yaml.safe_load(cfg.read_text())
-        data["screen"].update(screen)
-        cfg.write_text(yaml.safe_dump(data, sort_keys=False))
-    return cfg
+def pytest_collection_modifyitems(config, items):
+    for item in items:
+        if SLOW_FIXTURES & set(getattr(item, "fixturenames", ())):
+            item.add_marker(pytest.mark.slow)
 
 
 @pytest.fixture(scope="session")
@@ -44,14 +29,3 @@ def demo_run(tmp_path_factory):
     proc = lagsieve("run", cfg, "--cores", "2", cwd=elsewhere)
     assert proc.returncode == 0, proc.stdout[-3000:] + proc.stderr[-3000:]
     return cfg, root / "study" / "results" / "caldrin_shelf_demo"
-
-
-def ar1(rng, n, phi, burn=100):
-    """A simulated AR(1) series x_t = phi x_{t-1} + e_t (standard normal e), after a burn-in."""
-    import numpy as np
-
-    e = rng.normal(size=n + burn)
-    x = np.zeros(n + burn)
-    for t in range(1, n + burn):
-        x[t] = phi * x[t - 1] + e[t]
-    return x[burn:]

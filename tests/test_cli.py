@@ -2,12 +2,14 @@
 from __future__ import annotations
 
 import hashlib
+import subprocess
+import sys
 from pathlib import Path
 
 import pytest
 import yaml
 
-from conftest import init_study, lagsieve
+from helpers import REPO, init_study, lagsieve
 
 
 @pytest.fixture()
@@ -99,19 +101,14 @@ def test_run_writes_nothing_on_bad_input(study):
     assert _hashes(study.parent / "data") == before  # inputs never modified
 
 
+@pytest.mark.slow
 def test_snakemake_direct_bad_config_exits_2(study, tmp_path):
     """`snakemake` itself (not the CLI) refuses a bad study before any job runs."""
-    import os
-    import subprocess
-    import sys
-
-    from conftest import REPO
-
     _set_value(study.parent / "data" / "indices_long.csv", 3, "abc")
     out = tmp_path / "out"
     proc = subprocess.run([sys.executable, "-m", "snakemake", "--snakefile", str(REPO / "Snakefile"), "--cores", "1",
                            "--directory", str(tmp_path), "--config", f"study_config={study}", f"out={out}"],
-                          capture_output=True, text=True, env=dict(os.environ, PYTHONPATH=str(REPO / "src")))
+                          capture_output=True, text=True)
     assert proc.returncode != 0
     assert "indices_long.csv:3: series 'zooplankton_index'" in proc.stderr + proc.stdout
     assert not out.exists()

@@ -37,9 +37,10 @@ import yaml
 
 from lagsieve.demo.simulate import demo_config_text, write_demo
 
+from helpers import REPO
+
 pytestmark = pytest.mark.slow  # real Snakemake runs (about a minute)
 
-REPO = Path(__file__).resolve().parents[1]
 STUDY = "caldrin_shelf_demo"
 RESPONSES = ("m--age2", "m--age3-4", "m--age5plus")
 
@@ -67,7 +68,7 @@ class Workflow:
         cmd = [sys.executable, "-m", "snakemake", *self.targets, "--snakefile", str(REPO / "Snakefile"),
                "--directory", str(self.out), "--cores", "2", *args,
                "--config", f"study_config={self.config}", f"out={self.out}"]
-        env = dict(os.environ, PYTHONPATH=str(REPO / "src"), MPLBACKEND="Agg")
+        env = dict(os.environ, MPLBACKEND="Agg")
         proc = subprocess.run(cmd, capture_output=True, text=True, env=env, cwd=self.root)
         assert proc.returncode == 0, proc.stdout[-3000:] + proc.stderr[-3000:]
         return proc

@@ -8,9 +8,12 @@ from __future__ import annotations
 import json
 
 import pandas as pd
+import pytest
 
 from lagsieve.evidence.vocabulary import FLAGS, GRADES
 from lagsieve.pipeline import EVIDENCE_COLUMNS, SCREEN_COLUMNS
+
+pytestmark = pytest.mark.slow  # the demo study through Snakemake (fixture demo_run)
 
 CONTRACT_SCREEN = ["response", "driver", "lag", "model", "n", "first_year", "last_year", "r", "p_naive",
                    "n_eff", "p_adjusted", "r_detrended", "r_diff", "slope", "slope_se"]

@@ -6,7 +6,6 @@ environment, but no cluster: a dry run submits nothing. Without the plugin it is
 from __future__ import annotations
 
 import importlib.util
-import os
 import re
 import subprocess
 import sys
@@ -14,7 +13,7 @@ import sys
 import pytest
 import yaml
 
-from conftest import REPO, init_study
+from helpers import REPO, init_study
 
 PROFILE = REPO / "profiles" / "slurm"
 PLUGIN = "snakemake_executor_plugin_slurm"
@@ -50,17 +49,17 @@ def test_profile_uses_the_slurm_executor_with_documented_resources():
     assert (PROFILE / "README.md").is_file()
 
 
+@pytest.mark.slow
 @pytest.mark.skipif(importlib.util.find_spec(PLUGIN) is None,
                     reason="the SLURM dry run needs the executor plugin: "
                            "python -m pip install snakemake-executor-plugin-slurm")
 def test_dry_run_with_the_slurm_profile(tmp_path):
     cfg = init_study(tmp_path / "study")
     out = tmp_path / "results"
-    env = dict(os.environ, PYTHONPATH=str(REPO / "src"))
     proc = subprocess.run(
         [sys.executable, "-m", "snakemake", "-n", "--profile", str(PROFILE), "--snakefile", str(REPO / "Snakefile"),
          "--directory", str(out), "--config", f"study_config={cfg}", f"out={out}"],
-        cwd=tmp_path, env=env, capture_output=True, text=True)
+        cwd=tmp_path, capture_output=True, text=True)
     log = proc.stdout + proc.stderr
     assert proc.returncode == 0, log[-3000:]
     assert "This was a dry-run" in log

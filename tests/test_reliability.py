@@ -13,10 +13,11 @@ import pandas as pd
 import pytest
 import yaml
 
-from conftest import REPO, init_study, lagsieve
-from lagsieve.screen import response as screening
 from lagsieve import pipeline as stages
 from lagsieve.io.config import load_study, slug
+from lagsieve.screen import response as screening
+
+from helpers import init_study, lagsieve
 
 
 def _run_stages(cfg, out):
@@ -69,8 +70,8 @@ def test_failure_in_one_hypothesis_is_contained(tmp_path, monkeypatch):
 def test_killed_run_resumes(tmp_path):
     cfg = init_study(tmp_path / "s", surrogates=99)
     out = tmp_path / "s" / "results"
-    env = dict(os.environ, PYTHONPATH=str(REPO / "src"), MPLBACKEND="Agg")
-    proc = subprocess.Popen([sys.executable, "-m", "lagsieve.cli", "run", str(cfg), "--cores", "1"],
+    env = dict(os.environ, MPLBACKEND="Agg")
+    proc = subprocess.Popen([sys.executable, "-m", "lagsieve", "run", str(cfg), "--cores", "1"],
                             env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, start_new_session=True)
     responses = out / "caldrin_shelf_demo" / "work" / "responses"
     deadline = time.time() + 180

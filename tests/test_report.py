@@ -7,7 +7,7 @@ Two studies are screened once per session by calling the stage functions directl
 * ``tiny``: two responses and three drivers of the demo data, with hostile labels and title
   (``<script>alert(1)</script>``, quotes, ``$`` signs) to check escaping.
 
-The helpers here are also used by ``test_browser.py``.
+The shared helpers (run_study, make_report, tiny_config) are in ``helpers.py``.
 """
 from __future__ import annotations
 
@@ -16,8 +16,6 @@ import hashlib
 import io
 import json
 import re
-from concurrent.futures import ProcessPoolExecutor
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -25,83 +23,14 @@ import pytest
 import yaml
 
 from lagsieve import pipeline as stages
+from lagsieve.evidence.vocabulary import FLAGS, GRADE_RULES
 from lagsieve.io.config import load_study, slug
 
-REPO = Path(__file__).resolve().parents[1]
-from lagsieve.evidence.vocabulary import FLAGS, GRADE_RULES
-
-HOSTILE = "<script>alert(1)</script>"
-HOSTILE_TITLE = 'Tiny <img src=x onerror="alert(2)"> & "study"'
-DOLLAR_LABEL = 'Cost of $5 & "quoted" <b>bold</b>'
+from helpers import (DOLLAR_LABEL, HOSTILE, HOSTILE_TITLE, REPO, make_report, run_study, tiny_config,
+                     write_config)
 
 
 # ----------------------------------------------------------------------------- helpers
-def _screen_one(args):
-    cfg, annual, rid, out = args
-    stages.run_screen(cfg, annual, rid, out)
-    return rid
-
-
-def run_study(cfg: Path, out: Path, parallel: bool = True) -> Path:
-    """align, screen (responses in parallel), evidence; returns the study's result folder."""
-    study = load_study(cfg)
-    res = out / study.study
-    work = res / "work"
-    stages.run_align(cfg, work / "annual.csv", work / "notes.csv")
-    jobs = [(cfg, work / "annual.csv", rid, work / "responses" / slug(rid)) for rid in study.response_ids]
-    if parallel and len(jobs) > 1:
-        import multiprocessing as mp
-
-        with ProcessPoolExecutor(max_workers=2, mp_context=mp.get_context("fork")) as ex:
-            list(ex.map(_screen_one, jobs))
-    else:
-        for j in jobs:
-            _screen_one(j)
-    stages.run_evidence(cfg, work / "annual.csv", work, res / "screen.csv", res / "evidence.csv")
-    return res
-
-
-def make_report(cfg: Path, res: Path, out: Path | None = None, screen_csv: Path | None = None) -> Path:
-    """run_report for a screened study into ``out`` (default: the result folder)."""
-    out = out or res
-    work = res / "work"
-    stages.run_report(cfg, work / "annual.csv", work / "notes.csv", work, screen_csv or res / "screen.csv",
-                      res / "evidence.csv", out / "report.html", out / "provenance.json", out / "figures",
-                      threads=2)
-    return out
-
-
-def write_config(path: Path, raw: dict) -> Path:
-    path.parent.mkdir(parents=True, exist_ok=True)
-    path.write_text(yaml.safe_dump(raw, sort_keys=False, allow_unicode=True), encoding="utf-8")
-    return path
-
-
-def tiny_config(dirpath: Path, **over) -> Path:
-    """Two responses, three drivers of the demo data, hostile labels; ``over`` replaces keys."""
-    demo_dir = REPO / "resources" / "demo"
-    raw = {
-        "study": "tiny_escape",
-        "title": HOSTILE_TITLE,
-        "description": "Test study </style><script>alert(3)</script>",
-        "invented": True,
-        "inputs": [str(demo_dir / f) for f in ("mortality_by_age.csv", "surveys_annual.csv", "indices_long.csv")],
-        "responses": [{"id": "m:age2", "label": "M age 2", "unit": "per year"},
-                      {"id": "m:age5plus", "label": "M age 5+"}],
-        "drivers": [
-            {"id": "forage_biomass", "label": HOSTILE, "transform": "log", "expected_sign": "negative",
-             "category": "prey", "unit": "kt"},
-            {"id": "bottom_oxygen", "label": DOLLAR_LABEL, "expected_sign": "negative", "category": "oxygen"},
-            {"id": "pinniped_abundance", "transform": "log", "expected_sign": "positive", "category": "predator"},
-        ],
-        "screen": {"lags": [0, 1], "models": ["linear", "gam"], "surrogates": 49, "seed": 7, "fdr": 0.1,
-                   "validation": {"initial_years": 15, "holdout_years": 5}},
-        "report": {"top": 2},
-    }
-    raw.update(over)
-    return write_config(dirpath / "config.yaml", raw)
-
-
 def data_uris(html_text: str) -> list[bytes]:
     return [base64.b64decode(m) for m in re.findall(r'src="data:image/png;base64,([A-Za-z0-9+/=]+)"', html_text)]
 

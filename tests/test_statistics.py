@@ -17,7 +17,7 @@ import pytest
 import statsmodels.api as sm
 from scipy import stats
 
-from conftest import ar1
+from helpers import ar1
 from lagsieve.stats import correlation as st
 _ar1 = ar1  # shared simulator (conftest)
 

@@ -18,7 +18,7 @@ import numpy as np
 import pytest
 from statsmodels.regression.linear_model import yule_walker
 
-from conftest import ar1
+from helpers import ar1
 from lagsieve.stats import correlation as st
 from lagsieve.stats import surrogates as su
 _ar1 = ar1  # shared simulator (conftest)

@@ -20,7 +20,7 @@ import pytest
 import statsmodels.api as sm
 from scipy import stats
 
-from conftest import ar1
+from helpers import ar1
 from lagsieve.io import config
 from lagsieve.evidence import grading as evidence
 from lagsieve.screen import response as screening
