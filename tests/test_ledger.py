@@ -22,6 +22,8 @@ import pytest
 import yaml
 
 from lagsieve.ledger import store as ledger
+from lagsieve.ledger.section import Block, LedgerSection
+from lagsieve.report.render import ledger_section_html, render_ledger_section
 
 from lagsieve import pipeline as stages
 from lagsieve.cli import main
@@ -253,7 +255,7 @@ def test_ledger_in_a_folder_with_uri_characters(tmp_path):
     db = tmp_path / "we#ird?%dir" / "l.sqlite"
     s1, _ = _record(db, _synthetic(), "k1", "t1")
     assert s1["status"] == "recorded"
-    html = ledger.ledger_section_html(db, "syn", None)
+    html = ledger_section_html(db, "syn", None)
     assert "the first run of this study in the ledger" in html and "cannot be read" not in html
 
 
@@ -493,25 +495,26 @@ def test_since_previous_run_lists_data_grades_and_outcomes(history):
         if (c.response, c.driver) in scored_keys:
             assert "the 2023 forecast " in c.reason and ("hit" in c.reason or "missed" in c.reason)
         assert c.reason
-    html = ledger.ledger_section_html(d.db, STUDY, history["r2024"]["evidence"])
+    html = ledger_section_html(d.db, STUDY, history["r2024"]["evidence"])
     assert html.startswith('<section id="since-previous-run">') and html.rstrip().endswith("</section>")
     assert "<h2>Since the previous run</h2>" in html
     assert "run 3 recorded" in html and "compared with run 2" in html
     assert "<td>forage_biomass</td><td>2024</td><td></td><td>2010</td>" in html
     assert "training data changed: forage_biomass 2010 restated" in html
     assert "does not match" not in html
-    stale = ledger.ledger_section_html(d.db, STUDY, history["r2022"]["evidence"])
+    stale = ledger_section_html(d.db, STUDY, history["r2022"]["evidence"])
     assert "does not match the grades of this report" in stale
 
 
 def test_section_html_is_escaped_and_never_raises(tmp_path):
     odd = tmp_path / "a<b&c" / "ledger.sqlite"
-    html = ledger.ledger_section_html(odd, STUDY, None)
+    html = ledger_section_html(odd, STUDY, None)
     assert "a&lt;b&amp;c" in html and "a<b" not in html and "No forecast ledger" in html
     bad = tmp_path / "junk.sqlite"
     bad.write_bytes(b"not a database at all" * 100)
-    assert "cannot be read" in ledger.ledger_section_html(bad, STUDY, None)
-    change = ledger._table(["x"], [["moderate -> weak: <b>"]])
+    assert "cannot be read" in ledger_section_html(bad, STUDY, None)
+    change = render_ledger_section(LedgerSection("read", "p", STUDY, blocks=[
+        Block("table", header=["x"], rows=[["moderate -> weak: <b>"]])]))
     assert "moderate -&gt; weak: &lt;b&gt;" in change
 
 

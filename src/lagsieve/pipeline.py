@@ -309,7 +309,9 @@ def run_report(config_path, annual_csv, notes_csv, work_dir, screen_csv, evidenc
 
     from lagsieve.report.figures import FigureRenderer
     from lagsieve.io.provenance import package_versions, tool_version
+    from lagsieve.ledger.store import resolve_ledger_path
     from lagsieve.report.html import build_report, pdf_summary_lines, write_pdf
+    from lagsieve.report.render import ledger_section_html
 
     t0 = time.time() if started is None else started
     study = load_study(config_path)
@@ -353,8 +355,6 @@ def run_report(config_path, annual_csv, notes_csv, work_dir, screen_csv, evidenc
     workers = threads if threads else min(4, os.cpu_count() or 1)
     pdf_path = Path(out_pdf) if out_pdf else Path(out_report).with_name("report.pdf")
     with FigureRenderer(figures_dir, workers) as renderer:
-        from lagsieve.ledger.store import ledger_section_html, resolve_ledger_path
-
         since = ledger_section_html(resolve_ledger_path(study, Path(out_report).parent), study, evidence)
         html, figs = build_report(study, table, screen, evidence, forecasts, nulls, notes, prov, figures_dir,
                                   annual=annual, renderer=renderer, extra_sections=since)

@@ -51,7 +51,6 @@ Tables (SQLite, one file, several studies may share it)
 from __future__ import annotations
 
 import hashlib
-import html
 import json
 import math
 import sqlite3
@@ -881,140 +880,12 @@ def since_previous_run(con, study: str, run_id: int | None = None) -> SinceLastR
                         scored, superseded, made, notes, track_record(con, study), len(runs))
 
 
-# ---------------------------------------------------------------- the report section
-_e = html.escape
-
-
+# ---------------------------------------------------------------- number text
 def _n(v, fmt="{:.3f}") -> str:
+    """A number as text; empty for a missing value (the track record's cells)."""
     if v is None or (isinstance(v, float) and math.isnan(v)):
         return ""
     return fmt.format(float(v))
-
-
-def _table(header: list[str], rows: list[list[str]], cls: str = "sortable") -> str:
-    """An HTML table; every cell is escaped here."""
-    head = "".join(f"<th>{_e(h)}</th>" for h in header)
-    body = "".join("<tr>" + "".join(f"<td>{_e(str(c))}</td>" for c in r) + "</tr>" for r in rows)
-    return f'<table class="{cls}"><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>'
-
-
-def _study_id(study) -> str:
-    return study.study if isinstance(study, Study) else str(study)
-
-
-def ledger_section_html(ledger_path: str | Path, study, evidence_df: pd.DataFrame | None = None) -> str:
-    """The report section "Since the previous run", as an escaped HTML fragment (one <section>).
-
-    ``ledger_path``: the ledger file (see :func:`resolve_ledger_path`, or the ``ledger`` entry
-    of ``work/ledger_update.json``); ``study``: the study id or :class:`Study`; ``evidence_df``:
-    this report's evidence.csv, used to say whether the ledger has recorded these results.
-    Never raises for a missing or unreadable ledger: the section then says so.
-    """
-    sid = _study_id(study)
-    out = ['<section id="since-previous-run">', "<h2>Since the previous run</h2>"]
-    path = Path(ledger_path)
-    if not path.is_file():
-        out.append(f'<p class="muted">No forecast ledger at {_e(str(path))} yet: it is written by the '
-                   "<code>ledger</code> step of the workflow.</p></section>")
-        return "\n".join(out)
-    try:
-        con = open_readonly(path)
-        try:
-            if not _has_schema(con):
-                raise sqlite3.DatabaseError("no ledger tables")
-            s = since_previous_run(con, sid)
-            latest_grades = (_frame(con, "SELECT response, driver, grade, lag FROM grades WHERE run_id = ?",
-                                    (int(s.run["run_id"]),)) if s.run else None)
-        finally:
-            con.close()
-    except sqlite3.DatabaseError as exc:
-        out.append(f'<p class="muted">The forecast ledger {_e(str(path))} cannot be read ({_e(str(exc))}).</p></section>')
-        return "\n".join(out)
-    if s.run is None:
-        out.append(f'<p class="muted">The ledger {_e(str(path))} holds no run of study {_e(sid)} yet.</p></section>')
-        return "\n".join(out)
-    r = s.run
-    lead = (f"Ledger {path.name}: run {int(r['run_id'])} recorded {r['created_utc']} (lagsieve {r['tool_version']}), "
-            + (f"compared with run {int(s.previous['run_id'])} recorded {s.previous['created_utc']}."
-               if s.previous else "the first run of this study in the ledger: nothing to compare with yet."))
-    out.append(f'<p class="muted">{_e(lead)} A run is recorded only when the data or the grades change.</p>')
-    if evidence_df is not None and latest_grades is not None:
-        mine = grade_rows(evidence_df)[["response", "driver", "grade", "lag"]]
-        theirs = latest_grades.sort_values(["response", "driver"]).reset_index(drop=True)
-        same = (len(mine) == len(theirs)
-                and mine["grade"].tolist() == theirs["grade"].tolist()
-                and mine[["response", "driver"]].values.tolist() == theirs[["response", "driver"]].values.tolist())
-        if not same:
-            out.append('<p class="caution">The latest run in the ledger does not match the grades of this report: '
-                       "the ledger step has not recorded these results.</p>")
-    # data
-    out.append("<h3>Data</h3>")
-    d = s.data
-    if s.previous is None:
-        rows = [[x.series, _years_text(x.added)] for x in d.itertuples()]
-        out.append(_table(["series", "years recorded"], rows))
-    else:
-        ch = [x for x in d.itertuples() if x.added or x.filled_in or x.restated or x.removed]
-        if ch:
-            out.append(_table(["series", "years added", "years filled in", "years restated", "years removed"],
-                              [[x.series, _years_text(x.added), _years_text(x.filled_in), _years_text(x.restated),
-                                _years_text(x.removed)] for x in ch]))
-        else:
-            out.append("<p>No year was added or restated in any series.</p>")
-    # grades
-    if s.previous is not None:
-        out.append("<h3>Grade changes</h3>")
-        if len(s.grade_changes):
-            out.append(_table(["response", "driver", "change", "reason"],
-                              [[g.response, g.driver, f"{g.before or '(none)'} -> {g.after or '(none)'}", g.reason]
-                               for g in s.grade_changes.itertuples()]))
-        else:
-            out.append("<p>No hypothesis changed grade.</p>")
-    # forecasts
-    out.append("<h3>Forecasts scored at this run</h3>")
-    if len(s.scored):
-        out.append(_table(["response", "driver", "year", "forecast", "interval", "observed", "outcome",
-                           "hardest baseline", "baseline forecast"],
-                          [[f.response, f.driver, int(f.target_year), _n(f.forecast), f"{_n(f.lower)} to {_n(f.upper)}",
-                            _n(f.observed), "inside" if f.inside else "outside", f.baseline,
-                            _n(getattr(f, f"fc_{f.baseline}"))] for f in s.scored.itertuples()]))
-    else:
-        out.append("<p>None: no forecast year has arrived since the previous run.</p>")
-    if len(s.superseded):
-        out.append("<h3>Forecasts superseded at this run (not scored)</h3>")
-        out.append(_table(["response", "driver", "year", "forecast", "reason"],
-                          [[f.response, f.driver, int(f.target_year), _n(f.forecast), f.superseded_reason]
-                           for f in s.superseded.itertuples()]))
-    out.append("<h3>Forecasts made at this run</h3>")
-    if len(s.made):
-        out.append(_table(["response", "driver", "grade", "year", "forecast", "interval", "candidate"],
-                          [[f.response, f.driver, f.grade, int(f.target_year), _n(f.forecast),
-                            f"{_n(f.lower)} to {_n(f.upper)}",
-                            f"{f.baseline} + {f.driver} (lag {int(f.lag)}, "
-                            + ("penalised spline)" if f.screen_model == "gam" else "straight line)")]
-                           for f in s.made.itertuples()]))
-    else:
-        out.append("<p>None.</p>")
-    if len(s.notes):
-        out.append("<p>Hypotheses graded strong or moderate without a forecast:</p>")
-        out.append(_table(["response", "driver", "grade", "why no forecast"],
-                          [[x.response, x.driver, x.grade, x.note] for x in s.notes.itertuples()]))
-    out.append("<h3>Track record</h3>")
-    if len(s.track):
-        out.append(_table(["response", "driver", "made", "open", "scored", "superseded", "inside interval",
-                           "MAE", "skill vs hardest", "closer than hardest", "latest"],
-                          [[t.response, t.driver, t.made, t.open, t.scored, t.superseded,
-                            f"{t.inside}/{t.scored}" if t.scored else "", _n(t.mae), _n(t.skill_hardest, "{:+.2f}"),
-                            f"{t.beat_hardest}/{t.scored}" if t.scored else "", t.last] for t in s.track.itertuples()]))
-    else:
-        out.append("<p>No forecast has been made yet.</p>")
-    out.append(f'<p class="muted">Each forecast is made with the candidate model (the hardest baseline plus the '
-               f"driver at its selected lag) fitted on every observed year, with an {int(LEVEL * 100)}% prediction "
-               "interval from its training residuals. Skill is 1 - SSE(candidate) / SSE(baseline) over the scored "
-               "years, against the baseline forecasts made at the same time. A forecast whose training data were "
-               "restated later is superseded and never scored.</p>")
-    out.append("</section>")
-    return "\n".join(out)
 
 
 # ---------------------------------------------------------------- command line
