@@ -1,4 +1,5 @@
-"""Tests of lagsieve.io.readers: reading tables, annual series, warnings.
+"""Tests of the inputs: reading tables (lagsieve.io.readers, lagsieve.io.tables), annual
+series (lagsieve.prep.annual) and checks and warnings (lagsieve.prep.checks).
 
 Malformed inputs covered (one parametrised case each in ``MALFORMED``; every case asserts
 InputErrors, one line per problem, the file name, the row and series where they apply, and a
@@ -76,14 +77,10 @@ from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
 
 from lagsieve.errors import InputErrors, InputProblem, InputWarning
-from lagsieve.io.readers import (
-    FRAME_COLUMNS,
-    check_positive,
-    read_inputs,
-    read_table,
-    series_warnings,
-    to_annual,
-)
+from lagsieve.io.readers import read_inputs, read_table
+from lagsieve.io.tables import FRAME_COLUMNS
+from lagsieve.prep.annual import to_annual
+from lagsieve.prep.checks import check_positive, series_warnings
 
 ID = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]*(:[A-Za-z0-9][A-Za-z0-9_.-]*)?$")
 

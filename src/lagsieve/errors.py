@@ -5,7 +5,10 @@ fix it. The command line prints one line per problem and exits with status 2.
 """
 from __future__ import annotations
 
+import difflib
+import sys
 from dataclasses import dataclass, field
+from typing import Any, Iterable
 
 
 @dataclass(frozen=True)
@@ -51,8 +54,6 @@ class InputErrors(Exception):
 
 def report_problems(exc: "InputErrors", stream=None) -> int:
     """Print one line per problem (to stderr by default); return the user-error exit status 2."""
-    import sys
-
     stream = sys.stderr if stream is None else stream
     for p in exc.problems:
         print(p.line(), file=stream)
@@ -80,3 +81,50 @@ class InputWarning:
             where.append(f"series '{self.series}'")
         prefix = ": ".join(where)
         return f"warning: {prefix}: {self.what}" if prefix else f"warning: {self.what}"
+
+
+# ----------------------------------------------------------------------------- message parts
+
+def show(value: Any, limit: int = 40) -> str:
+    """A user's cell or setting as a short, single-line, printable text for messages."""
+    text = value if isinstance(value, str) else str(value)
+    if len(text) > limit:
+        text = text[: limit - 3] + "..."
+    if text.isprintable():
+        return text
+    return "".join(c if c.isprintable() else repr(c)[1:-1] for c in text)
+
+
+def fmt_number(x: float) -> str:
+    """A number as messages and notes write it (six significant digits)."""
+    return f"{x:.6g}"
+
+
+def nearest(word: str, choices: Iterable[str], n: int = 3) -> list[str]:
+    """The ``n`` choices most like ``word`` (difflib's similarity ratio), best first.
+
+    Choices above difflib's usual cutoff (0.6) come first; when none is that close the
+    best-scoring ones are returned anyway, so a message can always show the user something
+    to pick from. Empty only when there are no choices.
+    """
+    pool = sorted(set(choices))
+    close = difflib.get_close_matches(word, pool, n=n)
+    if close:
+        return close
+
+    def distance(choice: str) -> tuple[float, str]:  # ties in alphabetical order
+        return -difflib.SequenceMatcher(None, word, choice).ratio(), choice
+
+    return sorted(pool, key=distance)[:n]
+
+
+def suggest(word: str, choices: Iterable[str], what: str = "ids", n: int = 3) -> str:
+    """A hint naming the nearest of ``choices``: "did you mean 'x'?" when one is close,
+    else "<what> found: a, b, c..." (the most similar first)."""
+    pool = sorted(set(choices))
+    close = difflib.get_close_matches(word, pool, n=1)
+    if close:
+        return f"did you mean '{close[0]}'?"
+    best = nearest(word, pool, n)
+    more = "..." if len(pool) > len(best) else ""
+    return f"{what} found: {', '.join(best)}{more}" if best else f"no {what} found"

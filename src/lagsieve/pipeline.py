@@ -14,8 +14,11 @@ import numpy as np
 import pandas as pd
 
 from lagsieve.prep.align import annual_table
+from lagsieve.prep.annual import to_annual
+from lagsieve.prep.checks import check_positive, series_warnings
 from lagsieve.io.config import Study, load_study, slug
-from lagsieve.errors import InputErrors, InputProblem, report_problems
+from lagsieve.io.readers import read_inputs
+from lagsieve.errors import InputErrors, InputProblem, report_problems, suggest
 from lagsieve.io.files import sha256_file, write_csv, write_json, write_text
 
 SCREEN_COLUMNS = ["response", "driver", "lag", "model", "n", "first_year", "last_year", "r", "p_naive",
@@ -148,56 +151,54 @@ def check_study(config_path: str | Path):
 
     Raises :class:`InputErrors` with one problem per line for anything the user must fix.
     """
-    from lagsieve.io.readers import check_positive, read_inputs, series_warnings, to_annual
-
     study = load_study(config_path)
     long, warnings = read_inputs(study.inputs, study.base_dir)
-    problems: list[InputProblem] = []
-    present = set(long["series"].unique())
-    cfg = str(study.path)
-    for role, items in (("responses", study.responses), ("drivers", study.drivers)):
-        for i, s in enumerate(items):
-            if s["id"] not in present:
-                near = sorted(present, key=lambda p: _distance(p, s["id"]))[:3]
-                problems.append(InputProblem(
-                    what="no input file holds this series",
-                    fix=f"check the id or add its file to inputs (series found: {', '.join(near)}...)",
-                    file=cfg, key=f"{role}.{i}.id", series=s["id"]))
-    if problems:
-        raise InputErrors(problems)
+    _raise_any(_absent_series(study, set(long["series"].unique())))
     wanted = set(study.response_ids) | set(study.driver_ids)
     long = long[long["series"].isin(wanted)]
     annual, notes = to_annual(long, study.series_options())
+    problems: list[InputProblem] = []
     for s in study.responses + study.drivers:
         problems += check_positive(annual, s["id"], s.get("transform", "none"), long)
-    if problems:
-        raise InputErrors(problems)
+    _raise_any(problems)
     if study.screen.get("weights") == "inverse-variance":
-        for i, r in enumerate(study.responses):
-            rows = annual[annual["series"] == r["id"]]
-            bad = rows[~(rows["se"] > 0)] if "se" in rows else rows
-            if len(bad):
-                problems.append(InputProblem(
-                    what=f"screen.weights is inverse-variance but {len(bad)} year(s) have no positive se "
-                         f"(first: {int(bad['year'].iloc[0])})",
-                    fix="add an se or cv column for this response, or set screen.weights: none",
-                    file=cfg, key=f"responses.{i}", series=r["id"]))
-        if problems:
-            raise InputErrors(problems)
+        _raise_any(_responses_without_se(study, annual))
     units = {s["id"]: s["unit"] for s in study.responses + study.drivers if s.get("unit")}
     warnings = list(warnings) + list(series_warnings(annual, study.screen["min_overlap"], units))
     return study, annual, notes, warnings
 
 
-def _distance(a: str, b: str) -> int:
-    """Levenshtein distance, to suggest the nearest series id."""
-    prev = list(range(len(b) + 1))
-    for i, ca in enumerate(a, 1):
-        cur = [i]
-        for j, cb in enumerate(b, 1):
-            cur.append(min(prev[j] + 1, cur[j - 1] + 1, prev[j - 1] + (ca != cb)))
-        prev = cur
-    return prev[-1]
+def _raise_any(problems: list[InputProblem]) -> None:
+    if problems:
+        raise InputErrors(problems)
+
+
+def _absent_series(study: Study, present: set[str]) -> list[InputProblem]:
+    """A problem for every configured series that no input holds, naming the nearest id."""
+    problems = []
+    for role, items in (("responses", study.responses), ("drivers", study.drivers)):
+        for i, s in enumerate(items):
+            if s["id"] not in present:
+                problems.append(InputProblem(
+                    what="no input file holds this series",
+                    fix=f"check the id or add its file to inputs ({suggest(s['id'], present, 'series')})",
+                    file=str(study.path), key=f"{role}.{i}.id", series=s["id"]))
+    return problems
+
+
+def _responses_without_se(study: Study, annual: pd.DataFrame) -> list[InputProblem]:
+    """Inverse-variance weights need a positive se in every year of every response."""
+    problems = []
+    for i, r in enumerate(study.responses):
+        rows = annual[annual["series"] == r["id"]]
+        bad = rows[~(rows["se"] > 0)] if "se" in rows else rows
+        if len(bad):
+            problems.append(InputProblem(
+                what=f"screen.weights is inverse-variance but {len(bad)} year(s) have no positive se "
+                     f"(first: {int(bad['year'].iloc[0])})",
+                fix="add an se or cv column for this response, or set screen.weights: none",
+                file=str(study.path), key=f"responses.{i}", series=r["id"]))
+    return problems
 
 
 def run_align(config_path: str | Path, out_annual: str | Path, out_notes: str | Path) -> None:
@@ -223,8 +224,6 @@ def load_table(study: Study, annual_csv: str | Path) -> pd.DataFrame:
 def response_annual(study: Study, response_id: str, files: list[str] | None = None) -> pd.DataFrame:
     """The tidy annual data of one response and its drivers, read from ``files`` only (the
     inputs that hold them; default: every input), exactly as `align` reads them."""
-    from lagsieve.io.readers import read_inputs, to_annual
-
     specs = study.inputs
     if files is not None:
         keep = {str(Path(f).resolve()) for f in files}

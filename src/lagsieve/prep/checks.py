@@ -1,0 +1,100 @@
+"""Checks of the annual series before screening: values a transform cannot take (an error)
+and series that are short, constant, outlying or in an unexpected unit (warnings)."""
+from __future__ import annotations
+
+from typing import Mapping
+
+import numpy as np
+import pandas as pd
+
+from lagsieve.errors import InputProblem, InputWarning, fmt_number, show
+
+__all__ = ["check_positive", "series_warnings"]
+
+def check_positive(annual_df: pd.DataFrame, series: str, transform: str | None,
+                   sources: pd.DataFrame | None = None) -> list[InputProblem]:
+    """Problems for values a transform cannot take (``log``: > 0, ``log1p``: > -1).
+
+    Returns at most one problem: the first offending year, named with the file and row it
+    came from. When that annual value was computed from several rows (an aggregate), the
+    first offending row of the series in ``sources`` (the long frame) is named instead, if
+    any.
+    """
+    if transform in (None, "none"):
+        return []
+    if transform == "log":
+        limit, need = 0.0, "log needs values above 0"
+    elif transform == "log1p":
+        limit, need = -1.0, "log1p needs values above -1"
+    else:
+        return [InputProblem(what=f"transform '{show(transform)}' is unknown",
+                             fix="use transform: none, log or log1p", series=series)]
+    g = annual_df[annual_df["series"] == series].sort_values("year")
+    bad = g[g["value"] <= limit]
+    if bad.empty:
+        return []
+    first = bad.iloc[0]
+    file = None if pd.isna(first.get("file", None)) else str(first["file"])
+    row = None if pd.isna(first.get("row", pd.NA)) else int(first["row"])
+    value = float(first["value"])
+    if row is None and sources is not None and not sources.empty:
+        src = sources[(sources["series"] == series) & (sources["value"] <= limit)]
+        if not src.empty:
+            s0 = src.sort_values("row").iloc[0]
+            file, row = str(s0["file"]), int(s0["row"])
+    more = f", {len(bad)} years affected" if len(bad) > 1 else ""
+    return [InputProblem(
+        what=f"value {fmt_number(value)} in {int(first['year'])} cannot take the {transform} "
+             f"transform ({need}{more})",
+        fix="use transform: log1p or none for this series, or correct the value",
+        file=file, row=row, series=series)]
+
+
+def series_warnings(annual_df: pd.DataFrame, min_overlap: int,
+                    units_expected: Mapping[str, str | None] | None = None
+                    ) -> list[InputWarning]:
+    """Warnings about annual series: too short, constant, outlying values, unexpected unit.
+
+    * fewer observed (not filled) years than ``min_overlap``;
+    * constant: every value equal;
+    * outliers: values more than 4 scaled MADs (1.4826 * median absolute deviation, about 4
+      standard deviations for normal data) from the median, with year and value;
+    * a unit in the data that differs from ``units_expected[series]`` (the config's unit).
+    """
+    units_expected = units_expected or {}
+    out: list[InputWarning] = []
+    for sid, g in annual_df.groupby("series", sort=True):
+        file = str(g["file"].iat[0]) if "file" in g and g["file"].notna().any() else None
+        obs = g[~g["filled"].astype(bool)] if "filled" in g else g
+        v = obs["value"].to_numpy(dtype=float)
+        years = obs["year"].to_numpy(dtype="int64")
+        n = len(v)
+        if n < min_overlap:
+            span = f" ({years.min()}-{years.max()})" if n else ""
+            out.append(InputWarning(
+                what=f"only {n} observed year(s){span}, fewer than min_overlap {min_overlap}; "
+                     "it cannot be screened on its own years",
+                file=file, series=sid))
+        if n >= 2 and np.all(v == v[0]):
+            out.append(InputWarning(
+                what=f"all {n} values are {fmt_number(v[0])}; a constant series carries no signal",
+                file=file, series=sid))
+        elif n >= 5:
+            med = float(np.median(v))
+            mad = 1.4826 * float(np.median(np.abs(v - med)))
+            if mad > 0:
+                z = np.abs(v - med) / mad
+                for k in np.flatnonzero(z > 4):
+                    out.append(InputWarning(
+                        what=f"value {fmt_number(v[k])} in {int(years[k])} is {z[k]:.1f} scaled MADs "
+                             f"from the median {fmt_number(med)}; check it is not a typing error",
+                        file=file, series=sid))
+        expected = units_expected.get(sid)
+        if expected and "unit" in g:
+            found = sorted({str(u).strip() for u in g["unit"].dropna()} - {""})
+            for u in found:
+                if u != str(expected).strip():
+                    out.append(InputWarning(
+                        what=f"the data give unit '{show(u)}' but the config says "
+                             f"'{show(expected)}'", file=file, series=sid))
+    return out
