@@ -32,7 +32,13 @@ import numpy as np
 from scipy import stats as _st
 
 from lagsieve.stats.linalg import expanding_cross
-from lagsieve.stats.splines import bspline_basis, default_n_basis, difference_penalty, expanding_penalised
+from lagsieve.stats.splines import (
+    bspline_basis,
+    default_n_basis,
+    difference_penalty,
+    expanding_penalised,
+    penalty_block,
+)
 
 BASELINES = ("climatology", "persistence", "trend")
 
@@ -290,9 +296,7 @@ def gam_candidate(Z: np.ndarray, Xs: np.ndarray, y: np.ndarray, origins: np.ndar
     others = Z[:, 1:]  # baseline terms without the intercept
     S_, L_ = Xs.shape[:2]
     W = np.concatenate([np.broadcast_to(others, (S_, L_) + others.shape), B], axis=-1)
-    q0 = others.shape[1]
-    P = np.zeros((q0 + n_basis, q0 + n_basis))
-    P[q0:, q0:] = difference_penalty(n_basis, 2)
+    P = penalty_block(difference_penalty(n_basis, 2), others.shape[1])
     # centred on the first window's mean and shifted back: exact, because constants lie in
     # the span of the basis and in the null space of the penalty; it keeps the solver's tiny
     # ridge from acting in proportion to the response's level

@@ -43,6 +43,7 @@ __all__ = [
     "SHAPE_WORDS",
     "bspline_basis",
     "difference_penalty",
+    "penalty_block",
     "default_n_basis",
     "fit_pspline",
     "predict_pspline",
@@ -284,6 +285,48 @@ def fit_pspline(
         If some batch member has fewer used rows than ``p + 1`` coefficients
         (``p = 1 + has_trend + n_basis - 1``).
     """
+    rows = _usable_rows(x, y, trend, weights, mask)
+    if n_basis is None:
+        n_basis = default_n_basis(int(rows.n_used.min()) if rows.m else rows.n)
+    design = _constrained_design(rows, int(n_basis), int(degree), int(penalty_order))
+    form = _shifted_form(rows, design)
+    if lam is None:
+        grid = _check_grid(DEFAULT_LAM_GRID if lam_grid is None else lam_grid)
+        lam_used, gcv_all = _gcv_choice(form, rows, grid, gamma)
+        grid_out, gcv_grid = grid.copy(), gcv_all.reshape(rows.batch_shape + (grid.size,))
+    else:
+        lam_used = np.broadcast_to(np.asarray(lam, dtype=float), rows.batch_shape).reshape(rows.m)
+        if np.any(~np.isfinite(lam_used)) or np.any(lam_used < 0):
+            raise ValueError("lam must be finite and non-negative")
+        lam_used, grid_out, gcv_grid = lam_used.astype(float), None, None
+    return _final_fit(rows, design, form, lam_used, gamma, grid_out, gcv_grid)
+
+
+@dataclass(frozen=True)
+class _Rows:
+    """The rows of a batched fit, flattened to ``(m, n)`` (``m`` = batch members)."""
+
+    batch_shape: tuple
+    x: np.ndarray          # (m, n) covariate
+    y: np.ndarray          # (m, n) response
+    trend: np.ndarray | None  # (m, n) or None
+    ok_x: np.ndarray       # (m, n) x (and trend) finite: rows that get a fitted value
+    active: np.ndarray     # (m, n) rows used in the fit
+    w: np.ndarray          # (m, n) weights, 0 outside the used rows
+    y0: np.ndarray         # (m, n) response, 0 outside the used rows
+    n_used: np.ndarray     # (m,)
+
+    @property
+    def m(self) -> int:
+        return self.x.shape[0]
+
+    @property
+    def n(self) -> int:
+        return self.x.shape[1]
+
+
+def _usable_rows(x, y, trend, weights, mask) -> _Rows:
+    """Broadcast the arguments of :func:`fit_pspline` to one batch and find the used rows."""
     x = np.asarray(x, dtype=float)
     y = np.asarray(y, dtype=float)
     if x.ndim < 1 or y.ndim < 1:
@@ -301,189 +344,236 @@ def fit_pspline(
             raise ValueError(f"{name} has last axis {arr.shape[-1:]}, expected length {n}")
     batch_shape = np.broadcast_shapes(*(a.shape[:-1] for a in parts.values()))
     m = int(np.prod(batch_shape, dtype=int))
-
-    def flat(a):
-        return np.broadcast_to(a, batch_shape + (n,)).reshape(m, n)
-
-    xf, yf = flat(x), flat(y)
-    w = flat(parts["weights"]) if weights is not None else np.ones((m, n))
+    flat = {name: np.broadcast_to(a, batch_shape + (n,)).reshape(m, n) for name, a in parts.items()}
+    xf, yf, tf = flat["x"], flat["y"], flat.get("trend")
+    w = flat["weights"] if weights is not None else np.ones((m, n))
     ok_x = np.isfinite(xf)
-    if trend is not None:
-        tf = flat(parts["trend"])
+    if tf is not None:
         ok_x = ok_x & np.isfinite(tf)
     active = ok_x & np.isfinite(yf) & np.isfinite(w) & (w > 0)
     if mask is not None:
-        active &= flat(parts["mask"])
+        active &= flat["mask"]
     if np.any(w[np.isfinite(w)] < 0):
         raise ValueError("weights must be non-negative")
-    wa = np.where(active, w, 0.0)
-    ya = np.where(active, yf, 0.0)
-    n_used = active.sum(axis=1)
+    return _Rows(batch_shape=batch_shape, x=xf, y=yf, trend=tf, ok_x=ok_x, active=active,
+                 w=np.where(active, w, 0.0), y0=np.where(active, yf, 0.0), n_used=active.sum(axis=1))
 
-    n_fixed = 2 if trend is not None else 1
-    if n_basis is None:
-        n_basis = default_n_basis(int(n_used.min()) if m else n)
-    n_basis = int(n_basis)
-    p = n_fixed + n_basis - 1
-    if m and n_used.min() < p + 1:
-        bad = int(np.argmin(n_used))
-        who = f"batch member {np.unravel_index(bad, batch_shape)}" if batch_shape else "the series"
+
+@dataclass(frozen=True)
+class _Design:
+    """Constrained design of :func:`fit_pspline`: ``X = [1, (trend), B Z]``, penalty ``S``."""
+
+    basis: np.ndarray      # (m, n, K) B-splines
+    zmat: np.ndarray       # (m, K, K-1) null space of the sum-to-zero constraint
+    xmat: np.ndarray       # (m, n, p)
+    smat: np.ndarray       # (m, p, p) penalty, zero on the unpenalised terms
+    lo: np.ndarray         # (m,) knot range
+    hi: np.ndarray
+    n_fixed: int           # unpenalised terms: intercept (and trend)
+    degree: int
+    penalty_order: int
+    t_center: np.ndarray | None
+    t_scale: np.ndarray | None
+
+    @property
+    def n_basis(self) -> int:
+        return self.basis.shape[-1]
+
+    @property
+    def p(self) -> int:
+        return self.xmat.shape[-1]
+
+
+def _check_size(rows: _Rows, p: int, n_basis: int) -> None:
+    """Every batch member needs at least ``p + 1`` used rows for ``p`` coefficients."""
+    if rows.m and rows.n_used.min() < p + 1:
+        bad = int(np.argmin(rows.n_used))
+        shape = rows.batch_shape
+        who = f"batch member {np.unravel_index(bad, shape)}" if shape else "the series"
         raise ValueError(
-            f"{who} has {int(n_used[bad])} usable rows; at least {p + 1} are needed for "
+            f"{who} has {int(rows.n_used[bad])} usable rows; at least {p + 1} are needed for "
             f"{p} coefficients (n_basis={n_basis})"
         )
 
+
+def _centred_trend(rows: _Rows) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Trend column centred and scaled with the weighted moments of the used rows."""
+    wa, active, tf = rows.w, rows.active, rows.trend
+    sw = wa.sum(axis=1)
+    t_center = np.einsum("mn,mn->m", wa, np.where(active, tf, 0.0)) / sw
+    tc = np.where(rows.ok_x, tf, t_center[:, None]) - t_center[:, None]
+    t_var = np.einsum("mn,mn->m", wa, np.where(active, tc, 0.0) ** 2) / sw
+    t_scale = np.where(t_var > 0, np.sqrt(t_var), 1.0)
+    return tc / t_scale[:, None], t_center, t_scale
+
+
+def _constrained_design(rows: _Rows, n_basis: int, degree: int, penalty_order: int) -> _Design:
+    """B-splines on the used rows' range, the sum-to-zero constraint and the penalty."""
+    m, n = rows.m, rows.n
+    n_fixed = 2 if rows.trend is not None else 1
+    _check_size(rows, n_fixed + n_basis - 1, n_basis)
     # knot range from the used rows only
-    lo = np.where(active, xf, np.inf).min(axis=1)
-    hi = np.where(active, xf, -np.inf).max(axis=1)
-    xb = np.where(ok_x, xf, lo[:, None])
+    lo = np.where(rows.active, rows.x, np.inf).min(axis=1)
+    hi = np.where(rows.active, rows.x, -np.inf).max(axis=1)
+    xb = np.where(rows.ok_x, rows.x, lo[:, None])
     basis = bspline_basis(xb, n_basis, degree, lo, hi)             # (m, n, K)
-
     # sum-to-zero constraint C c = 0 with C = sum_i w_i B(x_i), via Householder: Z = H[:, 1:]
-    cvec = np.einsum("mn,mnk->mk", wa, basis)
+    cvec = np.einsum("mn,mnk->mk", rows.w, basis)
     zmat = _householder_null(cvec)                                  # (m, K, K-1)
-    smooth_cols = basis @ zmat                                      # (m, n, K-1)
-
     cols = [np.ones((m, n, 1))]
     t_center = t_scale = None
-    if trend is not None:
-        sw = wa.sum(axis=1)
-        t_center = np.einsum("mn,mn->m", wa, np.where(active, tf, 0.0)) / sw
-        tc = np.where(ok_x, tf, t_center[:, None]) - t_center[:, None]
-        t_var = np.einsum("mn,mn->m", wa, np.where(active, tc, 0.0) ** 2) / sw
-        t_scale = np.where(t_var > 0, np.sqrt(t_var), 1.0)
-        cols.append((tc / t_scale[:, None])[..., None])
-    cols.append(smooth_cols)
-    xmat = np.concatenate(cols, axis=2)                             # (m, n, p)
+    if rows.trend is not None:
+        tcol, t_center, t_scale = _centred_trend(rows)
+        cols.append(tcol[..., None])
+    cols.append(basis @ zmat)
+    pen = np.swapaxes(zmat, 1, 2) @ difference_penalty(n_basis, penalty_order) @ zmat
+    return _Design(basis=basis, zmat=zmat, xmat=np.concatenate(cols, axis=2),
+                   smat=penalty_block(pen, n_fixed), lo=lo, hi=hi, n_fixed=n_fixed,
+                   degree=degree, penalty_order=penalty_order, t_center=t_center, t_scale=t_scale)
 
-    pen_basis = difference_penalty(n_basis, penalty_order)
-    smat = np.zeros((m, p, p))
-    smat[:, n_fixed:, n_fixed:] = np.swapaxes(zmat, 1, 2) @ pen_basis @ zmat
 
-    xw = xmat * wa[..., None]
+@dataclass(frozen=True)
+class _ShiftedForm:
+    """Shifted Demmler-Reinsch form of ``X'WX + ridge + lam S`` for every batch member.
+
+    With ``C = X'WX + ridge + mu S = L L'`` and ``L^-1 S L^-T = U diag(theta) U'``,
+    ``X'WX + ridge + lam S = L U (I + (lam - mu) theta) U' L'``: one decomposition serves
+    every ``lam``, and the shift ``mu`` keeps it accurate when ``X'WX`` is ill-conditioned
+    (a B-spline with few data in its support).
+    """
+
+    mu: np.ndarray         # (m,)
+    theta: np.ndarray      # (m, p) in [0, 1 / mu]
+    keep: np.ndarray       # (m, p) 1 - mu theta: the data's share
+    back: np.ndarray       # (m, p, p) L^-T U
+    q: np.ndarray          # (m, p) U' L^-1 X'Wy
+    kdiag: np.ndarray      # (m, p) diag of U' L^-1 L^-T U (removes the ridge from the edf)
+    ridge: np.ndarray      # (m,)
+    rss_mu: np.ndarray     # (m,) RSS at lam = mu (cancellation-free start for the grid)
+
+    def factors(self, lams: np.ndarray) -> np.ndarray:
+        """(m, L) -> (m, L, p): 1 / (1 + (lam - mu) theta)."""
+        return _dr_factors(lams, self.mu, self.theta)
+
+    def coef(self, d: np.ndarray) -> np.ndarray:
+        """Coefficients for factors ``d`` (..., p): ``L^-T U diag(d) q``."""
+        return np.einsum("mpj,mj->mp", self.back, d * self.q)
+
+    def edf(self, d: np.ndarray) -> np.ndarray:
+        """Trace of the hat matrix for factors ``d`` (m, p)."""
+        return np.sum(d * (self.keep - self.ridge[:, None] * self.kdiag), axis=1)
+
+
+def _shifted_form(rows: _Rows, design: _Design) -> _ShiftedForm:
+    """The decomposition of :class:`_ShiftedForm`, one stacked numpy call per step."""
+    xmat, smat, p = design.xmat, design.smat, design.p
+    xw = xmat * rows.w[..., None]
     gram = np.swapaxes(xw, 1, 2) @ xmat                             # X'WX (m, p, p)
-    xty = np.einsum("mnp,mn->mp", xw, ya)                           # X'Wy (m, p)
+    xty = np.einsum("mnp,mn->mp", xw, rows.y0)                      # X'Wy (m, p)
     ridge = _RIDGE * np.trace(gram, axis1=1, axis2=2) / p
     gram_r = gram + ridge[:, None, None] * np.eye(p)
-
-    # Demmler-Reinsch form, shifted so that it stays accurate when X'WX is ill-conditioned (a
-    # B-spline with few data in its support): with C = X'WX + ridge + mu S = L L' and
-    # L^-1 S L^-T = U diag(theta) U', X'WX + ridge + lam S = L U (I + (lam - mu) theta) U' L'
-    mu = np.trace(gram_r, axis1=1, axis2=2) / np.maximum(np.trace(smat, axis1=1, axis2=2), 1e-300)
+    mu = _penalty_shift(gram_r, smat)
     chol = np.linalg.cholesky(gram_r + mu[:, None, None] * smat)
     linv = np.linalg.inv(chol)
     mmat = linv @ smat @ np.swapaxes(linv, 1, 2)
     theta, u_eig = np.linalg.eigh(0.5 * (mmat + np.swapaxes(mmat, 1, 2)))
     theta = np.clip(theta, 0.0, 1.0 / mu[:, None])
-    keep = 1.0 - mu[:, None] * theta                                # the data's share, in [0, 1]
     back = np.swapaxes(linv, 1, 2) @ u_eig                          # L^-T U  (m, p, p)
     q = np.einsum("mjp,mp->mj", np.swapaxes(u_eig, 1, 2) @ linv, xty)  # U' L^-1 X'Wy
-    # diag of U' L^-1 L^-T U, needed to remove the ridge from the edf exactly
-    kdiag = np.einsum("mpj,mpj->mj", back, back)
-
     # the fit at lam = mu (every factor 1), for a cancellation-free RSS over the whole grid
     beta_mu = np.einsum("mpj,mj->mp", back, q)
-    res_mu = ya - np.einsum("mnp,mp->mn", xmat, beta_mu)
-    rss_mu = np.einsum("mn,mn->m", wa, res_mu * res_mu) + ridge * np.sum(beta_mu**2, axis=1)
+    res_mu = rows.y0 - np.einsum("mnp,mp->mn", xmat, beta_mu)
+    rss_mu = np.einsum("mn,mn->m", rows.w, res_mu * res_mu) + ridge * np.sum(beta_mu**2, axis=1)
+    return _ShiftedForm(mu=mu, theta=theta, keep=1.0 - mu[:, None] * theta, back=back, q=q,
+                        kdiag=np.einsum("mpj,mpj->mj", back, back), ridge=ridge, rss_mu=rss_mu)
 
-    def factors(lams):  # (m, L) -> (m, L, p): 1 / (1 + (lam - mu) theta)
-        return 1.0 / (1.0 + (lams[..., None] - mu[:, None, None]) * theta[:, None, :])
 
-    def score(lams):  # lams (m, L) -> GCV (m, L), every batch member and grid value at once
-        d = factors(lams)                                           # (m, L, p)
-        beta = np.einsum("mpj,mlj->mlp", back, d * q[:, None, :])
-        one_d = 1.0 - d
-        th = (mu[:, None] * theta)[:, None, :]
-        rss = (
-            rss_mu[:, None]
-            + np.sum(q[:, None, :] ** 2 * (2.0 * one_d * th + one_d**2 * keep[:, None, :]), axis=2)
-            - ridge[:, None] * np.sum(beta**2, axis=2)
-        )
-        rss = np.clip(rss, 0.0, None)
-        edf = np.sum(d * (keep[:, None, :] - ridge[:, None, None] * kdiag[:, None, :]), axis=2)
-        gcv = _gcv(n_used[:, None], rss, edf, gamma)
-        return gcv
+def _grid_gcv(form: _ShiftedForm, rows: _Rows, lams: np.ndarray, gamma: float) -> np.ndarray:
+    """GCV (m, L) for every batch member and grid value ``lams`` (m, L) at once."""
+    d = form.factors(lams)                                          # (m, L, p)
+    q, mu, theta, ridge = form.q, form.mu, form.theta, form.ridge
+    beta = np.einsum("mpj,mlj->mlp", form.back, d * q[:, None, :])
+    one_d = 1.0 - d
+    th = (mu[:, None] * theta)[:, None, :]
+    rss = (
+        form.rss_mu[:, None]
+        + np.sum(q[:, None, :] ** 2 * (2.0 * one_d * th + one_d**2 * form.keep[:, None, :]), axis=2)
+        - ridge[:, None] * np.sum(beta**2, axis=2)
+    )
+    rss = np.clip(rss, 0.0, None)
+    edf = np.sum(d * (form.keep[:, None, :] - ridge[:, None, None] * form.kdiag[:, None, :]), axis=2)
+    return _gcv_score(rows.n_used[:, None], rss, edf, gamma)
 
-    grid_out = gcv_grid = None
-    if lam is None:
-        grid = DEFAULT_LAM_GRID if lam_grid is None else np.asarray(lam_grid, dtype=float)
-        grid = np.atleast_1d(grid).ravel()
-        if grid.size == 0 or np.any(~np.isfinite(grid)) or np.any(grid < 0):
-            raise ValueError("lam_grid must hold finite non-negative values")
-        gcv_all = score(np.broadcast_to(grid, (m, grid.size)))
-        if m and np.any(~np.isfinite(gcv_all).any(axis=1)):
-            raise ValueError("GCV is undefined for every lam (n_used <= gamma * edf)")
-        best = np.argmin(np.where(np.isfinite(gcv_all), gcv_all, np.inf), axis=1)
-        lam_used = grid[best]
-        grid_out, gcv_grid = grid.copy(), gcv_all.reshape(batch_shape + (grid.size,))
-    else:
-        lam_used = np.broadcast_to(np.asarray(lam, dtype=float), batch_shape).reshape(m)
-        if np.any(~np.isfinite(lam_used)) or np.any(lam_used < 0):
-            raise ValueError("lam must be finite and non-negative")
-        lam_used = lam_used.astype(float)
 
-    # final fit at the chosen lam (computed directly, not from the grid formula)
-    d = factors(lam_used[:, None])[:, 0, :]                          # (m, p)
-    coef = np.einsum("mpj,mj->mp", back, d * q)
-    fitted = np.einsum("mnp,mp->mn", xmat, coef)
-    resid = np.where(active, yf - fitted, 0.0)
-    rss = np.einsum("mn,mn->m", wa, resid * resid)
-    edf = np.sum(d * (keep - ridge[:, None] * kdiag), axis=1)
-    gcv = _gcv(n_used, rss, edf, gamma)
-    dof = n_used - edf
-    sigma2 = np.where(dof > 0, rss / np.where(dof > 0, dof, 1.0), np.nan)
-    vinv = np.einsum("mpj,mj,mqj->mpq", back, d, back)              # (X'WX + lam S)^-1
-    vb = vinv * sigma2[:, None, None]
-    smooth_cov = zmat @ vb[:, n_fixed:, n_fixed:] @ np.swapaxes(zmat, 1, 2)
-    coef_basis = np.einsum("mkj,mj->mk", zmat, coef[:, n_fixed:])
-    fitted = np.where(ok_x, fitted, np.nan)
+def _gcv_choice(form: _ShiftedForm, rows: _Rows, grid: np.ndarray, gamma: float):
+    """(lam (m,), GCV (m, L)): the GCV-best grid value of every batch member."""
+    gcv_all = _grid_gcv(form, rows, np.broadcast_to(grid, (rows.m, grid.size)), gamma)
+    if rows.m and np.any(~np.isfinite(gcv_all).any(axis=1)):
+        raise ValueError("GCV is undefined for every lam (n_used <= gamma * edf)")
+    return grid[_best_on_grid(gcv_all)], gcv_all
 
-    # null model y = a [+ b * trend] and intercept-only model
+
+def _null_model(rows: _Rows, design: _Design) -> tuple[np.ndarray, np.ndarray]:
+    """(rss_null, tss): RSS of ``y = a [+ b * trend]`` and of ``y = a`` over the used rows."""
+    wa, ya = rows.w, rows.y0
     sw = wa.sum(axis=1)
     ybar = np.einsum("mn,mn->m", wa, ya) / sw
     tss = np.einsum("mn,mn->m", wa, (ya - ybar[:, None]) ** 2)
-    if trend is not None:
-        tcol = xmat[:, :, 1]
-        stt = np.einsum("mn,mn->m", wa, tcol * tcol)        # trend column has w-mean 0
-        sty = np.einsum("mn,mn->m", wa, tcol * (ya - ybar[:, None]))
-        rss_null = tss - np.where(stt > 0, sty**2 / np.where(stt > 0, stt, 1.0), 0.0)
-        rss_null = np.clip(rss_null, 0.0, None)
-        trend_slope = coef[:, 1] / t_scale
-    else:
-        rss_null = tss
-        trend_slope = None
-    dev_expl = np.where(tss > 0, 1.0 - rss / np.where(tss > 0, tss, 1.0), np.nan)
+    if rows.trend is None:
+        return tss, tss
+    tcol = design.xmat[:, :, 1]
+    stt = np.einsum("mn,mn->m", wa, tcol * tcol)        # trend column has w-mean 0
+    sty = np.einsum("mn,mn->m", wa, tcol * (ya - ybar[:, None]))
+    rss_null = tss - np.where(stt > 0, sty**2 / np.where(stt > 0, stt, 1.0), 0.0)
+    return np.clip(rss_null, 0.0, None), tss
+
+
+def _final_fit(rows: _Rows, design: _Design, form: _ShiftedForm, lam_used: np.ndarray, gamma: float,
+               grid_out, gcv_grid) -> PSplineFit:
+    """The fit at the chosen ``lam`` (computed directly, not from the grid formula)."""
+    n_fixed, zmat, p, k = design.n_fixed, design.zmat, design.p, design.n_basis
+    d = form.factors(lam_used[:, None])[:, 0, :]                    # (m, p)
+    coef = form.coef(d)
+    fitted = np.einsum("mnp,mp->mn", design.xmat, coef)
+    resid = np.where(rows.active, rows.y - fitted, 0.0)
+    rss = np.einsum("mn,mn->m", rows.w, resid * resid)
+    edf = form.edf(d)
+    dof = rows.n_used - edf
+    sigma2 = np.where(dof > 0, rss / np.where(dof > 0, dof, 1.0), np.nan)
+    vb = np.einsum("mpj,mj,mqj->mpq", form.back, d, form.back) * sigma2[:, None, None]
+    rss_null, tss = _null_model(rows, design)
+    trend_slope = None if rows.trend is None else coef[:, 1] / design.t_scale
 
     def shape(a, extra=()):
-        return None if a is None else np.asarray(a).reshape(batch_shape + extra)
+        return None if a is None else np.asarray(a).reshape(rows.batch_shape + extra)
 
     return PSplineFit(
         coef=shape(coef, (p,)),
-        coef_basis=shape(coef_basis, (n_basis,)),
+        coef_basis=shape(np.einsum("mkj,mj->mk", zmat, coef[:, n_fixed:]), (k,)),
         intercept=shape(coef[:, 0]),
         trend_slope=shape(trend_slope),
-        fitted=shape(fitted, (n,)),
+        fitted=shape(np.where(rows.ok_x, fitted, np.nan), (rows.n,)),
         lam=shape(lam_used),
         edf=shape(edf),
         edf_smooth=shape(edf - n_fixed),
-        gcv=shape(gcv),
+        gcv=shape(_gcv_score(rows.n_used, rss, edf, gamma)),
         rss=shape(rss),
         rss_null=shape(rss_null),
         tss=shape(tss),
-        deviance_explained=shape(dev_expl),
+        deviance_explained=shape(np.where(tss > 0, 1.0 - rss / np.where(tss > 0, tss, 1.0), np.nan)),
         sigma2=shape(sigma2),
-        n_used=shape(n_used),
+        n_used=shape(rows.n_used),
         vb=shape(vb, (p, p)),
-        smooth_cov=shape(smooth_cov, (n_basis, n_basis)),
-        basis_gram=shape(np.swapaxes(basis * wa[..., None], 1, 2) @ basis, (n_basis, n_basis)),
-        lo=shape(lo),
-        hi=shape(hi),
-        n_basis=n_basis,
-        degree=int(degree),
-        penalty_order=int(penalty_order),
+        smooth_cov=shape(zmat @ vb[:, n_fixed:, n_fixed:] @ np.swapaxes(zmat, 1, 2), (k, k)),
+        basis_gram=shape(np.swapaxes(design.basis * rows.w[..., None], 1, 2) @ design.basis, (k, k)),
+        lo=shape(design.lo),
+        hi=shape(design.hi),
+        n_basis=k,
+        degree=design.degree,
+        penalty_order=design.penalty_order,
         gamma=float(gamma),
-        trend_center=shape(t_center),
-        trend_scale=shape(t_scale),
+        trend_center=shape(design.t_center),
+        trend_scale=shape(design.t_scale),
         lam_grid=grid_out,
         gcv_grid=gcv_grid,
     )
@@ -662,14 +752,62 @@ def shape_word(
     return "increasing" if sign > 0 else "decreasing"
 
 
-# --------------------------------------------------------------------------- helpers
+# --------------------------------------------------------------------------- shared kernels
+# The pieces below serve both the in-sample fit (fit_pspline) and the expanding-window
+# fits (expanding_penalised): the penalty layout, the shift of the Demmler-Reinsch form,
+# its shrinkage factors, the GCV score and the choice on the grid.
 
 
-def _gcv(n_used, rss, edf, gamma):
-    den = n_used - gamma * edf
+def penalty_block(pen: np.ndarray, n_fixed: int) -> np.ndarray:
+    """Penalty on ``[unpenalised terms, smooth coefficients]``: zero on the first ``n_fixed``
+    terms, ``pen`` (..., K, K) on the smooth block; leading axes are batch axes."""
+    k = pen.shape[-1]
+    out = np.zeros(pen.shape[:-2] + (n_fixed + k, n_fixed + k))
+    out[..., n_fixed:, n_fixed:] = pen
+    return out
+
+
+def _penalty_shift(gram: np.ndarray, pen: np.ndarray) -> np.ndarray:
+    """``mu = tr(A) / tr(P)``: the shift of the Demmler-Reinsch form, so that ``A + mu P`` is
+    well conditioned even when ``A`` is not. ``gram`` (..., q, q), ``pen`` (q, q) or batched."""
+    return np.trace(gram, axis1=-2, axis2=-1) / np.maximum(np.trace(pen, axis1=-2, axis2=-1), 1e-300)
+
+
+def _dr_factors(lams: np.ndarray, mu: np.ndarray, theta: np.ndarray) -> np.ndarray:
+    """Shrinkage factors ``1 / (1 + (lam - mu) theta)`` of the shifted Demmler-Reinsch form.
+
+    ``lams`` (..., L) or (L,), ``mu`` (...), ``theta`` (..., r) -> (..., L, r).
+    """
+    return 1.0 / (1.0 + (lams[..., None] - mu[..., None, None]) * theta[..., None, :])
+
+
+def _gcv_score(n, rss, edf, gamma: float, floor: float | None = None):
+    """``GCV = n RSS / (n - gamma edf)^2`` (Craven & Wahba 1979).
+
+    Where ``n - gamma edf <= 0`` the score is ``inf``; with ``floor`` the denominator is
+    instead clipped at ``floor`` (the expanding-window fits).
+    """
+    den = n - gamma * edf
     with np.errstate(divide="ignore", invalid="ignore"):
-        out = n_used * rss / den**2
+        if floor is not None:
+            return n * rss / np.maximum(den, floor) ** 2
+        out = n * rss / den**2
     return np.where(den > 0, out, np.inf)
+
+
+def _best_on_grid(gcv: np.ndarray) -> np.ndarray:
+    """Index of the least finite GCV along the last (grid) axis."""
+    return np.argmin(np.where(np.isfinite(gcv), gcv, np.inf), axis=-1)
+
+
+def _check_grid(lam_grid) -> np.ndarray:
+    grid = np.atleast_1d(np.asarray(lam_grid, dtype=float)).ravel()
+    if grid.size == 0 or np.any(~np.isfinite(grid)) or np.any(grid < 0):
+        raise ValueError("lam_grid must hold finite non-negative values")
+    return grid
+
+
+# --------------------------------------------------------------------------- helpers
 
 
 def _nan_reduce(fn, x):
@@ -712,8 +850,8 @@ def expanding_penalised(
     eigen-decomposition gives RSS, edf and GCV = n RSS / (n - gamma edf)^2 (Craven & Wahba
     1979) for the whole grid of lambda: the Demmler-Reinsch form (Wood 2017, section 5.4 —
     section number from memory), here shifted to C = A + mu P, A = W'W, so that it stays
-    accurate when A is nearly singular, and restricted to the penalised subspace (see the
-    comments in the code for the formulas).
+    accurate when A is nearly singular, and restricted to the penalised subspace (see
+    :class:`_SubspaceForm` for the formulas).
 
     The smoothing parameter is re-chosen every ``retune_every`` origins (1 = every origin)
     and held in between, while the coefficients are refitted at every origin; either way
@@ -731,20 +869,32 @@ def expanding_penalised(
 
     Returns (forecast, gcv, edf), each (..., n_origins).
     """
-    lam = DEFAULT_LAM_GRID if lam_grid is None else np.asarray(lam_grid, float)
+    lam = _check_grid(DEFAULT_LAM_GRID if lam_grid is None else lam_grid)
     W = np.asarray(W, float)
     y = np.asarray(y, float)
     origins = np.asarray(origins, int)
     if origins.size > 1 and np.any(np.diff(origins) != 1):
         raise ValueError("origins must be consecutive integers")
-    q = W.shape[-1]
-    n_o = len(origins)
     w = np.ones(len(y)) if weights is None else np.asarray(weights, float)
-    Ww = W * w[:, None]
-    step = max(1, int(retune_every))
-    tune = np.arange(0, n_o, step)
+    tune = np.arange(0, len(origins), max(1, int(retune_every)))
     o_t = origins[tune]
-    # normal equations of the tuning windows, accumulated block by block
+    form = _subspace_form(*_tuning_equations(W, y, w, o_t), P)
+    s, rss_t, edf_t = form.grid(lam)
+    nt = o_t.astype(float)
+    best = _best_on_grid(_gcv_score(nt[:, None], rss_t, edf_t, gamma, floor=1e-9))  # (..., R)
+    edf_b = np.take_along_axis(edf_t, best[..., None], axis=-1)[..., 0]
+    h_inv, beta = form.solution(lam[best], np.take_along_axis(s, best[..., None, None], axis=-2)[..., 0, :])
+    fc, beta_o = _carry_forward(W, y, w, origins, tune, h_inv, beta)
+    held = np.repeat(np.arange(len(tune)), np.diff(np.r_[tune, len(origins)]))  # origin -> tuning index
+    edf_o = edf_b[..., held]
+    return fc, _window_gcv(W, y, w, origins, beta_o, edf_o, gamma), edf_o
+
+
+def _tuning_equations(W: np.ndarray, y: np.ndarray, w: np.ndarray, o_t: np.ndarray):
+    """Normal equations (A + ridge, b, y'Wy) of the tuning windows [0, o) for every o in
+    ``o_t``, accumulated block by block: (..., R, q, q), (..., R, q), (R,)."""
+    q = W.shape[-1]
+    Ww = W * w[:, None]
     A_parts, b_parts, lo = [], [], 0
     A_run = np.zeros(W.shape[:-2] + (q, q))
     b_run = np.zeros(W.shape[:-2] + (q,))
@@ -754,78 +904,106 @@ def expanding_penalised(
         A_parts.append(A_run)
         b_parts.append(b_run)
         lo = o
-    At, bt = np.stack(A_parts, axis=-3), np.stack(b_parts, axis=-2)  # (..., R, q, q), (..., R, q)
+    At, bt = np.stack(A_parts, axis=-3), np.stack(b_parts, axis=-2)
     yt = np.cumsum(w * y * y)[o_t - 1]
-    nt = o_t.astype(float)
     ridge = 1e-11 * np.trace(At[..., 0, :, :], axis1=-2, axis2=-1) / q  # (...,)
-    At = At + ridge[..., None, None, None] * np.eye(q)
-    # Shifted Demmler-Reinsch form on the penalised subspace. With P = R'R (R: r x q, from one
-    # eigen-decomposition of P shared by the batch) and C = A + mu P, which is well
-    # conditioned even when A is not (a B-spline with no training data in its support),
-    # R C^-1 R' = V diag(theta) V' gives, for every lambda, with s = 1 / (1 + (lambda - mu) theta):
-    #   (A + lambda P)^-1 = C^-1 - H diag((lambda - mu) s) H',   H = C^-1 R' V,
-    #   edf = (q - r) + sum s (1 - mu theta),
-    #   RSS = y'y - b'C^-1 b + sum h^2 s^2 ((lambda - mu)^2 theta - mu),   h = H'b,
-    # so only an r x r eigen-problem is solved per system (r = q - 2 - unpenalised columns).
+    return At + ridge[..., None, None, None] * np.eye(q), bt, yt
+
+
+@dataclass(frozen=True)
+class _SubspaceForm:
+    """Shifted Demmler-Reinsch form of ``A + lambda P`` on the penalised subspace.
+
+    With P = R'R (R: r x q, from one eigen-decomposition of P shared by the batch) and
+    C = A + mu P, which is well conditioned even when A is not (a B-spline with no training
+    data in its support), R C^-1 R' = V diag(theta) V' gives, for every lambda, with
+    s = 1 / (1 + (lambda - mu) theta):
+
+    * (A + lambda P)^-1 = C^-1 - H diag((lambda - mu) s) H',   H = C^-1 R' V,
+    * edf = (q - r) + sum s (1 - mu theta),
+    * RSS = y'y - b'C^-1 b + sum h^2 s^2 ((lambda - mu)^2 theta - mu),   h = H'b,
+
+    so only an r x r eigen-problem is solved per system (r = q - 2 - unpenalised columns).
+    """
+
+    mu: np.ndarray      # (..., R)
+    c_inv: np.ndarray   # (..., R, q, q) C^-1
+    H: np.ndarray       # (..., R, q, r)
+    theta: np.ndarray   # (..., R, r), mu theta in [0, 1]
+    hb: np.ndarray      # (..., R, r) H'b
+    cib: np.ndarray     # (..., R, q) C^-1 b
+    rss_mu: np.ndarray  # (..., R) y'y - b'C^-1 b
+    n_null: int         # q - r, the unpenalised dimensions
+
+    def grid(self, lam: np.ndarray):
+        """(s, RSS, edf) for every grid value: (..., R, L, r), (..., R, L), (..., R, L)."""
+        mu, theta = self.mu, self.theta[..., None, :]
+        shift = lam[:, None] - mu[..., None, None]  # (..., R, L, 1)
+        s = _dr_factors(lam, mu, self.theta)
+        ee = (self.hb * self.hb)[..., None, :]
+        rss = np.maximum(self.rss_mu[..., None]
+                         + np.sum(ee * s * s * (shift**2 * theta - mu[..., None, None]), axis=-1), 0.0)
+        edf = self.n_null + (s * (1.0 - mu[..., None, None] * theta)).sum(-1)
+        return s, rss, edf
+
+    def solution(self, lam_b: np.ndarray, s_b: np.ndarray):
+        """((A + lambda P)^-1, coefficients) at the chosen lambda (..., R) with factors s_b."""
+        f = (lam_b - self.mu)[..., None] * s_b  # (..., R, r)
+        h_inv = self.c_inv - self.H @ (f[..., :, None] * np.swapaxes(self.H, -1, -2))
+        beta = self.cib - np.einsum("...qr,...r->...q", self.H, f * self.hb)
+        return h_inv, beta
+
+
+def _subspace_form(At: np.ndarray, bt: np.ndarray, yt: np.ndarray, P: np.ndarray) -> _SubspaceForm:
+    """The decomposition of :class:`_SubspaceForm` for every system of the batch."""
     pe, pv = np.linalg.eigh(0.5 * (P + P.T))
     pos = pe > 1e-10 * max(float(pe.max()), 0.0)
     R = (pv[:, pos] * np.sqrt(pe[pos])).T  # (r, q)
-    n_null = q - R.shape[0]
-    mu = np.trace(At, axis1=-2, axis2=-1) / max(float(np.trace(P)), 1e-300)  # (..., R)
+    mu = _penalty_shift(At, P)  # (..., R)
     Ci = np.linalg.inv(At + mu[..., None, None] * P)
     Ci = 0.5 * (Ci + np.swapaxes(Ci, -1, -2))
     RC = R @ Ci  # (..., R, r, q)
     N = RC @ R.T
     theta, V = np.linalg.eigh(0.5 * (N + np.swapaxes(N, -1, -2)))
-    theta = np.clip(theta, 0.0, 1.0 / mu[..., None])  # (..., R, r); mu theta in [0, 1]
+    theta = np.clip(theta, 0.0, 1.0 / mu[..., None])
     H = np.swapaxes(RC, -1, -2) @ V  # (..., R, q, r)
-    hb = np.einsum("...qr,...q->...r", H, bt)
     Cib = (Ci @ bt[..., None])[..., 0]
-    rss_mu = yt - np.einsum("...q,...q->...", bt, Cib)  # (..., R) before the penalised terms
-    shift = lam[:, None] - mu[..., None, None]  # (..., R, n_lam, 1)
-    s = 1.0 / (1.0 + shift * theta[..., None, :])  # (..., R, n_lam, r)
-    ee = (hb * hb)[..., None, :]
-    rss_t = np.maximum(rss_mu[..., None] + np.sum(ee * s * s * (shift**2 * theta[..., None, :]
-                                                                 - mu[..., None, None]), axis=-1), 0.0)
-    edf_t = n_null + (s * (1.0 - mu[..., None, None] * theta[..., None, :])).sum(-1)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        gcv_t = nt[:, None] * rss_t / np.maximum(nt[:, None] - gamma * edf_t, 1e-9) ** 2
-    best = np.argmin(gcv_t, axis=-1)  # (..., R)
-    s_b = np.take_along_axis(s, best[..., None, None], axis=-2)[..., 0, :]  # (..., R, r)
-    edf_b = np.take_along_axis(edf_t, best[..., None], axis=-1)[..., 0]
-    # coefficients and inverse at each tuning origin, then carried forward within its block
-    f = (lam[best] - mu)[..., None] * s_b  # (..., R, r)
-    Hinv = Ci - H @ (f[..., :, None] * np.swapaxes(H, -1, -2))
-    beta = Cib - np.einsum("...qr,...r->...q", H, f * hb)
+    return _SubspaceForm(mu=mu, c_inv=Ci, H=H, theta=theta, hb=np.einsum("...qr,...q->...r", H, bt),
+                         cib=Cib, rss_mu=yt - np.einsum("...q,...q->...", bt, Cib),
+                         n_null=P.shape[-1] - R.shape[0])
+
+
+def _carry_forward(W, y, w, origins, tune, h_inv, beta):
+    """Forecasts (..., O) and coefficients (..., O, q) at every origin: the fit of each tuning
+    origin, carried forward within its block one training row at a time by the
+    Sherman-Morrison update of (A + lambda P)^-1 at the held lambda."""
+    n_o, q = len(origins), W.shape[-1]
     fc = np.empty(W.shape[:-2] + (n_o,))
     beta_o = np.empty(W.shape[:-2] + (n_o, q))
-    for m in range(step):
+    for m in range(int(np.diff(np.r_[tune, n_o]).max())):  # steps within the longest block
         idx = tune + m
         live = idx < np.r_[tune[1:], n_o]  # blocks that still have origin idx
-        if not live.any():
-            break
         if m:  # add training row origins[idx - 1] to every live block
             rows = origins[idx[live] - 1]
             x = W[..., rows, :]  # (..., R_live, q)
-            Hl, bl = Hinv[..., live, :, :], beta[..., live, :]
+            Hl, bl = h_inv[..., live, :, :], beta[..., live, :]
             u = (Hl @ x[..., None])[..., 0]
             wr = w[rows]
             den = 1.0 + wr * np.einsum("...q,...q->...", x, u)
             e = y[rows] - np.einsum("...q,...q->...", x, bl)
             k = (wr / den)[..., None] * u
             beta[..., live, :] = bl + k * e[..., None]
-            Hinv[..., live, :, :] = Hl - k[..., :, None] * u[..., None, :]
+            h_inv[..., live, :, :] = Hl - k[..., :, None] * u[..., None, :]
         at = idx[live]
         beta_o[..., at, :] = beta[..., live, :]
         fc[..., at] = np.einsum("...q,...q->...", W[..., origins[at], :], beta[..., live, :])
-    held = np.repeat(np.arange(len(tune)), np.diff(np.r_[tune, n_o]))  # origin -> tuning index
-    edf_o = edf_b[..., held]
-    # weighted RSS of every window from its own residuals (training rows only)
+    return fc, beta_o
+
+
+def _window_gcv(W, y, w, origins, beta_o, edf_o, gamma):
+    """GCV of every window from its own weighted residuals (training rows only)."""
     T_max = int(origins[-1])
     fit = np.einsum("...tq,...oq->...ot", W[..., :T_max, :], beta_o)  # (..., O, T_max)
     train = np.arange(T_max)[None, :] < origins[:, None]  # (O, T_max)
     rss = np.einsum("...ot,t,ot->...o", (y[:T_max] - fit) ** 2, w[:T_max], train.astype(float))
-    n = origins.astype(float)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        gcv = n * rss / np.maximum(n - gamma * edf_o, 1e-9) ** 2
-    return fc, gcv, edf_o
+    return _gcv_score(origins.astype(float), rss, edf_o, gamma, floor=1e-9)
