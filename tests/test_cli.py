@@ -112,3 +112,55 @@ def test_snakemake_direct_bad_config_exits_2(study, tmp_path):
     assert proc.returncode != 0
     assert "indices_long.csv:3: series 'zooplankton_index'" in proc.stderr + proc.stdout
     assert not out.exists()
+
+
+# ----------------------------------------------------------------------------- a damaged installation
+def test_missing_internal_file_is_one_line(study, monkeypatch, capsys):
+    """A file the package ships (here the config schema) gone: one line naming it, advice to
+    reinstall, exit 2. (tests/test_packaging.py does the same on a real installed wheel.)"""
+    import lagsieve
+    from lagsieve import cli
+
+    gone = Path(lagsieve.__file__).parent / "workflow-gone" / "config.schema.yaml"
+    monkeypatch.setattr(cli, "SCHEMA_FILE", gone)
+    for argv in (["check", str(study)], ["run", str(study), "--", "--dry-run"]):
+        assert cli.main(argv) == 2
+        err = capsys.readouterr().err.strip().splitlines()
+        assert len(err) == 1 and str(gone) in err[0] and "reinstall" in err[0], err
+
+
+def test_missing_template_or_module_is_one_line(study, monkeypatch, capsys):
+    from jinja2 import TemplateNotFound
+
+    from lagsieve import cli
+
+    for exc, needle in ((TemplateNotFound("report.html.j2"), "template 'report.html.j2'"),
+                        (ModuleNotFoundError("gone", name="lagsieve.report.gone"), "lagsieve.report.gone")):
+        def boom(config, exc=exc):
+            raise exc
+        monkeypatch.setattr(cli, "_check", boom)
+        assert cli.main(["check", str(study)]) == 2
+        err = capsys.readouterr().err.strip().splitlines()
+        assert len(err) == 1 and needle in err[0] and "reinstall" in err[0], err
+
+
+def test_other_missing_files_are_not_hidden(study, monkeypatch, tmp_path):
+    """Only the package's own files get the reinstall line: any other FileNotFoundError is a
+    fault that keeps its traceback (user files are reported as input problems before this)."""
+    from lagsieve import cli
+
+    def boom(config):
+        raise FileNotFoundError(2, "No such file", str(tmp_path / "elsewhere.csv"))
+    monkeypatch.setattr(cli, "_check", boom)
+    with pytest.raises(FileNotFoundError):
+        cli.main(["check", str(study)])
+    monkeypatch.setattr(cli, "_check", lambda config: (_ for _ in ()).throw(ModuleNotFoundError("x", name="numpyy")))
+    with pytest.raises(ModuleNotFoundError):
+        cli.main(["check", str(study)])
+
+
+def test_python_dash_m_lagsieve(tmp_path):
+    proc = subprocess.run([sys.executable, "-m", "lagsieve", "--help"], capture_output=True, text=True, cwd=tmp_path)
+    assert proc.returncode == 0 and "init" in proc.stdout and "ledger" in proc.stdout
+    proc = subprocess.run([sys.executable, "-m", "lagsieve", "--version"], capture_output=True, text=True)
+    assert proc.stdout.startswith("lagsieve ")
