@@ -1,37 +1,37 @@
-"""The report in a real browser: headless Chromium opens the HTML file.
+"""The report in a real browser: Playwright drives Debian's headless Chromium on the HTML file.
 
-* a screenshot (``--screenshot``) is not blank;
-* through the DevTools protocol: no console errors or exceptions (a Content-Security-Policy
-  violation would be one), no failed loads and no request other than ``file:`` or ``data:``,
-  every image decoded; clicking a column heading sorts the evidence table (ascending, then
-  descending) and the grade filter hides the other rows.
+* a screenshot is not blank;
+* no console errors or uncaught exceptions (a Content-Security-Policy violation is one), no
+  failed loads and no request other than ``file:`` or ``data:``, every image decoded;
+* clicking a column heading sorts the evidence table (ascending, then descending), a text
+  column sorts too, and the grade filter hides the other rows.
 
-Skipped, with the reason, only when Chromium is not installed (CI installs it).
+Playwright (PyPI ``playwright``) launches the system's ``chromium`` (``executable_path``); its
+own browser download is never used (``playwright install`` is not needed). Skipped, with the
+reason, only when Chromium or Playwright is not installed (CI installs both).
 """
 from __future__ import annotations
 
 import json
-import os
 import shutil
-import subprocess
-import time
-import urllib.request
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pytest
 
-from test_report import make_report, run_study, tiny_config
+from lagsieve.io.config import load_study
 
-CHROMIUM = next((p for p in (shutil.which("chromium"), shutil.which("chromium-browser"), "/usr/bin/chromium")
-                 if p and os.path.exists(p)), None)
+from helpers import make_report, run_study, tiny_config
+
+CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
+sync_api = pytest.importorskip("playwright.sync_api",
+                               reason="the browser test needs Playwright: python -m pip install playwright")
 pytestmark = [pytest.mark.slow,
               pytest.mark.skipif(CHROMIUM is None, reason="chromium is not installed (apt-get install chromium)")]
 
-FLAGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
-         "--disable-component-update", "--disable-sync", "--no-first-run", "--disable-extensions",
-         "--disable-default-apps", "--mute-audio"]
+ARGS = ["--no-sandbox", "--disable-gpu", "--disable-background-networking", "--disable-component-update",
+        "--disable-sync", "--no-first-run", "--disable-extensions", "--disable-default-apps", "--mute-audio"]
 
 
 @pytest.fixture(scope="module")
@@ -45,14 +45,61 @@ def report_file(tmp_path_factory):
     return res / "report.html", pd.read_csv(res / "evidence.csv")
 
 
-def test_screenshot_not_blank(report_file, tmp_path):
+@pytest.fixture(scope="module")
+def browser():
+    with sync_api.sync_playwright() as pw:
+        b = pw.chromium.launch(executable_path=CHROMIUM, headless=True, args=ARGS)
+        yield b
+        b.close()
+
+
+class Watched:
+    """A page with every problem the checks look for collected into ``problems``."""
+
+    def __init__(self, browser, width: int = 1280, height: int = 1600):
+        self.page = browser.new_page(viewport={"width": width, "height": height})
+        self.problems: list[str] = []
+        p = self.page
+        p.on("console", lambda m: m.type in ("error", "assert") and self.problems.append(f"console.{m.type}: {m.text}"))
+        p.on("pageerror", lambda e: self.problems.append(f"exception: {e}"))
+        p.on("requestfailed", lambda r: self.problems.append(f"failed load: {r.url} {r.failure}"))
+        p.on("request", lambda r: r.url.startswith(("file:", "data:"))
+             or self.problems.append(f"network request: {r.url}"))
+        # the browser's own log (where Chromium reports CSP violations), through DevTools
+        self.cdp = p.context.new_cdp_session(p)
+        self.cdp.on("Log.entryAdded", lambda ev: ev["entry"].get("level") == "error" and self.problems.append(
+            f"log: {ev['entry'].get('text')} {ev['entry'].get('url', '')}"))
+        self.cdp.send("Log.enable")
+
+    def open(self, url: str) -> None:
+        self.page.goto(url, wait_until="load", timeout=60_000)
+        self.page.wait_for_timeout(500)  # let late console and log events arrive
+
+    def js(self, expression: str):
+        return self.page.evaluate(expression)
+
+    def close(self) -> None:
+        self.page.close()
+
+
+@pytest.fixture
+def watched(browser):
+    w = Watched(browser)
+    yield w
+    w.close()
+
+
+def test_screenshot_not_blank(report_file, browser, tmp_path):
     from PIL import Image
 
     html, _ = report_file
-    shot = tmp_path / "shot.png"
-    subprocess.run([CHROMIUM, *FLAGS, f"--user-data-dir={tmp_path / 'profile'}", "--hide-scrollbars",
-                    "--window-size=1280,2400", f"--screenshot={shot}", html.as_uri()],
-                   check=True, timeout=120, capture_output=True)
+    w = Watched(browser, height=2400)
+    try:
+        w.open(html.as_uri())
+        shot = tmp_path / "shot.png"
+        w.page.screenshot(path=str(shot))
+    finally:
+        w.close()
     with Image.open(shot) as im:
         assert im.format == "PNG"
         arr = np.asarray(im.convert("L"), dtype=float)
@@ -61,179 +108,68 @@ def test_screenshot_not_blank(report_file, tmp_path):
     assert (arr < 128).mean() > 0.01
 
 
-class DevTools:
-    """A minimal client of the Chrome DevTools protocol over one page's websocket."""
-
-    def __init__(self, ws_url: str):
-        import websocket
-
-        self.ws = websocket.create_connection(ws_url, timeout=30, suppress_origin=True)
-        self.next_id = 0
-        self.events: list[dict] = []
-
-    def call(self, method: str, **params):
-        self.next_id += 1
-        my_id = self.next_id
-        self.ws.send(json.dumps({"id": my_id, "method": method, "params": params}))
-        while True:
-            msg = json.loads(self.ws.recv())
-            if msg.get("id") == my_id:
-                if "error" in msg:
-                    raise RuntimeError(f"{method}: {msg['error']}")
-                return msg.get("result", {})
-            self.events.append(msg)
-
-    def wait_for(self, method: str, timeout: float = 30):
-        end = time.time() + timeout
-        for ev in self.events:
-            if ev.get("method") == method:
-                return ev
-        while time.time() < end:
-            msg = json.loads(self.ws.recv())
-            self.events.append(msg)
-            if msg.get("method") == method:
-                return msg
-        raise TimeoutError(method)
-
-    def js(self, expression: str):
-        res = self.call("Runtime.evaluate", expression=expression, returnByValue=True, awaitPromise=True)
-        if "exceptionDetails" in res:
-            raise RuntimeError(res["exceptionDetails"])
-        return res["result"].get("value")
-
-    def drain(self, seconds: float = 0.5):
-        self.ws.settimeout(seconds)
-        try:
-            while True:
-                self.events.append(json.loads(self.ws.recv()))
-        except Exception:  # timeout: nothing more queued
-            pass
-        finally:
-            self.ws.settimeout(30)
-
-    def close(self):
-        self.ws.close()
-
-
-@pytest.fixture
-def devtools(tmp_path):
-    profile = tmp_path / "profile"
-    proc = subprocess.Popen([CHROMIUM, *FLAGS, f"--user-data-dir={profile}", "--remote-debugging-port=0",
-                             "--window-size=1280,1600", "about:blank"],
-                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-    try:
-        port_file = profile / "DevToolsActivePort"
-        end = time.time() + 60
-        while not (port_file.is_file() and port_file.read_text().strip()):
-            if time.time() > end or proc.poll() is not None:
-                raise RuntimeError("chromium did not open its DevTools port")
-            time.sleep(0.1)
-        port = int(port_file.read_text().split()[0])
-        with urllib.request.urlopen(f"http://127.0.0.1:{port}/json/list", timeout=10) as r:
-            pages = [t for t in json.load(r) if t.get("type") == "page"]
-        dt = DevTools(pages[0]["webSocketDebuggerUrl"])
-        yield dt
-        dt.close()
-    finally:
-        proc.terminate()
-        try:
-            proc.wait(timeout=10)
-        except subprocess.TimeoutExpired:
-            proc.kill()
-
-
-def _problems(events: list[dict]) -> list[str]:
-    out = []
-    for ev in events:
-        m, p = ev.get("method"), ev.get("params", {})
-        if m == "Runtime.exceptionThrown":
-            out.append(f"exception: {p['exceptionDetails'].get('text')} {p['exceptionDetails'].get('exception', {})}")
-        elif m == "Runtime.consoleAPICalled" and p.get("type") in ("error", "assert"):
-            out.append(f"console.{p['type']}: {[a.get('value') for a in p.get('args', [])]}")
-        elif m == "Log.entryAdded" and p["entry"].get("level") == "error":
-            out.append(f"log: {p['entry'].get('text')} {p['entry'].get('url', '')}")
-        elif m == "Network.loadingFailed":
-            out.append(f"failed load: {p.get('errorText')}")
-        elif m == "Network.requestWillBeSent":
-            url = p["request"]["url"]
-            if not (url.startswith("file:") or url.startswith("data:")):
-                out.append(f"network request: {url}")
-    return out
-
-
-def _open(dt, url: str) -> None:
-    """Enable the DevTools domains the checks read, load ``url`` and let its events arrive."""
-    for domain in ("Page", "Runtime", "Log", "Network"):
-        dt.call(f"{domain}.enable")
-    dt.call("Page.navigate", url=url)
-    dt.wait_for("Page.loadEventFired", timeout=60)
-    dt.drain(0.5)
-
-
-def test_page_loads_clean_and_table_sorts(report_file, devtools):
+def test_page_loads_clean_and_table_sorts(report_file, watched):
     html, evidence = report_file
-    dt = devtools
-    _open(dt, html.as_uri())
+    w = watched
+    w.open(html.as_uri())
 
-    images = dt.js("Array.from(document.images).map(i => [i.complete, i.naturalWidth, i.naturalHeight])")
+    images = w.js("Array.from(document.images).map(i => [i.complete, i.naturalWidth, i.naturalHeight])")
     assert len(images) >= 5
-    assert all(c and w > 0 and h > 0 for c, w, h in images), images
+    assert all(c and wd > 0 and h > 0 for c, wd, h in images), images
 
     rows_js = ("Array.from(document.querySelectorAll('#evidence-table tbody tr'))"
                ".map(r => r.cells[{i}].getAttribute('data-v'))")
-    col = dt.js("Array.from(document.querySelectorAll('#evidence-table thead th'))"
-                ".findIndex(th => th.dataset.key === 'r')")
+    col = w.js("Array.from(document.querySelectorAll('#evidence-table thead th'))"
+               ".findIndex(th => th.dataset.key === 'r')")
     assert col >= 0
-    before = [float(v) for v in dt.js(rows_js.format(i=col))]
+    before = [float(v) for v in w.js(rows_js.format(i=col))]
     assert len(before) == len(evidence)
     assert before == pytest.approx(evidence["r"].tolist(), abs=1e-6)  # page order = evidence.csv order
 
-    dt.js("document.querySelector('#evidence-table th[data-key=\"r\"] button').click()")
-    asc = [float(v) for v in dt.js(rows_js.format(i=col))]
+    r_button = w.page.locator('#evidence-table th[data-key="r"] button')
+    r_button.click()  # a real click, as a reader would
+    asc = [float(v) for v in w.js(rows_js.format(i=col))]
     assert asc == sorted(before)
-    assert dt.js("document.querySelector('#evidence-table th[data-key=\"r\"]').getAttribute('aria-sort')") == "ascending"
-    dt.js("document.querySelector('#evidence-table th[data-key=\"r\"] button').click()")
-    desc = [float(v) for v in dt.js(rows_js.format(i=col))]
+    assert w.page.get_attribute('#evidence-table th[data-key="r"]', "aria-sort") == "ascending"
+    r_button.click()
+    desc = [float(v) for v in w.js(rows_js.format(i=col))]
     assert desc == sorted(before, reverse=True)
     assert asc != before or desc != before  # the order did change
 
     # sorting by a text column (driver) works too
-    dcol = dt.js("Array.from(document.querySelectorAll('#evidence-table thead th'))"
-                 ".findIndex(th => th.dataset.key === 'driver')")
-    dt.js("document.querySelector('#evidence-table th[data-key=\"driver\"] button').click()")
-    names = dt.js(rows_js.format(i=dcol))
-    assert sorted(names) == sorted(evidence["driver"].map(labels_of(evidence, html)).tolist())
-    assert dt.js(f"(function (a) {{ return a.every(function (v, i) {{ return i === 0 || a[i - 1].localeCompare(v) <= 0; }}); }})"
-                 f"({json.dumps(names)})")
+    dcol = w.js("Array.from(document.querySelectorAll('#evidence-table thead th'))"
+                ".findIndex(th => th.dataset.key === 'driver')")
+    w.page.locator('#evidence-table th[data-key="driver"] button').click()
+    names = w.js(rows_js.format(i=dcol))
+    assert sorted(names) == sorted(evidence["driver"].map(labels_of(html)).tolist())
+    assert w.js(f"(function (a) {{ return a.every(function (v, i) {{ return i === 0 || a[i - 1].localeCompare(v) <= 0; }}); }})"
+                f"({json.dumps(names)})")
 
     # the grade filter keeps exactly the rows of that grade
     grade = evidence["grade"].value_counts().index[0]
-    dt.js(f"var s = document.getElementById('f-grade'); s.value = {json.dumps(grade)};"
-          "s.dispatchEvent(new Event('change'));")
-    shown = dt.js("Array.from(document.querySelectorAll('#evidence-table tbody tr'))"
-                  ".filter(r => !r.hidden).map(r => r.getAttribute('data-grade'))")
+    w.page.select_option("#f-grade", grade)
+    shown = w.js("Array.from(document.querySelectorAll('#evidence-table tbody tr'))"
+                 ".filter(r => !r.hidden).map(r => r.getAttribute('data-grade'))")
     assert shown == [grade] * int((evidence["grade"] == grade).sum())
-    assert dt.js("document.getElementById('f-count').textContent").startswith(f"{len(shown)} of {len(evidence)}")
+    assert w.page.text_content("#f-count").startswith(f"{len(shown)} of {len(evidence)}")
 
-    dt.drain(0.3)
-    assert _problems(dt.events) == []
+    w.page.wait_for_timeout(300)
+    assert w.problems == []
 
 
-def labels_of(evidence: pd.DataFrame, html: Path) -> dict:
+def labels_of(html: Path) -> dict:
     """driver id -> label, from the study config beside the results."""
-    from lagsieve.io.config import load_study
-
     study = load_study(html.parents[2] / "config.yaml")
     return {d["id"]: d.get("label") or d["id"] for d in study.drivers}
 
 
-def test_detector_sees_a_blocked_script(report_file, devtools, tmp_path):
+def test_detector_sees_a_blocked_script(report_file, watched, tmp_path):
     """The checks above are not vacuous: a page whose script no longer matches the hash in its
     Content-Security-Policy is blocked, and the blocking is reported."""
     html, _ = report_file
     broken = tmp_path / "broken.html"
     broken.write_text(html.read_text(encoding="utf-8").replace("'use strict';", "'use strict'; ", 1),
                       encoding="utf-8")
-    dt = devtools
-    _open(dt, broken.as_uri())
-    assert _problems(dt.events)
+    watched.open(broken.as_uri())
+    assert watched.problems
+    assert any("Content Security Policy" in p for p in watched.problems), watched.problems
