@@ -1,6 +1,7 @@
 """Regenerate the INVENTED demo data of lagsieve (Merrow hake on the Caldrin Shelf).
 
 All data written by this script are invented; see TRUTH.md, which it also writes.
+The package must be installed (``pip install -e .``).
 
 Usage: python resources/demo/generate.py [OUTDIR]   (default: this script's folder)
 """
@@ -9,11 +10,7 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
-try:
-    from lagsieve.demo.simulate import DEFAULT_SEED, write_demo
-except ImportError:  # running from a source checkout without installing the package
-    sys.path.insert(0, str(Path(__file__).resolve().parents[2] / "src"))
-    from lagsieve.demo.simulate import DEFAULT_SEED, write_demo
+from lagsieve.demo import DEFAULT_SEED, write_demo
 
 
 def main(argv: list[str]) -> int:
