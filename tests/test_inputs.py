@@ -65,6 +65,7 @@ InputErrors, one line per problem, the file name, the row and series where they 
 """
 from __future__ import annotations
 
+import copy
 import hashlib
 import math
 import re
@@ -76,7 +77,14 @@ import pytest
 from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
 
-from lagsieve.errors import InputErrors, InputProblem, InputWarning
+from lagsieve.errors import InputErrors, InputProblem, InputWarning, suggest
+from lagsieve.io.config import (
+    SCREEN_DEFAULTS,
+    fill_defaults,
+    load_study,
+    report_defaults,
+    screen_defaults,
+)
 from lagsieve.io.readers import read_inputs, read_table
 from lagsieve.io.tables import FRAME_COLUMNS
 from lagsieve.prep.annual import to_annual
@@ -920,3 +928,73 @@ def test_fuzz_values_round_trip(tmp_path_factory, values, start):
         assert df["value"].tolist() == present  # exact: repr round-trips
         assert df["year"].tolist() == [start + i for i, v in enumerate(values)
                                        if v is not None and not math.isnan(v)]
+
+
+# ----------------------------------------------------------------------------- config defaults
+
+def test_screen_defaults_come_from_the_schema():
+    # the values config/README.md documents for a config without a screen or report block
+    assert SCREEN_DEFAULTS == {
+        "lags": [0, 1, 2, 3], "models": ["linear"], "min_overlap": 15, "seed": 1,
+        "surrogates": 999, "surrogate_method": "phase", "surrogate_keep_trend": True,
+        "fdr": 0.10, "alpha": 0.05, "weights": "none", "gam_trend": True, "validation": {},
+    }
+    assert screen_defaults() == SCREEN_DEFAULTS and screen_defaults() is not SCREEN_DEFAULTS
+    assert report_defaults() == {"top": 3, "pdf": True}
+
+
+def test_fill_defaults_keeps_given_values_and_the_original():
+    raw = {"study": "s", "inputs": ["a.csv"], "screen": {"seed": 7, "lags": [2]},
+           "responses": [{"id": "m", "unit": "1/yr"}],
+           "drivers": [{"id": "x", "aggregate": {"months": [1, 2]}, "lags": [1]}]}
+    before = copy.deepcopy(raw)
+    full = fill_defaults(raw)
+    assert raw == before  # not modified
+    assert full["screen"] == dict(SCREEN_DEFAULTS, seed=7, lags=[2])
+    assert list(full["screen"]) == list(SCREEN_DEFAULTS)  # schema order, as the report shows it
+    assert full["report"] == {"top": 3, "pdf": True}
+    assert full["responses"] == [{"kind": "other", "transform": "none", "id": "m", "unit": "1/yr"}]
+    assert full["drivers"][0] == {"category": "other", "expected_sign": "any", "transform": "none",
+                                  "id": "x", "aggregate": {"how": "mean", "months": [1, 2]},
+                                  "lags": [1]}  # through the $ref of aggregate
+    assert "ledger" not in full and "validation" in full["screen"]
+
+
+def test_study_id_and_its_old_name(tmp_path):
+    (tmp_path / "d.csv").write_text("year,m,x\n2000,1,2\n")
+    cfg = tmp_path / "c.yaml"
+    cfg.write_text("study: s1\ninputs: [d.csv]\nresponses: [{id: m}]\ndrivers: [{id: x}]\n")
+    study = load_study(cfg)
+    assert study.id == "s1" and study.study == "s1"
+    with pytest.raises(AttributeError):
+        study.study = "other"  # read-only alias, to be removed
+
+
+@pytest.mark.parametrize("word, choices, expected", [
+    ("forage_biomas", ["forage_biomass", "sst", "zoo"], "did you mean 'forage_biomass'?"),
+    ("min_overlapp", ["min_overlap", "seed"], "did you mean 'min_overlap'?"),
+    # nothing close: the most similar ids are still named (ties alphabetically)
+    ("qq", ["bottom_temp", "abc", "sst", "zoo"], "ids found: abc, bottom_temp, sst..."),
+    ("qq", [], "no ids found"),
+])
+def test_suggest(word, choices, expected):
+    assert suggest(word, choices) == expected
+
+
+def test_unknown_config_key_suggests_the_nearest(tmp_path):
+    (tmp_path / "d.csv").write_text("year,m,x\n2000,1,2\n")
+    cfg = tmp_path / "c.yaml"
+    cfg.write_text("study: s1\ninputs: [d.csv]\nresponses: [{id: m}]\n"
+                   "drivers: [{id: x, responses: [n]}]\nscreen: {sead: 3, surrogate_method: phse}\n")
+    with pytest.raises(InputErrors) as info:
+        load_study(cfg)
+    lines = str(info.value).splitlines()
+    assert len(lines) == 2
+    assert "key 'screen'" in lines[0] and "did you mean 'seed' for 'sead'?" in lines[0]
+    assert "key 'screen.surrogate_method'" in lines[1] and "did you mean 'phase'?" in lines[1]
+    cfg.write_text("study: s1\ninputs: [d.csv]\nresponses: [{id: m}]\n"
+                   "drivers: [{id: x, responses: [mm]}]\n")
+    with pytest.raises(InputErrors) as info:
+        load_study(cfg)
+    assert "key 'drivers.0.responses'" in str(info.value)
+    assert "did you mean 'm'?" in str(info.value)

@@ -118,13 +118,19 @@ def nearest(word: str, choices: Iterable[str], n: int = 3) -> list[str]:
     return sorted(pool, key=distance)[:n]
 
 
+def closest(word: str, choices: Iterable[str]) -> str | None:
+    """The choice most like ``word`` if one is close (difflib's ratio of at least 0.6)."""
+    close = difflib.get_close_matches(word, sorted(set(choices)), n=1)
+    return close[0] if close else None
+
+
 def suggest(word: str, choices: Iterable[str], what: str = "ids", n: int = 3) -> str:
     """A hint naming the nearest of ``choices``: "did you mean 'x'?" when one is close,
     else "<what> found: a, b, c..." (the most similar first)."""
     pool = sorted(set(choices))
-    close = difflib.get_close_matches(word, pool, n=1)
-    if close:
-        return f"did you mean '{close[0]}'?"
+    close = closest(word, pool)
+    if close is not None:
+        return f"did you mean '{close}'?"
     best = nearest(word, pool, n)
     more = "..." if len(pool) > len(best) else ""
     return f"{what} found: {', '.join(best)}{more}" if best else f"no {what} found"

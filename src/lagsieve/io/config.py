@@ -1,7 +1,8 @@
 """Study configuration: safe YAML loading, JSON-Schema validation, defaults and paths.
 
 Relative paths inside a config resolve against the config file's own folder, so a study
-runs the same from any working directory.
+runs the same from any working directory. Defaults are written once, as ``default`` values
+in the schema (``workflow/schemas/config.schema.yaml``); :func:`fill_defaults` fills them in.
 """
 from __future__ import annotations
 
@@ -16,29 +17,13 @@ from typing import Any
 import jsonschema
 import yaml
 
-from lagsieve.errors import InputErrors, InputProblem
+from lagsieve.errors import InputErrors, InputProblem, closest, suggest
 
 # libyaml's safe loader when PyYAML was built with it (same safety, about ten times faster)
 SafeLoader = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
 
 WORKFLOW = importlib.resources.files("lagsieve.workflow")  # the Snakefile, rules and schema
 SCHEMA_FILE = WORKFLOW / "schemas" / "config.schema.yaml"
-
-SCREEN_DEFAULTS: dict[str, Any] = {
-    "lags": [0, 1, 2, 3],
-    "models": ["linear"],
-    "min_overlap": 15,
-    "seed": 1,
-    "surrogates": 999,
-    "surrogate_method": "phase",
-    "surrogate_keep_trend": True,
-    "fdr": 0.10,
-    "alpha": 0.05,
-    "weights": "none",
-    "gam_trend": True,
-    "validation": {},
-}
-REPORT_DEFAULTS: dict[str, Any] = {"top": 3, "pdf": True}  # the PDF is made when a PDF library is present
 
 SAFE_ID = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]*(:[A-Za-z0-9][A-Za-z0-9_.-]*)?$")
 
@@ -54,7 +39,7 @@ class Study:
 
     path: Path
     raw: dict
-    study: str
+    id: str
     base_dir: Path
     inputs: list[dict]
     responses: list[dict]
@@ -62,6 +47,13 @@ class Study:
     screen: dict
     report: dict
     ledger_path: str | None = None
+
+    @property
+    def study(self) -> str:
+        """The study id: the old name of :attr:`id`, kept while callers move over.
+
+        Deprecated: to be removed once no module reads ``Study.study``."""
+        return self.id
 
     @property
     def response_ids(self) -> list[str]:
@@ -90,11 +82,63 @@ class Study:
 
 
 @functools.lru_cache(maxsize=1)
+def _schema() -> dict:
+    """The config schema, read once per process (do not modify the returned mapping)."""
+    with SCHEMA_FILE.open(encoding="utf-8") as fh:
+        return yaml.load(fh, Loader=SafeLoader)
+
+
+@functools.lru_cache(maxsize=1)
 def _validator() -> jsonschema.Draft202012Validator:
     """The config schema's validator, built once per process (planning thousands of studies
     would otherwise re-read and re-compile the schema for each)."""
-    with SCHEMA_FILE.open(encoding="utf-8") as fh:
-        return jsonschema.Draft202012Validator(yaml.load(fh, Loader=SafeLoader))
+    return jsonschema.Draft202012Validator(_schema())
+
+
+def _resolve(schema: dict, root: dict) -> dict:
+    """Follow a local ``$ref`` (``#/definitions/...``) to the schema it names."""
+    while "$ref" in schema:
+        node = root
+        for part in schema["$ref"].removeprefix("#/").split("/"):
+            node = node[part]
+        schema = node
+    return schema
+
+
+def fill_defaults(instance: Any, schema: dict | None = None, root: dict | None = None) -> Any:
+    """A copy of ``instance`` with the schema's ``default`` filled in for every absent key.
+
+    Walks objects through ``properties`` (a present value is kept; a filled default is
+    filled in turn, so ``screen: {}`` gets its keys), arrays through ``items``, and follows
+    local ``$ref``. Defaulted keys come first, in the schema's order, then the others in the
+    config's order. ``instance`` is not modified. Without ``schema``, the config schema.
+    """
+    root = root if root is not None else (schema if schema is not None else _schema())
+    schema = _resolve(schema if schema is not None else root, root)
+    if isinstance(instance, dict) and isinstance(schema.get("properties"), dict):
+        props = {k: _resolve(v, root) for k, v in schema["properties"].items()}
+        out = {k: sub["default"] for k, sub in props.items() if "default" in sub}
+        out.update(instance)
+        return {k: fill_defaults(v, props[k], root) if k in props else copy.deepcopy(v)
+                for k, v in out.items()}
+    if isinstance(instance, list) and isinstance(schema.get("items"), dict):
+        return [fill_defaults(v, schema["items"], root) for v in instance]
+    return copy.deepcopy(instance)
+
+
+def screen_defaults() -> dict[str, Any]:
+    """The ``screen`` settings of a config that gives none (a fresh copy each call)."""
+    return fill_defaults({})["screen"]
+
+
+def report_defaults() -> dict[str, Any]:
+    """The ``report`` settings of a config that gives none (a fresh copy each call)."""
+    return fill_defaults({})["report"]
+
+
+# The screen settings of a config that gives none, computed from the schema; kept as a
+# module value for code that starts from them (benchmarks, tests): copy before changing.
+SCREEN_DEFAULTS: dict[str, Any] = screen_defaults()
 
 
 def _key_path(err: jsonschema.ValidationError) -> str:
@@ -106,17 +150,22 @@ def _schema_problem(err: jsonschema.ValidationError, file: str) -> InputProblem:
     key = _key_path(err)
     v = err.validator
     if v == "additionalProperties":
-        extra = sorted(set(err.instance) - set(err.schema.get("properties", {})))
+        allowed = sorted(err.schema.get("properties", {}))
+        extra = sorted(set(err.instance) - set(allowed))
+        hints = [f"did you mean '{m}' for '{k}'?" if (m := closest(k, allowed)) else f"remove '{k}'"
+                 for k in extra]
         return InputProblem(
             what=f"unknown key(s) {', '.join(map(repr, extra))}",
-            fix=f"remove or correct them; allowed here: {', '.join(sorted(err.schema.get('properties', {})))}",
-            file=file, key=key)
+            fix=f"{' '.join(hints)} (allowed here: {', '.join(allowed)})", file=file, key=key)
     if v == "required":
         return InputProblem(what=err.message, fix="add the key (see config/README.md)", file=file, key=key)
     if v == "enum":
+        options = [str(o) for o in err.validator_value]
+        near = closest(err.instance, options) if isinstance(err.instance, str) else None
+        hint = f"did you mean '{near}'? " if near else ""
         return InputProblem(
             what=f"value {err.instance!r} is not allowed",
-            fix=f"use one of {', '.join(map(str, err.validator_value))}", file=file, key=key)
+            fix=f"{hint}use one of {', '.join(options)}", file=file, key=key)
     if v == "pattern":
         return InputProblem(
             what=f"value {err.instance!r} has characters that are not allowed",
@@ -171,18 +220,19 @@ def _build(path: Path, raw: dict) -> Study:
         if s in slugs:
             problems.append(InputProblem(what=f"clashes with series '{slugs[s]}' once made a file name", fix="rename one of them", file=shown, series=sid))
         slugs[s] = sid
-    screen = copy.deepcopy(SCREEN_DEFAULTS)
-    screen.update(copy.deepcopy(raw.get("screen", {})))
-    report = dict(REPORT_DEFAULTS, **raw.get("report", {}))
-    responses = [dict({"kind": "other", "transform": "none"}, **r) for r in raw["responses"]]
-    drivers = [dict({"category": "other", "expected_sign": "any", "transform": "none"}, **d) for d in raw["drivers"]]
+    full = fill_defaults(raw)
+    responses, drivers = full["responses"], full["drivers"]
     resp_ids = {r["id"] for r in responses}
     for i, d in enumerate(drivers):
         for rid in d.get("responses", []) or []:
             if rid not in resp_ids:
-                problems.append(InputProblem(what=f"names response '{rid}', which is not in responses", fix="use an id listed under responses", file=shown, key=f"drivers.{i}.responses", series=d["id"]))
+                problems.append(InputProblem(
+                    what=f"names response '{rid}', which is not in responses",
+                    fix=f"use an id listed under responses ({suggest(rid, resp_ids, 'responses')})",
+                    file=shown, key=f"drivers.{i}.responses", series=d["id"]))
     if problems:
         raise InputErrors(problems)
     ledger = (raw.get("ledger") or {}).get("path")
-    return Study(path=path.resolve(), raw=raw, study=raw["study"], base_dir=base, inputs=inputs,
-                 responses=responses, drivers=drivers, screen=screen, report=report, ledger_path=ledger)
+    return Study(path=path.resolve(), raw=raw, id=raw["study"], base_dir=base, inputs=inputs,
+                 responses=responses, drivers=drivers, screen=full["screen"], report=full["report"],
+                 ledger_path=ledger)

@@ -30,7 +30,7 @@ from typing import Any, Iterable, Mapping
 
 import pandas as pd
 
-from lagsieve.errors import InputErrors, InputProblem, InputWarning, show
+from lagsieve.errors import InputErrors, InputProblem, InputWarning, closest, show
 from lagsieve.io.cells import Collector
 from lagsieve.io.tables import FRAME_COLUMNS, Grid, empty_frame, parse_grid
 
@@ -197,9 +197,11 @@ def _read_xlsx(path: Path, spec: _Spec, col: Collector, warnings: list[InputWarn
             ws = wb.worksheets[sheet]
         else:
             if sheet not in names:
+                near = closest(sheet, names)
                 col.fatal(f"sheet '{show(sheet)}' does not exist (sheets: "
                           f"{', '.join(show(n) for n in names)})",
-                          "set sheet to one of the sheet names above (spelling and case "
+                          (f"did you mean '{show(near)}'? " if near else "")
+                          + "set sheet to one of the sheet names above (spelling and case "
                           "matter)")
             ws = wb[sheet]
         header = None
