@@ -140,7 +140,8 @@ class DemoData:
 # --------------------------------------------------------------------------- drivers
 
 DRIVERS = (
-    # id, category, expected_sign, transform, file, label, unit (as in demo_config_text)
+    # id, category, expected_sign, transform, file, label, unit: as in templates/config.yaml.j2
+    # (tests/test_demo.py checks that the two agree)
     ("forage_biomass", "prey", "negative", "log", "surveys_annual.csv",
      "Forage fish biomass index", "kt"),
     ("shrimp_index", "prey", "negative", "log", "surveys_annual.csv",
