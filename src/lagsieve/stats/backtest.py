@@ -204,81 +204,135 @@ def rolling_origin(
     if initial < 3 or initial >= T:
         raise ValueError("initial window must leave at least one forecast")
     origins = np.arange(initial, T)
-    Xs = _scale_from_start(np.asarray(X, float), initial)
-    yl = _scale_from_start(np.asarray(ylag, float), initial)
-    yr = _scale_from_start(np.asarray(year, float), initial)
-    S, L, _ = Xs.shape
-    base_fc, model_fc, chosen, added, mse_base, rss_lin, fc_lin, aic0 = {}, {}, {}, {}, {}, {}, {}, {}
-    for b in BASELINES:  # three fixed model forms
-        Z = baseline_design(b, yl, yr)  # (T, p)
-        beta0, rss0 = _expanding_solve(Z, y, origins, weights)
-        aic0[b] = initial * np.log(max(rss0[0], 1e-300) / initial) + 2 * Z.shape[1]  # first window
-        base_fc[b] = (Z[origins] * beta0).sum(-1)
-        W = np.concatenate(
-            [np.broadcast_to(Z, (S, L) + Z.shape), Xs[..., None]], axis=-1
-        )  # (S, L, T, p+1)
-        beta, rss = _expanding_solve(W, y, origins, weights)  # (S, L, O, p+1), (S, L, O)
-        fc = (W[:, :, origins, :] * beta).sum(-1)  # (S, L, O)
-        rss_lin[b], fc_lin[b] = rss, fc
-        pick = np.argmin(rss, axis=1)  # (S, O)
-        model_fc[b] = np.take_along_axis(fc, pick[:, None, :], axis=1)[:, 0, :]
-        chosen[b] = np.asarray(lags)[pick]
-        mse_base[b] = np.mean((y[origins] - base_fc[b]) ** 2)
-        mse_m = np.mean((y[origins][None, :] - model_fc[b]) ** 2, axis=-1)
-        added[b] = skill_score(mse_m, mse_base[b]) if mse_base[b] > 0 else np.full(S, np.nan)
-    hardest = min(BASELINES, key=lambda b: mse_base[b])
-    cand0 = min(BASELINES, key=lambda b: aic0[b])  # the spline is built on this baseline
-    n_tr = origins.astype(float)
+    lags = np.asarray(lags)
+    Xs, yl, yr = (_scale_from_start(np.asarray(a, float), initial) for a in (X, ylag, year))
+    fits = {b: _baseline_fits(b, y, yl, yr, Xs, lags, origins, weights) for b in BASELINES}
+    hardest = min(BASELINES, key=lambda b: fits[b].mse)
+    cand0 = min(BASELINES, key=lambda b: fits[b].aic_first)  # the spline is built on this baseline
     # the pool of candidate forms at every origin: every baseline + the driver at every lag,
     # (and the spline on the first window's AIC baseline); the least GCV on the training
     # years wins, for the real driver and every surrogate alike
-    gcv_pool = [n_tr * rss_lin[b] / (n_tr - (baseline_design(b, yl[:1], yr[:1]).shape[1] + 1)) ** 2
-                for b in BASELINES]
-    fc_pool = [fc_lin[b] for b in BASELINES]
-    lag_pool = np.tile(np.asarray(lags), len(BASELINES))
-    base_pool = np.repeat(np.arange(len(BASELINES)), L)
+    pool = _CandidatePool(origins.astype(float))
+    for i, b in enumerate(BASELINES):
+        pool.add_linear(fits[b], lags, i)
     extra = {}
     if "gam" in models:
-        Z = baseline_design(cand0, yl, yr)
         K = n_basis or default_n_basis(3 * initial)  # fixed by the scheme, not by later years
-        fc_gam = np.empty((S, L, len(origins)))
-        gcv_gam = np.empty_like(fc_gam)
-        edf_gam = np.empty_like(fc_gam)
-        for lo in range(0, S, chunk):  # chunks bound the memory of the stacked systems
-            sl = slice(lo, lo + chunk)
-            fc_gam[sl], gcv_gam[sl], edf_gam[sl] = gam_candidate(Z, Xs[sl], y, origins, initial, K, retune_every,
-                                                                      weights)
-        gcv_pool.append(gcv_gam)
-        fc_pool.append(fc_gam)
-        lag_pool = np.r_[lag_pool, np.asarray(lags)]
-        base_pool = np.r_[base_pool, np.full(L, BASELINES.index(cand0))]
-        mse = lambda f: np.mean((y[origins][None, :] - f) ** 2, axis=-1)
-        gam_only = np.take_along_axis(fc_gam, np.argmin(gcv_gam, axis=1)[:, None, :], axis=1)[:, 0, :]
-        lin_only = np.take_along_axis(fc_lin[cand0], np.argmin(rss_lin[cand0], axis=1)[:, None, :], axis=1)[:, 0, :]
-        extra = dict(gam_gain=skill_score(mse(gam_only), mse(lin_only)), gam_forecast=gam_only,
-                     linear_forecast=lin_only)
-    gcv_all = np.concatenate(gcv_pool, axis=1)  # (S, pool, O)
-    pick = np.argmin(gcv_all, axis=1)  # (S, O)
-    cand_fc = np.take_along_axis(np.concatenate(fc_pool, axis=1), pick[:, None, :], axis=1)[:, 0, :]
+        fc_gam, gcv_gam = _gam_forms(baseline_design(cand0, yl, yr), Xs, y, origins, initial, K, chunk,
+                                     retune_every, weights)
+        pool.add(gcv_gam, fc_gam, lags, BASELINES.index(cand0))
+        extra = _gam_comparison(y[origins], fc_gam, gcv_gam, fits[cand0].model_fc)
+    pick, cand_fc = pool.choose()
     if "gam" in models:
-        extra["chosen_model"] = np.where(pick >= len(BASELINES) * L, "gam", "linear")
-    chosen_base = base_pool[pick]
+        extra["chosen_model"] = np.where(pick >= len(BASELINES) * len(lags), "gam", "linear")
+    chosen_base = pool.baseline_index[pick]
     counts = np.bincount(chosen_base[0], minlength=len(BASELINES))
     return RollingOriginResult(
         years=np.asarray(year)[origins],
         observed=y[origins],
-        baseline_forecast=base_fc,
-        model_forecast=model_fc,
-        chosen_lag=chosen,
-        added_skill=added,
+        baseline_forecast={b: f.forecast for b, f in fits.items()},
+        model_forecast={b: f.model_fc for b, f in fits.items()},
+        chosen_lag={b: f.lag for b, f in fits.items()},
+        added_skill={b: f.added for b, f in fits.items()},
         hardest=hardest,
         candidate=BASELINES[int(np.argmax(counts))],
         candidate_fc=cand_fc,
-        candidate_lag=lag_pool[pick],
+        candidate_lag=pool.lag[pick],
         candidate_baseline=np.asarray(BASELINES)[chosen_base],
-        lags=np.asarray(lags),
+        lags=lags,
         **extra,
     )
+
+
+@dataclass(frozen=True)
+class _BaselineFits:
+    """Expanding-window fits of one baseline, alone and plus the driver at every lag."""
+
+    n_params: int          # parameters of baseline + driver
+    forecast: np.ndarray   # (O,) the baseline alone
+    aic_first: float       # AIC of the baseline alone in the first window
+    mse: float             # out-of-sample MSE of the baseline alone
+    rss: np.ndarray        # (S, L, O) training RSS of baseline + driver at every lag
+    fc: np.ndarray         # (S, L, O) forecasts of baseline + driver at every lag
+    model_fc: np.ndarray   # (S, O) at the lag of least training RSS
+    lag: np.ndarray        # (S, O) that lag
+    added: np.ndarray      # (S,) 1 - MSE(baseline + driver) / MSE(baseline)
+
+
+def _baseline_fits(b: str, y, yl, yr, Xs, lags, origins, weights) -> _BaselineFits:
+    """Fits of baseline ``b`` and of ``b`` + driver for every driver of the batch and lag."""
+    initial = int(origins[0])
+    S, L, _ = Xs.shape
+    Z = baseline_design(b, yl, yr)  # (T, p)
+    beta0, rss0 = _expanding_solve(Z, y, origins, weights)
+    base_fc = (Z[origins] * beta0).sum(-1)
+    W = np.concatenate([np.broadcast_to(Z, (S, L) + Z.shape), Xs[..., None]], axis=-1)  # (S, L, T, p+1)
+    beta, rss = _expanding_solve(W, y, origins, weights)  # (S, L, O, p+1), (S, L, O)
+    fc = (W[:, :, origins, :] * beta).sum(-1)  # (S, L, O)
+    pick = np.argmin(rss, axis=1)  # (S, O)
+    model_fc = np.take_along_axis(fc, pick[:, None, :], axis=1)[:, 0, :]
+    mse_base = np.mean((y[origins] - base_fc) ** 2)
+    mse_m = np.mean((y[origins][None, :] - model_fc) ** 2, axis=-1)
+    return _BaselineFits(
+        n_params=Z.shape[1] + 1,
+        forecast=base_fc,
+        aic_first=initial * np.log(max(rss0[0], 1e-300) / initial) + 2 * Z.shape[1],
+        mse=mse_base,
+        rss=rss,
+        fc=fc,
+        model_fc=model_fc,
+        lag=lags[pick],
+        added=skill_score(mse_m, mse_base) if mse_base > 0 else np.full(S, np.nan),
+    )
+
+
+class _CandidatePool:
+    """Candidate forms (baseline + driver at a lag, linear or spline) competing by GCV on the
+    training years at every origin."""
+
+    def __init__(self, n_train: np.ndarray):
+        self.n_train = n_train  # (O,) training rows at every origin
+        self.gcv, self.fc = [], []
+        self.lag = np.zeros(0, int)
+        self.baseline_index = np.zeros(0, int)
+
+    def add(self, gcv: np.ndarray, fc: np.ndarray, lags: np.ndarray, baseline: int) -> None:
+        """Forms of one kind at every lag: gcv and fc (S, L, O)."""
+        self.gcv.append(gcv)
+        self.fc.append(fc)
+        self.lag = np.r_[self.lag, lags]
+        self.baseline_index = np.r_[self.baseline_index, np.full(len(lags), baseline)]
+
+    def add_linear(self, fits: _BaselineFits, lags: np.ndarray, baseline: int) -> None:
+        n_tr = self.n_train
+        self.add(n_tr * fits.rss / (n_tr - fits.n_params) ** 2, fits.fc, lags, baseline)
+
+    def choose(self) -> tuple[np.ndarray, np.ndarray]:
+        """(pick, forecast), each (S, O): the form of least GCV at every origin."""
+        pick = np.argmin(np.concatenate(self.gcv, axis=1), axis=1)  # (S, O)
+        fc = np.take_along_axis(np.concatenate(self.fc, axis=1), pick[:, None, :], axis=1)[:, 0, :]
+        return pick, fc
+
+
+def _gam_forms(Z, Xs, y, origins, initial, n_basis, chunk, retune_every, weights):
+    """Forecasts and GCV (S, L, O) of baseline ``Z`` + spline, in chunks of the driver batch
+    (chunks bound the memory of the stacked systems)."""
+    fc_gam = np.empty(Xs.shape[:2] + (len(origins),))
+    gcv_gam = np.empty_like(fc_gam)
+    for lo in range(0, Xs.shape[0], chunk):
+        sl = slice(lo, lo + chunk)
+        fc_gam[sl], gcv_gam[sl], _ = gam_candidate(Z, Xs[sl], y, origins, initial, n_basis, retune_every,
+                                                   weights)
+    return fc_gam, gcv_gam
+
+
+def _gam_comparison(observed, fc_gam, gcv_gam, lin_only) -> dict:
+    """The spline alone (lag of least GCV) against the line alone (lag of least RSS), both on
+    the same baseline: forecasts and ``gam_gain`` = 1 - MSE(spline) / MSE(line)."""
+    gam_only = np.take_along_axis(fc_gam, np.argmin(gcv_gam, axis=1)[:, None, :], axis=1)[:, 0, :]
+    mse_gam = np.mean((observed[None, :] - gam_only) ** 2, axis=-1)
+    mse_lin = np.mean((observed[None, :] - lin_only) ** 2, axis=-1)
+    return dict(gam_gain=skill_score(mse_gam, mse_lin), gam_forecast=gam_only, linear_forecast=lin_only)
 
 
 def gam_candidate(Z: np.ndarray, Xs: np.ndarray, y: np.ndarray, origins: np.ndarray, initial: int,
