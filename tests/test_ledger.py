@@ -1,4 +1,4 @@
-"""Tests of lagsieve.ledger.store: the forecast ledger over simulated yearly deliveries.
+"""Tests of lagsieve.ledger: the forecast ledger over simulated yearly deliveries.
 
 The invented demo data (lagsieve.demo.simulate) are delivered as they would arrive: first every series
 up to 2022, then up to 2023, then up to 2024, and every delivery runs the stages (align,
@@ -15,13 +15,22 @@ from __future__ import annotations
 import json
 import shutil
 import sqlite3
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pytest
 import yaml
 
-from lagsieve.ledger import store as ledger
+from lagsieve.errors import InputErrors
+from lagsieve.ledger import store as ledger_store
+from lagsieve.ledger import update as ledger_update
+from lagsieve.ledger.fingerprint import fingerprints
+from lagsieve.ledger.forecast import next_year_forecast
+from lagsieve.ledger.store import connect, open_readonly, resolve_ledger_path
+from lagsieve.ledger.study_data import StudyData
+from lagsieve.ledger.track import data_changes, since_previous_run, track_record
+from lagsieve.ledger.update import grade_rows, update_ledger, write_run
 from lagsieve.ledger.section import Block, LedgerSection
 from lagsieve.report.render import ledger_section_html, render_ledger_section
 
@@ -80,7 +89,7 @@ class Deliveries:
                             self.out / "evidence.csv")
 
     def update(self) -> dict:
-        return ledger.update_ledger(self.config, self.work / "annual.csv", self.out / "evidence.csv", self.out,
+        return update_ledger(self.config, self.work / "annual.csv", self.out / "evidence.csv", self.out,
                                     self.summary)
 
     def keep(self, tag: str) -> dict:
@@ -112,7 +121,7 @@ def history(tmp_path_factory):
     summary_before = d.summary.read_text()
     dump_before = dump(d.db)
     calls = []
-    real = ledger._score_open
+    real = ledger_update._score_open
 
     def killed(*args, **kwargs):
         real(*args, **kwargs)  # the scores are written, then the process "dies"
@@ -120,7 +129,7 @@ def history(tmp_path_factory):
         raise KeyboardInterrupt("killed while writing the ledger")
 
     with pytest.MonkeyPatch.context() as mp:
-        mp.setattr(ledger, "_score_open", killed)
+        mp.setattr(ledger_update, "_score_open", killed)
         with pytest.raises(KeyboardInterrupt):
             d.update()
     h["kill"] = {"calls": len(calls), "dump_before": dump_before, "dump_after": dump(d.db),
@@ -167,7 +176,7 @@ def _synthetic(n=30, seed=3):
 def test_forecast_matches_statsmodels_ols():
     sm = pytest.importorskip("statsmodels.api")
     table = _synthetic()
-    f, why = ledger.next_year_forecast(table, table, {}, "r", "d", 1, "trend")
+    f, why = next_year_forecast(table, table, {}, "r", "d", 1, "trend")
     assert why == "" and f is not None
     T = int(table.index.max())
     assert (f.origin_year, f.target_year, f.driver_year) == (T, T + 1, T)
@@ -195,7 +204,7 @@ def test_weighted_forecast_matches_statsmodels_wls():
     sm = pytest.importorskip("statsmodels.api")
     table = _synthetic(seed=5)
     se = pd.DataFrame({"r": np.linspace(0.1, 0.4, len(table)), "d": np.nan}, index=table.index)
-    f, _ = ledger.next_year_forecast(table, table, {}, "r", "d", 1, "climatology", se=se, raw_se=se)
+    f, _ = next_year_forecast(table, table, {}, "r", "d", 1, "climatology", se=se, raw_se=se)
     rows = table.index.to_numpy()[1:]
     w = 1 / se["r"].loc[rows].to_numpy() ** 2
     w = w / w.mean()
@@ -206,48 +215,48 @@ def test_weighted_forecast_matches_statsmodels_wls():
     assert f.forecast == pytest.approx(pred["mean"].iloc[0], rel=1e-10)
     assert (f.lower, f.upper) == pytest.approx((pred["obs_ci_lower"].iloc[0], pred["obs_ci_upper"].iloc[0]), rel=1e-10)
     # the se of the response are part of the training data
-    f2, _ = ledger.next_year_forecast(table, table, {}, "r", "d", 1, "climatology", se=se * 1.5, raw_se=se * 1.5)
+    f2, _ = next_year_forecast(table, table, {}, "r", "d", 1, "climatology", se=se * 1.5, raw_se=se * 1.5)
     assert f2.training_sha256 != f.training_sha256
 
 
 def test_lag_zero_needs_the_driver_of_the_target_year():
     table = _synthetic()
     T = int(table.index.max())
-    f, why = ledger.next_year_forecast(table, table, {}, "r", "d", 0, "trend")
+    f, why = next_year_forecast(table, table, {}, "r", "d", 0, "trend")
     assert f is None and why == f"no forecast: lag 0 needs d in {T + 1}, not yet observed"
     ahead = table.reindex(list(table.index) + [T + 1])
     ahead.loc[T + 1, "d"] = 0.7  # the driver is delivered before the response
-    f, why = ledger.next_year_forecast(ahead, ahead, {}, "r", "d", 0, "trend")
+    f, why = next_year_forecast(ahead, ahead, {}, "r", "d", 0, "trend")
     assert why == "" and (f.target_year, f.driver_year, f.driver_value) == (T + 1, T + 1, 0.7)
 
 
 def test_training_hash_changes_with_a_used_value_only():
     table = _synthetic()
-    f, _ = ledger.next_year_forecast(table, table, {}, "r", "d", 1, "trend")
+    f, _ = next_year_forecast(table, table, {}, "r", "d", 1, "trend")
     restated = table.copy()
     restated.loc[2000, "d"] += 0.1
-    g, _ = ledger.next_year_forecast(restated, restated, {}, "r", "d", 1, "trend")
+    g, _ = next_year_forecast(restated, restated, {}, "r", "d", 1, "trend")
     assert g.training_sha256 != f.training_sha256
     unused = table.copy()
     unused.loc[int(table.index.max()), "d"] += 0.1  # lag 1: the last driver year is the forecast's input...
-    h, _ = ledger.next_year_forecast(unused, unused, {}, "r", "d", 1, "trend")
+    h, _ = next_year_forecast(unused, unused, {}, "r", "d", 1, "trend")
     assert h.training_sha256 != f.training_sha256
     first = table.copy()
     first.loc[1990, "r"] += 0.1  # 1990 is no fitted year, but the response one year before 1991
-    m, _ = ledger.next_year_forecast(first, first, {}, "r", "d", 1, "trend")
+    m, _ = next_year_forecast(first, first, {}, "r", "d", 1, "trend")
     assert m.forecast == f.forecast and m.training_sha256 != f.training_sha256
     other = table.assign(e=1.0)  # ...but another series is not
-    k, _ = ledger.next_year_forecast(other, other, {}, "r", "d", 1, "trend")
+    k, _ = next_year_forecast(other, other, {}, "r", "d", 1, "trend")
     assert k.training_sha256 == f.training_sha256
 
 
 def test_a_fit_that_cannot_be_made_gives_a_reason_not_a_crash():
     table = _synthetic()
     table["d"] = 1.0  # a constant driver: the candidate's design is singular
-    f, why = ledger.next_year_forecast(table, table, {}, "r", "d", 1, "trend")
+    f, why = next_year_forecast(table, table, {}, "r", "d", 1, "trend")
     assert f is None and why.startswith("no forecast: the least-squares fit failed")
     short = _synthetic(n=6)  # 5 usable years, 3 parameters of trend + driver: too few
-    f, why = ledger.next_year_forecast(short, short, {}, "r", "d", 1, "trend")
+    f, why = next_year_forecast(short, short, {}, "r", "d", 1, "trend")
     assert f is None and why == "no forecast: 5 usable years are too few for the candidate model"
 
 
@@ -263,13 +272,13 @@ def test_resolve_ledger_path(tmp_path):
     cfg = yaml.safe_load(demo_config_text("data"))
     p = tmp_path / "c.yaml"
     p.write_text(yaml.safe_dump(cfg))
-    assert ledger.resolve_ledger_path(load_study(p), tmp_path / "o") == tmp_path / "o" / "ledger.sqlite"
+    assert resolve_ledger_path(load_study(p), tmp_path / "o") == tmp_path / "o" / "ledger.sqlite"
     cfg["ledger"] = {"path": "books/track.sqlite"}
     p.write_text(yaml.safe_dump(cfg))
-    assert ledger.resolve_ledger_path(load_study(p), tmp_path / "o") == tmp_path / "o" / "books" / "track.sqlite"
+    assert resolve_ledger_path(load_study(p), tmp_path / "o") == tmp_path / "o" / "books" / "track.sqlite"
     cfg["ledger"] = {"path": str(tmp_path / "abs.sqlite")}
     p.write_text(yaml.safe_dump(cfg))
-    assert ledger.resolve_ledger_path(load_study(p), tmp_path / "o") == tmp_path / "abs.sqlite"
+    assert resolve_ledger_path(load_study(p), tmp_path / "o") == tmp_path / "abs.sqlite"
 
 
 def _tidy(table: pd.DataFrame) -> pd.DataFrame:
@@ -279,16 +288,16 @@ def _tidy(table: pd.DataFrame) -> pd.DataFrame:
 
 def _record(db, table: pd.DataFrame, key: str, now: str):
     """One run of a synthetic study (response r, driver d, strong at lag 1) written to ``db``."""
-    data = ledger.StudyData(table=table, raw=table, transforms={})
+    data = StudyData(table=table, raw=table, transforms={})
     f, _ = data.forecast("r", "d", 1, "trend")
     f.grade = "strong"
-    grades = ledger.grade_rows(pd.DataFrame([{"response": "r", "driver": "d", "grade": "strong", "model": "linear",
-                                              "lag": 1, "oos_hardest": "trend"}]))
+    grades = grade_rows(pd.DataFrame([{"response": "r", "driver": "d", "grade": "strong", "model": "linear",
+                                              "lag": 1, "oos_baseline": "trend"}]))
     run = {"study": "syn", "run_key": key, "data_sha256": key, "inputs_sha256": "{}", "tool_version": "test",
            "config_sha256": "-", "created_utc": now, "screen_json": "{}"}
-    con = ledger.connect(db)
+    con = connect(db)
     try:
-        return ledger.write_run(con, run, ledger.fingerprints(_tidy(table)), grades, {}, [f], data), f
+        return write_run(con, run, fingerprints(_tidy(table)), grades, {}, [f], data), f
     finally:
         con.close()
 
@@ -307,8 +316,8 @@ def test_scoring_inside_and_outside_the_interval(tmp_path, where, inside):
     sc = q(db, "SELECT * FROM scores")
     assert len(sc) == 1 and sc[0]["inside"] == inside and sc[0]["run_id"] == 2
     assert sc[0]["observed"] == obs and sc[0]["error"] == pytest.approx(obs - f.forecast, abs=1e-15)
-    con = ledger.open_readonly(db)
-    tr = ledger.track_record(con, "syn").iloc[0]
+    con = open_readonly(db)
+    tr = track_record(con, "syn").iloc[0]
     con.close()
     assert (tr["made"], tr["scored"], tr["open"], tr["inside"]) == (2, 1, 1, inside)
     e_trend = obs - f.baselines["trend"][0]
@@ -326,7 +335,8 @@ def test_first_delivery_records_forecasts_for_2023(history):
     for f in fc:  # (the checks below look at the ledger after all deliveries)
         e = ev[(ev.response == f["response"]) & (ev.driver == f["driver"])].iloc[0]
         assert (f["origin_year"], f["target_year"], f["driver_year"]) == (2022, 2023, 2023 - e["lag"])
-        assert f["lag"] == e["lag"] and f["baseline"] == e["oos_hardest"] and f["grade"] == e["grade"]
+        # the forecast is the baseline the candidate used most often plus the driver at its lag
+        assert f["lag"] == e["lag"] and f["baseline"] == e["oos_baseline"] and f["grade"] == e["grade"]
         assert f["status"] == "scored" and f["level"] == 0.8 and f["lower"] < f["forecast"] < f["upper"]
         assert json.loads(f["inputs_sha256"]).keys() == {f"data/{n}" for n in FILES}
         assert len(q(d.db, "SELECT * FROM baseline_forecasts WHERE forecast_id = ?", (f["forecast_id"],))) == 3
@@ -409,8 +419,8 @@ def test_restated_value_supersedes_instead_of_scoring(history):
     assert {(f["response"], f["driver"]) for f in fc25} == forecastable(history["r2024"]["evidence"])
     assert all(f["status"] == "open" and f["run_id"] == 3 for f in fc25)
     # the fingerprints of run 3 record exactly one restated cell against run 2
-    con = ledger.open_readonly(d.db)
-    ch = ledger.data_changes(con, 3, 2).set_index("series")
+    con = open_readonly(d.db)
+    ch = data_changes(con, 3, 2).set_index("series")
     con.close()
     assert ch.loc[series, "restated"] == [year]
     assert sum(len(v) for v in ch["restated"]) == 1
@@ -419,8 +429,8 @@ def test_restated_value_supersedes_instead_of_scoring(history):
 
 def test_track_record_scores_against_the_baselines_made_at_the_same_time(history):
     d = history["d"]
-    con = ledger.open_readonly(d.db)
-    tr = ledger.track_record(con, STUDY).set_index(["response", "driver"])
+    con = open_readonly(d.db)
+    tr = track_record(con, STUDY).set_index(["response", "driver"])
     con.close()
     rows = q(d.db, "SELECT f.response, f.driver, f.baseline, s.error, s.observed, s.inside, b.baseline AS b, "
                    "b.forecast AS fb FROM forecasts f JOIN scores s USING (forecast_id) "
@@ -477,10 +487,10 @@ def test_killed_run_leaves_the_ledger_intact_and_the_next_run_completes(history)
 
 def test_since_previous_run_lists_data_grades_and_outcomes(history):
     d = history["d"]
-    con = ledger.open_readonly(d.db)
+    con = open_readonly(d.db)
     try:
-        s2 = ledger.since_previous_run(con, STUDY, 2)
-        s3 = ledger.since_previous_run(con, STUDY)
+        s2 = since_previous_run(con, STUDY, 2)
+        s3 = since_previous_run(con, STUDY)
     finally:
         con.close()
     assert s2.previous["run_id"] == 1 and s3.run["run_id"] == 3
@@ -523,8 +533,8 @@ def test_cli_prints_the_track_record(history, capsys):
     assert main(["ledger", str(d.config), "--out", str(d.root / "results")]) == 0
     out = capsys.readouterr().out.splitlines()
     assert out[0].startswith(f"forecast track record of study '{STUDY}': 3 runs recorded")
-    con = ledger.open_readonly(d.db)
-    tr = ledger.track_record(con, STUDY)
+    con = open_readonly(d.db)
+    tr = track_record(con, STUDY)
     con.close()
     assert len(out) == 2 + len(tr)
     for t in tr.itertuples():
@@ -546,10 +556,6 @@ def test_gam_form_forecast_follows_the_curve():
     """With model='gam' the next-year forecast uses the penalised spline the screen chose:
     on a hockey-stick truth it lands nearer the truth than the straight line, and its
     interval (approximate, t on n - edf df) contains its point forecast."""
-    import numpy as np
-    import pandas as pd
-
-    from lagsieve.ledger.store import next_year_forecast
 
     errs = {"linear": [], "gam": []}
     for seed in range(6):
@@ -567,3 +573,124 @@ def test_gam_form_forecast_follows_the_curve():
             assert f.lower < f.forecast < f.upper
             errs[model].append(abs(f.forecast - truth))
     assert np.mean(errs["gam"]) < 0.5 * np.mean(errs["linear"]), errs
+
+
+# ---------------------------------------------------------------- the baseline a forecast is built on
+def test_grades_keep_the_baseline_the_candidate_used_most_often(history):
+    """``grades.baseline`` is evidence.csv's ``oos_baseline`` (not ``oos_hardest``), for every
+    hypothesis of every run."""
+    d = history["d"]
+    for run_id, tag in ((1, "r2022"), (2, "r2023"), (3, "r2024")):
+        ev = history[tag]["evidence"]
+        want = {(r, dr): ("" if pd.isna(b) else b) for r, dr, b in zip(ev.response, ev.driver, ev.oos_baseline)}
+        got = {(g["response"], g["driver"]): g["baseline"] or ""
+               for g in q(d.db, "SELECT response, driver, baseline FROM grades WHERE run_id = ?", (run_id,))}
+        assert got == want
+
+
+def _evidence_two_rows() -> pd.DataFrame:
+    """Two hypotheses whose hardest baseline differs from the baseline their candidate used."""
+    return pd.DataFrame([
+        {"response": "r", "driver": "d", "grade": "strong", "model": "linear", "lag": 1, "oos_hardest": "trend",
+         "oos_baseline": "climatology", "q_value": 0.01, "p_surrogate": 0.002, "oos_skill": 0.3,
+         "oos_p_surrogate": 0.01, "retest_skill": 0.2, "flags": "", "last_year": 2020},
+        {"response": "r", "driver": "a", "grade": "weak", "model": "gam", "lag": 0, "oos_hardest": "persistence",
+         "oos_baseline": np.nan, "q_value": 0.5, "p_surrogate": 0.4, "oos_skill": -0.1, "oos_p_surrogate": 0.6,
+         "retest_skill": np.nan, "flags": "short-overlap", "last_year": 2020}])
+
+
+def test_the_forecast_is_built_on_the_candidates_baseline_not_the_hardest():
+    grades = grade_rows(_evidence_two_rows())
+    assert grades["baseline"].tolist() == ["", "climatology"] and "hardest" not in grades.columns
+    table = _synthetic()
+    data = StudyData(table=table, raw=table, transforms={})
+    made, notes = ledger_update.forecasts_of(grades, data)
+    assert len(made) == 1 and notes == {}
+    want, _ = next_year_forecast(table, table, {}, "r", "d", 1, "climatology")
+    hardest, _ = next_year_forecast(table, table, {}, "r", "d", 1, "trend")
+    assert made[0].baseline == "climatology" and made[0].forecast == want.forecast != hardest.forecast
+    assert made[0].training_sha256 == want.training_sha256
+
+
+def test_run_key_is_the_same_as_under_schema_1():
+    """The run key of these grade rows as the schema-1 code computed it (column ``hardest``):
+    a ledger upgraded from schema 1 must recognise a rerun on unchanged data and grades."""
+    key = ledger_update.run_key("abc", grade_rows(_evidence_two_rows()))
+    assert key == "28abd623c2f45ea4367ea89e226dbef7a94a364c875c57556dd8c7b36c341550"
+
+
+# ---------------------------------------------------------------- a ledger written by schema 1
+# made by the schema-1 code (commit 88b940f): two runs of _record on _synthetic(), the second
+# observing 2020 in the middle of the first forecast's interval; VACUUMed with page_size 1024 (26 kB)
+OLD_LEDGER = Path(__file__).parent / "data" / "ledger_schema1.sqlite"
+
+
+def _rows(db) -> dict[str, list[tuple]]:
+    con = sqlite3.connect(str(db))
+    try:
+        names = [r[0] for r in con.execute("SELECT name FROM sqlite_master WHERE type='table' ORDER BY name")]
+        return {n: con.execute(f'SELECT * FROM "{n}" ORDER BY rowid').fetchall() for n in names}
+    finally:
+        con.close()
+
+
+def _columns(db, table: str) -> list[str]:
+    return [r["name"] for r in q(db, f"PRAGMA table_info({table})")]
+
+
+def test_a_schema_1_ledger_is_upgraded_on_open(tmp_path):
+    db = tmp_path / "old.sqlite"
+    shutil.copy(OLD_LEDGER, db)
+    assert q(db, "SELECT value FROM meta")[0]["value"] == "1" and "hardest" in _columns(db, "grades")
+    before = _rows(db)
+    con = open_readonly(db)  # the readers work on the old schema, and never change it
+    track_before = track_record(con, "syn")
+    con.close()
+    assert dump(db) == dump(OLD_LEDGER)
+    assert (track_before["made"].iloc[0], track_before["scored"].iloc[0]) == (2, 1)
+    connect(db).close()
+    assert q(db, "SELECT value FROM meta WHERE key = 'schema_version'")[0]["value"] == "2"
+    cols = _columns(db, "grades")
+    assert "baseline" in cols and "hardest" not in cols and cols.index("baseline") == 6
+    after = _rows(db)
+    before["meta"] = [("schema_version", "2")]
+    assert after == before  # every row kept as it was; only the column's name and the version changed
+    assert q(db, "SELECT DISTINCT baseline FROM grades") == [{"baseline": "trend"}]
+    con = open_readonly(db)
+    pd.testing.assert_frame_equal(track_record(con, "syn"), track_before)
+    con.close()
+    # the upgraded ledger takes the next run: the open forecast is scored, a new one is made
+    table = _synthetic()
+    later = table.reindex(list(table.index) + [2020, 2021])
+    later.loc[2020, ["r", "d"]] = [q(db, "SELECT observed FROM scores")[0]["observed"], 0.0]  # as in run 2
+    later.loc[2021, ["r", "d"]] = [1.1, 0.1]
+    s3, _ = _record(db, later, "k3", "t3")
+    assert (s3["run_id"], s3["new"], s3["scored"], s3["superseded"]) == (3, 1, 1, 0)
+    assert q(db, "SELECT baseline FROM grades WHERE run_id = 3") == [{"baseline": "trend"}]
+    connect(db).close()  # opening a current ledger changes nothing
+    assert q(db, "SELECT value FROM meta WHERE key = 'schema_version'")[0]["value"] == "2"
+
+
+def test_a_failed_upgrade_leaves_the_old_ledger_as_it_was(tmp_path, monkeypatch):
+    db = tmp_path / "old.sqlite"
+    shutil.copy(OLD_LEDGER, db)
+    raw = db.read_bytes()
+    broken = {"1": ("2", ("ALTER TABLE grades RENAME COLUMN hardest TO baseline", "UPDATE no_such_table SET x = 1"))}
+    monkeypatch.setattr(ledger_store, "MIGRATIONS", broken)
+    with pytest.raises(sqlite3.OperationalError, match="no_such_table"):
+        connect(db)
+    assert db.read_bytes() == raw and "hardest" in _columns(db, "grades")
+    assert not (tmp_path / "old.sqlite-journal").exists()
+
+
+def test_a_ledger_from_a_newer_lagsieve_is_one_clear_error(tmp_path):
+    db = tmp_path / "new.sqlite"
+    connect(db).close()
+    con = sqlite3.connect(str(db))
+    con.execute("UPDATE meta SET value = '9' WHERE key = 'schema_version'")
+    con.commit()
+    con.close()
+    with pytest.raises(InputErrors) as exc:
+        connect(db)
+    line = str(exc.value)
+    assert "\n" not in line and str(db) in line and "schema version 9" in line and "update lagsieve" in line

@@ -14,8 +14,10 @@ from pathlib import Path
 import pandas as pd
 
 from lagsieve.io.config import Study
-from lagsieve.ledger.store import (LEVEL, SinceLastRun, _frame, _has_schema, _n, _years_text, grade_rows,
-                                   open_readonly, since_previous_run)
+from lagsieve.ledger.forecast import LEVEL
+from lagsieve.ledger.store import has_schema as _has_schema, open_readonly, query_frame as _frame
+from lagsieve.ledger.track import SinceLastRun, number_text as _n, since_previous_run, years_text as _years_text
+from lagsieve.ledger.update import grade_rows
 
 MISSING, UNREADABLE, NO_RUN, READ = "missing", "unreadable", "no-run", "read"
 

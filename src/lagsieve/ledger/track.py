@@ -1,0 +1,235 @@
+"""Reading the ledger back: the track record of every hypothesis, and what changed since the
+previous run (data, grades and why they changed, forecasts scored, superseded and made)."""
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import dataclass
+
+import pandas as pd
+
+from lagsieve.ledger.store import forecasts_frame, query_frame, runs_frame
+from lagsieve.stats.backtest import BASELINES
+
+TRACK_COLUMNS = ["response", "driver", "made", "open", "scored", "superseded", "inside", "coverage", "mae",
+                 "skill_hardest", "beat_hardest"] + [f"skill_{b}" for b in BASELINES] + ["last"]
+GRADE_CHANGE_COLUMNS = ["response", "driver", "before", "after", "reason"]
+SKILL_CUTS = (0.05, 0.10, 0.20)  # the surrogate p of skill: the grade rules' cuts, most telling first
+NOTABLE_MOVE = 0.05  # a statistic that moved this much is named even without crossing a threshold
+
+
+def number_text(v, fmt: str = "{:.3f}") -> str:
+    """A number as text; empty for a missing value (the track record's cells)."""
+    if v is None or (isinstance(v, float) and math.isnan(v)):
+        return ""
+    return fmt.format(float(v))
+
+
+def years_text(years) -> str:
+    """1990, 1991, 1992, 1995 -> '1990-1992, 1995'."""
+    ys = sorted(int(y) for y in years)
+    out, i = [], 0
+    while i < len(ys):
+        j = i
+        while j + 1 < len(ys) and ys[j + 1] == ys[j] + 1:
+            j += 1
+        out.append(str(ys[i]) if i == j else f"{ys[i]}-{ys[j]}")
+        i = j + 1
+    return ", ".join(out)
+
+
+# ---------------------------------------------------------------- track record
+def _skill(e_model: pd.Series, e_base: pd.Series) -> float:
+    ok = e_model.notna() & e_base.notna()
+    den = float((e_base[ok] ** 2).sum())
+    return float(1.0 - (e_model[ok] ** 2).sum() / den) if ok.any() and den > 0 else float("nan")
+
+
+def _latest_words(last: pd.Series) -> str:
+    """The latest forecast of a hypothesis in words: year, forecast, interval, status, outcome."""
+    words = (f"{int(last['target_year'])}: {last['forecast']:.3f} [{last['lower']:.3f}, {last['upper']:.3f}] "
+             f"{last['status']}")
+    if last["status"] == "scored":
+        words += f" (observed {last['observed']:.3f}, {'inside' if last['inside'] else 'outside'})"
+    return words
+
+
+def _track_row(response: str, driver: str, g: pd.DataFrame) -> dict:
+    sc = g[g["status"] == "scored"]
+    row = {"response": response, "driver": driver, "made": len(g), "open": int((g["status"] == "open").sum()),
+           "scored": len(sc), "superseded": int((g["status"] == "superseded").sum()),
+           "inside": int(sc["inside"].sum()) if len(sc) else 0,
+           "coverage": float(sc["inside"].mean()) if len(sc) else float("nan"),
+           "mae": float(sc["error"].abs().mean()) if len(sc) else float("nan"),
+           "skill_hardest": _skill(sc["error"], sc["err_baseline"]),
+           "beat_hardest": int((sc["error"] ** 2 < sc["err_baseline"] ** 2).sum()),
+           "last": _latest_words(g.iloc[-1])}
+    for b in BASELINES:
+        row[f"skill_{b}"] = _skill(sc["error"], sc[f"err_{b}"])
+    return row
+
+
+def track_record(con, study: str) -> pd.DataFrame:
+    """Per hypothesis: forecasts made, open, scored, superseded; on the scored ones, how many fell
+    inside their interval (coverage), mean absolute error, and skill 1 - SSE(candidate) / SSE(b)
+    against the baselines' forecasts made at the same time. ``skill_hardest`` and
+    ``beat_hardest`` (names kept for the report) are against the baseline the candidate was built
+    on (the forecast's ``baseline``): its skill, and the forecasts with the smaller squared error.
+    Superseded forecasts are counted but never scored."""
+    f = forecasts_frame(con, study)
+    if f.empty:
+        return pd.DataFrame(columns=TRACK_COLUMNS)
+    rows = [_track_row(r, d, g) for (r, d), g in f.groupby(["response", "driver"], sort=True)]
+    return pd.DataFrame(rows, columns=TRACK_COLUMNS)
+
+
+# ---------------------------------------------------------------- data changes
+def data_changes(con, run_id: int, prev_id: int | None) -> pd.DataFrame:
+    """Per series: years added (after the previous last year, or filled into the past), restated
+    (value changed) and removed between two recorded runs."""
+    sql = "SELECT series, year, value_sha FROM series_years WHERE run_id = ?"
+    cur = query_frame(con, sql, (run_id,))
+    prev = query_frame(con, sql, (prev_id,)) if prev_id is not None else cur.iloc[0:0]
+    rows = []
+    for s in sorted(set(cur["series"]) | set(prev["series"])):
+        a = dict(zip(prev.loc[prev.series == s, "year"], prev.loc[prev.series == s, "value_sha"]))
+        b = dict(zip(cur.loc[cur.series == s, "year"], cur.loc[cur.series == s, "value_sha"]))
+        last_prev = max(a) if a else None
+        new = [y for y in b if y not in a]
+        rows.append({"series": s,
+                     "added": [y for y in new if last_prev is None or y > last_prev],
+                     "filled_in": [y for y in new if last_prev is not None and y <= last_prev],
+                     "restated": [y for y in b if y in a and a[y] != b[y]],
+                     "removed": [y for y in a if y not in b]})
+    return pd.DataFrame(rows, columns=["series", "added", "filled_in", "restated", "removed"])
+
+
+# ---------------------------------------------------------------- why a grade changed
+def _missing(v) -> bool:
+    return v is None or (isinstance(v, float) and math.isnan(v))
+
+
+def _crossing(name: str, a, b, thr: float, lower_is_better: bool) -> tuple[int, str] | None:
+    """(2, words) when a statistic crossed its threshold, (1, words) when it moved notably."""
+    if _missing(a) or _missing(b) or abs(b - a) < 1e-9:
+        return None
+    verb = "rose" if b > a else "fell"
+    crossed = (a <= thr) != (b <= thr) if lower_is_better else (a > thr) != (b > thr)
+    if crossed:
+        return 2, f"{name} {verb} from {a:.2f} to {b:.2f} (threshold {thr:g})"
+    if abs(b - a) >= NOTABLE_MOVE:
+        return 1, f"{name} {verb} from {a:.2f} to {b:.2f}"
+    return None
+
+
+def _outcome_words(scored: pd.DataFrame, superseded: pd.DataFrame) -> list[str]:
+    """The forecasts of one hypothesis scored or superseded at this run, in words."""
+    parts = []
+    for _, f in scored.iterrows():
+        b = f["baseline"]
+        better = f["error"] ** 2 < f[f"err_{b}"] ** 2
+        parts.append(f"the {int(f['target_year'])} forecast {'hit' if f['inside'] else 'missed'} "
+                     f"(observed {f['observed']:.3f}, {int(round(100 * f['level']))}% interval "
+                     f"{f['lower']:.3f} to {f['upper']:.3f}; {'closer than' if better else 'further off than'} "
+                     f"the {b} baseline)")
+    for _, f in superseded.iterrows():
+        parts.append(f"the {int(f['target_year'])} forecast was superseded ({f['superseded_reason']})")
+    return parts
+
+
+def _statistic_words(prev: dict, cur: dict, screen: dict) -> list[str]:
+    """The statistics that crossed a grade rule's threshold (else those that moved notably)."""
+    alpha, fdr = float(screen.get("alpha", 0.05)), float(screen.get("fdr", 0.10))
+    cands = [
+        _crossing("re-test skill", prev.get("retest_skill"), cur.get("retest_skill"), 0.0, False),
+        _crossing("out-of-sample skill", prev.get("oos_skill"), cur.get("oos_skill"), 0.0, False),
+        _crossing("q-value", prev.get("q_value"), cur.get("q_value"), fdr, True),
+        _crossing("surrogate p", prev.get("p_surrogate"), cur.get("p_surrogate"), alpha, True),
+    ]
+    a, b = prev.get("oos_p_surrogate"), cur.get("oos_p_surrogate")
+    for thr in SKILL_CUTS:
+        c = _crossing("surrogate p of skill", a, b, thr, True)
+        if c and c[0] == 2:
+            cands.append(c)
+            break
+    else:
+        cands.append(_crossing("surrogate p of skill", a, b, SKILL_CUTS[0], True))
+    cands = [c for c in cands if c]
+    return [t for i, t in cands if i == 2] or [t for i, t in cands if i == 1]
+
+
+def _grade_reason(prev: dict, cur: dict, screen: dict, scored: pd.DataFrame, superseded: pd.DataFrame) -> str:
+    parts = _outcome_words(scored, superseded) + _statistic_words(prev, cur, screen)
+    fa = set(filter(None, str(prev.get("flags") or "").split(";")))
+    fb = set(filter(None, str(cur.get("flags") or "").split(";")))
+    parts += [f"new flag {x}" for x in sorted(fb - fa)] + [f"flag {x} cleared" for x in sorted(fa - fb)]
+    if prev.get("lag") != cur.get("lag"):
+        parts.append(f"selected lag {prev.get('lag')} -> {cur.get('lag')}")
+    return "; ".join(parts) if parts else "the statistics moved only slightly (see evidence.csv)"
+
+
+def grade_changes(g_prev: pd.DataFrame, g_cur: pd.DataFrame, screen: dict, scored: pd.DataFrame,
+                  superseded: pd.DataFrame) -> pd.DataFrame:
+    """The hypotheses whose grade differs between two runs' grades, with the reason in words."""
+    a = {(r["response"], r["driver"]): r for r in g_prev.to_dict("records")}
+    b = {(r["response"], r["driver"]): r for r in g_cur.to_dict("records")}
+    changes = []
+    for key in sorted(set(a) | set(b)):
+        pa, pb = a.get(key), b.get(key)
+        if pa and pb and pa["grade"] == pb["grade"]:
+            continue
+        if pa is None:
+            reason = "new hypothesis in this run"
+        elif pb is None:
+            reason = "no longer screened"
+        else:
+            mine = lambda df: df[(df["response"] == key[0]) & (df["driver"] == key[1])]  # noqa: E731
+            reason = _grade_reason(pa, pb, screen, mine(scored), mine(superseded))
+        changes.append({"response": key[0], "driver": key[1], "before": pa["grade"] if pa else "",
+                        "after": pb["grade"] if pb else "", "reason": reason})
+    return pd.DataFrame(changes, columns=GRADE_CHANGE_COLUMNS)
+
+
+# ---------------------------------------------------------------- since the previous run
+@dataclass
+class SinceLastRun:
+    """What changed between the latest recorded run of a study and the run before it."""
+
+    run: dict | None
+    previous: dict | None
+    data: pd.DataFrame
+    grade_changes: pd.DataFrame  # response, driver, before, after, reason
+    scored: pd.DataFrame  # forecasts scored at this run
+    superseded: pd.DataFrame  # forecasts superseded at this run
+    made: pd.DataFrame  # forecasts made at this run
+    notes: pd.DataFrame  # strong/moderate hypotheses without a forecast, and why
+    track: pd.DataFrame
+    n_runs: int = 0
+
+
+def _grades(con, run_id: int) -> pd.DataFrame:
+    return query_frame(con, "SELECT * FROM grades WHERE run_id = ?", (run_id,))
+
+
+def since_previous_run(con, study: str, run_id: int | None = None) -> SinceLastRun:
+    """Changes recorded at run ``run_id`` (default: the latest) against the run before it."""
+    runs = runs_frame(con, study)
+    empty = pd.DataFrame()
+    if runs.empty:
+        return SinceLastRun(None, None, empty, empty, empty, empty, empty, empty, empty, 0)
+    if run_id is None:
+        run_id = int(runs["run_id"].iloc[-1])
+    cur_run = runs[runs.run_id == run_id].iloc[0].to_dict()
+    earlier = runs[runs.run_id < run_id]
+    prev_run = earlier.iloc[-1].to_dict() if len(earlier) else None
+    prev_id = int(prev_run["run_id"]) if prev_run else None
+    g_cur = _grades(con, run_id)
+    f = forecasts_frame(con, study)
+    if f.empty:
+        f = pd.DataFrame(columns=["response", "driver", "run_id", "scored_run", "superseded_run", "status"])
+    scored, superseded = f[f["scored_run"] == run_id], f[f["superseded_run"] == run_id]
+    changes = (grade_changes(_grades(con, prev_id), g_cur, json.loads(cur_run["screen_json"]), scored, superseded)
+               if prev_id is not None else pd.DataFrame(columns=GRADE_CHANGE_COLUMNS))
+    notes = g_cur[(g_cur["note"] != "")][["response", "driver", "grade", "note"]] if len(g_cur) else empty
+    return SinceLastRun(cur_run, prev_run, data_changes(con, run_id, prev_id), changes, scored, superseded,
+                        f[f["run_id"] == run_id], notes, track_record(con, study), len(runs))

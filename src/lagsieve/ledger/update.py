@@ -1,0 +1,273 @@
+"""Stage `ledger`: record this run's forecasts, score the earlier forecasts whose year has
+arrived, and supersede those whose training data were restated.
+
+At every run, for each hypothesis graded ``strong`` or ``moderate`` (``GRADED``), the
+candidate model forecasts the first year not yet observed (:mod:`lagsieve.ledger.forecast`).
+On a later run in which that year has arrived, each open forecast is scored: error = observed
+- forecast, whether the observation fell inside the interval, and (in the track record) the
+squared error of the candidate against each baseline's forecast made at the same time. A
+forecast whose training data were restated since (any value it was made from changed, was
+removed or was filled in) is marked ``superseded`` with the restated years as the reason, and
+is never scored. A run whose data fingerprint and evidence grades equal those of the latest
+recorded run adds nothing. Everything is computed first; the database is then written in one
+transaction (:func:`lagsieve.ledger.store.transaction`).
+"""
+from __future__ import annotations
+
+import json
+import math
+import sqlite3
+import time
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from lagsieve.io.config import Study, load_study
+from lagsieve.io.files import sha256_file, write_json
+from lagsieve.io.provenance import tool_version
+from lagsieve.ledger.fingerprint import digest_frame, fingerprints, sha256_text
+from lagsieve.ledger.forecast import NextYearForecast
+from lagsieve.ledger.store import connect, resolve_ledger_path, transaction
+from lagsieve.ledger.study_data import StudyData
+
+GRADED = ("strong", "moderate")
+SCREEN_KEYS = ("alpha", "fdr", "min_overlap", "surrogates", "seed", "weights")  # recorded with every run
+# the run key hashes the grade rows under their schema-1 column names, so that a ledger
+# upgraded from schema 1 recognises a rerun on unchanged data and evidence
+RUN_KEY_NAMES = {"baseline": "hardest"}
+
+
+# ---------------------------------------------------------------- what the ledger keeps of evidence.csv
+def _num(v):
+    try:
+        f = float(v)
+    except (TypeError, ValueError):
+        return None
+    return None if math.isnan(f) else f
+
+
+def _int(v):
+    f = _num(v)
+    return None if f is None else int(f)
+
+
+def _str(v) -> str:
+    return "" if v is None or (isinstance(v, float) and math.isnan(v)) else str(v)
+
+
+# evidence.csv column -> (ledger column, reader); in the order of the table ``grades``
+GRADE_COLUMNS = {"response": ("response", _str), "driver": ("driver", _str), "grade": ("grade", _str),
+                 "model": ("model", _str), "lag": ("lag", _int), "oos_baseline": ("baseline", _str),
+                 "q_value": ("q_value", _num), "p_surrogate": ("p_surrogate", _num),
+                 "oos_skill": ("oos_skill", _num), "oos_p_surrogate": ("oos_p_surrogate", _num),
+                 "retest_skill": ("retest_skill", _num), "flags": ("flags", _str), "last_year": ("last_year", _int)}
+
+
+def grade_rows(evidence: pd.DataFrame) -> pd.DataFrame:
+    """The per-hypothesis part of evidence.csv that the ledger keeps (and whose change makes a
+    new run), sorted by response and driver. Column ``baseline`` is evidence's ``oos_baseline``,
+    the baseline the candidate used most often: the forecast is this baseline plus the driver."""
+    out = pd.DataFrame({name: [read(v) for v in (evidence[c] if c in evidence else [None] * len(evidence))]
+                        for c, (name, read) in GRADE_COLUMNS.items()})
+    return out.sort_values(["response", "driver"]).reset_index(drop=True)
+
+
+def run_key(data_sha: str, grades: pd.DataFrame) -> str:
+    """The identity of a run: its data fingerprint and its grade rows."""
+    return sha256_text(data_sha + "|" + digest_frame(grades.rename(columns=RUN_KEY_NAMES)))
+
+
+def input_hashes(study: Study) -> dict[str, str]:
+    """SHA-256 of every input file of ``study`` (``missing`` for a file not found), by its
+    path as written in the config."""
+    out = {}
+    for spec in study.inputs:
+        p = Path(spec["path"])
+        p = p if p.is_absolute() else study.base_dir / p
+        out[spec["path"]] = sha256_file(p) if p.is_file() else "missing"
+    return out
+
+
+# ---------------------------------------------------------------- one update
+def forecasts_of(grades: pd.DataFrame, data: StudyData) -> tuple[list[NextYearForecast], dict]:
+    """The next-year forecasts of the graded hypotheses, and why the others got none
+    ((response, driver) -> words)."""
+    made, notes = [], {}
+    for g in grades.to_dict("records"):
+        if g["grade"] not in GRADED:
+            continue
+        key, model = (g["response"], g["driver"]), g["model"] or "linear"
+        if g["lag"] is None or not g["baseline"]:
+            notes[key] = "no forecast: no selected lag or candidate baseline"
+            continue
+        f, why = data.forecast(g["response"], g["driver"], g["lag"], g["baseline"], model=model)
+        if f is None:
+            notes[key] = why
+        else:
+            f.grade, f.screen_model = g["grade"], model
+            made.append(f)
+    return made, notes
+
+
+def _run_row(study: Study, key: str, data_sha: str, now: str | None) -> dict:
+    """The row of table ``runs`` for this run (its counts are filled in by :func:`write_run`)."""
+    return {"study": study.study, "run_key": key, "data_sha256": data_sha,
+            "inputs_sha256": json.dumps(input_hashes(study), sort_keys=True), "tool_version": tool_version(),
+            "config_sha256": sha256_file(study.path),
+            "created_utc": now or time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
+            "screen_json": json.dumps({k: study.screen[k] for k in SCREEN_KEYS if k in study.screen},
+                                      sort_keys=True)}
+
+
+def update_ledger(config_path: str | Path, annual_csv: str | Path, evidence_csv: str | Path,
+                  study_dir: str | Path, summary_path: str | Path | None = None,
+                  ledger_path: str | Path | None = None, now: str | None = None) -> dict:
+    """Stage `ledger`: record this run's forecasts, score and supersede earlier ones.
+
+    ``study_dir`` is ``<out>/<study>`` (where a relative ``ledger.path`` is resolved);
+    ``ledger_path`` overrides the config. Everything is computed first; the database is then
+    written in one transaction. Returns the summary, also written to ``summary_path`` as JSON
+    after the transaction has committed: study, status (``recorded`` or ``unchanged``), run_id,
+    the numbers of forecasts new, scored and superseded, and the ledger's path.
+    """
+    study = load_study(config_path)
+    data = StudyData.load(study, annual_csv)
+    grades = grade_rows(pd.read_csv(evidence_csv))
+    fp = fingerprints(pd.read_csv(annual_csv))
+    data_sha = digest_frame(fp[["series", "year", "value_sha"]])
+    made, notes = forecasts_of(grades, data)
+    run = _run_row(study, run_key(data_sha, grades), data_sha, now)
+    path = Path(ledger_path) if ledger_path else resolve_ledger_path(study, study_dir)
+    con = connect(path)
+    try:
+        summary = write_run(con, run, fp, grades, notes, made, data)
+    finally:
+        con.close()
+    summary["ledger"] = str(path)
+    if summary_path is not None:
+        write_json(summary, summary_path)
+    return summary
+
+
+# ---------------------------------------------------------------- writing one run
+def _insert_run(con, run: dict, fp: pd.DataFrame, grades: pd.DataFrame, notes: dict) -> int:
+    """Insert the run, its data fingerprint and its grades; returns the new run_id."""
+    cols = ["study", "run_key", "created_utc", "tool_version", "config_sha256", "inputs_sha256", "data_sha256",
+            "screen_json"]
+    cur = con.execute(f"INSERT INTO runs({', '.join(cols)}) VALUES ({', '.join('?' * len(cols))})",
+                      [run[c] for c in cols])
+    run_id = int(cur.lastrowid)
+    con.executemany("INSERT INTO series_years(run_id, series, year, value, value_sha) VALUES (?,?,?,?,?)",
+                    [(run_id, s, int(y), float(v), h) for s, y, v, h in
+                     zip(fp["series"], fp["year"], fp["value"], fp["value_sha"])])
+    con.executemany(
+        "INSERT INTO grades(run_id, response, driver, grade, model, lag, baseline, q_value, p_surrogate, oos_skill,"
+        " oos_p_surrogate, retest_skill, flags, last_year, note) VALUES (?,?,?,?,?,?,?,?,?,?,?,?,?,?,?)",
+        [(run_id, g["response"], g["driver"], g["grade"], g["model"] or None, g["lag"], g["baseline"] or None,
+          g["q_value"], g["p_surrogate"], g["oos_skill"], g["oos_p_surrogate"], g["retest_skill"], g["flags"],
+          g["last_year"], notes.get((g["response"], g["driver"]), "")) for g in grades.to_dict("records")])
+    return run_id
+
+
+def write_run(con: sqlite3.Connection, run: dict, fp: pd.DataFrame, grades: pd.DataFrame, notes: dict,
+              made: list[NextYearForecast], data: StudyData) -> dict:
+    """Write one run in one transaction; nothing when its run_key equals the latest run's.
+    ``con`` comes from :func:`lagsieve.ledger.store.connect` (its schema is current)."""
+    study = run["study"]
+    with transaction(con):
+        last = con.execute("SELECT run_id, run_key FROM runs WHERE study = ? ORDER BY run_id DESC LIMIT 1",
+                           (study,)).fetchone()
+        if last is not None and last["run_key"] == run["run_key"]:
+            return {"study": study, "status": "unchanged", "run_id": int(last["run_id"]),
+                    "new": 0, "scored": 0, "superseded": 0}
+        run_id = _insert_run(con, run, fp, grades, notes)
+        new_fp = dict(zip(zip(fp["series"], fp["year"].astype(int)), fp["value_sha"]))
+        n_sup = _supersede_open(con, study, run_id, new_fp, data)
+        n_scored = _score_open(con, study, run_id, data.table)
+        n_new = _insert_forecasts(con, study, run_id, made, run["inputs_sha256"], run["tool_version"],
+                                  data.transforms)
+        con.execute("UPDATE runs SET n_new = ?, n_scored = ?, n_superseded = ? WHERE run_id = ?",
+                    (n_new, n_scored, n_sup, run_id))
+    return {"study": study, "status": "recorded", "run_id": run_id, "new": n_new, "scored": n_scored,
+            "superseded": n_sup}
+
+
+def _open_forecasts(con, study: str) -> list[sqlite3.Row]:
+    return con.execute("SELECT * FROM forecasts WHERE study = ? AND status = 'open' ORDER BY forecast_id",
+                       (study,)).fetchall()
+
+
+def _diff_cells(old: dict[tuple[str, int], str], new: dict[tuple[str, int], str], series: str,
+                last_year: int) -> list[str]:
+    """Words for the cells of ``series`` up to ``last_year`` that differ between two fingerprints."""
+    yrs = sorted({y for s, y in list(old) + list(new) if s == series and y <= last_year})
+    out = []
+    for y in yrs:
+        a, b = old.get((series, y)), new.get((series, y))
+        if a == b:
+            continue
+        what = "restated" if a and b else "filled in" if b else "removed"
+        out.append(f"{series} {y} {what}")
+    return out
+
+
+def _supersede_open(con, study: str, run_id: int, new_fp: dict, data: StudyData) -> int:
+    """Mark superseded every open forecast whose training data changed since it was made."""
+    n = 0
+    for f in _open_forecasts(con, study):
+        if f["response"] not in data.table.columns or f["driver"] not in data.table.columns:
+            continue  # a series left the study: nothing to compare, the forecast can still be scored
+        sha = data.training_sha(f["response"], f["driver"], f["lag"], f["baseline"], f["origin_year"])
+        if sha == f["training_sha256"]:
+            continue
+        old = {(r["series"], int(r["year"])): r["value_sha"] for r in con.execute(
+            "SELECT series, year, value_sha FROM series_years WHERE run_id = ? AND series IN (?, ?)",
+            (f["run_id"], f["response"], f["driver"]))}
+        why = (_diff_cells(old, new_fp, f["response"], f["origin_year"])
+               + _diff_cells(old, new_fp, f["driver"], f["driver_year"]))
+        reason = "training data changed: " + ("; ".join(why) if why else "transform, weights or model settings")
+        con.execute("UPDATE forecasts SET status = 'superseded', superseded_run = ?, superseded_reason = ? "
+                    "WHERE forecast_id = ?", (run_id, reason, f["forecast_id"]))
+        n += 1
+    return n
+
+
+def _score_open(con, study: str, run_id: int, table: pd.DataFrame) -> int:
+    """Score every open forecast whose target year has now been observed."""
+    n = 0
+    for f in _open_forecasts(con, study):
+        if f["response"] not in table.columns:
+            continue
+        obs = table[f["response"]].get(f["target_year"], np.nan)
+        if pd.isna(obs):
+            continue
+        obs = float(obs)
+        inside = int(f["lower"] <= obs <= f["upper"])
+        con.execute("INSERT INTO scores(forecast_id, run_id, observed, error, inside) VALUES (?,?,?,?,?)",
+                    (f["forecast_id"], run_id, obs, obs - f["forecast"], inside))
+        con.execute("UPDATE forecasts SET status = 'scored' WHERE forecast_id = ?", (f["forecast_id"],))
+        n += 1
+    return n
+
+
+def _insert_forecasts(con, study: str, run_id: int, made: list[NextYearForecast], inputs_json: str,
+                      version: str, transforms: dict[str, str]) -> int:
+    """Insert this run's forecasts; one already made from the same training data is kept as it was."""
+    n = 0
+    for f in made:
+        cur = con.execute(
+            "INSERT OR IGNORE INTO forecasts(run_id, study, response, driver, grade, screen_model, lag, baseline, scale,"
+            " origin_year, target_year, driver_year, driver_value, forecast, lower, upper, level, n_train, resid_sd,"
+            " training_sha256, inputs_sha256, tool_version) VALUES (?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?)",
+            (run_id, study, f.response, f.driver, f.grade, f.screen_model, f.lag, f.baseline,
+             transforms.get(f.response, "none"),
+             f.origin_year, f.target_year, f.driver_year, f.driver_value, f.forecast, f.lower, f.upper, f.level,
+             f.n_train, f.resid_sd, f.training_sha256, inputs_json, version))
+        if cur.rowcount != 1:
+            continue
+        fid = int(cur.lastrowid)
+        con.executemany("INSERT INTO baseline_forecasts(forecast_id, baseline, forecast, lower, upper) VALUES (?,?,?,?,?)",
+                        [(fid, b, *v) for b, v in f.baselines.items()])
+        n += 1
+    return n
