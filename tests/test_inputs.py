@@ -85,6 +85,7 @@ from lagsieve.io.config import (
     report_defaults,
     screen_defaults,
 )
+from lagsieve.io.files import sha256_file, sha256_text, write_text
 from lagsieve.io.readers import read_inputs, read_table
 from lagsieve.io.tables import FRAME_COLUMNS
 from lagsieve.prep.annual import to_annual
@@ -998,3 +999,15 @@ def test_unknown_config_key_suggests_the_nearest(tmp_path):
         load_study(cfg)
     assert "key 'drivers.0.responses'" in str(info.value)
     assert "did you mean 'm'?" in str(info.value)
+
+
+# ----------------------------------------------------------------------------- files
+
+def test_sha256_of_text_and_file(tmp_path):
+    # the "abc" example of FIPS 180-2 (Secure Hash Standard), Appendix B.1
+    abc = "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad"
+    assert sha256_text("abc") == abc
+    path = tmp_path / "abc.txt"
+    write_text("abc", path)
+    assert sha256_file(path) == abc and sha256_file(path, chunk=1) == abc
+    assert [p.name for p in tmp_path.iterdir()] == ["abc.txt"]  # no temporary file left

@@ -1,7 +1,7 @@
 """Files the stages write and read: atomic writes (temporary name, then rename) and hashes.
 
 Every output of lagsieve goes through :func:`atomic_path`, so a killed job never leaves a
-half-written file under a final name.
+half-written file under a final name; every SHA-256 digest of a file or a text is made here.
 """
 from __future__ import annotations
 
@@ -52,3 +52,8 @@ def sha256_file(path: str | Path, chunk: int = 1 << 20) -> str:
         for block in iter(lambda: fh.read(chunk), b""):
             h.update(block)
     return h.hexdigest()
+
+
+def sha256_text(text: str) -> str:
+    """SHA-256 hex digest of a text (UTF-8)."""
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()
