@@ -9,7 +9,7 @@ include: "workflow/Snakefile"
 
 # An included file cannot choose the default target, so the root names it again.
 rule default:
+    default_target: True
     """Every output of every study: the inputs of rule `all` in workflow/Snakefile."""
     input:
         rules.all.input,
-    default_target: True

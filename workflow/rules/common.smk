@@ -11,8 +11,11 @@ def cfg(wildcards):
 
 def response_files(name):
     def inner(wildcards):
-        return [f"{OUT}/{wildcards.study}/work/responses/{r}/{name}"
-                for r in STUDIES[wildcards.study].response_slugs]
+        return [
+            f"{OUT}/{wildcards.study}/work/responses/{r}/{name}"
+            for r in STUDIES[wildcards.study].response_slugs
+        ]
+
     return inner
 
 

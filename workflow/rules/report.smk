@@ -15,20 +15,32 @@ REPORT_INPUT = dict(
     nulls=response_files("nulls.csv"),
 )
 REPORT_OUTPUT = {
-    "report": report(f"{OUT}/{{study}}/report.html", caption="../report/report_html.rst",
-                     category="Report", labels={"study": "{study}", "file": "report (HTML)"}),
+    "report": report(
+        f"{OUT}/{{study}}/report.html",
+        caption="../report/report_html.rst",
+        category="Report",
+        labels={"study": "{study}", "file": "report (HTML)"},
+    ),
     "provenance": f"{OUT}/{{study}}/provenance.json",
     # The ledger (default <out>/<study>/ledger.sqlite, config key ledger.path) is written as a
     # side effect and is deliberately not a declared output, so `snakemake --delete-all-output`
     # and forced reruns never remove it; the declared output is the summary of this update.
     "ledger": f"{OUT}/{{study}}/work/ledger_update.json",
-    "figures": report(directory(f"{OUT}/{{study}}/figures"), patterns=["{name}.png"],
-                      caption="../report/figures.rst", category="Figures",
-                      labels={"study": "{study}", "figure": "{name}"}),
+    "figures": report(
+        directory(f"{OUT}/{{study}}/figures"),
+        patterns=["{name}.png"],
+        caption="../report/figures.rst",
+        category="Figures",
+        labels={"study": "{study}", "figure": "{name}"},
+    ),
 }
 if STUDIES and all(_pdf_wanted(p.study) for p in STUDIES.values()):
-    REPORT_OUTPUT["pdf"] = report(f"{OUT}/{{study}}/report.pdf", caption="../report/report_pdf.rst",
-                                  category="Report", labels={"study": "{study}", "file": "report (PDF)"})
+    REPORT_OUTPUT["pdf"] = report(
+        f"{OUT}/{{study}}/report.pdf",
+        caption="../report/report_pdf.rst",
+        category="Report",
+        labels={"study": "{study}", "file": "report (PDF)"},
+    )
 
 
 rule report:

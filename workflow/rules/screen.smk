@@ -8,11 +8,11 @@ rule screen:
         hypotheses=f"{OUT}/{{study}}/work/responses/{{response}}/hypotheses.csv",
         forecasts=f"{OUT}/{{study}}/work/responses/{{response}}/forecasts.csv",
         nulls=f"{OUT}/{{study}}/work/responses/{{response}}/nulls.csv",
-    threads: 2
     log:
         f"{OUT}/{{study}}/logs/screen/{{response}}.log",
     conda:
         "../envs/lagsieve.yaml"
+    threads: 2
     resources:
         mem_mb=1000,
         runtime=30,
