@@ -540,6 +540,10 @@ def test_cli_prints_the_track_record(history, capsys):
     for t in tr.itertuples():
         line = next(x for x in out if f"{t.response} <- {t.driver} " in x)
         assert line.split()[3:7] == [str(t.made), str(t.open), str(t.scored), str(t.superseded)]
+        # skill against the baseline each forecast was built on
+        assert line.split()[9] == (f"{t.skill_hardest:+.2f}" if t.scored else "-")
+    assert out[1].split() == ["hypothesis", "made", "open", "scored", "superseded", "inside", "mae",
+                              "skill_own_baseline", "skill_climatology", "skill_persistence", "skill_trend", "last"]
     # the default results folder is results/ beside the config, as for `lagsieve run`
     assert main(["ledger", str(d.config)]) == 0
 

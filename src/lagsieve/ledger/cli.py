@@ -29,15 +29,17 @@ def _read_record(path: Path, study: str) -> tuple[pd.DataFrame, pd.DataFrame]:
 
 
 def track_table(track: pd.DataFrame) -> pd.DataFrame:
-    """The track record as the command prints it: one line per hypothesis, numbers as text."""
+    """The track record as the command prints it: one line per hypothesis, numbers as text.
+    ``skill_own_baseline`` is the skill against the baseline each forecast was built on (the
+    track record's ``skill_hardest``), ``skill_<b>`` against baseline b."""
     skill = lambda col: [number_text(v, SKILL_FORMAT) or "-" for v in track[col]]  # noqa: E731
     show = track.assign(
         hypothesis=track["response"] + " <- " + track["driver"],
         inside=[f"{i}/{s}" if s else "-" for i, s in zip(track["inside"], track["scored"])],
         mae=[number_text(v) or "-" for v in track["mae"]],
-        skill_hardest=skill("skill_hardest"),
+        skill_own_baseline=skill("skill_hardest"),
         **{f"skill_{b}": skill(f"skill_{b}") for b in BASELINES})
-    cols = ["hypothesis", "made", "open", "scored", "superseded", "inside", "mae", "skill_hardest"] + \
+    cols = ["hypothesis", "made", "open", "scored", "superseded", "inside", "mae", "skill_own_baseline"] + \
            [f"skill_{b}" for b in BASELINES] + ["last"]
     return show[cols]
 
