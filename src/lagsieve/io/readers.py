@@ -32,9 +32,9 @@ import pandas as pd
 
 from lagsieve.errors import InputErrors, InputProblem, InputWarning, closest, show
 from lagsieve.io.cells import Collector
-from lagsieve.io.tables import FRAME_COLUMNS, Grid, empty_frame, parse_grid
+from lagsieve.io.tables import Grid, empty_frame, parse_grid
 
-__all__ = ["FRAME_COLUMNS", "SUPPORTED", "empty_frame", "read_inputs", "read_table"]
+__all__ = ["SUPPORTED", "read_inputs", "read_table"]
 
 TEXT_EXTENSIONS = {".csv", ".tsv", ".txt"}
 SUPPORTED = ".csv, .tsv, .txt, .xlsx, .parquet"
