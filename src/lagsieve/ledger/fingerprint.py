@@ -1,5 +1,5 @@
 """What the ledger hashes: values, never files (files are hashed by
-:func:`lagsieve.io.files.sha256_file`).
+:func:`lagsieve.io.files.sha256_file`, in :mod:`lagsieve.ledger.update`).
 
 * :func:`fingerprints`: per series and year, the annual value and a short hash of it; stored
   per run (table ``series_years``) to list the years added, filled in, restated or removed.
@@ -8,24 +8,20 @@
   raw annual values of the cells it uses, :func:`used_values`); a forecast whose training
   hash changes is superseded.
 
-Every hash is :func:`sha256_text` of a canonical text, and every value enters as
-:func:`value_text` (the shortest repr that round-trips), so the hashes are stable across
-platforms.
+Every hash is :func:`lagsieve.io.files.sha256_text` of a canonical text, and every value
+enters as :func:`value_text` (the shortest repr that round-trips), so the hashes are stable
+across platforms.
 """
 from __future__ import annotations
 
-import hashlib
 import json
 
 import numpy as np
 import pandas as pd
 
+from lagsieve.io.files import sha256_text
+
 VALUE_SHA_CHARS = 16  # a per-cell hash needs to tell two values of one cell apart, no more
-
-
-def sha256_text(text: str) -> str:
-    """SHA-256 hex digest of a text (UTF-8)."""
-    return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 
 def value_text(v: float) -> str:

@@ -24,9 +24,9 @@ import numpy as np
 import pandas as pd
 
 from lagsieve.io.config import Study, load_study
-from lagsieve.io.files import sha256_file, write_json
+from lagsieve.io.files import sha256_file, sha256_text, write_json
 from lagsieve.io.provenance import tool_version
-from lagsieve.ledger.fingerprint import digest_frame, fingerprints, sha256_text
+from lagsieve.ledger.fingerprint import digest_frame, fingerprints
 from lagsieve.ledger.forecast import NextYearForecast
 from lagsieve.ledger.store import connect, resolve_ledger_path, transaction
 from lagsieve.ledger.study_data import StudyData
