@@ -21,23 +21,6 @@ ANNUAL_COLUMNS = ["series", "year", "value", "se", "filled", "unit", "file", "ro
 Note = dict[str, Any]  # {series, year, action, reason}
 
 
-def _window_offsets(months: list[int]) -> dict[int, int] | None:
-    """Years to add to a month's calendar year to get the window's year.
-
-    Months are taken in the order listed; each time a month is not later than the one before,
-    the window passes into the next calendar year. The window belongs to the year of its last
-    month. Returns None if the window wraps past the year end more than once.
-    """
-    crossings = [0]
-    for prev, cur in zip(months, months[1:]):
-        crossings.append(crossings[-1] + (1 if cur <= prev else 0))
-    total = crossings[-1]
-    if total > 1:
-        return None
-    return {m: total - c for m, c in zip(months, crossings)}
-
-
-
 def to_annual(long_df: pd.DataFrame, series_options: Mapping[str, Mapping[str, Any]]
               ) -> tuple[pd.DataFrame, list[dict[str, Any]]]:
     """One value per year for every series named in ``series_options``.
@@ -151,6 +134,22 @@ def _series_annual(g: pd.DataFrame, sid: str, opts: Mapping[str, Any]
 
 
 # ----------------------------------------------------------------------------- monthly windows
+
+def _window_offsets(months: list[int]) -> dict[int, int] | None:
+    """Years to add to a month's calendar year to get the window's year.
+
+    Months are taken in the order listed; each time a month is not later than the one before,
+    the window passes into the next calendar year. The window belongs to the year of its last
+    month. Returns None if the window wraps past the year end more than once.
+    """
+    crossings = [0]
+    for prev, cur in zip(months, months[1:]):
+        crossings.append(crossings[-1] + (1 if cur <= prev else 0))
+    total = crossings[-1]
+    if total > 1:
+        return None
+    return {m: total - c for m, c in zip(months, crossings)}
+
 
 @dataclass(frozen=True)
 class Window:
