@@ -1,4 +1,4 @@
-"""Tests of the evidence report (lagsieve.report.html, lagsieve.report.figures, stages.run_report).
+"""Tests of the evidence report (lagsieve.report: html, templates, sections, methods, pdf, figures; stages.run_report).
 
 Two studies are screened once per session by calling the stage functions directly:
 
@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import base64
 import hashlib
+import html as hh
 import io
 import json
 import re
@@ -25,6 +26,13 @@ import yaml
 from lagsieve import pipeline as stages
 from lagsieve.evidence.vocabulary import FLAGS, GRADE_RULES
 from lagsieve.io.config import load_study, slug
+from lagsieve.report.context import Context
+from lagsieve.report.figures import mpl_text, r_critical
+from lagsieve.report.html import build_report, render_page
+from lagsieve.report.methods import methods_paragraphs
+from lagsieve.report.pdf import write_pdf
+from lagsieve.report.plan import plan_figures
+from lagsieve.report.render import static_text, stylesheet
 
 from helpers import (DOLLAR_LABEL, HOSTILE, HOSTILE_TITLE, REPO, make_report, run_study, tiny_config,
                      write_config)
@@ -90,8 +98,6 @@ def test_page_is_self_contained(tiny):
     assert "<link" not in h and "@import" not in h and "url(" not in h
     assert not re.search(r"https?://", h)
     # the Content-Security-Policy allows exactly the page's own script and style (by hash)
-    import html as hh
-
     csp = hh.unescape(re.search(r'http-equiv="Content-Security-Policy" content="([^"]+)"', h).group(1))
     script = re.search(r"<script>(.*?)</script>", h, re.S).group(1)
     style = re.search(r"<style>(.*?)</style>", h, re.S).group(1)
@@ -101,6 +107,42 @@ def test_page_is_self_contained(tiny):
 
     assert "default-src 'none'" in csp and "img-src data:" in csp
     assert digest(script) in csp and digest(style) in csp
+
+
+def test_style_and_script_are_the_package_files(tiny):
+    h = tiny["html"]
+    style = re.search(r"<style>(.*?)</style>", h, re.S).group(1)
+    script = re.search(r"<script>(.*?)</script>", h, re.S).group(1)
+    assert style == stylesheet() and style.startswith(static_text("report.css"))
+    assert script == static_text("report.js") and "evidence-table" in script
+    # one badge rule per grade, with the colours of the figures (figures.GRADE_STYLE)
+    assert ".g-0{background:#0b3c68;color:#ffffff;" in style and ".g-5{background:#ffffff;color:#555555;border:1px dashed" in style
+
+
+def _page_with_labels(tiny, label: str) -> str:
+    """The tiny study's page (no figures drawn) with ``label`` as the label of every series."""
+    res, study = tiny["res"], load_study(tiny["cfg"])
+    for s in study.responses + study.drivers:
+        s["label"] = label
+    ctx = Context.of(study, stages.load_table(study, res / "work" / "annual.csv"), pd.read_csv(res / "screen.csv"),
+                     pd.read_csv(res / "evidence.csv"), pd.DataFrame(), pd.DataFrame(),
+                     pd.read_csv(res / "work" / "notes.csv"), {"tool_version": "t", "versions": {}, "config": {}})
+    return render_page(ctx, {}, plan_figures(ctx))
+
+
+@pytest.mark.parametrize("label, escaped", [
+    (HOSTILE, "&lt;script&gt;alert(1)&lt;/script&gt;"),
+    ('x" onmouseover="alert(4)', "x&#34; onmouseover=&#34;alert(4)"),
+])
+def test_a_hostile_series_label_is_escaped_everywhere(tiny, label, escaped):
+    h = _page_with_labels(tiny, label)
+    assert label not in h
+    for section in ("summary", "table", "hypotheses", "methods"):
+        part = h.split(f'<section id="{section}"')[1].split("</section>")[0]
+        assert escaped in part, section
+    # in attribute values too: the evidence table's sort key and the response filter's options
+    assert f'<td data-v="{escaped}">' in h and f">{escaped}</option>" in h
+    assert h.count("<script") == 1
 
 
 def test_embedded_images_are_png_and_not_blank(demo):
@@ -113,18 +155,16 @@ def test_embedded_images_are_png_and_not_blank(demo):
 
 # ----------------------------------------------------------------------------- content
 def test_summary_in_plain_words(demo):
-    import html as h
-
     ev, text, st = demo["evidence"], demo["html"], demo["study"]
     summary = text.split('id="summary"')[1].split('id="overview"')[0]
     labels = {d["id"]: d.get("label", d["id"]) for d in st.drivers}
     supported = ev[ev["grade"].isin(["strong", "moderate"])]
     assert len(supported), "the demo should have supported hypotheses"
     for row in supported.to_dict("records"):
-        assert h.escape(row["summary"]) in summary
-        assert h.escape(labels[row["driver"]]) in summary
+        assert hh.escape(row["summary"]) in summary
+        assert hh.escape(labels[row["driver"]]) in summary
     for row in ev[~ev["grade"].isin(["strong", "moderate"])].to_dict("records"):
-        assert h.escape(labels[row["driver"]]) in summary  # every set-aside driver is named, with its reason
+        assert hh.escape(labels[row["driver"]]) in summary  # every set-aside driver is named, with its reason
     assert "Set aside" in summary
 
 
@@ -136,8 +176,6 @@ def test_invented_banner_and_cautions(demo):
 
 
 def test_flags_and_grades_have_words(demo):
-    import html as hh
-
     h, ev = demo["html"], demo["evidence"]
     for codes in ev["flags"].dropna():
         for c in codes.split(";"):
@@ -174,12 +212,10 @@ def test_panels_of_top_hypotheses(demo):
 
 
 def test_methods_generated_from_run(demo):
-    from lagsieve.report.html import Context, methods_paragraphs
-
     h, st = demo["html"], demo["study"]
     methods = h.split('id="methods-text"')[1].split("</div>")[0]
     assert "99 surrogate series" in methods
-    assert "shares the real driver&#x27;s linear trend" in methods or "shares the real driver's linear trend" in methods
+    assert "shares the real driver's linear trend" in hh.unescape(methods)
     assert f"false discovery rate of {st.screen['fdr']:g}" in methods
     assert f"seed {st.screen['seed']}" in methods
     assert "Ebisuzaki" in methods and "Benjamini" in methods and "Pyper" in methods
@@ -233,8 +269,6 @@ def test_pdf_has_pages_and_study_id(demo):
 def test_pdf_fallback_with_matplotlib(tiny, tmp_path):
     from pypdf import PdfReader
 
-    from lagsieve.report.html import write_pdf
-
     uris = re.findall(r'src="data:image/png;base64,([A-Za-z0-9+/=]+)"', tiny["html"])[:3]
     out = tmp_path / "report.pdf"
     engine = write_pdf(tiny["html"], out, study_id="tiny_escape", title=HOSTILE_TITLE,
@@ -283,8 +317,6 @@ def test_no_pdf_and_no_banner_when_configured(tiny):
 
 
 def test_r_critical():
-    from lagsieve.report.figures import r_critical
-
     rc = r_critical([27.0, 12.0, 2.0, 1.0])
     assert rc[0] == pytest.approx(0.3809, abs=2e-4)
     assert rc[1] > rc[0]
@@ -292,16 +324,12 @@ def test_r_critical():
 
 
 def test_mpl_text_escapes_dollar():
-    from lagsieve.report.figures import mpl_text
-
     assert mpl_text("$5 and $6") == r"\$5 and \$6"
 
 
 def test_report_survives_missing_pieces(tiny, tmp_path):
     """No forecasts, no nulls, a failed hypothesis without a lag, a driver without a label: the
     report still renders, and leaves out (never fakes) the panels it has no data for."""
-    from lagsieve.report.html import build_report
-
     res, cfg = tiny["res"], tiny["cfg"]
     study = load_study(cfg)
     table = stages.load_table(study, res / "work" / "annual.csv")

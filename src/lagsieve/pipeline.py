@@ -3,6 +3,7 @@ its outputs atomically (temporary name, then rename). The Snakemake scripts are 
 """
 from __future__ import annotations
 
+import importlib.metadata as md
 import os
 import sys
 import time
@@ -20,6 +21,9 @@ from lagsieve.io.config import Study, load_study, slug
 from lagsieve.io.readers import read_inputs
 from lagsieve.errors import InputErrors, InputProblem, report_problems, suggest
 from lagsieve.io.files import sha256_file, write_csv, write_json, write_text
+from lagsieve.io.provenance import package_versions, tool_version
+from lagsieve.ledger.section import ledger_section
+from lagsieve.ledger.store import resolve_ledger_path
 
 SCREEN_COLUMNS = ["response", "driver", "lag", "model", "n", "first_year", "last_year", "r", "p_naive",
                   "n_eff", "p_adjusted", "r_detrended", "p_detrended", "r_diff", "slope", "slope_se",
@@ -295,43 +299,19 @@ def pdf_wanted(study: Study) -> bool:
     return True if value is None else bool(value)
 
 
-def run_report(config_path, annual_csv, notes_csv, work_dir, screen_csv, evidence_csv,
-               out_report, out_provenance, figures_dir, started: float | None = None,
-               out_pdf=None, threads: int | None = None) -> None:
-    """Stage `report`: figures and tables under ``figures_dir``, the self-contained HTML
-    report, its PDF copy (``out_pdf``, default ``report.pdf`` beside the report, unless the
-    config sets ``report.pdf: false``) and provenance.json.
+def _response_tables(dirs: dict, name: str) -> pd.DataFrame:
+    """One of the screen's per-response tables (forecasts.csv, nulls.csv), all responses stacked."""
+    parts = [pd.read_csv(d / name) for d in dirs.values() if (d / name).is_file() and (d / name).stat().st_size > 1]
+    return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(
+        columns=["response", "driver", "year", "test", "value", "observed"])
 
-    ``threads``: worker processes for drawing the figures (default: up to 4 CPUs).
-    """
-    import importlib.metadata as md
 
-    from lagsieve.report.figures import FigureRenderer
-    from lagsieve.io.provenance import package_versions, tool_version
-    from lagsieve.ledger.store import resolve_ledger_path
-    from lagsieve.report.html import build_report, pdf_summary_lines, write_pdf
-    from lagsieve.report.render import ledger_section_html
-
-    t0 = time.time() if started is None else started
-    study = load_study(config_path)
-    table = load_table(study, annual_csv)
-    annual = pd.read_csv(annual_csv)
-    dirs = response_dirs(work_dir, study)
-
-    def read(name):
-        parts = [pd.read_csv(d / name) for d in dirs.values() if (d / name).is_file() and (d / name).stat().st_size > 1]
-        return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(
-            columns=["response", "driver", "year", "test", "value", "observed"])
-
-    forecasts, nulls = read("forecasts.csv"), read("nulls.csv")
-    evidence = pd.read_csv(evidence_csv, keep_default_na=True)
-    screen = pd.read_csv(screen_csv)
-    notes = pd.read_csv(notes_csv)
+def _report_provenance(study: Study, annual_csv, dirs: dict, t0: float) -> dict:
+    """What provenance.json records before the report is drawn: config, inputs, versions, times."""
     inputs = {}
     for spec in study.inputs:
         p = Path(spec["path"])
-        p = p if p.is_absolute() else study.base_dir / p
-        inputs[spec["path"]] = sha256_file(p)
+        inputs[spec["path"]] = sha256_file(p if p.is_absolute() else study.base_dir / p)
     screened = [(d / "screen.csv").stat().st_mtime for d in dirs.values() if (d / "screen.csv").is_file()]
     prov = {
         "study": study.study,
@@ -351,21 +331,45 @@ def run_report(config_path, annual_csv, notes_csv, work_dir, screen_csv, evidenc
             prov["versions"].setdefault(name, md.version(name))
         except md.PackageNotFoundError:
             prov["versions"].setdefault(name, "not installed")
+    return prov
+
+
+def run_report(config_path, annual_csv, notes_csv, work_dir, screen_csv, evidence_csv,
+               out_report, out_provenance, figures_dir, started: float | None = None,
+               out_pdf=None, threads: int | None = None) -> None:
+    """Stage `report`: figures and tables under ``figures_dir``, the self-contained HTML
+    report, its PDF copy (``out_pdf``, default ``report.pdf`` beside the report, unless the
+    config sets ``report.pdf: false``) and provenance.json.
+
+    ``threads``: worker processes for drawing the figures (default: up to 4 CPUs).
+    """
+    # Imported here, not at the top: the report modules (matplotlib, the figure code) add 1.5-2 s
+    # to the import of this module (python -X importtime, 2-core machine), which every other stage
+    # and the Snakefile (plan_studies) would otherwise pay.
+    from lagsieve.report.figures import FigureRenderer
+    from lagsieve.report.html import build_report
+    from lagsieve.report.pdf import write_report_pdf
+
+    t0 = time.time() if started is None else started
+    study = load_study(config_path)
+    table = load_table(study, annual_csv)
+    annual = pd.read_csv(annual_csv)
+    dirs = response_dirs(work_dir, study)
+    forecasts, nulls = _response_tables(dirs, "forecasts.csv"), _response_tables(dirs, "nulls.csv")
+    evidence = pd.read_csv(evidence_csv, keep_default_na=True)
+    screen = pd.read_csv(screen_csv)
+    notes = pd.read_csv(notes_csv)
+    prov = _report_provenance(study, annual_csv, dirs, t0)
     workers = threads if threads else min(4, os.cpu_count() or 1)
     pdf_path = Path(out_pdf) if out_pdf else Path(out_report).with_name("report.pdf")
     with FigureRenderer(figures_dir, workers) as renderer:
-        since = ledger_section_html(resolve_ledger_path(study, Path(out_report).parent), study, evidence)
+        since = ledger_section(resolve_ledger_path(study, Path(out_report).parent), study, evidence)
         html, figs = build_report(study, table, screen, evidence, forecasts, nulls, notes, prov, figures_dir,
-                                  annual=annual, renderer=renderer, extra_sections=since)
+                                  annual=annual, renderer=renderer, since=since)
         write_text(html, out_report)
         renderer.write_svgs()  # the SVG copies are written by the workers while the PDF is made
         if pdf_wanted(study):
-            order = ["evidence_map"] + [n for n in figs if n not in ("evidence_map", "coverage", "driver_correlation")] \
-                + [n for n in ("coverage", "driver_correlation") if n in figs]
-            prov["pdf"] = write_pdf(html, pdf_path, study_id=study.study, title=study.raw.get("title") or study.study,
-                                    summary=pdf_summary_lines(study, evidence),
-                                    figures=[(n.replace("__", " / "), figs[n][0]) for n in order if n in figs],
-                                    invented=bool(study.raw.get("invented")))
+            prov["pdf"] = write_report_pdf(html, pdf_path, study, evidence, figs)
         else:
             prov["pdf"] = None
             if out_pdf is None and pdf_path.is_file():  # a copy left by an earlier run would be stale

@@ -42,3 +42,14 @@ FLAGS = {
 
 SHORT_OVERLAP_YEARS = 25  # common practice: below about 25 years, lagged screens have little power
 COLLINEAR_R = 0.7  # Dormann et al. (2013, Ecography 36:27-46) rule of thumb
+
+SUPPORTED = ("strong", "moderate")  # the grades a hypothesis is carried forward with
+
+GRADE_WORDS = {  # one-line meaning of each grade, for the report's summary and the set-aside reasons
+    "strong": "supported in sample, against surrogates and out of sample",
+    "moderate": "supported, short of the strong rule",
+    "weak": "some support, not enough to carry forward",
+    "none": "no support after adjustment",
+    "spurious-trend": "shares a trend only",
+    "insufficient-data": "too few years to judge",
+}

@@ -15,8 +15,8 @@ import pandas as pd
 
 from lagsieve.io.config import Study
 from lagsieve.ledger.forecast import LEVEL
-from lagsieve.ledger.store import has_schema as _has_schema, open_readonly, query_frame as _frame
-from lagsieve.ledger.track import SinceLastRun, number_text as _n, since_previous_run, years_text as _years_text
+from lagsieve.ledger.store import has_schema, open_readonly, query_frame
+from lagsieve.ledger.track import SinceLastRun, number_text, since_previous_run, years_text
 from lagsieve.ledger.update import grade_rows
 
 MISSING, UNREADABLE, NO_RUN, READ = "missing", "unreadable", "no-run", "read"
@@ -54,9 +54,6 @@ class LedgerSection:
     footnote: str = ""
 
 
-number = _n  # a number as text; empty for a missing value
-
-
 def study_id(study) -> str:
     return study.study if isinstance(study, Study) else str(study)
 
@@ -76,10 +73,10 @@ def _table(header: list[str], rows: list[list]) -> Block:
 def _read(path: Path, sid: str) -> tuple[SinceLastRun, pd.DataFrame | None]:
     con = open_readonly(path)
     try:
-        if not _has_schema(con):
+        if not has_schema(con):
             raise sqlite3.DatabaseError("no ledger tables")
         s = since_previous_run(con, sid)
-        latest = (_frame(con, "SELECT response, driver, grade, lag FROM grades WHERE run_id = ?",
+        latest = (query_frame(con, "SELECT response, driver, grade, lag FROM grades WHERE run_id = ?",
                          (int(s.run["run_id"]),)) if s.run else None)
     finally:
         con.close()
@@ -108,13 +105,13 @@ def _data_blocks(s: SinceLastRun) -> list[Block]:
     d = s.data
     if s.previous is None:
         return [_heading("Data"), _table(["series", "years recorded"],
-                                         [[x.series, _years_text(x.added)] for x in d.itertuples()])]
+                                         [[x.series, years_text(x.added)] for x in d.itertuples()])]
     ch = [x for x in d.itertuples() if x.added or x.filled_in or x.restated or x.removed]
     if not ch:
         return [_heading("Data"), _text("No year was added or restated in any series.")]
     return [_heading("Data"), _table(
         ["series", "years added", "years filled in", "years restated", "years removed"],
-        [[x.series, _years_text(x.added), _years_text(x.filled_in), _years_text(x.restated), _years_text(x.removed)]
+        [[x.series, years_text(x.added), years_text(x.filled_in), years_text(x.restated), years_text(x.removed)]
          for x in ch])]
 
 
@@ -134,16 +131,16 @@ def _scored_blocks(s: SinceLastRun) -> list[Block]:
     if len(s.scored):
         out.append(_table(["response", "driver", "year", "forecast", "interval", "observed", "outcome",
                            "hardest baseline", "baseline forecast"],
-                          [[f.response, f.driver, int(f.target_year), number(f.forecast),
-                            f"{number(f.lower)} to {number(f.upper)}", number(f.observed),
-                            "inside" if f.inside else "outside", f.baseline, number(getattr(f, f"fc_{f.baseline}"))]
+                          [[f.response, f.driver, int(f.target_year), number_text(f.forecast),
+                            f"{number_text(f.lower)} to {number_text(f.upper)}", number_text(f.observed),
+                            "inside" if f.inside else "outside", f.baseline, number_text(getattr(f, f"fc_{f.baseline}"))]
                            for f in s.scored.itertuples()]))
     else:
         out.append(_text("None: no forecast year has arrived since the previous run."))
     if len(s.superseded):
         out += [_heading("Forecasts superseded at this run (not scored)"),
                 _table(["response", "driver", "year", "forecast", "reason"],
-                       [[f.response, f.driver, int(f.target_year), number(f.forecast), f.superseded_reason]
+                       [[f.response, f.driver, int(f.target_year), number_text(f.forecast), f.superseded_reason]
                         for f in s.superseded.itertuples()])]
     return out
 
@@ -157,8 +154,8 @@ def _made_blocks(s: SinceLastRun) -> list[Block]:
     out = [_heading("Forecasts made at this run")]
     if len(s.made):
         out.append(_table(["response", "driver", "grade", "year", "forecast", "interval", "candidate"],
-                          [[f.response, f.driver, f.grade, int(f.target_year), number(f.forecast),
-                            f"{number(f.lower)} to {number(f.upper)}", _candidate_words(f)]
+                          [[f.response, f.driver, f.grade, int(f.target_year), number_text(f.forecast),
+                            f"{number_text(f.lower)} to {number_text(f.upper)}", _candidate_words(f)]
                            for f in s.made.itertuples()]))
     else:
         out.append(_text("None."))
@@ -176,7 +173,7 @@ def _track_blocks(s: SinceLastRun) -> list[Block]:
         ["response", "driver", "made", "open", "scored", "superseded", "inside interval", "MAE",
          "skill vs hardest", "closer than hardest", "latest"],
         [[t.response, t.driver, t.made, t.open, t.scored, t.superseded, f"{t.inside}/{t.scored}" if t.scored else "",
-          number(t.mae), number(t.skill_hardest, "{:+.2f}"), f"{t.beat_hardest}/{t.scored}" if t.scored else "",
+          number_text(t.mae), number_text(t.skill_hardest, "{:+.2f}"), f"{t.beat_hardest}/{t.scored}" if t.scored else "",
           t.last] for t in s.track.itertuples()])]
 
 

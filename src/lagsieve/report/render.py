@@ -1,5 +1,6 @@
-"""Templates and static files of the report: one Jinja2 environment (autoescape on), the
-stylesheet and script read from the package, and their content-security-policy hashes."""
+"""Templates and static files of the report: one Jinja2 environment (autoescape on for HTML;
+plain-text and CSS templates are not escaped), the stylesheet and script read from the package,
+and their content-security-policy hashes."""
 from __future__ import annotations
 
 import base64
@@ -11,20 +12,38 @@ from pathlib import Path
 import pandas as pd
 from jinja2 import Environment, PackageLoader, StrictUndefined, select_autoescape
 
+from lagsieve.evidence.vocabulary import FLAGS, GRADE_RULES
 from lagsieve.ledger.section import LedgerSection, ledger_section
+from lagsieve.report import figures as fg
+from lagsieve.report.context import flag_list, lead_words, num, p_text, range_words, text
+
+GRADE_CLASS = {g: f"g-{i}" for i, g in enumerate(fg.GRADE_STYLE)}  # CSS class of each grade's badge
 
 
 @lru_cache(maxsize=1)
 def environment() -> Environment:
-    """The report's Jinja2 environment: templates from ``lagsieve/report/templates``, HTML escaped."""
-    return Environment(loader=PackageLoader("lagsieve.report", "templates"),
-                       autoescape=select_autoescape(["html"], default_for_string=True, default=True),
-                       undefined=StrictUndefined, keep_trailing_newline=False)
+    """The report's Jinja2 environment: templates from ``lagsieve/report/templates``; HTML escaped.
+    Block tags on a line of their own leave no blank line (``trim_blocks``, ``lstrip_blocks``)."""
+    env = Environment(loader=PackageLoader("lagsieve.report", "templates"),
+                      autoescape=select_autoescape(enabled_extensions=("html",), disabled_extensions=("txt", "css"),
+                                                   default_for_string=True, default=True),
+                      undefined=StrictUndefined, trim_blocks=True, lstrip_blocks=True)
+    env.filters.update(num=num, p=p_text, text=text, lead=lead_words, flags=flag_list, range_words=range_words,
+                       g=lambda v: f"{v:g}")
+    env.globals.update(GRADE_CLASS=GRADE_CLASS, GRADE_RULES=GRADE_RULES, FLAGS=FLAGS)
+    return env
 
 
 def render(name: str, **context) -> str:
-    """Render the template ``name`` with ``context``."""
+    """Render the template ``name`` with ``context`` (escaped when ``name`` ends in .html)."""
     return environment().get_template(name).render(**context)
+
+
+def render_text(name: str, **context) -> str:
+    """Render a plain-text template and join the lines of each paragraph with one space
+    (paragraphs stay separated by a blank line)."""
+    paragraphs = render(name, **context).split("\n\n")
+    return "\n\n".join(" ".join(line.strip() for line in p.splitlines() if line.strip()) for p in paragraphs)
 
 
 @lru_cache(maxsize=None)
@@ -33,9 +52,24 @@ def static_text(name: str) -> str:
     return resources.files("lagsieve.report").joinpath("static", name).read_text(encoding="utf-8")
 
 
-def csp_hash(text: str) -> str:
+def stylesheet() -> str:
+    """The page's stylesheet: ``static/report.css`` and one rule per grade colour."""
+    return static_text("report.css") + render("grades.css", styles=fg.GRADE_STYLE, classes=GRADE_CLASS)
+
+
+def script() -> str:
+    return static_text("report.js")
+
+
+def csp_hash(content: str) -> str:
     """The content-security-policy source for an inline block with exactly this text."""
-    return "'sha256-" + base64.b64encode(hashlib.sha256(text.encode("utf-8")).digest()).decode() + "'"
+    return "'sha256-" + base64.b64encode(hashlib.sha256(content.encode("utf-8")).digest()).decode() + "'"
+
+
+def content_security_policy(css: str, js: str) -> str:
+    """No network request at all; only the page's own style and script, by hash."""
+    return (f"default-src 'none'; img-src data:; style-src {csp_hash(css)}; script-src {csp_hash(js)}; "
+            f"base-uri 'none'; form-action 'none'")
 
 
 def ledger_section_html(ledger_path: str | Path, study, evidence_df: pd.DataFrame | None = None) -> str:

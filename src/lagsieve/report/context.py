@@ -1,0 +1,179 @@
+"""What the report is made from (:class:`Context`), number formats and the plain words that
+describe a hypothesis (why it is set aside, its one-line summary). No markup here."""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from lagsieve.evidence.vocabulary import GRADE_WORDS
+from lagsieve.prep.align import lagged_pair
+from lagsieve.stats.splines import fit_pspline, partial_effect
+
+
+# ----------------------------------------------------------------------------- number formats
+def is_missing(v) -> bool:
+    if v is None:
+        return True
+    try:
+        return bool(pd.isna(v))
+    except (TypeError, ValueError):
+        return False
+
+
+def num(v, fmt: str = "{:.3f}") -> str:
+    """A number as text with ``fmt``; empty when missing, the value as given when not a number."""
+    if is_missing(v):
+        return ""
+    try:
+        return fmt.format(float(v))
+    except (TypeError, ValueError):
+        return str(v)
+
+
+def p_text(v) -> str:
+    """A p- or q-value for reading: three decimals, '< 0.001' below that."""
+    if is_missing(v):
+        return ""
+    v = float(v)
+    return "< 0.001" if v < 0.001 else f"{v:.3f}"
+
+
+def text(v) -> str:
+    return "" if is_missing(v) else str(v)
+
+
+def flag_list(v) -> list[str]:
+    return [c for c in text(v).split(";") if c]
+
+
+def lead_words(lag) -> str:
+    if is_missing(lag):
+        return "no lag chosen"
+    lag = int(lag)
+    return "same year" if lag == 0 else f"{lag}-year lead"
+
+
+def range_words(lags) -> str:
+    """0, 1, 2, 3 -> '0–3'; 0, 2 -> '0, 2'."""
+    lags = sorted(int(v) for v in lags)
+    if len(lags) > 2 and lags == list(range(lags[0], lags[-1] + 1)):
+        return f"{lags[0]}\u2013{lags[-1]}"
+    return ", ".join(map(str, lags))
+
+
+# ----------------------------------------------------------------------------- plain words
+def _weak_reason(row: dict, flags: list[str]) -> str:
+    sk = row.get("oos_skill")
+    if "failed-retest" in flags:
+        return "weak: no skill when re-tested on the latest years"
+    if not is_missing(sk) and float(sk) <= 0:
+        return "weak: no out-of-sample skill over the hardest baseline"
+    if "lag-selected" in flags:
+        return "weak: significant only at the chosen lag"
+    if "sign-unexpected" in flags:
+        return "weak: sign opposite to the one stated beforehand"
+    return "weak: short of the moderate rule"
+
+
+def set_aside_reason(row: dict) -> str:
+    """A few words on why a hypothesis is not carried forward."""
+    g, flags = text(row.get("grade")), flag_list(row.get("flags"))
+    if g == "spurious-trend":
+        return "shares a trend only; nothing left after detrending or against trend-keeping surrogates"
+    if g == "insufficient-data":
+        return "computation failed" if "failed" in flags else "too few overlapping years to judge"
+    if g == "none":
+        words = "no support after adjustment"
+        if "sign-unexpected" in flags:
+            words += "; sign opposite to the one stated beforehand"
+        return words
+    if g == "weak":
+        return _weak_reason(row, flags)
+    return GRADE_WORDS.get(g, g)
+
+
+def summary_line(row: dict) -> str:
+    s = text(row.get("summary"))
+    if s:
+        return s
+    r = row.get("r")
+    direction = "" if is_missing(r) else (", positive" if float(r) > 0 else ", negative")
+    return f"{lead_words(row.get('lag'))}{direction}: {text(row.get('grade'))}"
+
+
+# ----------------------------------------------------------------------------- context
+@dataclass
+class Context:
+    study: object
+    table: pd.DataFrame
+    screen: pd.DataFrame
+    evidence: pd.DataFrame
+    forecasts: pd.DataFrame
+    nulls: pd.DataFrame
+    notes: pd.DataFrame
+    annual: pd.DataFrame | None
+    provenance: dict
+    labels: dict = field(default_factory=dict)
+    units: dict = field(default_factory=dict)
+    invented: bool = False
+
+    @classmethod
+    def of(cls, study, table, screen, evidence, forecasts, nulls, notes, provenance,
+           annual: pd.DataFrame | None = None) -> "Context":
+        """The context of one study: labels and units from its series, invented from its config."""
+        series = study.responses + study.drivers
+        return cls(study=study, table=table, screen=screen, evidence=evidence, forecasts=forecasts, nulls=nulls,
+                   notes=notes, annual=annual, provenance=provenance,
+                   labels={s["id"]: s.get("label") or s["id"] for s in series},
+                   units={s["id"]: s["unit"] for s in series if s.get("unit")},
+                   invented=bool(study.raw.get("invented")))
+
+    def label(self, sid) -> str:
+        return self.labels.get(sid, str(sid))
+
+    def axis(self, sid) -> str:
+        u = self.units.get(sid)
+        return f"{self.label(sid)} ({u})" if u else self.label(sid)
+
+
+def top_rows(ctx: Context) -> list[dict]:
+    """The ``report.top`` best-ranked hypotheses of each response that have a chosen lag."""
+    top_n = int(ctx.study.report.get("top", 3))
+    out = []
+    for rid in ctx.study.response_ids:
+        sub = ctx.evidence[(ctx.evidence["response"] == rid) & ctx.evidence["lag"].notna()]
+        out += sub.sort_values("rank").head(top_n).to_dict("records")
+    return out
+
+
+def gam_rows(ctx: Context, rid, did) -> pd.DataFrame:
+    """The screen's fitted spline rows of one pair."""
+    sc = ctx.screen
+    if not len(sc) or "model" not in sc:
+        return sc.iloc[0:0]
+    g = sc[(sc["response"] == rid) & (sc["driver"] == did) & (sc["model"] == "gam")]
+    if "edf" in g:
+        g = g[g["edf"].notna()]
+    if "status" in g:
+        g = g[g["status"].astype(str).str.startswith("ok") | g["status"].isna()]
+    return g
+
+
+def gam_fit(ctx: Context, rid, did, lag: int):
+    """Refit the penalised spline of one pair for the figures (same settings as the screen:
+    GCV smoothness, default basis, optional year term); None when it cannot be fitted."""
+    pair = lagged_pair(ctx.table, rid, did, lag)
+    if pair.n < 8 or np.ptp(pair.x) <= 0:
+        return None
+    trend = pair.years.astype(float) if ctx.study.screen.get("gam_trend") else None
+    try:
+        fit = fit_pspline(pair.x, pair.y, trend=trend)
+        grid = np.linspace(np.min(pair.x), np.max(pair.x), 80)
+        pe = partial_effect(fit, grid)
+    except (ValueError, np.linalg.LinAlgError):
+        return None
+    lo, hi = pe.band(1.96)
+    return {"pair": pair, "grid": grid, "curve": pe.curve, "lo": lo, "hi": hi,
+            "fit": float(fit.intercept) + pe.curve, "edf": float(fit.edf), "trend": trend is not None}

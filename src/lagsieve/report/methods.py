@@ -1,0 +1,101 @@
+"""The methods text of a run: the facts it states (:func:`methods_facts`, plain data), the
+paragraphs rendered from ``templates/methods.txt`` and the references they cite."""
+from __future__ import annotations
+
+import pandas as pd
+
+from lagsieve.report.context import Context
+from lagsieve.report.render import render_text
+
+REF = {
+    "pyper": "Pyper, B.J. & Peterman, R.M. (1998) Comparison of methods to account for autocorrelation in "
+             "correlation analyses of fish data. Can. J. Fish. Aquat. Sci. 55:2127-2140.",
+    "granger": "Granger, C.W.J. & Newbold, P. (1974) Spurious regressions in econometrics. "
+               "J. Econometrics 2:111-120.",
+    "newey": "Newey, W.K. & West, K.D. (1987) A simple, positive semi-definite, heteroskedasticity and "
+             "autocorrelation consistent covariance matrix. Econometrica 55:703-708.",
+    "ebisuzaki": "Ebisuzaki, W. (1997) A method to estimate the statistical significance of a correlation "
+                 "when the data are serially correlated. J. Climate 10:2147-2153.",
+    "theiler": "Theiler, J., Eubank, S., Longtin, A., Galdrikian, B. & Farmer, J.D. (1992) Testing for "
+               "nonlinearity in time series: the method of surrogate data. Physica D 58:77-94.",
+    "buhlmann": "B\u00fchlmann, P. (1997) Sieve bootstrap for time series. Bernoulli 3:123-148.",
+    "tashman": "Tashman, L.J. (2000) Out-of-sample tests of forecasting accuracy: an analysis and review. "
+               "Int. J. Forecasting 16:437-450.",
+    "bergmeir": "Bergmeir, C., Hyndman, R.J. & Koo, B. (2018) A note on the validity of cross-validation for "
+                "evaluating autoregressive time series prediction. Comput. Stat. Data Anal. 120:70-83.",
+    "dm": "Diebold, F.X. & Mariano, R.S. (1995) Comparing predictive accuracy. J. Bus. Econ. Stat. 13:253-263.",
+    "hln": "Harvey, D., Leybourne, S. & Newbold, P. (1997) Testing the equality of prediction mean squared "
+           "errors. Int. J. Forecasting 13:281-291.",
+    "bh": "Benjamini, Y. & Hochberg, Y. (1995) Controlling the false discovery rate: a practical and powerful "
+          "approach to multiple testing. J. R. Stat. Soc. B 57:289-300.",
+    "dormann": "Dormann, C.F. et al. (2013) Collinearity: a review of methods to deal with it and a simulation "
+               "study evaluating their performance. Ecography 36:27-46.",
+    "eilers": "Eilers, P.H.C. & Marx, B.D. (1996) Flexible smoothing with B-splines and penalties. "
+              "Statistical Science 11:89-121.",
+    "craven": "Craven, P. & Wahba, G. (1979) Smoothing noisy data with spline functions. "
+              "Numerische Mathematik 31:377-403.",
+    "wood": "Wood, S.N. (2017) Generalized Additive Models: An Introduction with R, 2nd ed. "
+            "Chapman & Hall/CRC, Boca Raton.",
+}
+
+
+def _series_facts(ctx: Context) -> dict:
+    st = ctx.study
+    series = st.responses + st.drivers
+    transforms: dict[str, list[str]] = {}
+    for s in series:
+        t = s.get("transform", "none")
+        if t != "none":
+            transforms.setdefault(t, []).append(s["id"])
+    return {"n_responses": len(st.responses), "n_drivers": len(st.drivers),
+            "first_year": int(ctx.table.index.min()), "last_year": int(ctx.table.index.max()),
+            "transforms": transforms,
+            "aggregates": [{"id": s["id"], "how": s["aggregate"].get("how", "mean"), "months": s["aggregate"]["months"]}
+                           for s in series if s.get("aggregate")],
+            "filled": [s["id"] for s in series if s.get("fill") == "linear"],
+            "own_lags": [{"id": d["id"], "lags": d["lags"]} for d in st.drivers if d.get("lags")]}
+
+
+def _validation_facts(ctx: Context) -> dict:
+    sc, ev = ctx.study.screen, ctx.evidence
+    val = sc.get("validation", {}) or {}
+    init = val.get("initial_years")
+    median_initial = (int(ev["oos_initial"].median())
+                      if init is None and "oos_initial" in ev and ev["oos_initial"].notna().any() else None)
+    ry = ev["retest_years"].dropna().astype(str) if "retest_years" in ev else pd.Series(dtype=str)
+    return {"initial_years": init, "median_initial": median_initial, "holdout_years": val.get("holdout_years"),
+            "retest_mode": ry.mode().iloc[0] if len(ry) else None}
+
+
+def methods_facts(ctx: Context) -> dict:
+    """Everything the methods text states about this run, as plain data."""
+    sc = ctx.study.screen
+    gam_present = bool(len(ctx.screen) and "model" in ctx.screen and (ctx.screen["model"] == "gam").any())
+    return {**_series_facts(ctx), **_validation_facts(ctx),
+            "lags": sc["lags"], "min_overlap": sc["min_overlap"], "gam": "gam" in sc.get("models", []),
+            "gam_trend": bool(sc.get("gam_trend")), "gam_present": gam_present,
+            "surrogate_method": sc.get("surrogate_method", "phase"), "surrogates": int(sc["surrogates"]),
+            "keep_trend": bool(sc.get("surrogate_keep_trend", True)), "n_hypotheses": len(ctx.evidence),
+            "fdr": sc["fdr"], "alpha": sc["alpha"], "inverse_variance": sc.get("weights") == "inverse-variance",
+            "seed": sc["seed"]}
+
+
+def cited(facts: dict) -> list[str]:
+    """Keys of the references the methods text cites, in the order it cites them."""
+    refs = ["pyper", "granger", "newey"]
+    if facts["gam"]:
+        refs += ["eilers", "craven", "wood"]
+    refs += ["ebisuzaki", "theiler"] if facts["surrogate_method"] == "phase" else ["buhlmann"]
+    return refs + ["tashman", "bergmeir", "dm", "hln", "bh", "dormann"]
+
+
+def methods_paragraphs(ctx: Context) -> tuple[list[str], list[str]]:
+    """The methods text of this run (plain text paragraphs) and the reference keys it cites."""
+    facts = methods_facts(ctx)
+    text = render_text("methods.txt", f=facts)
+    return [p.strip() for p in text.split("\n\n") if p.strip()], cited(facts)
+
+
+def reference_list(keys: list[str]) -> list[str]:
+    """The cited references, each once, sorted."""
+    return sorted(REF[k] for k in dict.fromkeys(keys))

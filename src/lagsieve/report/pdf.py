@@ -1,0 +1,134 @@
+"""The PDF copy of the report: weasyprint renders the page itself; without it, matplotlib
+writes the title, cautions and summary as text pages followed by the figures."""
+from __future__ import annotations
+
+import base64
+import io
+import logging
+import textwrap
+from pathlib import Path
+
+import matplotlib.image as mpimg
+import matplotlib.pyplot as plt
+import pandas as pd
+from matplotlib.backends.backend_pdf import PdfPages
+
+from lagsieve.evidence.vocabulary import SUPPORTED
+from lagsieve.io.files import atomic_path
+from lagsieve.report import figures as fg
+from lagsieve.report.context import set_aside_reason, summary_line
+from lagsieve.report.sections import CAUTIONS
+
+A4 = (8.27, 11.69)  # inches
+WRAP = 100  # characters per line of the text pages
+
+
+def pdf_engine() -> str:
+    """'weasyprint' when it imports and can render here, else 'matplotlib'."""
+    try:  # imported here, not at the top: it is slow to import and optional (may be absent or broken)
+        import weasyprint  # noqa: F401
+    except Exception:  # ImportError, or OSError when its system libraries are missing
+        return "matplotlib"
+    return "weasyprint"
+
+
+def _write_weasyprint(html_text: str, path: str | Path) -> None:
+    import weasyprint  # optional and slow to import: see pdf_engine
+
+    for name in ("weasyprint", "weasyprint.progress", "fontTools", "fontTools.subset"):
+        logging.getLogger(name).setLevel(logging.ERROR)
+    with atomic_path(path) as tmp:
+        weasyprint.HTML(string=html_text, base_url=str(Path(path).parent)).write_pdf(str(tmp))
+
+
+def write_pdf(html_text: str, path: str | Path, *, study_id: str, title: str, summary: list[str],
+              figures: list[tuple[str, str]], invented: bool, engine: str | None = None) -> str:
+    """Write the report as PDF; returns the engine used.
+
+    weasyprint renders the HTML itself with the print stylesheet. Without it, matplotlib's
+    PdfPages writes the title, cautions and summary as text followed by the figures
+    (``figures``: (caption, base64 PNG) pairs).
+    """
+    engine = engine or pdf_engine()
+    if engine == "weasyprint":
+        try:
+            _write_weasyprint(html_text, path)
+            return "weasyprint"
+        except Exception as exc:  # a broken installation: fall back rather than lose the PDF
+            logging.getLogger(__name__).warning("weasyprint failed (%s); writing the PDF with matplotlib", exc)
+    _pdf_matplotlib(path, study_id=study_id, title=title, summary=summary, figures=figures, invented=invented)
+    return "matplotlib"
+
+
+def _text_lines(study_id, title, summary, invented) -> list[tuple[str, float, str]]:
+    """(text, font size, weight) of every line of the text pages."""
+    lines: list[tuple[str, float, str]] = [(f"Driver screening: {title}", 13, "bold"), (f"study {study_id}", 9, "normal")]
+    if invented:
+        lines.append(("INVENTED DATA: every number was made up to demonstrate the tool.", 9.5, "bold"))
+    for a, b in CAUTIONS:
+        lines += [(w, 8.5, "normal") for w in textwrap.wrap(f"{a} {b}", WRAP)]
+    lines.append(("", 6, "normal"))
+    for s in summary:
+        bold = not s.startswith(" ")
+        lines += [(w, 8.5, "bold" if bold and k == 0 else "normal")
+                  for k, w in enumerate(textwrap.wrap(s, WRAP, subsequent_indent="    "))]
+    return lines
+
+
+def _text_pages(pdf: PdfPages, lines: list[tuple[str, float, str]]) -> None:
+    k = 0
+    while k < len(lines):
+        fig = plt.figure(figsize=A4)
+        y = 0.95
+        while k < len(lines) and y > 0.05:
+            words, size, weight = lines[k]
+            fig.text(0.07, y, fg.mpl_text(words), fontsize=size, fontweight=weight, va="top")
+            y -= size / A4[1] / 72 * 1.55
+            k += 1
+        pdf.savefig(fig)
+        plt.close(fig)
+
+
+def _figure_pages(pdf: PdfPages, figures: list[tuple[str, str]]) -> None:
+    for i in range(0, len(figures), 2):
+        fig = plt.figure(figsize=A4)
+        for j, (caption, b64) in enumerate(figures[i:i + 2]):
+            img = mpimg.imread(io.BytesIO(base64.b64decode(b64)), format="png")
+            ax = fig.add_axes([0.07, 0.53 - 0.47 * j, 0.86, 0.40])
+            ax.imshow(img)
+            ax.set_axis_off()
+            fig.text(0.07, 0.515 - 0.47 * j, "\n".join(textwrap.wrap(fg.mpl_text(caption), 110)),
+                     fontsize=7.5, va="top")
+        pdf.savefig(fig)
+        plt.close(fig)
+
+
+def _pdf_matplotlib(path, *, study_id, title, summary, figures, invented) -> None:
+    lines = _text_lines(study_id, title, summary, invented)
+    with atomic_path(path) as tmp, PdfPages(tmp, metadata={"Title": f"Driver screening: {study_id}"}) as pdf:
+        _text_pages(pdf, lines)
+        _figure_pages(pdf, figures)
+
+
+def pdf_summary_lines(study, evidence: pd.DataFrame) -> list[str]:
+    """The summary of the report as text lines (for the matplotlib PDF)."""
+    labels = {s["id"]: s.get("label") or s["id"] for s in study.responses + study.drivers}
+    out = []
+    for rid in study.response_ids:
+        sub = evidence[evidence["response"] == rid].sort_values("rank")
+        out.append(f"{labels.get(rid, rid)} ({rid})")
+        for row in sub.to_dict("records"):
+            words = summary_line(row) if row.get("grade") in SUPPORTED else "set aside: " + set_aside_reason(row)
+            out.append(f"    {labels.get(row['driver'], row['driver'])}, {words}")
+    return out
+
+
+def write_report_pdf(html_text: str, path: str | Path, study, evidence: pd.DataFrame, figs: dict) -> str:
+    """The study's PDF copy: the evidence map first, then the hypotheses' panels, then coverage
+    and collinearity (for the matplotlib fallback). Returns the engine used."""
+    last = ("coverage", "driver_correlation")
+    order = ["evidence_map"] + [n for n in figs if n not in ("evidence_map",) + last] + [n for n in last if n in figs]
+    return write_pdf(html_text, path, study_id=study.study, title=study.raw.get("title") or study.study,
+                     summary=pdf_summary_lines(study, evidence),
+                     figures=[(n.replace("__", " / "), figs[n][0]) for n in order if n in figs],
+                     invented=bool(study.raw.get("invented")))
