@@ -61,7 +61,7 @@ from statsmodels.stats.proportion import proportion_confint
 
 from lagsieve.io.config import SCREEN_DEFAULTS
 from lagsieve.evidence.grading import build_evidence
-from lagsieve.screen.response import screen_hypothesis
+from lagsieve.screen.hypothesis import screen_hypothesis
 
 LAGS = [0, 1, 2]
 LEAD = max(LAGS)  # extra driver years before the first response year

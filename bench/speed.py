@@ -62,7 +62,7 @@ import pandas as pd
 
 from lagsieve.stats import splines as lgam
 from lagsieve.prep.align import forecast_frame, shift_batch
-from lagsieve.screen.response import driver_batch, validation_windows
+from lagsieve.screen.hypothesis import backtest_windows, driver_batch
 from lagsieve.stats.backtest import BASELINES, _scale_from_start, baseline_design, gam_candidate, rolling_origin
 
 LAGS = np.array([0, 1, 2, 3])
@@ -102,7 +102,7 @@ def make_hypotheses(seed: int, n_hyp: int = N_HYP, n_surr: int = N_SURR, level: 
         batch = driver_batch(table, "drv", n_surr, "phase", seed + h)
         ff = forecast_frame(table, "resp", "drv", list(LAGS))
         X = np.stack([shift_batch(batch, int(k_))[:, ff.rows] for k_ in LAGS], axis=1)  # (S, L, T)
-        initial, _ = validation_windows(len(ff.years), {})
+        initial, _ = backtest_windows(len(ff.years), {})
         hyps.append(dict(y=ff.y, ylag=ff.ylag, years=ff.years.astype(float), X=X, initial=initial))
     assert all(len(h["y"]) == N_ROWS for h in hyps)
     return hyps

@@ -7,7 +7,7 @@ import pandas as pd
 import pytest
 
 from lagsieve.io.config import SCREEN_DEFAULTS
-from lagsieve.screen.response import screen_hypothesis
+from lagsieve.screen.hypothesis import screen_hypothesis
 
 
 def _world(seed: int, shape: str, n: int = 45):

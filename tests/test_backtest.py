@@ -1,5 +1,5 @@
 """Tests for lagsieve.stats.backtest (rolling-origin forecasts, baselines, skill, DM-HLN, re-test)
-and for the out-of-sample parts of lagsieve.screen.response.screen_hypothesis.
+and for the out-of-sample parts of lagsieve.screen.hypothesis.screen_hypothesis.
 
 Outside sources named beside each check:
 - Diebold & Mariano 1995, J. Bus. Econ. Stat. 13:253-263, with the small-sample correction of
@@ -23,9 +23,9 @@ from scipy import stats
 from helpers import ar1
 from lagsieve.io import config
 from lagsieve.evidence import grading as evidence
-from lagsieve.screen import response as screening
+from lagsieve.screen import hypothesis
 from lagsieve.stats import correlation as st
-from lagsieve.stats import backtest as va
+from lagsieve.stats import backtest
 from lagsieve.prep.align import forecast_frame, shift_batch
 
 
@@ -53,12 +53,12 @@ def test_dm_hln_h1_equals_one_sample_t_test():
         e_m = rng.normal(0, 1.0, n)
         e_b = rng.normal(0, 1.3, n)
         d = e_b**2 - e_m**2
-        res = va.diebold_mariano(e_m, e_b, h=1)
+        res = backtest.diebold_mariano(e_m, e_b, h=1)
         ref = stats.ttest_1samp(d, 0.0, alternative="greater")  # scipy.stats.ttest_1samp
         assert res.n == n
         assert res.statistic == pytest.approx(ref.statistic, rel=1e-10, abs=1e-10)
         assert res.p_value == pytest.approx(ref.pvalue, rel=1e-10, abs=1e-10)
-        two = va.diebold_mariano(e_m, e_b, h=1, alternative="two-sided")
+        two = backtest.diebold_mariano(e_m, e_b, h=1, alternative="two-sided")
         ref2 = stats.ttest_1samp(d, 0.0)
         assert two.p_value == pytest.approx(ref2.pvalue, rel=1e-10, abs=1e-10)
 
@@ -80,16 +80,16 @@ def test_dm_hln_h2_against_hand_computation():
     dm = dbar / np.sqrt((g0 + 2 * g1) / n)
     dm_hln = dm * np.sqrt((n + 1 - 2 * h + h * (h - 1) / n) / n)
     p = stats.t.sf(dm_hln, n - 1)
-    res = va.diebold_mariano(e_m, e_b, h=2)
+    res = backtest.diebold_mariano(e_m, e_b, h=2)
     assert res.statistic == pytest.approx(dm_hln, rel=1e-10)
     assert res.p_value == pytest.approx(p, rel=1e-10)
 
 
 def test_dm_degenerate_cases():
-    assert np.isnan(va.diebold_mariano(np.ones(2), np.ones(2)).statistic)
-    assert np.isnan(va.diebold_mariano(np.ones(10), np.ones(10)).p_value)  # zero variance
+    assert np.isnan(backtest.diebold_mariano(np.ones(2), np.ones(2)).statistic)
+    assert np.isnan(backtest.diebold_mariano(np.ones(10), np.ones(10)).p_value)  # zero variance
     with pytest.raises(ValueError):
-        va.diebold_mariano(np.ones(5), np.arange(5.0), alternative="less")
+        backtest.diebold_mariano(np.ones(5), np.arange(5.0), alternative="less")
 
 
 # ----------------------------------------------------------------- rolling origin vs statsmodels
@@ -106,7 +106,7 @@ def _reference_rolling(y, ylag, year, X, lags, initial, which):
     training rows, pick the lag with the smallest training RSS and predict the next row."""
     T = len(y)
     base, model, chosen = {}, {}, {}
-    for b in va.BASELINES:
+    for b in backtest.BASELINES:
         Z = _design_raw(b, ylag, year)
         base[b] = np.array([sm.OLS(y[:i], Z[:i]).fit().predict(Z[i:i + 1])[0] for i in range(initial, T)])
         model[b] = np.zeros((len(which), T - initial))
@@ -133,7 +133,7 @@ def _forecast_inputs(seed, n=36, n_surr=6):
     table = _table(years, y=y, x=x)
     lags = [0, 1, 2]
     ff = forecast_frame(table, "y", "x", lags)
-    batch = screening.driver_batch(table, "x", n_surr, "phase", seed=3)
+    batch = hypothesis.driver_batch(table, "x", n_surr, "phase", seed=3)
     X = np.stack([shift_batch(batch, k)[:, ff.rows] for k in lags], axis=1)  # (S, L, T)
     return ff, X, np.asarray(lags)
 
@@ -141,26 +141,26 @@ def _forecast_inputs(seed, n=36, n_surr=6):
 def test_rolling_origin_matches_statsmodels_loop():
     ff, X, lags = _forecast_inputs(51)
     initial = 12
-    ro = va.rolling_origin(ff.y, ff.ylag, ff.years, X, lags, initial)
+    ro = backtest.rolling_origin(ff.y, ff.ylag, ff.years, X, lags, initial)
     which = [0, 1, 2, 3]  # the real driver and three surrogates
     base, model, chosen = _reference_rolling(ff.y, ff.ylag, ff.years, X, lags, initial, which)
     assert ro.n == len(ff.y) - initial == 22
     np.testing.assert_array_equal(ro.years, ff.years[initial:])
     np.testing.assert_array_equal(ro.observed, ff.y[initial:])
     scale = np.abs(ff.y).max()
-    for b in va.BASELINES:
+    for b in backtest.BASELINES:
         np.testing.assert_allclose(ro.baseline_forecast[b], base[b], rtol=1e-8, atol=1e-8 * scale)
         np.testing.assert_allclose(ro.model_forecast[b][which], model[b], rtol=1e-8, atol=1e-8 * scale)
         np.testing.assert_array_equal(ro.chosen_lag[b][which], chosen[b])
     # the lag really varies between surrogates / origins somewhere, so the choice is exercised
-    assert len(np.unique(np.concatenate([chosen[b].ravel() for b in va.BASELINES]))) > 1
+    assert len(np.unique(np.concatenate([chosen[b].ravel() for b in backtest.BASELINES]))) > 1
 
     # skills from the reference forecasts
     obs = ff.y[initial:]
-    mse_b = {b: np.mean((obs - base[b]) ** 2) for b in va.BASELINES}
+    mse_b = {b: np.mean((obs - base[b]) ** 2) for b in backtest.BASELINES}
     hardest = min(mse_b, key=mse_b.get)
     assert ro.hardest == hardest
-    for b in va.BASELINES:
+    for b in backtest.BASELINES:
         mse_m = np.mean((obs[None, :] - model[b]) ** 2, axis=-1)
         np.testing.assert_allclose(ro.added_skill[b][which], 1 - mse_m / mse_b[b], rtol=1e-8, atol=1e-10)
     # the candidate: at every origin the baseline + lag with the least GCV = n RSS / (n - p)^2
@@ -169,9 +169,9 @@ def test_rolling_origin_matches_statsmodels_loop():
     for si, w in enumerate(which):
         for oi, i in enumerate(range(initial, len(ff.y))):
             best = None
-            for b in va.BASELINES:
+            for b in backtest.BASELINES:
                 for li in range(len(lags)):
-                    Z = va.baseline_design(b, ff.ylag, ff.years.astype(float))
+                    Z = backtest.baseline_design(b, ff.ylag, ff.years.astype(float))
                     W = np.column_stack([Z, X[w, li]])
                     fit = sm.OLS(ff.y[:i], W[:i]).fit()
                     gcv = i * fit.ssr / (i - W.shape[1]) ** 2
@@ -180,10 +180,10 @@ def test_rolling_origin_matches_statsmodels_loop():
             cfc[si, oi] = best[1]
     np.testing.assert_allclose(ro.candidate_fc[which], cfc, rtol=1e-8, atol=1e-8 * scale)
     mse_c = np.mean((obs[None, :] - cfc) ** 2, axis=-1)
-    for b in va.BASELINES:
+    for b in backtest.BASELINES:
         np.testing.assert_allclose(ro.skill[b][which], 1 - mse_c / mse_b[b], rtol=1e-8, atol=1e-10)
     # the candidate's skill against the hardest baseline is the smallest of its skills
-    sk = np.stack([ro.skill[b] for b in va.BASELINES])
+    sk = np.stack([ro.skill[b] for b in backtest.BASELINES])
     np.testing.assert_allclose(sk.min(axis=0), ro.min_skill, rtol=1e-12, atol=1e-14)
     np.testing.assert_allclose(ro.skill[hardest], ro.min_skill, rtol=1e-12, atol=1e-14)
     e_m, e_b = ro.errors(0)
@@ -196,9 +196,9 @@ def test_rolling_origin_offset_response_matches_statsmodels():
     ff, X, lags = _forecast_inputs(52, n=30, n_surr=2)
     y = ff.y + 600.0
     ylag = ff.ylag + 600.0
-    ro = va.rolling_origin(y, ylag, ff.years, X, lags, 10)
+    ro = backtest.rolling_origin(y, ylag, ff.years, X, lags, 10)
     base, model, chosen = _reference_rolling(y, ylag, ff.years, X, lags, 10, [0, 1])
-    for b in va.BASELINES:
+    for b in backtest.BASELINES:
         np.testing.assert_allclose(ro.baseline_forecast[b], base[b], rtol=1e-8)
         np.testing.assert_allclose(ro.model_forecast[b][[0, 1]], model[b], rtol=1e-8)
         np.testing.assert_array_equal(ro.chosen_lag[b][[0, 1]], chosen[b])
@@ -207,9 +207,9 @@ def test_rolling_origin_offset_response_matches_statsmodels():
 def test_rolling_origin_rejects_bad_initial():
     ff, X, lags = _forecast_inputs(53, n=20, n_surr=1)
     with pytest.raises(ValueError):
-        va.rolling_origin(ff.y, ff.ylag, ff.years, X, lags, len(ff.y))
+        backtest.rolling_origin(ff.y, ff.ylag, ff.years, X, lags, len(ff.y))
     with pytest.raises(ValueError):
-        va.rolling_origin(ff.y, ff.ylag, ff.years, X, lags, 2)
+        backtest.rolling_origin(ff.y, ff.ylag, ff.years, X, lags, 2)
 
 
 # ----------------------------------------------------------------- no look-ahead
@@ -233,11 +233,11 @@ def test_no_look_ahead_screen_hypothesis_bitwise():
     assert (a.loc[late] != b.loc[late]).all().all()
     sc = _screen(surrogates=49, lags=[0, 1, 2], validation={"initial_years": 12, "holdout_years": 5})
     args = ({"id": "resp"}, {"id": "drv"}, [0, 1, 2], sc)
-    _, ha, fa, _ = screening.screen_hypothesis(a, *args)
-    _, hb, fb, _ = screening.screen_hypothesis(b, *args)
+    _, ha, fa, _ = hypothesis.screen_hypothesis(a, *args)
+    _, hb, fb, _ = hypothesis.screen_hypothesis(b, *args)
     ea, eb = fa[fa.year <= T], fb[fb.year <= T]
     assert len(ea) == T - (1982 + 12) + 1 == 17  # forecast rows start at 1994
-    cols = [f"{k}_{bl}" for k in ("baseline", "model", "lag") for bl in va.BASELINES]
+    cols = [f"{k}_{bl}" for k in ("baseline", "model", "lag") for bl in backtest.BASELINES]
     for c in cols + ["observed", "year"]:
         assert np.array_equal(ea[c].to_numpy(), eb[c].to_numpy()), c
     # the later years did change, so the test can see a leak if one existed
@@ -252,16 +252,16 @@ def test_no_look_ahead_rolling_origin_bitwise():
     X = np.ascontiguousarray(X)
     cut = 28  # rows > cut are changed
     initial = 12
-    ra = va.rolling_origin(ff.y, ff.ylag, ff.years, X, lags, initial)
+    ra = backtest.rolling_origin(ff.y, ff.ylag, ff.years, X, lags, initial)
     rng = np.random.default_rng(64)
     y2, X2 = ff.y.copy(), X.copy()
     y2[cut + 1:] = rng.normal(10, 5, len(y2) - cut - 1)
     ylag2 = np.r_[ff.ylag[:1], y2[:-1]]
     np.testing.assert_array_equal(ylag2[:cut + 1], ff.ylag[:cut + 1])
     X2[..., cut + 1:] = rng.normal(-4, 3, X2[..., cut + 1:].shape)
-    rb = va.rolling_origin(y2, ylag2, ff.years, X2, lags, initial)
+    rb = backtest.rolling_origin(y2, ylag2, ff.years, X2, lags, initial)
     k = cut + 1 - initial  # forecasts of rows initial..cut
-    for b in va.BASELINES:
+    for b in backtest.BASELINES:
         assert np.array_equal(ra.baseline_forecast[b][:k], rb.baseline_forecast[b][:k])
         assert np.array_equal(ra.model_forecast[b][:, :k], rb.model_forecast[b][:, :k])
         assert np.array_equal(ra.chosen_lag[b][:, :k], rb.chosen_lag[b][:, :k])
@@ -275,13 +275,13 @@ def test_forecast_of_a_year_ignores_that_years_response():
     ff, X, lags = _forecast_inputs(65, n=40, n_surr=4)
     X = np.ascontiguousarray(X)
     c, initial = 25, 12
-    ra = va.rolling_origin(ff.y, ff.ylag, ff.years, X, lags, initial)
+    ra = backtest.rolling_origin(ff.y, ff.ylag, ff.years, X, lags, initial)
     y2 = ff.y.copy()
     y2[c:] += np.random.default_rng(66).normal(5.0, 2.0, len(y2) - c)
     ylag2 = np.r_[ff.ylag[:1], y2[:-1]]
-    rb = va.rolling_origin(y2, ylag2, ff.years, X, lags, initial)
+    rb = backtest.rolling_origin(y2, ylag2, ff.years, X, lags, initial)
     k = c + 1 - initial  # forecasts of rows initial..c
-    for b in va.BASELINES:
+    for b in backtest.BASELINES:
         assert np.array_equal(ra.baseline_forecast[b][:k], rb.baseline_forecast[b][:k])
         assert np.array_equal(ra.model_forecast[b][:, :k], rb.model_forecast[b][:, :k])
     # and the same through screen_hypothesis, on the table
@@ -290,9 +290,9 @@ def test_forecast_of_a_year_ignores_that_years_response():
     b2 = a.copy()
     b2.loc[b2.index >= 2005, "resp"] += 3.0
     sc = _screen(surrogates=19, lags=[0, 1, 2], validation={"initial_years": 12, "holdout_years": 5})
-    fa = screening.screen_hypothesis(a, {"id": "resp"}, {"id": "drv"}, [0, 1, 2], sc)[2]
-    fb = screening.screen_hypothesis(b2, {"id": "resp"}, {"id": "drv"}, [0, 1, 2], sc)[2]
-    for col in [f"model_{bl}" for bl in va.BASELINES] + [f"baseline_{bl}" for bl in va.BASELINES]:
+    fa = hypothesis.screen_hypothesis(a, {"id": "resp"}, {"id": "drv"}, [0, 1, 2], sc)[2]
+    fb = hypothesis.screen_hypothesis(b2, {"id": "resp"}, {"id": "drv"}, [0, 1, 2], sc)[2]
+    for col in [f"model_{bl}" for bl in backtest.BASELINES] + [f"baseline_{bl}" for bl in backtest.BASELINES]:
         assert np.array_equal(fa.loc[fa.year <= 2005, col].to_numpy(), fb.loc[fb.year <= 2005, col].to_numpy())
 
 
@@ -307,8 +307,8 @@ def test_surrogate_p_pays_for_the_lag_choice():
     table = _table(years, resp=_ar1(rng, 36, 0.5), drv=_ar1(rng, 36, 0.5))
     lags = [0, 1, 2]
     sc = _screen(surrogates=99, lags=lags)
-    rows, h, _, _ = screening.screen_hypothesis(table, {"id": "resp"}, {"id": "drv"}, lags, sc)
-    batch = screening.driver_batch(table, "drv", 99, "phase", sc["seed"])
+    rows, h, _, _ = hypothesis.screen_hypothesis(table, {"id": "resp"}, {"id": "drv"}, lags, sc)
+    batch = hypothesis.driver_batch(table, "drv", 99, "phase", sc["seed"])
     y = table["resp"].to_numpy()
     per_lag = []
     for k in lags:
@@ -375,7 +375,7 @@ def test_selection_bias_best_of_30_noise_drivers():
         table = _noise_world(seed)
         for last_row, rs, sks, gs in ((2 + 15, r_a, sk_a, g_a), (40, r_b, sk_b, None)):
             r, d = _best_in_sample(table, lags, last_row)
-            _, h, _, _ = screening.screen_hypothesis(table, {"id": "y"}, {"id": d}, lags, sc)
+            _, h, _, _ = hypothesis.screen_hypothesis(table, {"id": "y"}, {"id": d}, lags, sc)
             rs.append(r)
             sks.append(h["oos_skill"])
             if gs is not None:
@@ -398,7 +398,7 @@ def test_selection_bias_all_candidates_graded_together():
     sc = _screen(surrogates=99, lags=lags, validation={"initial_years": 15})
     for seed in (11, 14, 16):
         table = _noise_world(seed)
-        hyps = [screening.screen_hypothesis(table, {"id": "y"}, {"id": d}, lags, sc)[1]
+        hyps = [hypothesis.screen_hypothesis(table, {"id": "y"}, {"id": d}, lags, sc)[1]
                 for d in table.columns.drop("y")]
         ev = evidence.build_evidence(pd.DataFrame(hyps), table, sc)
         assert len(ev) == N_CAND
@@ -426,9 +426,9 @@ def test_true_lagged_effect_beats_all_baselines():
         x = _ar1(rng, n + 1, 0.3)
         y = 0.8 * x[:-1] + 0.5 * rng.normal(size=n) + 0.05 * np.arange(n)
         table = _table(years, y=y, x=x[1:])
-        _, h, _, _ = screening.screen_hypothesis(table, {"id": "y"}, {"id": "x"}, lags, sc)
+        _, h, _, _ = hypothesis.screen_hypothesis(table, {"id": "y"}, {"id": "x"}, lags, sc)
         ev = evidence.build_evidence(pd.DataFrame([h]), table, sc)
-        skills = [h[f"oos_skill_{b}"] for b in va.BASELINES]
+        skills = [h[f"oos_skill_{b}"] for b in backtest.BASELINES]
         assert all(s > 0 for s in skills), (seed, skills)
         assert h["oos_skill"] == pytest.approx(min(skills), abs=1e-12)
         min_sk.append(min(skills))
@@ -468,7 +468,7 @@ def test_shared_trend_only_has_no_skill_against_trend_baseline(phi, min_share_sk
         y = tr + 0.7 * _ar1(rng, n, phi)
         x = tr + 0.7 * _ar1(rng, n, phi)
         table = _table(years, y=y, x=x)
-        _, h, _, _ = screening.screen_hypothesis(table, {"id": "y"}, {"id": "x"}, lags, sc)
+        _, h, _, _ = hypothesis.screen_hypothesis(table, {"id": "y"}, {"id": "x"}, lags, sc)
         ev = evidence.build_evidence(pd.DataFrame([h]), table, sc)
         sk_trend.append(h["oos_skill_trend"])
         added.append(h["oos_added_trend"])
@@ -488,12 +488,12 @@ def test_shared_trend_only_has_no_skill_against_trend_baseline(phi, min_share_sk
 def test_retest_matches_manual_statsmodels(baseline):
     ff, X, lags = _forecast_inputs(71, n=34, n_surr=1)
     holdout = 6
-    rt = va.retest(ff.y, ff.ylag, ff.years, X[0], lags, holdout, baseline)
+    rt = backtest.retest(ff.y, ff.ylag, ff.years, X[0], lags, holdout, baseline)
     T = len(ff.y)
     tr = slice(0, T - holdout)
     te = slice(T - holdout, T)
     mse_b = {}
-    for b in va.BASELINES:
+    for b in backtest.BASELINES:
         Z = _design_raw(b, ff.ylag, ff.years)
         fit = sm.OLS(ff.y[tr], Z[tr]).fit()  # frozen at the end of the training years
         mse_b[b] = np.mean((ff.y[te] - fit.predict(Z[te])) ** 2)
@@ -508,7 +508,7 @@ def test_retest_matches_manual_statsmodels(baseline):
     assert rt.lag == best[1]
     assert rt.baseline == baseline
     np.testing.assert_array_equal(rt.years, ff.years[te])
-    for b in va.BASELINES:
+    for b in backtest.BASELINES:
         assert rt.skill[b] == pytest.approx(1 - mse_c / mse_b[b], rel=1e-8, abs=1e-10)
     assert rt.min_skill == pytest.approx(min(1 - mse_c / m for m in mse_b.values()), rel=1e-8, abs=1e-10)
 
@@ -517,15 +517,23 @@ def test_retest_ignores_holdout_values_when_fitting():
     # changing the held-out responses changes the scores but not the frozen coefficients:
     # the chosen lag stays the same whatever the held-out years hold.
     ff, X, lags = _forecast_inputs(72, n=34, n_surr=1)
-    a = va.retest(ff.y, ff.ylag, ff.years, X[0], lags, 6, "trend")
+    a = backtest.retest(ff.y, ff.ylag, ff.years, X[0], lags, 6, "trend")
     y2 = ff.y.copy()
     y2[-6:] += 100.0
-    b = va.retest(y2, ff.ylag, ff.years, X[0], lags, 6, "trend")
+    b = backtest.retest(y2, ff.ylag, ff.years, X[0], lags, 6, "trend")
     assert a.lag == b.lag
     assert a.skill != b.skill
 
 
 def test_skill_score():
-    assert va.skill_score(1.0, 2.0) == 0.5
-    assert va.skill_score(2.0, 2.0) == 0.0
-    np.testing.assert_allclose(va.skill_score(np.array([3.0, 1.0]), 2.0), [-0.5, 0.5])
+    assert backtest.skill_score(1.0, 2.0) == 0.5
+    assert backtest.skill_score(2.0, 2.0) == 0.0
+    np.testing.assert_allclose(backtest.skill_score(np.array([3.0, 1.0]), 2.0), [-0.5, 0.5])
+
+
+def test_backtest_windows_defaults_and_configured_values():
+    # defaults: initial = max(10, round(0.4 n)), holdout = max(3, round(0.15 n))
+    assert hypothesis.backtest_windows(40, {}) == (16, 6)
+    assert hypothesis.backtest_windows(20, {}) == (10, 3)
+    assert hypothesis.backtest_windows(40, {"initial_years": 12, "holdout_years": 5}) == (12, 5)
+    assert hypothesis.backtest_windows(40, {"initial_years": None}) == (16, 6)

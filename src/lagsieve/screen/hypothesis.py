@@ -1,0 +1,342 @@
+"""Screen one hypothesis: one response against one candidate driver, at every lag.
+
+For a driver the real series and its surrogates form one batch (axis 0, the real driver
+first), so every statistic below, in sample and out of sample, is computed for the real
+driver and for B unrelated series with the same spectrum in the same array operation.
+The lag is chosen exactly the same way for the real driver and for every surrogate, so the
+surrogate p-values pay for the choice of lag.
+"""
+from __future__ import annotations
+
+import hashlib
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from lagsieve.prep.align import forecast_frame, inverse_variance_weights, shift_batch
+from lagsieve.stats import correlation as st
+from lagsieve.stats.backtest import BASELINES, RollingOriginResult, diebold_mariano, retest, rolling_origin
+from lagsieve.stats.splines import fit_pspline, partial_effect, shape_word, smooth_p_value
+from lagsieve.stats.surrogates import make_surrogates
+
+MIN_FORECASTS = 5
+MIN_YEARS = 6  # overlapping years a lag needs to be screened
+
+#: Columns of the best lag's linear screen row copied into the hypothesis row.
+BEST_LAG_COLUMNS = ("lag", "n", "first_year", "last_year", "r", "p_naive", "n_eff", "p_adjusted", "r_detrended",
+                    "p_detrended", "r_diff", "slope", "slope_se", "p_surrogate_lag")
+#: Columns of the best lag's spline screen row copied into the hypothesis row.
+GAM_COLUMNS = ("edf", "deviance_explained", "p_smooth", "shape")
+
+
+def driver_rng(seed: int, driver_id: str) -> np.random.Generator:
+    """The generator of a driver's surrogates: derived from the study seed and the driver id
+    (a stable hash), so results do not depend on the order of drivers or responses."""
+    tag = int.from_bytes(hashlib.sha256(driver_id.encode()).digest()[:8], "little")
+    return np.random.default_rng(np.random.SeedSequence([int(seed), tag]))
+
+
+def directed(r: np.ndarray, expected_sign: str) -> np.ndarray:
+    """The test statistic of a correlation given the sign stated before the screening:
+    r for 'positive', -r for 'negative', |r| for 'any'."""
+    if expected_sign == "positive":
+        return r
+    if expected_sign == "negative":
+        return -r
+    return np.abs(r)
+
+
+def surrogate_p(stat: np.ndarray) -> float:
+    """(1 + #{surrogate >= observed}) / (B + 1); stat[0] is observed, stat[1:] the surrogates."""
+    s = np.asarray(stat, float)
+    obs, null = s[0], s[1:]
+    if np.isnan(obs):
+        return np.nan
+    null = null[~np.isnan(null)]
+    return float((1 + np.sum(null >= obs)) / (len(null) + 1))
+
+
+def min_p_combined(stats: list[np.ndarray]) -> float:
+    """Surrogate p of the best of several statistics (Westfall & Young 1993 min-p): each
+    statistic is turned into its surrogate p for every member of the batch, the minimum is
+    taken across statistics, and the observed minimum is ranked among the surrogates'."""
+    ps = []
+    for st_ in stats:
+        v = np.where(np.isnan(st_), -np.inf, st_)  # a missing statistic supports nothing
+        srt = np.sort(v)
+        # for every member: 1 + how many OTHER members (the observed one included) reach it
+        ge_all = len(v) - np.searchsorted(srt, v, side="left")  # counts the member itself
+        ps.append(ge_all / len(v))
+    pmin = np.min(np.stack(ps), axis=0)
+    return float((1 + np.sum(pmin[1:] <= pmin[0])) / len(pmin))
+
+
+def driver_batch(table: pd.DataFrame, driver: str, n_surrogates: int, method: str, seed: int,
+                 keep_trend: bool = True) -> np.ndarray:
+    """(1 + B, n_years) array: the real driver and B surrogates on the table's year axis.
+
+    Surrogates are generated over the driver's observed span only; interior gaps stay gaps.
+    """
+    x = table[driver].to_numpy(dtype=float)
+    obs = np.flatnonzero(~np.isnan(x))
+    out = np.full((n_surrogates + 1, len(x)), np.nan)
+    out[0] = x
+    if len(obs) >= 4 and n_surrogates > 0:
+        lo, hi = obs[0], obs[-1] + 1
+        out[1:, lo:hi] = make_surrogates(x[lo:hi], n_surrogates, driver_rng(seed, driver), method, keep_trend)
+    return out
+
+
+def backtest_windows(n_rows: int, settings: dict) -> tuple[int, int]:
+    """(initial training years, re-test years) of the backtest of a hypothesis with ``n_rows``
+    usable years; ``settings`` is the config section ``screen.validation``.
+
+    Defaults when the config is silent: initial = max(10, round(0.4 n)), holdout =
+    max(3, round(0.15 n)); the configured values are used as given.
+    """
+    initial = int(settings.get("initial_years") or max(10, round(0.4 * n_rows)))
+    holdout = int(settings.get("holdout_years") or max(3, round(0.15 * n_rows)))
+    return initial, holdout
+
+
+def screen_hypothesis(table: pd.DataFrame, response: dict, driver: dict, lags: list[int], screen: dict,
+                      response_se: np.ndarray | None = None):
+    """Screen rows, hypothesis row, forecasts and null statistics for one response x driver.
+
+    ``response_se`` (n_years,) holds the response's standard errors on the table's axis; with
+    ``screen['weights'] == 'inverse-variance'`` the forecasting fits are weighted by 1/se^2.
+    """
+    rid, did = response["id"], driver["id"]
+    sign = driver.get("expected_sign", "any")
+    use_gam = "gam" in screen["models"]
+    batch = driver_batch(table, did, int(screen["surrogates"]), screen["surrogate_method"], screen["seed"],
+                         screen.get("surrogate_keep_trend", True))
+    scan = _scan_lags(table, rid, did, sign, lags, batch, screen)
+    screen_rows = pd.DataFrame(scan.rows)
+    hyp = {"response": rid, "driver": did, "category": driver.get("category", "other"),
+           "expected_sign": sign, "model": "linear", "lags_tried": len(lags)}
+    if not scan.data:
+        hyp.update(status=f"insufficient: no lag has {MIN_YEARS} overlapping years", n=int(screen_rows["n"].max()))
+        return screen_rows, hyp, None, None
+    max_stat = _in_sample_evidence(hyp, scan, screen_rows, lags, use_gam)
+    nulls = [pd.DataFrame({"response": rid, "driver": did, "test": "in-sample", "statistic": "best-lag r (directed)",
+                           "value": max_stat[1:], "observed": max_stat[0]})]
+    fc, oos_null = _out_of_sample(hyp, table, rid, did, lags, batch, screen, response_se)
+    if oos_null is not None:
+        nulls.append(oos_null)
+    if use_gam:
+        g = screen_rows[(screen_rows["model"] == "gam") & (screen_rows["lag"] == hyp["lag"])]
+        if len(g):
+            for col in GAM_COLUMNS:
+                hyp[col] = g.iloc[0].get(col)
+    hyp["status"] = "ok"
+    return screen_rows, hyp, fc, pd.concat(nulls, ignore_index=True)
+
+
+# --------------------------------------------------------------------------- in sample
+
+
+@dataclass
+class _LagScan:
+    """In-sample statistics of every lag, for the real driver and its surrogates."""
+
+    rows: list[dict] = field(default_factory=list)  # screen rows: lag x model
+    stats: list[np.ndarray] = field(default_factory=list)  # per lag: (S,) directed r
+    gam_stats: list[np.ndarray] = field(default_factory=list)  # per lag: (S,) spline gain (with gam)
+    data: dict[int, tuple] = field(default_factory=dict)  # lag -> (x, y, years) of the real driver
+
+
+def _scan_lags(table, rid, did, sign, lags, batch, screen) -> _LagScan:
+    """Linear (and spline) statistics at every lag on the years where both series are present."""
+    y_full = table[rid].to_numpy(dtype=float)
+    years_full = table.index.to_numpy()
+    use_gam = "gam" in screen["models"]
+    scan = _LagScan()
+    for k in lags:
+        xk = shift_batch(batch, k)
+        ok = ~(np.isnan(y_full) | np.isnan(xk[0]))
+        n = int(ok.sum())
+        base = {"response": rid, "driver": did, "lag": k, "model": "linear", "n": n,
+                "first_year": int(years_full[ok][0]) if n else None,
+                "last_year": int(years_full[ok][-1]) if n else None}
+        if n < MIN_YEARS:
+            scan.rows.append(dict(base, status=f"skipped: fewer than {MIN_YEARS} overlapping years"))
+            scan.stats.append(np.full(batch.shape[0], np.nan))
+            if use_gam:
+                scan.gam_stats.append(np.full(batch.shape[0], np.nan))
+            continue
+        x, y, yrs = xk[:, ok], y_full[ok], years_full[ok]
+        r_all = st.pearson_r(x, y[None, :])
+        stat = directed(r_all, sign)
+        scan.stats.append(stat)
+        scan.data[k] = (x[0], y, yrs)
+        if use_gam:
+            g_row, g_stat = _gam_lag(x, y, yrs, screen, sign, stat)
+            scan.rows.append(dict(base, model="gam", **g_row))
+            scan.gam_stats.append(g_stat)
+        scan.rows.append(dict(base, **_linear_lag_row(x[0], y, yrs, float(r_all[0]), stat)))
+    return scan
+
+
+def _linear_lag_row(x: np.ndarray, y: np.ndarray, yrs: np.ndarray, r: float, stat: np.ndarray) -> dict:
+    """Correlation statistics of the real driver ``x`` at one lag."""
+    n = len(y)
+    neff = float(st.effective_n(x, y))
+    r_det = float(st.detrended_r(x, y, yrs))
+    slope, se = st.hac_slope(x, y)
+    n_eff_det = st.effective_n(st.detrend(x, yrs), st.detrend(y, yrs))
+    return dict(r=r, p_naive=float(st.correlation_p(r, n)), n_eff=neff, p_adjusted=float(st.correlation_p(r, neff)),
+                r_detrended=r_det, p_detrended=float(st.correlation_p(r_det, n_eff_det)),
+                r_diff=float(st.differenced_r(x, y, yrs)), slope=float(slope), slope_se=float(se),
+                p_surrogate_lag=surrogate_p(stat), status="ok")
+
+
+def _gam_lag(x, y, yrs, screen, sign, stat) -> tuple[dict, np.ndarray]:
+    """Spline screen row and gain statistic at one lag; a skipped row when too few years."""
+    try:
+        g_row, g_stat = gam_screen_row(x, y, yrs, screen)
+    except ValueError as exc:  # too few years for the spline at this lag
+        return {"status": f"skipped: {exc}"}, np.full(x.shape[0], np.nan)
+    if sign != "any":  # the spline's gain counts only in the direction stated beforehand
+        g_stat = g_stat * np.sign(stat)
+    return g_row, g_stat
+
+
+def gam_screen_row(x: np.ndarray, y: np.ndarray, years: np.ndarray, screen: dict) -> tuple[dict, np.ndarray]:
+    """In-sample penalised-spline statistics at one lag for the real driver (x[0]) and the
+    deviance explained of every surrogate (x[1:]), smoothing chosen by GCV for each."""
+    trend = years.astype(float) if screen.get("gam_trend") else None
+    fit = fit_pspline(x, y, trend=trend)
+    real = fit_pspline(x[0], y, trend=trend)
+    grid = np.linspace(np.min(x[0]), np.max(x[0]), 60)
+    pe = partial_effect(real, grid)
+    scale = float(np.std(y))
+    row = {"edf": float(real.edf), "deviance_explained": float(real.deviance_explained),
+           "p_smooth": float(smooth_p_value(real)),
+           "shape": shape_word(grid, pe.curve, pe.se, scale=scale), "status": "ok"}
+    # share of the residual variation of the null model (a, or a + b year) explained by f
+    gain = 1.0 - fit.rss / fit.rss_null
+    return row, np.asarray(gain, float)
+
+
+def _in_sample_evidence(hyp: dict, scan: _LagScan, screen_rows: pd.DataFrame, lags, use_gam: bool) -> np.ndarray:
+    """Add the best lag's statistics, the surrogate p-values and the stability checks to
+    ``hyp``; return the best-lag statistic of every batch member (S,)."""
+    stats = np.stack(scan.stats)  # (L, S)
+    best_lag = lags[int(np.nanargmax(stats[:, 0]))]
+    lin = screen_rows[screen_rows["model"] == "linear"]
+    best = lin[lin["lag"] == best_lag].iloc[0].to_dict()
+    max_stat = np.nanmax(stats, axis=0)  # best lag within every surrogate, as for the real one
+    hyp.update({k: best[k] for k in BEST_LAG_COLUMNS})
+    if use_gam:
+        gam_max = np.nanmax(np.stack(scan.gam_stats), axis=0)
+        hyp["p_surrogate_linear"] = surrogate_p(max_stat)
+        hyp["p_surrogate_gam"] = surrogate_p(gam_max)
+        hyp["p_surrogate"] = min_p_combined([max_stat, gam_max])
+    else:
+        hyp["p_surrogate"] = surrogate_p(max_stat)
+    hyp.update(_stability(*scan.data[best_lag][:2]))
+    return max_stat
+
+
+def _stability(x: np.ndarray, y: np.ndarray, window: int = 15) -> dict:
+    """Leave-one-year-out, split-half and rolling-window correlations at the chosen lag."""
+    r = float(st.pearson_r(x, y))
+    loo = st.leave_one_out_r(x, y)
+    h = len(x) // 2
+    win = st.windowed_r(x, y, window)
+    strong_opposite = (np.sign(win) != np.sign(r)) & (np.abs(win) >= 0.3)
+    return {
+        "loo_max_change": float(np.nanmax(np.abs(loo - r))),
+        "loo_sign_flip": bool(np.any(np.sign(loo) != np.sign(r))),
+        "r_first_half": float(st.pearson_r(x[:h], y[:h])) if h >= 5 else np.nan,
+        "r_second_half": float(st.pearson_r(x[h:], y[h:])) if len(x) - h >= 5 else np.nan,
+        "window_sign_flip": bool(strong_opposite.any()) if win.size else False,
+    }
+
+
+# --------------------------------------------------------------------------- out of sample
+
+
+def _out_of_sample(hyp: dict, table, rid, did, lags, batch, screen, response_se):
+    """Backtest (rolling origin) and re-test of the hypothesis: adds the ``oos_*`` and
+    ``retest_*`` entries to ``hyp``; returns (forecasts, null statistics), None when the
+    backtest leaves fewer than MIN_FORECASTS forecasts."""
+    ff = forecast_frame(table, rid, did, lags)
+    initial, holdout = backtest_windows(len(ff.years), screen.get("validation", {}))
+    hyp.update(oos_initial=initial, oos_n=max(0, len(ff.years) - initial))
+    if len(ff.years) - initial < MIN_FORECASTS:
+        return None, None
+    X = np.stack([shift_batch(batch, k)[:, ff.rows] for k in lags], axis=1)  # (S, L, T)
+    models = tuple(m for m in ("linear", "gam") if m in screen["models"])
+    w = None
+    if screen.get("weights") == "inverse-variance" and response_se is not None:
+        w = inverse_variance_weights(response_se[ff.rows], n_ref=initial)
+    ro = rolling_origin(ff.y, ff.ylag, ff.years, X, np.asarray(lags), initial, models=models, weights=w)
+    hyp.update(_backtest_summary(ro))
+    ms = ro.min_skill
+    null = pd.DataFrame({"response": rid, "driver": did, "test": "out-of-sample",
+                         "statistic": "skill vs hardest baseline", "value": ms[1:], "observed": ms[0]})
+    fc = _forecast_table(ro, rid, did)
+    fc["extrapolated"] = _extrapolated(X[0], ro.candidate_lag[0], np.asarray(lags), initial)
+    if len(ff.years) - holdout >= max(10, initial // 2):
+        rt = retest(ff.y, ff.ylag, ff.years, X[0], np.asarray(lags), holdout, ro.candidate, weights=w)
+        hyp["retest_skill"] = rt.min_skill
+        hyp["retest_years"] = f"{int(rt.years[0])}-{int(rt.years[-1])}"
+    return fc, null
+
+
+def _backtest_summary(ro: RollingOriginResult) -> dict:
+    """The hypothesis entries of the real driver's backtest (``model`` with the spline)."""
+    sk = ro.skill
+    out = {}
+    for b in BASELINES:
+        out[f"oos_skill_{b}"] = float(sk[b][0])
+        out[f"oos_added_{b}"] = float(ro.added_skill[b][0])
+    ms = ro.min_skill
+    out["oos_skill"] = float(ms[0])
+    out["oos_hardest"] = ro.hardest
+    out["oos_baseline"] = ro.candidate
+    e_m, e_b = ro.errors()
+    out["oos_p"] = diebold_mariano(e_m, e_b).p_value
+    out["oos_p_surrogate"] = surrogate_p(ms)
+    lag_counts = pd.Series(ro.candidate_lag[0]).value_counts()
+    out["oos_lag"] = int(lag_counts.index[0])
+    out["oos_lag_share"] = float(lag_counts.iloc[0] / ro.n)
+    if ro.chosen_model is not None:
+        share_gam = float(np.mean(ro.chosen_model[0] == "gam"))
+        out["model"] = "gam" if share_gam > 0.5 else "linear"
+        out["oos_model_share"] = share_gam if share_gam > 0.5 else 1.0 - share_gam
+        out["gam_gain"] = float(ro.gam_gain[0])
+    return out
+
+
+def _forecast_table(ro: RollingOriginResult, rid: str, did: str) -> pd.DataFrame:
+    """The real driver's backtest forecasts, one row per forecast year."""
+    fc = pd.DataFrame({"response": rid, "driver": did, "year": ro.years, "observed": ro.observed})
+    for b in BASELINES:
+        fc[f"baseline_{b}"] = ro.baseline_forecast[b]
+        fc[f"model_{b}"] = ro.model_forecast[b][0]
+        fc[f"lag_{b}"] = ro.chosen_lag[b][0]
+    if ro.chosen_model is not None:
+        fc["model_chosen"] = ro.chosen_model[0]
+        fc["gam_only"] = ro.gam_forecast[0]
+        fc["linear_only"] = ro.linear_forecast[0]
+    fc["hardest"] = ro.hardest
+    fc["candidate"] = ro.candidate_fc[0]
+    fc["candidate_baseline"] = ro.candidate_baseline[0]
+    fc["candidate_lag"] = ro.candidate_lag[0]
+    return fc
+
+
+def _extrapolated(X: np.ndarray, lag_used: np.ndarray, lags: np.ndarray, initial: int) -> np.ndarray:
+    """Whether each forecast's driver value lies outside the driver's range in its training
+    years (at the lag used for that forecast): such forecasts extrapolate a fitted curve."""
+    T = X.shape[-1]
+    out = np.zeros(T - initial, bool)
+    for j, o in enumerate(range(initial, T)):
+        li = int(np.flatnonzero(lags == lag_used[j])[0])
+        train = X[li, :o]
+        out[j] = X[li, o] < train.min() or X[li, o] > train.max()
+    return out
