@@ -119,10 +119,11 @@ def test_missing_internal_file_is_one_line(study, monkeypatch, capsys):
     """A file the package ships (here the config schema) gone: one line naming it, advice to
     reinstall, exit 2. (tests/test_packaging.py does the same on a real installed wheel.)"""
     import lagsieve
+    import lagsieve.io.config
     from lagsieve import cli
 
     gone = Path(lagsieve.__file__).parent / "workflow-gone" / "config.schema.yaml"
-    monkeypatch.setattr(cli, "SCHEMA_FILE", gone)
+    monkeypatch.setattr(lagsieve.io.config, "SCHEMA_FILE", gone)
     for argv in (["check", str(study)], ["run", str(study), "--", "--dry-run"]):
         assert cli.main(argv) == 2
         err = capsys.readouterr().err.strip().splitlines()

@@ -3,11 +3,12 @@
 A user's mistake prints one line per problem and exits with status 2, never a traceback; so
 does a file of the installed package that has gone missing (with the advice to reinstall).
 
-Lazy imports, measured: `python -X importtime -m lagsieve --help` takes 0.6-0.9 s with the
-imports below and 3.3-4.5 s (this machine, shared) when the stages (lagsieve.pipeline,
-lagsieve.demo, lagsieve.ledger.store: pandas, scipy.stats) are imported at the top too. So
-each command imports its stage inside its function (three places, marked "lazy"), and
-`lagsieve --help`, `--version` and a mistyped option answer at once.
+Lazy imports, for two reasons. Measured (`python -X importtime -m lagsieve --help`, this
+shared machine): 0.35-0.4 s with the imports below, 3.3-4.5 s when the stages
+(lagsieve.pipeline, lagsieve.demo, lagsieve.ledger.store: pandas, scipy.stats) are imported at
+the top too; so each command imports its stage inside its function (marked "lazy"). And
+lagsieve.io.config reads the packaged schema when it is imported, so it too is imported
+inside `main`'s guard, where a missing schema gives the one-line message, not a traceback.
 """
 from __future__ import annotations
 
@@ -21,8 +22,8 @@ from pathlib import Path
 from jinja2 import TemplateNotFound
 
 import lagsieve
+import lagsieve.workflow
 from lagsieve.errors import InputErrors, report_problems
-from lagsieve.io.config import SCHEMA_FILE, WORKFLOW
 
 EXIT_USER = 2
 REINSTALL = "python -m pip install --force-reinstall lagsieve"
@@ -48,6 +49,7 @@ def cmd_init(args) -> int:
 
 
 def _check(config: str):
+    from lagsieve.io.config import SCHEMA_FILE  # lazy: see the module docstring
     from lagsieve.pipeline import check_study  # lazy: see the module docstring
 
     _require(SCHEMA_FILE)
@@ -62,7 +64,7 @@ def _require(resource) -> None:
 
 def _package_roots() -> list[Path]:
     """Where the installed package's own files live (the workflow folder may be mapped apart)."""
-    return [Path(lagsieve.__file__).resolve().parent, Path(str(WORKFLOW)).resolve()]
+    return [Path(lagsieve.__file__).resolve().parent, Path(lagsieve.workflow.__file__).resolve().parent]
 
 
 def missing_internal(exc: BaseException) -> str | None:
@@ -92,6 +94,8 @@ def cmd_check(args) -> int:
 
 
 def cmd_run(args, extra: list[str]) -> int:
+    from lagsieve.io.config import WORKFLOW  # lazy: see the module docstring
+
     try:
         study, *_ = _check(args.config)
     except InputErrors as exc:
