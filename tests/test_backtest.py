@@ -18,15 +18,15 @@ import numpy as np
 import pandas as pd
 import pytest
 import statsmodels.api as sm
+from helpers import ar1
 from scipy import stats
 
-from helpers import ar1
-from lagsieve.io import config
 from lagsieve.evidence import grading as evidence
-from lagsieve.screen import hypothesis
-from lagsieve.stats import correlation as st
-from lagsieve.stats import backtest
+from lagsieve.io import config
 from lagsieve.prep.align import forecast_frame, shift_batch
+from lagsieve.screen import hypothesis
+from lagsieve.stats import backtest
+from lagsieve.stats import correlation as st
 
 
 def _ar1(rng, n, phi, burn=50):
@@ -405,7 +405,7 @@ def test_selection_bias_all_candidates_graded_together():
         assert (ev["grade"] != "strong").all()
         assert ev["q_value"].min() >= 0.25
         # ...while the best one alone would have been strong
-        r, d = _best_in_sample(table, lags, 40)
+        _, d = _best_in_sample(table, lags, 40)
         alone = evidence.build_evidence(ev[ev.driver == d].drop(columns=["q_value", "grade", "flags", "rank",
                                                                       "summary", "collinear_with"]), table, sc)
         assert alone["grade"].iloc[0] == "strong"

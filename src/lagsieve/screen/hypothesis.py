@@ -16,8 +16,19 @@ import pandas as pd
 
 from lagsieve.prep.align import forecast_frame, inverse_variance_weights, shift_batch
 from lagsieve.stats import correlation as st
-from lagsieve.stats.backtest import BASELINES, RollingOriginResult, diebold_mariano, retest, rolling_origin
-from lagsieve.stats.splines import fit_pspline, partial_effect, shape_word, smooth_p_value
+from lagsieve.stats.backtest import (
+    BASELINES,
+    RollingOriginResult,
+    diebold_mariano,
+    retest,
+    rolling_origin,
+)
+from lagsieve.stats.splines import (
+    fit_pspline,
+    partial_effect,
+    shape_word,
+    smooth_p_value,
+)
 from lagsieve.stats.surrogates import make_surrogates
 
 MIN_FORECASTS = 5
@@ -186,10 +197,10 @@ def _linear_lag_row(x: np.ndarray, y: np.ndarray, yrs: np.ndarray, r: float, sta
     r_det = float(st.detrended_r(x, y, yrs))
     slope, se = st.hac_slope(x, y)
     n_eff_det = st.effective_n(st.detrend(x, yrs), st.detrend(y, yrs))
-    return dict(r=r, p_naive=float(st.correlation_p(r, n)), n_eff=neff, p_adjusted=float(st.correlation_p(r, neff)),
-                r_detrended=r_det, p_detrended=float(st.correlation_p(r_det, n_eff_det)),
-                r_diff=float(st.differenced_r(x, y, yrs)), slope=float(slope), slope_se=float(se),
-                p_surrogate_lag=surrogate_p(stat), status="ok")
+    return {"r": r, "p_naive": float(st.correlation_p(r, n)), "n_eff": neff,
+            "p_adjusted": float(st.correlation_p(r, neff)), "r_detrended": r_det,
+            "p_detrended": float(st.correlation_p(r_det, n_eff_det)), "r_diff": float(st.differenced_r(x, y, yrs)),
+            "slope": float(slope), "slope_se": float(se), "p_surrogate_lag": surrogate_p(stat), "status": "ok"}
 
 
 def _gam_lag(x, y, yrs, screen, sign, stat) -> tuple[dict, np.ndarray]:

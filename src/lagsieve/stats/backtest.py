@@ -137,7 +137,7 @@ class RollingOriginResult:
 
     @property
     def n(self) -> int:
-        return int(len(self.years))
+        return len(self.years)
 
     @property
     def candidate_forecast(self) -> np.ndarray:
@@ -332,7 +332,7 @@ def _gam_comparison(observed, fc_gam, gcv_gam, lin_only) -> dict:
     gam_only = np.take_along_axis(fc_gam, np.argmin(gcv_gam, axis=1)[:, None, :], axis=1)[:, 0, :]
     mse_gam = np.mean((observed[None, :] - gam_only) ** 2, axis=-1)
     mse_lin = np.mean((observed[None, :] - lin_only) ** 2, axis=-1)
-    return dict(gam_gain=skill_score(mse_gam, mse_lin), gam_forecast=gam_only, linear_forecast=lin_only)
+    return {"gam_gain": skill_score(mse_gam, mse_lin), "gam_forecast": gam_only, "linear_forecast": lin_only}
 
 
 def gam_candidate(Z: np.ndarray, Xs: np.ndarray, y: np.ndarray, origins: np.ndarray, initial: int,

@@ -37,19 +37,19 @@ import numpy as np
 from scipy import stats
 
 __all__ = [
-    "PSplineFit",
-    "PartialEffect",
     "DEFAULT_LAM_GRID",
     "SHAPE_WORDS",
+    "PSplineFit",
+    "PartialEffect",
     "bspline_basis",
-    "difference_penalty",
-    "penalty_block",
     "default_n_basis",
+    "difference_penalty",
     "fit_pspline",
-    "predict_pspline",
-    "smooth_p_value",
     "partial_effect",
+    "penalty_block",
+    "predict_pspline",
     "shape_word",
+    "smooth_p_value",
 ]
 
 #: Default grid of smoothing parameters (25 values, 1e-3 ... 1e5, log-spaced).
@@ -726,9 +726,8 @@ def shape_word(
         s = np.broadcast_to(np.asarray(se, dtype=float).ravel(), c.shape)
         if np.max(c - z * s) <= np.min(c + z * s):
             return "flat"
-    elif scale is not None:
-        if rng < flat_fraction * float(scale):
-            return "flat"
+    elif scale is not None and rng < flat_fraction * float(scale):
+        return "flat"
     if rng <= 1e-12 * (1.0 + float(np.abs(c).max())):
         return "flat"
 
@@ -818,7 +817,7 @@ def _nan_reduce(fn, x):
 
 def _householder_null(cvec: np.ndarray) -> np.ndarray:
     """Orthonormal basis ``Z`` (m, K, K-1) of the null space of each row of ``cvec``."""
-    m, k = cvec.shape
+    k = cvec.shape[1]
     norm = np.linalg.norm(cvec, axis=1)
     sign = np.where(cvec[:, 0] >= 0, 1.0, -1.0)
     v = cvec.copy()

@@ -13,6 +13,7 @@ Buhlmann, P. (1997) Sieve bootstrap for time series. Bernoulli 3:123-148.
 from __future__ import annotations
 
 import numpy as np
+from scipy.linalg import solve_toeplitz
 
 
 def phase_randomised(x: np.ndarray, n_surrogates: int, rng: np.random.Generator) -> np.ndarray:
@@ -42,8 +43,6 @@ def _yule_walker(x: np.ndarray, order: int) -> tuple[np.ndarray, float]:
     acov = np.array([np.dot(xc[: n - k], xc[k:]) / n for k in range(order + 1)])
     if order == 0:
         return np.zeros(0), float(acov[0])
-    from scipy.linalg import solve_toeplitz
-
     phi = solve_toeplitz(acov[:order], acov[1 : order + 1])
     sigma2 = float(acov[0] - np.dot(phi, acov[1 : order + 1]))
     return phi, max(sigma2, 1e-12 * acov[0] + 1e-300)
