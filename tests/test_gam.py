@@ -99,6 +99,19 @@ def test_difference_penalty_equals_hand_written_and_pygam():
     assert gam.difference_penalty(6, 1)[0].tolist() == [1, -1, 0, 0, 0, 0]
 
 
+def test_penalty_block_leaves_the_unpenalised_terms_free():
+    """The layout both the in-sample and the expanding-window fits use: zeros on the first
+    n_fixed terms, the smooth's penalty on the rest (per batch member)."""
+    pen = gam.difference_penalty(5)
+    block = gam.penalty_block(pen, 2)
+    assert block.shape == (7, 7)
+    np.testing.assert_array_equal(block[2:, 2:], pen)
+    assert not block[:2].any() and not block[:, :2].any()
+    batch = np.stack([pen, 2.0 * pen])
+    np.testing.assert_array_equal(gam.penalty_block(batch, 1)[1, 1:, 1:], 2.0 * pen)
+    np.testing.assert_array_equal(gam.penalty_block(pen, 0), pen)
+
+
 def test_default_n_basis():
     assert [gam.default_n_basis(n) for n in (8, 20, 24, 39, 40, 100)] == [5, 5, 6, 9, 10, 10]
 
@@ -202,8 +215,10 @@ def test_gcv_grid_equals_dense_craven_wahba_when_the_design_is_ill_conditioned()
     assert max(conds) > 1e8  # the case is as hard as it claims
 
 
-def test_expanding_fits_equal_dense_solves_and_gcv_when_ill_conditioned():
-    """expanding_penalised (tuning every 3 origins, recursive updates in between) against a
+@pytest.mark.parametrize("retune", [1, 3, 100])
+def test_expanding_fits_equal_dense_solves_and_gcv_when_ill_conditioned(retune):
+    """expanding_penalised (tuning every ``retune`` origins: every origin, every 3rd, only the
+    first; recursive updates in between) against a
     fresh dense solve and a dense GCV (Craven & Wahba 1979) at every origin, for every grid
     value, on nearly singular designs: forecasts to 1e-9, GCV to 1e-8, same lambda."""
     x = _clustered_drivers(7, m=12)
@@ -218,8 +233,8 @@ def test_expanding_fits_equal_dense_solves_and_gcv_when_ill_conditioned():
     P = np.zeros((q, q))
     P[1:, 1:] = gam.difference_penalty(k)
     grid = gam.DEFAULT_LAM_GRID[::4]
-    fc, gcv, edf = gam.expanding_penalised(W, P, y, origins, lam_grid=grid, retune_every=3)
-    tuned = np.arange(0, len(origins), 3)
+    fc, gcv, edf = gam.expanding_penalised(W, P, y, origins, lam_grid=grid, retune_every=retune)
+    tuned = np.arange(0, len(origins), retune)
     for j in range(x.shape[0]):
         ridge = 1e-11 * np.trace(W[j, :initial].T @ W[j, :initial]) / q
         for i, o in enumerate(origins):
