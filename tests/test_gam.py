@@ -18,6 +18,7 @@ import pytest
 from scipy import linalg, stats
 
 from lagsieve.stats import splines as gam
+from lagsieve.stats.shapes import shape_word
 pygam = pytest.importorskip("pygam")
 from pygam import LinearGAM, s  # noqa: E402
 from pygam.penalties import derivative as pygam_derivative  # noqa: E402
@@ -406,12 +407,12 @@ def _words(fn, sd, n_sim=100, seed=0, n=40):
     fit = gam.fit_pspline(x, y)
     grid = np.linspace(fit.lo, fit.hi, 101).T
     pe = gam.partial_effect(fit, grid)
-    return collections.Counter(gam.shape_word(pe.grid[i], pe.curve[i], pe.se[i])
+    return collections.Counter(shape_word(pe.grid[i], pe.curve[i], pe.se[i])
                                for i in range(n_sim))
 
 
 def test_shape_words_on_simulated_truths():
-    """Our documented rule (gam.shape_word), n = 40, GCV fits, band z = 3. Measured with
+    """Our documented rule (lagsieve.stats.shapes.shape_word), n = 40, GCV fits, band z = 3. Measured with
     these seeds: hockey stick 97/100 threshold (3 u-shape), line 100/100 increasing,
     hump and u-shape 100/100, falling line 95/100 decreasing (4 threshold), noise
     200/200 flat (other seeds gave ~96%). Bounds sit a little below the measured rates."""
@@ -431,23 +432,23 @@ def test_shape_words_on_simulated_truths():
 
 def test_shape_word_rule_on_exact_curves():
     g = np.linspace(0, 10, 201)
-    assert gam.shape_word(g, 3 * g) == "increasing"
-    assert gam.shape_word(g, -g**0.5) == "decreasing"
+    assert shape_word(g, 3 * g) == "increasing"
+    assert shape_word(g, -g**0.5) == "decreasing"
     # 70% of the change within 35% of the range -> threshold; a step at 8 is one
-    assert gam.shape_word(g, 1 / (1 + np.exp(-(g - 8) * 4))) == "threshold"
+    assert shape_word(g, 1 / (1 + np.exp(-(g - 8) * 4))) == "threshold"
     # x^2 on [0, 10]: 70% of the rise needs x from 5.48 to 10 (45% of range): increasing
-    assert gam.shape_word(g, g**2) == "increasing"
+    assert shape_word(g, g**2) == "increasing"
     # x^4: 70% of the rise from 7.4 to 10 (26%): threshold
-    assert gam.shape_word(g, g**4) == "threshold"
-    assert gam.shape_word(g, -((g - 4) ** 2)) == "hump"
-    assert gam.shape_word(g, (g - 6) ** 2) == "u-shape"
+    assert shape_word(g, g**4) == "threshold"
+    assert shape_word(g, -((g - 4) ** 2)) == "hump"
+    assert shape_word(g, (g - 6) ** 2) == "u-shape"
     # interior max whose drop to the right end is only 10% of the range: not a hump
-    assert gam.shape_word(g, np.where(g <= 9.0, g, 9.0 - 0.9 * (g - 9.0))) == "increasing"
-    assert gam.shape_word(g, np.full_like(g, 2.0)) == "flat"
+    assert shape_word(g, np.where(g <= 9.0, g, 9.0 - 0.9 * (g - 9.0))) == "increasing"
+    assert shape_word(g, np.full_like(g, 2.0)) == "flat"
     # range 0.05 < flat_fraction (0.1) * scale (1.0) -> flat; range 0.2 is not
-    assert gam.shape_word(g, 0.005 * g, scale=1.0) == "flat"
-    assert gam.shape_word(g, 0.02 * g, scale=1.0) == "increasing"
-    assert gam.shape_word(g, 0.005 * g) == "increasing"  # no scale, no se: not flat
+    assert shape_word(g, 0.005 * g, scale=1.0) == "flat"
+    assert shape_word(g, 0.02 * g, scale=1.0) == "increasing"
+    assert shape_word(g, 0.005 * g) == "increasing"  # no scale, no se: not flat
     se = np.full_like(g, 0.2)
-    assert gam.shape_word(g, 0.1 * np.sin(g), se=se) == "flat"  # band holds a line
-    assert gam.shape_word(g, 0.3 * g, se=se) == "increasing"
+    assert shape_word(g, 0.1 * np.sin(g), se=se) == "flat"  # band holds a line
+    assert shape_word(g, 0.3 * g, se=se) == "increasing"

@@ -23,12 +23,8 @@ from lagsieve.stats.backtest import (
     retest,
     rolling_origin,
 )
-from lagsieve.stats.splines import (
-    fit_pspline,
-    partial_effect,
-    shape_word,
-    smooth_p_value,
-)
+from lagsieve.stats.shapes import shape_word
+from lagsieve.stats.splines import fit_pspline, partial_effect, smooth_p_value
 from lagsieve.stats.surrogates import make_surrogates
 
 MIN_FORECASTS = 5
