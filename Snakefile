@@ -7,9 +7,10 @@
 include: "workflow/Snakefile"
 
 
-# An included file cannot choose the default target, so the root names it again.
+# An included file cannot choose the default target, so the root names it again: every output
+# of every study, the inputs of rule `all` in workflow/Snakefile. (A comment, not a docstring:
+# snakefmt puts default_target first, and then cannot read a docstring after it.)
 rule default:
     default_target: True
-    """Every output of every study: the inputs of rule `all` in workflow/Snakefile."""
     input:
         rules.all.input,
