@@ -35,7 +35,7 @@ import numpy as np
 import pytest
 import yaml
 
-from lagsieve.demo.simulate import demo_config_text, write_demo
+from lagsieve.demo import demo_config_text, write_demo
 
 from helpers import REPO
 
