@@ -5,7 +5,7 @@ does a file of the installed package that has gone missing (with the advice to r
 
 Lazy imports, for two reasons. Measured (`python -X importtime -m lagsieve --help`, this
 shared machine): 0.35-0.4 s with the imports below, 3.3-4.5 s when the stages
-(lagsieve.pipeline, lagsieve.demo, lagsieve.ledger.store: pandas, scipy.stats) are imported at
+(lagsieve.pipeline, lagsieve.demo, lagsieve.ledger: pandas, scipy.stats) are imported at
 the top too; so each command imports its stage inside its function (marked "lazy"). And
 lagsieve.io.config reads the packaged schema when it is imported, so it too is imported
 inside `main`'s guard, where a missing schema gives the one-line message, not a traceback.
@@ -120,7 +120,7 @@ def cmd_run(args, extra: list[str]) -> int:
 
 
 def cmd_ledger(args) -> int:
-    from lagsieve.ledger.store import print_track_record  # lazy: see the module docstring
+    from lagsieve.ledger import print_track_record  # lazy: see the module docstring
 
     try:
         return print_track_record(args.config, args.out)
