@@ -15,8 +15,13 @@ from __future__ import annotations
 
 import base64
 import io
+import multiprocessing as mp
 import os
+import pickle
+import textwrap
 import warnings
+from concurrent.futures import ProcessPoolExecutor
+from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -27,6 +32,9 @@ import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 from matplotlib.colors import LinearSegmentedColormap, ListedColormap  # noqa: E402
 from matplotlib.patches import Patch, Rectangle  # noqa: E402
+from matplotlib.ticker import MaxNLocator  # noqa: E402
+from PIL import Image  # noqa: E402
+from scipy import stats  # noqa: E402
 
 # ----------------------------------------------------------------------------- palette
 #: grade -> (fill colour, text colour on that fill, one-word label used inside cells)
@@ -69,8 +77,6 @@ INVENTED_NOTE = "invented data"
 def mpl_text(s, width: int | None = None) -> str:
     """A user string made safe for matplotlib ('$' would otherwise start mathematical text),
     optionally wrapped onto lines of at most ``width`` characters."""
-    import textwrap
-
     s = str(s)
     if width and len(s) > width:
         s = "\n".join(textwrap.wrap(s, width, break_long_words=True)[:3])
@@ -87,8 +93,6 @@ def r_critical(n_eff, p: float = 0.05) -> np.ndarray:
     """Two-sided critical |r| at level ``p`` for an effective sample size:
     ``r_crit = t / sqrt(df + t^2)`` with ``df = n_eff - 2`` and ``t`` the t quantile.
     NaN where ``df <= 0``."""
-    from scipy import stats
-
     n_eff = np.asarray(n_eff, float)
     df = n_eff - 2.0
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -129,8 +133,6 @@ def _gapped(years, *series):
 
 
 def _integer_years(ax) -> None:
-    from matplotlib.ticker import MaxNLocator
-
     ax.xaxis.set_major_locator(MaxNLocator(integer=True, nbins=8))
 
 
@@ -188,7 +190,7 @@ def driver_correlation(corr: np.ndarray, labels: list[str], threshold: float = 0
                        invented: bool = False):
     """Lower triangle of the driver-driver Pearson r; cells with |r| above the collinearity
     threshold are outlined and their value starred."""
-    import seaborn as sns
+    import seaborn as sns  # here, not at the top: ~1 s to import (python -X importtime), one figure uses it
 
     full = np.asarray(corr, float)
     k = len(labels)
@@ -441,8 +443,6 @@ def save_png(fig, figures_dir: str | Path, name: str) -> tuple[str, tuple[int, i
     copy (base64 PNG at 150 dpi, halved from the 300 dpi raster) and its display size in CSS
     pixels. The layout is then frozen, so a later SVG uses the same positions without laying
     the figure out again."""
-    from PIL import Image
-
     d = Path(figures_dir)
     d.mkdir(parents=True, exist_ok=True)
     width_in, height_in = fig.get_size_inches()
@@ -472,8 +472,6 @@ def save(fig, figures_dir: str | Path, name: str) -> tuple[str, tuple[int, int]]
 def _draw_job(job: FigureJob, figures_dir: str):
     """Build and rasterise one job; return (name, base64, size, pickled figure or None). When
     the figure cannot be pickled its SVG is written at once."""
-    import pickle
-
     with plt.rc_context(RC):
         fig = BUILDERS[job.builder](**job.kwargs)
         b64, size = save_png(fig, figures_dir, job.name)
@@ -487,8 +485,6 @@ def _draw_job(job: FigureJob, figures_dir: str):
 
 
 def _svg_job(name: str, blob: bytes, figures_dir: str) -> str:
-    import pickle
-
     with plt.rc_context(RC):
         fig = pickle.loads(blob)
         save_svg(fig, figures_dir, name)
@@ -520,9 +516,6 @@ class FigureRenderer:
         self._pending: list = []
         self._blobs: dict[str, bytes] = {}
         if self.workers > 1 and hasattr(os, "fork"):
-            import multiprocessing as mp
-            from concurrent.futures import ProcessPoolExecutor
-
             try:
                 self._pool = ProcessPoolExecutor(max_workers=self.workers, mp_context=mp.get_context("fork"))
             except (OSError, RuntimeError, ValueError):  # no process creation here: draw serially
@@ -540,8 +533,6 @@ class FigureRenderer:
         args = [(j, self.figures_dir) for j in jobs]
         results = None
         if self._pool is not None and len(jobs) > 1:
-            from concurrent.futures.process import BrokenProcessPool
-
             try:
                 results = list(self._pool.map(_draw_star, args, chunksize=1))
             except BrokenProcessPool:
