@@ -165,3 +165,10 @@ def test_python_dash_m_lagsieve(tmp_path):
     assert proc.returncode == 0 and "init" in proc.stdout and "ledger" in proc.stdout
     proc = subprocess.run([sys.executable, "-m", "lagsieve", "--version"], capture_output=True, text=True)
     assert proc.stdout.startswith("lagsieve ")
+
+
+def test_ledger_before_any_run_is_one_line(study):
+    proc = lagsieve("ledger", study)
+    assert proc.returncode == 2 and "Traceback" not in proc.stderr
+    lines = proc.stderr.strip().splitlines()
+    assert len(lines) == 1 and "no forecast ledger" in lines[0] and "lagsieve run" in lines[0], proc.stderr
