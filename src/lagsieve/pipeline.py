@@ -347,8 +347,8 @@ def run_report(config_path, annual_csv, notes_csv, work_dir, screen_csv, evidenc
     # to the import of this module (python -X importtime, 2-core machine), which every other stage
     # and the Snakefile (plan_studies) would otherwise pay.
     from lagsieve.report.figures import FigureRenderer
-    from lagsieve.report.html import build_report
-    from lagsieve.report.pdf import write_report_pdf
+    from lagsieve.report.html import build_report  # matplotlib: see above
+    from lagsieve.report.pdf import write_report_pdf  # matplotlib: see above
 
     t0 = time.time() if started is None else started
     study = load_study(config_path)
