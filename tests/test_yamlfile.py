@@ -84,3 +84,49 @@ def test_not_utf8_and_empty(tmp_path):
     g = tmp_path / "e.yaml"
     g.write_text("")
     assert read_yaml(g) is None
+
+
+def test_whole_number_floats_become_ints_where_the_schema_wants_integers(tmp_path):
+    """JSON Schema (2020-12, section 6.1.1 of the validation vocabulary) counts 1.0 as an
+    integer, so validation passes it; the study must hold real ints."""
+    from lagsieve.io.config import load_study
+    from lagsieve.demo import demo_config_text, write_demo
+
+    write_demo(tmp_path / "data")
+    text = demo_config_text("data").replace("  seed: 20261201 ", "  seed: 20261201.0 ")
+    text = text.replace("  surrogates: 999 ", "  surrogates: 99.0 ")
+    assert "20261201.0" in text and "99.0" in text
+    (tmp_path / "c.yaml").write_text(text)
+    study = load_study(tmp_path / "c.yaml")
+    assert type(study.screen["seed"]) is int and study.screen["seed"] == 20261201
+    assert type(study.screen["surrogates"]) is int and study.screen["surrogates"] == 99
+
+
+def test_fractional_float_in_an_integer_place_is_one_line(tmp_path):
+    from lagsieve.io.config import load_study
+    from lagsieve.demo import demo_config_text, write_demo
+
+    write_demo(tmp_path / "data")
+    (tmp_path / "c.yaml").write_text(demo_config_text("data").replace("  surrogates: 999 ", "  surrogates: 99.5 "))
+    with pytest.raises(InputErrors) as info:
+        load_study(tmp_path / "c.yaml")
+    (line,) = [p.line() for p in info.value.problems]
+    assert "screen.surrogates" in line and "99.5" in line
+
+
+def test_results_are_written_with_the_users_umask(tmp_path):
+    """Common practice (POSIX open(2)): a new file gets mode 0666 less the umask; a
+    temporary file from mkstemp gets 0600, which the atomic writer must not keep."""
+    import os
+
+    from lagsieve.io.files import write_text
+
+    old = os.umask(0o022)
+    try:
+        write_text("x\n", tmp_path / "a.txt")
+        os.umask(0o027)
+        write_text("x\n", tmp_path / "b.txt")
+    finally:
+        os.umask(old)
+    assert (tmp_path / "a.txt").stat().st_mode & 0o777 == 0o644
+    assert (tmp_path / "b.txt").stat().st_mode & 0o777 == 0o640

@@ -135,15 +135,15 @@ def plan_studies(config: dict, check: bool = True) -> dict[str, PlannedStudy]:
                 st, annual, _, _ = check_study(path)
             else:
                 st = load_study(path)
-            if st.study in planned:
-                print(f"{path}: key 'study': id '{st.study}' is used by two configs; give each study its own id",
+            if st.id in planned:
+                print(f"{path}: key 'study': id '{st.id}' is used by two configs; give each study its own id",
                       file=sys.stderr)
                 sys.exit(2)
             inputs = []
             for spec in st.inputs:
                 p = Path(spec["path"])
                 inputs.append(str(p if p.is_absolute() else st.base_dir / p))
-            planned[st.study] = PlannedStudy(st, str(st.path), inputs, _response_inputs(st, annual, inputs))
+            planned[st.id] = PlannedStudy(st, str(st.path), inputs, _response_inputs(st, annual, inputs))
     except InputErrors as exc:
         sys.exit(report_problems(exc))
     return planned
@@ -314,7 +314,7 @@ def _report_provenance(study: Study, annual_csv, dirs: dict, t0: float) -> dict:
         inputs[spec["path"]] = sha256_file(p if p.is_absolute() else study.base_dir / p)
     screened = [(d / "screen.csv").stat().st_mtime for d in dirs.values() if (d / "screen.csv").is_file()]
     prov = {
-        "study": study.study,
+        "study": study.id,
         "config_path": str(study.path),
         "config_sha256": sha256_file(study.path),
         "config": study.raw,

@@ -18,6 +18,7 @@ import jsonschema
 import yaml
 
 from lagsieve.errors import InputErrors, InputProblem, closest, suggest
+from lagsieve.io.yamlfile import read_yaml
 
 # libyaml's safe loader when PyYAML was built with it (same safety, about ten times faster)
 SafeLoader = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
@@ -126,6 +127,29 @@ def fill_defaults(instance: Any, schema: dict | None = None, root: dict | None =
     return copy.deepcopy(instance)
 
 
+def whole_numbers(instance: Any, schema: dict | None = None, root: dict | None = None) -> Any:
+    """A copy of a validated ``instance`` in which every float at a place the schema types
+    ``integer`` becomes an int (``seed: 1.0`` -> 1). JSON Schema counts 1.0 as an integer, so
+    validation lets it through; the code then needs a real int. Other floats there were
+    already refused by validation."""
+    root = root if root is not None else (schema if schema is not None else _schema())
+    schema = _resolve(schema if schema is not None else root, root)
+    for branch in schema.get("oneOf", []) + schema.get("anyOf", []):  # the branch of the instance's kind
+        if (branch.get("type") == "object") == isinstance(instance, dict):
+            schema = _resolve(branch, root)
+            break
+    kind = schema.get("type")
+    kinds = kind if isinstance(kind, list) else [kind]
+    if isinstance(instance, float) and "integer" in kinds and instance.is_integer():
+        return int(instance)
+    if isinstance(instance, dict):
+        props = schema.get("properties") or {}
+        return {k: whole_numbers(v, props[k], root) if k in props else v for k, v in instance.items()}
+    if isinstance(instance, list) and isinstance(schema.get("items"), dict):
+        return [whole_numbers(v, schema["items"], root) for v in instance]
+    return instance
+
+
 def screen_defaults() -> dict[str, Any]:
     """The ``screen`` settings of a config that gives none (a fresh copy each call)."""
     return fill_defaults({})["screen"]
@@ -180,23 +204,14 @@ def load_study(path: str | Path) -> Study:
     shown = str(path)
     if not path.is_file():
         raise InputErrors([InputProblem(what="config file not found", fix="give the path to an existing study config (lagsieve init DIR writes one)", file=shown)])
-    try:
-        with open(path, encoding="utf-8-sig") as fh:
-            raw = yaml.load(fh, Loader=SafeLoader)
-    except yaml.YAMLError as exc:
-        mark = getattr(exc, "problem_mark", None)
-        row = mark.line + 1 if mark is not None else None
-        what = getattr(exc, "problem", None) or "not valid YAML"
-        raise InputErrors([InputProblem(what=f"YAML syntax error: {what}", fix="fix the indentation or quoting on that line", file=shown, row=row)]) from None
-    except UnicodeDecodeError:
-        raise InputErrors([InputProblem(what="config is not UTF-8 text", fix="save it as UTF-8", file=shown)]) from None
+    raw = read_yaml(path, shown)
     if not isinstance(raw, dict):
         raise InputErrors([InputProblem(what="config is empty or not a mapping of keys", fix="start from the config that `lagsieve init` writes", file=shown)])
     errs = sorted(_validator().iter_errors(raw), key=lambda e: list(map(str, e.absolute_path)))
     problems = [_schema_problem(e, shown) for e in errs]
     if problems:
         raise InputErrors(problems)
-    return _build(path, raw)
+    return _build(path, whole_numbers(raw))
 
 
 def _build(path: Path, raw: dict) -> Study:

@@ -15,6 +15,13 @@ from pathlib import Path
 import pandas as pd
 
 
+def _umask() -> int:
+    """The process's umask (reading it means setting it, so it is set straight back)."""
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return mask
+
+
 @contextmanager
 def atomic_path(path: str | Path):
     """Yield a temporary path beside ``path``; on success rename it into place."""
@@ -22,6 +29,7 @@ def atomic_path(path: str | Path):
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     os.close(fd)
+    os.chmod(tmp, 0o666 & ~_umask())  # mkstemp makes 0600; a result is as readable as any new file
     try:
         yield Path(tmp)
         os.replace(tmp, path)

@@ -50,23 +50,23 @@ def print_track_record(config_path: str | Path, out: str | Path | None = None, s
     stream = stream or sys.stdout
     study = load_study(config_path)
     out_dir = Path(out) if out else study.path.parent / "results"
-    path = resolve_ledger_path(study, out_dir / study.study)
+    path = resolve_ledger_path(study, out_dir / study.id)
     if not path.is_file():
-        print(f"{path}: no forecast ledger for study '{study.study}' yet; run `lagsieve run {config_path}` "
+        print(f"{path}: no forecast ledger for study '{study.id}' yet; run `lagsieve run {config_path}` "
               "first (or give the results folder with --out)", file=sys.stderr)
         return EXIT_MISSING
     try:
-        runs, track = _read_record(path, study.study)
+        runs, track = _read_record(path, study.id)
     except sqlite3.DatabaseError as exc:
         print(f"{path}: not a readable forecast ledger ({exc}); move it aside and rerun the workflow", file=sys.stderr)
         return EXIT_MISSING
     if runs.empty:
-        print(f"{path}: no run of study '{study.study}' recorded yet; run `lagsieve run {config_path}` first",
+        print(f"{path}: no run of study '{study.id}' recorded yet; run `lagsieve run {config_path}` first",
               file=sys.stderr)
         return EXIT_MISSING
     last = runs.iloc[-1]
     nr = f"{len(runs)} run{'s' if len(runs) != 1 else ''}"
-    print(f"forecast track record of study '{study.study}': {nr} recorded, latest {last['created_utc']} "
+    print(f"forecast track record of study '{study.id}': {nr} recorded, latest {last['created_utc']} "
           f"(lagsieve {last['tool_version']}); {int(LEVEL * 100)}% prediction intervals; ledger {path}", file=stream)
     if track.empty:
         print("no forecast made yet (no hypothesis graded strong or moderate could be forecast)", file=stream)

@@ -55,7 +55,7 @@ class LedgerSection:
 
 
 def study_id(study) -> str:
-    return study.study if isinstance(study, Study) else str(study)
+    return study.id if isinstance(study, Study) else str(study)
 
 
 def _heading(text: str) -> Block:

@@ -128,7 +128,7 @@ def write_report_pdf(html_text: str, path: str | Path, study, evidence: pd.DataF
     and collinearity (for the matplotlib fallback). Returns the engine used."""
     last = ("coverage", "driver_correlation")
     order = ["evidence_map"] + [n for n in figs if n not in ("evidence_map",) + last] + [n for n in last if n in figs]
-    return write_pdf(html_text, path, study_id=study.study, title=study.raw.get("title") or study.study,
+    return write_pdf(html_text, path, study_id=study.id, title=study.raw.get("title") or study.id,
                      summary=pdf_summary_lines(study, evidence),
                      figures=[(n.replace("__", " / "), figs[n][0]) for n in order if n in figs],
                      invented=bool(study.raw.get("invented")))

@@ -58,7 +58,7 @@ SERIES_HEADER = ("id", "label", "role (kind or category)", "unit", "transform", 
 def page_words(ctx: Context) -> dict:
     """Words of the page's frame: title, ids, versions, cautions, navigation."""
     st, prov = ctx.study, ctx.provenance
-    return {"title": st.raw.get("title") or st.study, "study_id": st.study, "invented": ctx.invented,
+    return {"title": st.raw.get("title") or st.id, "study_id": st.id, "invented": ctx.invented,
             "tool_version": str(prov.get("tool_version", "")),
             "made": str(prov.get("finished", prov.get("started", ""))),
             "description": st.raw.get("description") or "", "cautions": CAUTIONS, "nav": NAV}
