@@ -6,6 +6,8 @@ forget it): ``python -m pytest -m "not slow"`` leaves every Snakemake run out.
 """
 from __future__ import annotations
 
+import shutil
+
 import pytest
 
 from helpers import init_study, lagsieve
@@ -17,6 +19,21 @@ def pytest_collection_modifyitems(config, items):
     for item in items:
         if SLOW_FIXTURES & set(getattr(item, "fixturenames", ())):
             item.add_marker(pytest.mark.slow)
+
+
+@pytest.fixture(scope="session")
+def initialised_study(tmp_path_factory):
+    """`lagsieve init` once per session; tests take copies (``new_study``)."""
+    return init_study(tmp_path_factory.mktemp("init") / "s")
+
+
+@pytest.fixture
+def new_study(initialised_study, tmp_path):
+    """A private copy of the study `lagsieve init` writes, in ``tmp_path / "s"``; its config path.
+    (The config names its data folder relative to itself, so the copy is self-contained.)"""
+    dest = tmp_path / "s"
+    shutil.copytree(initialised_study.parent, dest)
+    return dest / "config.yaml"
 
 
 @pytest.fixture(scope="session")

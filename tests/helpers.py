@@ -35,10 +35,15 @@ def lagsieve(*args, cwd=None, check=False) -> subprocess.CompletedProcess:
 
 
 def init_study(folder: Path, **screen) -> Path:
-    """`lagsieve init` into ``folder``; override screen settings; return the config path."""
+    """`lagsieve init` into ``folder``; override screen settings; return the config path.
+    (Tests that only need such a study take the faster fixture ``new_study``: a copy.)"""
     proc = lagsieve("init", folder, check=True)
     assert "wrote" in proc.stdout
-    cfg = folder / "config.yaml"
+    return set_screen(folder / "config.yaml", **screen)
+
+
+def set_screen(cfg: Path, **screen) -> Path:
+    """Override keys of the config's ``screen`` section; return the config path."""
     if screen:
         data = yaml.safe_load(cfg.read_text())
         data["screen"].update(screen)

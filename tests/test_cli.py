@@ -9,12 +9,12 @@ from pathlib import Path
 import pytest
 import yaml
 
-from helpers import REPO, init_study, lagsieve
+from helpers import REPO, lagsieve
 
 
 @pytest.fixture()
-def study(tmp_path):
-    return init_study(tmp_path / "s")
+def study(new_study):
+    return new_study  # a copy of what `lagsieve init` wrote (conftest.py)
 
 
 def _hashes(folder: Path) -> dict:

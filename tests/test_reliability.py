@@ -17,7 +17,7 @@ from lagsieve import pipeline as stages
 from lagsieve.io.config import load_study, slug
 from lagsieve.screen import response as screening
 
-from helpers import init_study, lagsieve
+from helpers import lagsieve, set_screen
 
 
 def _run_stages(cfg, out):
@@ -30,8 +30,8 @@ def _run_stages(cfg, out):
     stages.run_evidence(cfg, work / "annual.csv", work, out / "screen.csv", out / "evidence.csv")
 
 
-def test_two_runs_are_byte_identical(tmp_path):
-    cfg = init_study(tmp_path / "s", surrogates=49, models=["linear", "gam"])
+def test_two_runs_are_byte_identical(tmp_path, new_study):
+    cfg = set_screen(new_study, surrogates=19, models=["linear", "gam"])
     _run_stages(cfg, tmp_path / "a")
     _run_stages(cfg, tmp_path / "b")
     for name in ("screen.csv", "evidence.csv"):
@@ -47,8 +47,8 @@ def test_two_runs_are_byte_identical(tmp_path):
     assert np.allclose(a["r"], c["r"])  # statistics of the real data do not depend on the seed
 
 
-def test_failure_in_one_hypothesis_is_contained(tmp_path, monkeypatch):
-    cfg = init_study(tmp_path / "s", surrogates=19)
+def test_failure_in_one_hypothesis_is_contained(tmp_path, monkeypatch, new_study):
+    cfg = set_screen(new_study, surrogates=19)
     real = screening.screen_hypothesis
 
     def flaky(table, response, driver, *a, **k):
@@ -67,8 +67,8 @@ def test_failure_in_one_hypothesis_is_contained(tmp_path, monkeypatch):
 
 
 @pytest.mark.slow
-def test_killed_run_resumes(tmp_path):
-    cfg = init_study(tmp_path / "s", surrogates=99)
+def test_killed_run_resumes(tmp_path, new_study):
+    cfg = set_screen(new_study, surrogates=99)
     out = tmp_path / "s" / "results"
     env = dict(os.environ, MPLBACKEND="Agg")
     proc = subprocess.Popen([sys.executable, "-m", "lagsieve", "run", str(cfg), "--cores", "1"],
@@ -94,8 +94,8 @@ def test_killed_run_resumes(tmp_path):
     ("study", "../../x", "key 'study'"),
     ("study", "a;rm -rf b", "key 'study'"),
 ])
-def test_unsafe_study_ids_refused(tmp_path, key, value, needle):
-    cfg = init_study(tmp_path / "s")
+def test_unsafe_study_ids_refused(tmp_path, key, value, needle, new_study):
+    cfg = new_study
     data = yaml.safe_load(cfg.read_text())
     data[key] = value
     cfg.write_text(yaml.safe_dump(data))
@@ -103,8 +103,8 @@ def test_unsafe_study_ids_refused(tmp_path, key, value, needle):
     assert proc.returncode == 2 and needle in proc.stderr and "Traceback" not in proc.stderr
 
 
-def test_unsafe_series_id_refused(tmp_path):
-    cfg = init_study(tmp_path / "s")
+def test_unsafe_series_id_refused(tmp_path, new_study):
+    cfg = new_study
     data = yaml.safe_load(cfg.read_text())
     data["drivers"][0]["id"] = "$(touch pwned)"
     cfg.write_text(yaml.safe_dump(data))
@@ -113,19 +113,19 @@ def test_unsafe_series_id_refused(tmp_path):
     assert not (tmp_path / "s" / "pwned").exists()
 
 
-def test_yaml_is_loaded_safely(tmp_path):
-    cfg = init_study(tmp_path / "s")
+def test_yaml_is_loaded_safely(tmp_path, new_study):
+    cfg = new_study
     cfg.write_text("study: !!python/object/apply:os.system ['touch pwned']\n")
     proc = lagsieve("check", cfg)
     assert proc.returncode == 2 and "YAML" in proc.stderr and "Traceback" not in proc.stderr
     assert not (tmp_path / "s" / "pwned").exists()
 
 
-def test_worker_processes_change_nothing(tmp_path):
+def test_worker_processes_change_nothing(tmp_path, new_study):
     """A response screened by two worker processes (drivers dealt out longest first) gives
     the same frames, in the same order, as one process: every random draw is keyed by the
     driver (screening.driver_rng), not by the process or the order of work."""
-    cfg = init_study(tmp_path / "s", surrogates=19, models=["linear", "gam"])
+    cfg = set_screen(new_study, surrogates=19, models=["linear", "gam"])
     work = tmp_path / "work"
     stages.run_align(cfg, work / "annual.csv", work / "notes.csv")
     study = load_study(cfg)
