@@ -13,17 +13,20 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
+from threadpoolctl import threadpool_limits
 
-from lagsieve.prep.align import annual_table
-from lagsieve.prep.annual import to_annual
-from lagsieve.prep.checks import check_positive, series_warnings
-from lagsieve.io.config import Study, load_study, slug
-from lagsieve.io.readers import read_inputs
 from lagsieve.errors import InputErrors, InputProblem, report_problems, suggest
+from lagsieve.evidence.grading import build_evidence
+from lagsieve.io.config import Study, load_study, slug
 from lagsieve.io.files import sha256_file, write_csv, write_json, write_text
 from lagsieve.io.provenance import package_versions, tool_version
+from lagsieve.io.readers import read_inputs
 from lagsieve.ledger.section import ledger_section
 from lagsieve.ledger.store import resolve_ledger_path
+from lagsieve.prep.align import annual_table, se_table
+from lagsieve.prep.annual import to_annual
+from lagsieve.prep.checks import check_positive, series_warnings
+from lagsieve.screen.response import screen_response
 
 SCREEN_COLUMNS = ["response", "driver", "lag", "model", "n", "first_year", "last_year", "r", "p_naive",
                   "n_eff", "p_adjusted", "r_detrended", "p_detrended", "r_diff", "slope", "slope_se",
@@ -130,8 +133,6 @@ def plan_studies(config: dict, check: bool = True) -> dict[str, PlannedStudy]:
         for path in paths:
             annual = None
             if full:
-                from lagsieve.pipeline import check_study
-
                 st, annual, _, _ = check_study(path)
             else:
                 st = load_study(path)
@@ -247,11 +248,6 @@ def run_screen(config_path, annual_csv, response_id: str, out_dir, threads: int 
     With ``annual_csv`` the aligned study table is used; otherwise (the workflow) the
     response's own input ``files`` are read, so that its job depends on those files only.
     """
-    from threadpoolctl import threadpool_limits
-
-    from lagsieve.prep.align import annual_table, se_table
-    from lagsieve.screen.response import screen_response
-
     study = load_study(config_path)
     by_slug = {slug(r): r for r in study.response_ids}
     response_id = by_slug.get(response_id, response_id)
@@ -276,8 +272,6 @@ def response_dirs(work: str | Path, study: Study) -> dict[str, Path]:
 # ---------------------------------------------------------------- evidence
 def run_evidence(config_path, annual_csv, work_dir, out_screen, out_evidence) -> None:
     """Stage `evidence`: study-wide q-values, flags, grades and ranks."""
-    from lagsieve.evidence.grading import build_evidence
-
     study = load_study(config_path)
     table = load_table(study, annual_csv)
     dirs = response_dirs(work_dir, study)
