@@ -16,8 +16,6 @@ import yaml
 from helpers import REPO
 from scipy import stats
 
-import lagsieve.demo.simulate as old_path
-from lagsieve import demo
 from lagsieve.demo import world
 from lagsieve.demo.check import annual_as_written, association_check
 from lagsieve.demo.texts import DEMO_CONFIG_TEXT, demo_config_text, truth_markdown
@@ -65,11 +63,6 @@ def test_generate_script(tmp_path):
         assert (tmp_path / "x" / name).read_bytes() == (DEMO_DIR / name).read_bytes()
     bad = subprocess.run([sys.executable, str(script), "a", "b"], check=False, capture_output=True, text=True)
     assert bad.returncode == 2 and bad.stderr.startswith("usage:")
-
-
-def test_old_import_path_gives_the_same_objects():
-    for name in old_path.__all__:
-        assert getattr(old_path, name) is getattr(demo, name)
 
 
 # ----------------------------------------------------------------------------- the config text

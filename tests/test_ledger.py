@@ -1,6 +1,6 @@
 """Tests of lagsieve.ledger: the forecast ledger over simulated yearly deliveries.
 
-The invented demo data (lagsieve.demo.simulate) are delivered as they would arrive: first every series
+The invented demo data (lagsieve.demo) are delivered as they would arrive: first every series
 up to 2022, then up to 2023, then up to 2024, and every delivery runs the stages (align,
 screen, evidence) and the ledger update directly (no Snakemake, 99 surrogates, linear models).
 The 2024 delivery also restates one past value of the true prey driver (forage_biomass 2010),
@@ -37,7 +37,7 @@ from lagsieve.report.render import ledger_section_html, render_ledger_section
 from lagsieve import pipeline as stages
 from lagsieve.cli import main
 from lagsieve.io.config import load_study, slug
-from lagsieve.demo.simulate import demo_config_text, write_demo
+from lagsieve.demo import demo_config_text, write_demo
 
 STUDY = "caldrin_shelf_demo"
 FILES = ("mortality_by_age.csv", "surveys_annual.csv", "indices_long.csv", "bottom_temperature_monthly.csv")

@@ -2,7 +2,7 @@
 # lagsieve.pipeline.run_report). The ledger is updated first: the report shows its changes.
 from pathlib import Path
 
-from lagsieve.ledger.store import update_ledger
+from lagsieve.ledger import update_ledger
 from lagsieve.pipeline import logged, run_report
 
 with logged(snakemake):

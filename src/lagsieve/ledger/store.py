@@ -255,16 +255,3 @@ def forecasts_frame(con: sqlite3.Connection, study: str) -> pd.DataFrame:
         f[f"err_{bl}"] = f["observed"] - f[f"fc_{bl}"]
     f["err_baseline"] = [r[f"err_{r['baseline']}"] for _, r in f.iterrows()]
     return f
-
-
-def __getattr__(name: str):
-    """Until their callers import them from :mod:`lagsieve.ledger`: ``update_ledger`` and
-    ``print_track_record`` (now in ledger.update and ledger.cli, which import this module, so
-    they are looked up here only when asked for)."""
-    if name == "update_ledger":
-        from lagsieve.ledger.update import update_ledger
-        return update_ledger
-    if name == "print_track_record":
-        from lagsieve.ledger.cli import print_track_record
-        return print_track_record
-    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
