@@ -14,7 +14,8 @@ import numpy as np
 import yaml
 
 from lagsieve import pipeline as stages
-from lagsieve.io.config import load_study, slug
+from lagsieve.io.config import load_study
+from lagsieve.io.names import slug
 
 REPO = Path(__file__).resolve().parents[1]
 
@@ -71,7 +72,7 @@ def _screen_one(args):
 def run_study(cfg: Path, out: Path, parallel: bool = True) -> Path:
     """align, screen (responses in parallel), evidence; returns the study's result folder."""
     study = load_study(cfg)
-    res = out / study.study
+    res = out / study.id
     work = res / "work"
     stages.run_align(cfg, work / "annual.csv", work / "notes.csv")
     jobs = [(cfg, work / "annual.csv", rid, work / "responses" / slug(rid)) for rid in study.response_ids]

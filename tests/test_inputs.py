@@ -961,14 +961,13 @@ def test_fill_defaults_keeps_given_values_and_the_original():
     assert "ledger" not in full and "validation" in full["screen"]
 
 
-def test_study_id_and_its_old_name(tmp_path):
+def test_study_id_is_the_config_key(tmp_path):
     (tmp_path / "d.csv").write_text("year,m,x\n2000,1,2\n")
     cfg = tmp_path / "c.yaml"
     cfg.write_text("study: s1\ninputs: [d.csv]\nresponses: [{id: m}]\ndrivers: [{id: x}]\n")
     study = load_study(cfg)
-    assert study.id == "s1" and study.study == "s1"
-    with pytest.raises(AttributeError):
-        study.study = "other"  # read-only alias, to be removed
+    assert study.id == "s1"
+    assert not hasattr(study, "study")  # the old name of the id is gone
 
 
 @pytest.mark.parametrize("word, choices, expected", [

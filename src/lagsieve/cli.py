@@ -88,7 +88,7 @@ def cmd_check(args) -> int:
     for w in warnings:
         print(w.line(), file=sys.stderr)
     years = annual["year"]
-    print(f"ok: study '{study.study}': {len(study.responses)} responses, {len(study.drivers)} drivers, "
+    print(f"ok: study '{study.id}': {len(study.responses)} responses, {len(study.drivers)} drivers, "
           f"years {int(years.min())}-{int(years.max())}, {len(notes)} years dropped or filled")
     return 0
 
@@ -115,7 +115,7 @@ def cmd_run(args, extra: list[str]) -> int:
         cmd.append("--rerun-incomplete")
     proc = subprocess.run(cmd, env=env)
     if proc.returncode == 0 and not ({"-n", "--dry-run", "--dryrun"} & set(extra)):
-        print(f"results in {out / study.study}")
+        print(f"results in {out / study.id}")
     return proc.returncode
 
 

@@ -9,7 +9,6 @@ from __future__ import annotations
 import copy
 import importlib.resources
 import functools
-import re
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -18,6 +17,7 @@ import jsonschema
 import yaml
 
 from lagsieve.errors import InputErrors, InputProblem, closest, suggest
+from lagsieve.io.names import name_key, periodic
 from lagsieve.io.yamlfile import read_yaml
 
 # libyaml's safe loader when PyYAML was built with it (same safety, about ten times faster)
@@ -25,14 +25,6 @@ SafeLoader = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
 
 WORKFLOW = importlib.resources.files("lagsieve.workflow")  # the Snakefile, rules and schema
 SCHEMA_FILE = WORKFLOW / "schemas" / "config.schema.yaml"
-
-SAFE_ID = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]*(:[A-Za-z0-9][A-Za-z0-9_.-]*)?$")
-
-
-def slug(series_id: str) -> str:
-    """A file-name-safe form of a series id (':' of grouped series becomes '--')."""
-    return series_id.replace(":", "--")
-
 
 @dataclass
 class Study:
@@ -48,13 +40,6 @@ class Study:
     screen: dict
     report: dict
     ledger_path: str | None = None
-
-    @property
-    def study(self) -> str:
-        """The study id: the old name of :attr:`id`, kept while callers move over.
-
-        Deprecated: to be removed once no module reads ``Study.study``."""
-        return self.id
 
     @property
     def response_ids(self) -> list[str]:
@@ -214,6 +199,24 @@ def load_study(path: str | Path) -> Study:
     return _build(path, whole_numbers(raw))
 
 
+def _name_clashes(series_ids: list[str], study_id: str, shown: str) -> list[InputProblem]:
+    """Series whose file names would meet (cannot happen short of a hash clash, see
+    :mod:`lagsieve.io.names`), and a study id the workflow engine would misread."""
+    problems = []
+    if periodic(study_id):
+        problems.append(InputProblem(
+            what=f"study id '{study_id}' ends in a piece repeated 20 times or more, which the workflow "
+                 "engine refuses as a folder name", fix="shorten the repeated end of the id", file=shown, key="study"))
+    names: dict[str, str] = {}
+    for sid in series_ids:
+        key = name_key(sid)
+        if key in names:
+            problems.append(InputProblem(what=f"clashes with series '{names[key]}' once made a file name",
+                                         fix="rename one of them", file=shown, series=sid))
+        names[key] = sid
+    return problems
+
+
 def _build(path: Path, raw: dict) -> Study:
     shown = str(path)
     problems: list[InputProblem] = []
@@ -229,12 +232,7 @@ def _build(path: Path, raw: dict) -> Study:
             if sid in ids:
                 problems.append(InputProblem(what=f"listed twice (in {ids[sid]} and {role})", fix="give each series one entry", file=shown, key=f"{role}.{i}.id", series=sid))
             ids[sid] = role
-    slugs: dict[str, str] = {}
-    for sid in ids:
-        s = slug(sid)
-        if s in slugs:
-            problems.append(InputProblem(what=f"clashes with series '{slugs[s]}' once made a file name", fix="rename one of them", file=shown, series=sid))
-        slugs[s] = sid
+    problems += _name_clashes(list(ids), raw["study"], shown)
     full = fill_defaults(raw)
     responses, drivers = full["responses"], full["drivers"]
     resp_ids = {r["id"] for r in responses}

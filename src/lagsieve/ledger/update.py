@@ -112,7 +112,7 @@ def forecasts_of(grades: pd.DataFrame, data: StudyData) -> tuple[list[NextYearFo
 
 def _run_row(study: Study, key: str, data_sha: str, now: str | None) -> dict:
     """The row of table ``runs`` for this run (its counts are filled in by :func:`write_run`)."""
-    return {"study": study.study, "run_key": key, "data_sha256": data_sha,
+    return {"study": study.id, "run_key": key, "data_sha256": data_sha,
             "inputs_sha256": json.dumps(input_hashes(study), sort_keys=True), "tool_version": tool_version(),
             "config_sha256": sha256_file(study.path),
             "created_utc": now or time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
