@@ -36,7 +36,8 @@ from lagsieve.report.render import ledger_section_html, render_ledger_section
 
 from lagsieve import pipeline as stages
 from lagsieve.cli import main
-from lagsieve.io.config import load_study, slug
+from lagsieve.io.config import load_study
+from lagsieve.io.names import slug
 from lagsieve.demo import demo_config_text, write_demo
 
 STUDY = "caldrin_shelf_demo"

@@ -14,7 +14,8 @@ import pytest
 import yaml
 
 from lagsieve import pipeline as stages
-from lagsieve.io.config import load_study, slug
+from lagsieve.io.config import load_study
+from lagsieve.io.names import slug
 from lagsieve.screen import response as screening
 
 from helpers import lagsieve, set_screen

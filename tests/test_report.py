@@ -25,7 +25,8 @@ import yaml
 
 from lagsieve import pipeline as stages
 from lagsieve.evidence.vocabulary import FLAGS, GRADE_RULES
-from lagsieve.io.config import load_study, slug
+from lagsieve.io.config import load_study
+from lagsieve.io.names import slug
 from lagsieve.report.context import Context
 from lagsieve.report.figures import mpl_text, r_critical
 from lagsieve.report.html import build_report, render_page

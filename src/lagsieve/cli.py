@@ -105,9 +105,12 @@ def cmd_run(args, extra: list[str]) -> int:
     out.mkdir(parents=True, exist_ok=True)
     snakefile = WORKFLOW / "Snakefile"
     _require(snakefile)
-    cmd = [sys.executable, "-m", "snakemake", "--snakefile", str(snakefile),
-           "--directory", str(out), "--cores", str(args.cores),
-           "--config", f"study_config={cfg}", f"out={out}", *extra]
+    from lagsieve.pipeline import write_run_config  # lazy: see the module docstring
+
+    # the paths go in a YAML file: `--config key=value` would cut a folder name at its commas
+    run_config = write_run_config(cfg, out, out / study.id / "work" / "run_config.yaml")
+    cmd = [sys.executable, "-m", "snakemake", "--snakefile", str(snakefile), "--configfile", str(run_config),
+           "--directory", str(out), "--cores", str(args.cores), *extra]
     env = dict(os.environ)
     if args.resume:
         # a killed run leaves Snakemake's lock and its incomplete-job markers behind

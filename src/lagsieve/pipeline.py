@@ -13,11 +13,13 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
+import yaml
 from threadpoolctl import threadpool_limits
 
 from lagsieve.errors import InputErrors, InputProblem, report_problems, suggest
 from lagsieve.evidence.grading import build_evidence
-from lagsieve.io.config import Study, load_study, slug
+from lagsieve.io.config import Study, load_study
+from lagsieve.io.names import slug
 from lagsieve.io.files import sha256_file, write_csv, write_json, write_text
 from lagsieve.io.provenance import package_versions, tool_version
 from lagsieve.io.readers import read_inputs
@@ -88,13 +90,30 @@ class PlannedStudy:
 
 
 def study_configs(config: dict, default: str = "config/config.yaml") -> list[str]:
-    """Config paths from Snakemake's config: ``study_config`` (one path, or several separated by
-    commas) or ``studies`` (a list), else the default demo config."""
+    """Config paths from Snakemake's config: ``studies`` (a list), or ``study_config``: one
+    path, taken whole when it names a file (a folder ``hake, 2024/`` keeps its comma), else
+    several separated by commas; without either, the default demo config."""
     if config.get("studies"):
         items = config["studies"]
         return [str(p) for p in (items if isinstance(items, list) else str(items).split(","))]
-    value = config.get("study_config", default)
-    return [p for p in str(value).split(",") if p]
+    value = str(config.get("study_config", default))
+    if Path(value).is_file():
+        return [value]
+    return [p for p in value.split(",") if p]
+
+
+def write_run_config(study_config: str | Path, out: str | Path, path: str | Path) -> Path:
+    """Write the workflow's config for one study to ``path`` (a YAML file that `lagsieve run`
+    hands to Snakemake with ``--configfile``) and return ``path``.
+
+    Values given with ``--config key=value`` are cut at commas (``study_config``), stripped of
+    quotes and read as YAML (``a: b`` becomes a mapping, `` #x`` a comment); in a YAML file the
+    paths come back exactly, whatever the folders are called (commas, spaces, colons, unicode).
+    """
+    text = yaml.safe_dump({"studies": [str(study_config)], "out": str(out)}, allow_unicode=True,
+                          default_style='"', width=float("inf"))
+    write_text(text, path)
+    return Path(path)
 
 
 FULL_CHECK_LIMIT = 50

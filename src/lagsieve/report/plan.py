@@ -9,7 +9,7 @@ import pandas as pd
 
 from lagsieve.evidence.grading import driver_correlations
 from lagsieve.evidence.vocabulary import COLLINEAR_R
-from lagsieve.io.config import slug
+from lagsieve.io.names import pair_slug
 from lagsieve.prep.align import lagged_pair
 from lagsieve.report import figures as fg
 from lagsieve.report.context import Context, gam_fit, gam_rows, is_missing, num, p_text, text, top_rows
@@ -186,7 +186,7 @@ def _gam_panel(ctx, key, row, gam_row, gfit, jobs, info) -> None:
 
 def _plan_hypothesis(ctx: Context, row: dict, plan: Plan) -> None:
     rid, did, lag = row["response"], row["driver"], int(row["lag"])
-    key = f"{slug(rid)}__{slug(did)}"
+    key = pair_slug(rid, did)
     info = {"row": row, "names": []}
     gam_row = _pick_gam_row(ctx, rid, did, lag)
     gfit = gam_fit(ctx, rid, did, int(gam_row["lag"])) if gam_row is not None else None
