@@ -19,8 +19,8 @@ InputErrors, one line per problem, the file name, the row and series where they 
 12. series column but no value column (long layout)
 13. non-numeric value in the long layout (row named)
 14. non-integer year
-15. year below the plausible range (< 1800)
-16. year above the plausible range (> 2200)
+15. year below the plausible range (< 1000: a two-digit year is a likely typo)
+16. year above the plausible range (> 2999)
 17. empty year cell
 18. month outside 1-12 (month column)
 19. month outside 1-12 inside a YYYY-MM date
@@ -160,7 +160,7 @@ def assert_valid_frame(df: pd.DataFrame) -> None:
     assert np.isfinite(df["value"].to_numpy()).all()
     se = df["se"].to_numpy()
     assert (np.isnan(se) | (se >= 0)).all()
-    assert df["year"].between(1800, 2200).all()
+    assert df["year"].between(1000, 2999).all()
     months = df["month"].dropna()
     assert months.between(1, 12).all()
     assert (df["row"] >= 2).all()
@@ -224,10 +224,10 @@ MALFORMED = [
      _table("l.csv"), "l.csv", 3, "velk", "value 'abc' is not a number", "write a plain number"),
     ("non_integer_year", {"w.csv": "year,velk_m\n2000,1\n2000.5,2\n"}, _table("w.csv"), "w.csv",
      3, None, "year '2000.5' is not a whole number", "whole number such as 1998"),
-    ("year_too_early", {"w.csv": "year,velk_m\n1750,1\n"}, _table("w.csv"), "w.csv", 2, None,
-     "year 1750 is outside 1800-2200", "four-digit year"),
+    ("year_too_early", {"w.csv": "year,velk_m\n1998,1\n98,1\n"}, _table("w.csv"), "w.csv", 3, None,
+     "year 98 is outside 1000-2999", "four-digit year"),
     ("year_too_late", {"w.csv": "series,year,value\nvelk,2000,1\nvelk,20001,1\n"},
-     _table("w.csv"), "w.csv", 3, "velk", "year 20001 is outside 1800-2200", "four-digit year"),
+     _table("w.csv"), "w.csv", 3, "velk", "year 20001 is outside 1000-2999", "four-digit year"),
     ("empty_year", {"w.csv": "year,velk_m\n2000,1\n,2\n"}, _table("w.csv"), "w.csv", 3, None,
      "year is empty", "give every row a year"),
     ("month_column_13", {"m.csv": "series,year,month,value\nvelk,2000,13,1\n"}, _table("m.csv"),
@@ -362,7 +362,7 @@ def test_malformed_cases_are_distinct_and_many():
 
 
 def test_all_problems_of_a_file_are_reported(tmp_path):
-    write(tmp_path, "x.csv", "series,year,value,se\nvelk,2000,abc,\nvelk,1700,1,\n"
+    write(tmp_path, "x.csv", "series,year,value,se\nvelk,2000,abc,\nvelk,170,1,\n"
                              "../x,2001,1,\nvelk,2002,1,-1\nvelk,2003,1,\nvelk,2003,2,\n")
     with pytest.raises(InputErrors) as info:
         read_table("x.csv", tmp_path)
@@ -909,7 +909,7 @@ def test_fuzz_arbitrary_bytes(tmp_path_factory, content, ext):
 @FUZZ
 @given(values=st.lists(st.one_of(st.none(), st.floats(allow_nan=True, allow_infinity=True)),
                        min_size=1, max_size=12),
-       start=st.integers(1795, 2200))
+       start=st.integers(990, 2999))
 def test_fuzz_values_round_trip(tmp_path_factory, values, start):
     directory = tmp_path_factory.getbasetemp() / "fuzz_values"
     directory.mkdir(exist_ok=True)
@@ -920,7 +920,7 @@ def test_fuzz_values_round_trip(tmp_path_factory, values, start):
     present = [v for v in values if v is not None and not math.isnan(v)]
     if any(math.isinf(v) for v in present):
         assert df is None
-    elif start < 1800 or start + len(values) - 1 > 2200:
+    elif start < 1000 or start + len(values) - 1 > 2999:
         assert df is None  # every row's year is checked, with or without a value
     elif not present:
         assert df is None  # a file without values is refused
@@ -929,6 +929,125 @@ def test_fuzz_values_round_trip(tmp_path_factory, values, start):
         assert df["value"].tolist() == present  # exact: repr round-trips
         assert df["year"].tolist() == [start + i for i, v in enumerate(values)
                                        if v is not None and not math.isnan(v)]
+
+
+# ----------------------------------------------------------------------------- real-world tables
+# Historical drivers and colleagues' spreadsheets: any four-digit year from 1000 to 2999; series
+# the study does not use are left out whatever their names and cells, and one note lists them.
+
+SUNSPOTS = "year,sunspots\n" + "".join(f"{y},{(y * 37) % 150 + 0.5}\n" for y in range(1700, 2021))
+
+
+def test_a_driver_from_1700_is_read(tmp_path):
+    write(tmp_path, "sun.csv", SUNSPOTS)
+    df, warns = read_table("sun.csv", tmp_path)
+    assert (df["year"].min(), df["year"].max(), len(df)) == (1700, 2020, 321)
+    assert df.loc[df["year"] == 1700, "value"].item() == (1700 * 37) % 150 + 0.5
+    assert warns == []
+
+
+@pytest.mark.parametrize("year, ok", [(1000, True), (2999, True), (999, False), (3000, False),
+                                      (98, False)])
+def test_year_range_bounds(tmp_path, year, ok):
+    write(tmp_path, "y.csv", f"year,x\n{year},1\n2000,2\n")
+    if ok:
+        assert read_table("y.csv", tmp_path)[0]["year"].tolist() == [year, 2000]
+    else:
+        with pytest.raises(InputErrors) as info:
+            read_table("y.csv", tmp_path)
+        assert_problem(info.value, file="y.csv", row=2, what=f"year {year} is outside 1000-2999",
+                       fix="write the full four-digit year (for example 1998)")
+
+
+def test_monthly_dates_before_1800_are_read(tmp_path):
+    write(tmp_path, "m.csv", "date,sst\n1750-01,1\n1750-02,2\n1751-01,3\n")
+    df, _ = read_table("m.csv", tmp_path)
+    assert df[["year", "month"]].astype(int).values.tolist() == [[1750, 1], [1750, 2], [1751, 1]]
+
+
+NOTES_WIDE = ("year,velk_m,Notes (see sheet 2)!,temp\n2000,0.2,ask Ana about 2001,1.5\n"
+              "2001,0.3,,n/a\n2002,0.25,\"revised, see mail\",oops\n")
+
+
+def test_an_unused_column_with_an_odd_name_is_ignored_with_a_note(tmp_path):
+    write(tmp_path, "w.csv", NOTES_WIDE)
+    df, warns = read_table("w.csv", tmp_path, wanted={"velk_m"})
+    assert df["series"].unique().tolist() == ["velk_m"]
+    assert df["value"].tolist() == [0.2, 0.3, 0.25]
+    assert [w.line() for w in warns] == [
+        "warning: w.csv: 2 series not used by the study are ignored: 'Notes (see sheet 2)!', 'temp'"]
+
+
+def test_without_the_study_s_series_every_column_is_checked(tmp_path):
+    write(tmp_path, "w.csv", NOTES_WIDE)
+    with pytest.raises(InputErrors) as info:
+        read_table("w.csv", tmp_path)
+    assert "column name 'Notes (see sheet 2)!' has characters" in str(info.value)
+
+
+def test_a_used_series_is_still_checked(tmp_path):
+    write(tmp_path, "w.csv", NOTES_WIDE)
+    with pytest.raises(InputErrors) as info:
+        read_table("w.csv", tmp_path, wanted={"velk_m", "temp"})
+    assert_problem(info.value, file="w.csv", row=4, series="temp", what="value 'oops' is not a number",
+                   fix="write a plain number")
+
+
+def test_unused_long_series_are_ignored_whatever_their_names_and_cells(tmp_path):
+    write(tmp_path, "l.csv", "series,group,year,value,se\nm,age2,2000,0.2,0.01\nm,age2,2001,0.3,\n"
+                             "../x,,2000,abc,\nm,a b,17,1,-1\nm,age2x,2000,1,\n")
+    df, warns = read_table("l.csv", tmp_path, wanted={"m:age2"})
+    assert df["series"].tolist() == ["m:age2", "m:age2"] and df["se"].iloc[0] == 0.01
+    assert [w.what for w in warns] == ["3 series not used by the study are ignored: '../x', 'm:a b', 'm:age2x'"]
+
+
+def test_unused_duplicates_and_unnamed_columns_are_ignored(tmp_path):
+    write(tmp_path, "w.csv", "year,x,total,Total,,x2\n2000,1,5,5,7,\n2001,2,6,6,8,\n")
+    df, warns = read_table("w.csv", tmp_path, wanted={"x"})
+    assert df["value"].tolist() == [1.0, 2.0]
+    assert warns[0].what == ("4 series not used by the study are ignored: 'column 5 (no name)', "
+                             "'total', 'Total', 'x2'")
+    with pytest.raises(InputErrors) as info:  # a column the study uses, twice: still refused
+        read_table("w.csv", tmp_path, wanted={"total"})
+    assert "column 'Total' appears twice (columns 3 and 4)" in str(info.value)
+
+
+def test_an_unused_series_in_two_files_is_not_a_clash(tmp_path):
+    write(tmp_path, "a.csv", "year,x,salinity\n2000,1,35\n")
+    write(tmp_path, "b.csv", "year,y,salinity\n2000,2,34\n")
+    df, _ = read_inputs(["a.csv", "b.csv"], tmp_path, wanted={"x", "y"})
+    assert df["series"].tolist() == ["x", "y"]
+    with pytest.raises(InputErrors) as info:
+        read_inputs(["a.csv", "b.csv"], tmp_path, wanted={"x", "salinity"})
+    assert "the series is also in a.csv" in str(info.value)
+
+
+def test_a_note_under_the_table_is_skipped_when_the_used_cells_are_empty(tmp_path):
+    write(tmp_path, "w.csv", "year,x,comment\n2000,1,\n2001,2,\nSource: a colleague,,see sheet 2\n")
+    df, _ = read_table("w.csv", tmp_path, wanted={"x"})
+    assert df["year"].tolist() == [2000, 2001]
+
+
+def test_a_file_without_any_used_series_gives_no_rows(tmp_path):
+    write(tmp_path, "w.csv", "year,Notes!\n2000,see mail\n")
+    df, warns = read_table("w.csv", tmp_path, wanted={"x"})
+    assert df.empty and list(df.columns) == FRAME_COLUMNS
+    assert warns[0].what == "1 series not used by the study are ignored: 'Notes!'"
+
+
+def test_check_passes_a_study_with_a_1700_driver_and_a_notes_column(tmp_path):
+    from lagsieve.pipeline import check_study
+
+    write(tmp_path, "sun.csv", SUNSPOTS)
+    rows = "".join(f"{y},{0.2 + (y % 7) / 100},{'see sheet 2' if y % 5 == 0 else ''}\n" for y in range(1985, 2021))
+    write(tmp_path, "m.csv", "year,velk_m,Notes (see sheet 2)!\n" + rows)
+    cfg = tmp_path / "config.yaml"
+    cfg.write_text("study: hist\ninputs: [sun.csv, m.csv]\nresponses: [{id: velk_m}]\n"
+                   "drivers: [{id: sunspots}]\n", encoding="utf-8")
+    study, annual, notes, warnings = check_study(cfg)
+    assert annual.groupby("series")["year"].min().to_dict() == {"sunspots": 1700, "velk_m": 1985}
+    assert any(w.line() == "warning: m.csv: 1 series not used by the study are ignored: "
+                           "'Notes (see sheet 2)!'" for w in warnings)
 
 
 # ----------------------------------------------------------------------------- config defaults

@@ -176,10 +176,9 @@ def check_study(config_path: str | Path):
     Raises :class:`InputErrors` with one problem per line for anything the user must fix.
     """
     study = load_study(config_path)
-    long, warnings = read_inputs(study.inputs, study.base_dir)
-    _raise_any(_absent_series(study, set(long["series"].unique())))
     wanted = set(study.response_ids) | set(study.driver_ids)
-    long = long[long["series"].isin(wanted)]
+    long, warnings = read_inputs(study.inputs, study.base_dir, wanted)  # other series: left out, noted
+    _raise_any(_absent_series(study, set(long["series"].unique())))
     annual, notes = to_annual(long, study.series_options())
     problems: list[InputProblem] = []
     for s in study.responses + study.drivers:
@@ -252,9 +251,8 @@ def response_annual(study: Study, response_id: str, files: list[str] | None = No
     if files is not None:
         keep = {str(Path(f).resolve()) for f in files}
         specs = [sp for sp in study.inputs if str((study.base_dir / sp["path"]).resolve()) in keep]
-    long, _ = read_inputs(specs, study.base_dir)
     wanted = {response_id} | {d["id"] for d in study.drivers_for(response_id)}
-    long = long[long["series"].isin(wanted)]
+    long, _ = read_inputs(specs, study.base_dir, wanted)
     options = {k: v for k, v in study.series_options().items() if k in wanted}
     annual, _ = to_annual(long, options)
     return annual

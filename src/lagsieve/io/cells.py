@@ -18,8 +18,10 @@ import pandas as pd
 
 from lagsieve.errors import InputErrors, InputProblem, show
 
-YEAR_MIN = 1800
-YEAR_MAX = 2200
+# Any four-digit year from 1000 on: reconstructed and historical drivers start centuries ago;
+# a two- or three-digit year is refused as a likely typo ('98' for 1998).
+YEAR_MIN = 1000
+YEAR_MAX = 2999
 MAX_PROBLEMS_PER_FILE = 40
 MAX_ID_LENGTH = 80
 

@@ -26,7 +26,7 @@ import io
 import re
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Iterable, Mapping
+from typing import Any, Collection, Iterable, Mapping
 
 import pandas as pd
 
@@ -246,13 +246,15 @@ def _read_parquet(path: Path, col: Collector) -> Grid:
 
 
 
-def read_table(spec: str | Mapping[str, Any], base_dir: str | Path
-               ) -> tuple[pd.DataFrame, list[InputWarning]]:
+def read_table(spec: str | Mapping[str, Any], base_dir: str | Path,
+               wanted: Collection[str] | None = None) -> tuple[pd.DataFrame, list[InputWarning]]:
     """Read one input file into the tidy long frame (see the module docstring).
 
     ``spec`` is a path or ``{path, sheet, decimal, delimiter}``; a relative path is read from
-    ``base_dir``. Returns ``(frame, warnings)``; raises :class:`InputErrors` with every problem
-    found in the file. The file is only read, never written.
+    ``base_dir``. With ``wanted`` (the series ids the study uses) the file's other series are
+    left out unchecked and listed in a warning. Returns ``(frame, warnings)``; raises
+    :class:`InputErrors` with every problem found in the file. The file is only read, never
+    written.
     """
     s = _normalise_spec(spec)
     label = _label(s.path)
@@ -293,14 +295,15 @@ def read_table(spec: str | Mapping[str, Any], base_dir: str | Path
     except OSError as exc:
         col.fatal(f"the file cannot be read ({show(exc.strerror or type(exc).__name__, 80)})",
                   "check that the file is readable by you and not locked by another program")
-    frame = parse_grid(grid, s.decimal, col, warnings)
+    frame = parse_grid(grid, s.decimal, col, warnings, wanted)
     return frame, warnings
 
 
 
-def read_inputs(specs: Iterable[str | Mapping[str, Any]], base_dir: str | Path
-                ) -> tuple[pd.DataFrame, list[InputWarning]]:
-    """Read every input and check problems across files.
+def read_inputs(specs: Iterable[str | Mapping[str, Any]], base_dir: str | Path,
+                wanted: Collection[str] | None = None) -> tuple[pd.DataFrame, list[InputWarning]]:
+    """Read every input and check problems across files (only the ``wanted`` series, when
+    given: see :func:`read_table`).
 
     Problems of all files are collected and raised together. Across files: the same file
     listed twice, and the same series id in two files (named with both files), are errors.
@@ -333,7 +336,7 @@ def read_inputs(specs: Iterable[str | Mapping[str, Any]], base_dir: str | Path
             continue
         resolved[p] = _label(s.path)
         try:
-            frame, warns = read_table(spec, base_dir)
+            frame, warns = read_table(spec, base_dir, wanted)
         except InputErrors as exc:
             problems.extend(exc.problems)
             continue

@@ -15,6 +15,13 @@ Layouts (column names are matched case-insensitively after stripping blanks)
 ``#N/A`` are missing values; rows without a value are left out (and listed in a warning for
 the long layout).
 
+Series the study does not use
+-----------------------------
+Given the ids the study uses (``wanted``), every other series of the file is left out whatever
+its name or cells (a colleague's ``Notes (see sheet 2)!`` column), and one warning lists them;
+only the used series must have valid ids and values. Without ``wanted`` every series is read
+and checked.
+
 The tidy frame
 --------------
 ``series`` (str), ``year`` (int64), ``month`` (Int64, NA for annual rows), ``value``
@@ -26,7 +33,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
-from typing import Any, NamedTuple
+from typing import Any, Collection, NamedTuple
 
 import pandas as pd
 
@@ -78,6 +85,11 @@ class Layout:
     time_name: str
     month_j: int | None
     series_cols: list[tuple[int, str]] = field(default_factory=list)
+    wanted: frozenset[str] | None = None  # the series the study uses (None: every series)
+    unused: dict[str, None] = field(default_factory=dict)  # series left out, in order of appearance
+
+    def uses(self, series: str) -> bool:
+        return self.wanted is None or series in self.wanted
 
     @property
     def ncol(self) -> int:
@@ -116,19 +128,21 @@ def _frame(series, years, months, values, ses, units, files, rows) -> pd.DataFra
     })
 
 
-def parse_grid(grid: Grid, decimal: str, col: Collector,
-               warnings: list[InputWarning]) -> pd.DataFrame:
+def parse_grid(grid: Grid, decimal: str, col: Collector, warnings: list[InputWarning],
+               wanted: Collection[str] | None = None) -> pd.DataFrame:
     """The tidy frame of one table; problems go to ``col`` (raised together), warnings are
-    appended to ``warnings``."""
-    layout = _read_header(grid, col, warnings)
+    appended to ``warnings``. With ``wanted`` (the series ids the study uses) the other
+    series are left out unchecked and listed in one warning."""
+    layout = _read_header(grid, col, warnings, None if wanted is None else frozenset(wanted))
     recs: list[Record] = []
     for r, cells in grid.rows:
         recs.extend(_parse_row(r, cells, layout, grid, decimal, col))
     units = _check_records(recs, col)
     col.check()
     _warn_missing(recs, layout, col, warnings)
+    _warn_unused(layout, col, warnings)
     recs = [rec for rec in recs if rec.value is not None]
-    if not recs:
+    if not recs and (layout.wanted is None or layout.series_cols or _long_uses_any(grid, layout)):
         col.fatal("the file holds no values", "fill in the value cells (empty cells are "
                   "missing values)")
     return _frame(
@@ -145,10 +159,11 @@ def parse_grid(grid: Grid, decimal: str, col: Collector,
 
 # ----------------------------------------------------------------------------- header
 
-def _read_header(grid: Grid, col: Collector, warnings: list[InputWarning]) -> Layout:
+def _read_header(grid: Grid, col: Collector, warnings: list[InputWarning],
+                 wanted: frozenset[str] | None = None) -> Layout:
     hrow = grid.header_row
     raw_names = [header_name(c) for c in grid.header]
-    keep, seen = _named_columns(grid, raw_names, col)
+    keep, seen, unnamed = _named_columns(grid, raw_names, col, wanted)
     col.check()
     if not grid.rows:
         col.fatal("the file has a header but no data rows",
@@ -156,7 +171,8 @@ def _read_header(grid: Grid, col: Collector, warnings: list[InputWarning]) -> La
     _check_columns(set(seen), raw_names, keep, col, hrow)
     time_name = "year" if "year" in seen else "date"
     layout = Layout(raw_names=raw_names, seen=seen, long="series" in seen, time_name=time_name,
-                    month_j=seen.get("month"))
+                    month_j=seen.get("month"), wanted=wanted)
+    layout.unused.update(dict.fromkeys(unnamed))
     if layout.long:
         unused = [raw_names[j] for j in keep if raw_names[j].lower() not in _LONG_KNOWN]
         if unused:
@@ -164,36 +180,41 @@ def _read_header(grid: Grid, col: Collector, warnings: list[InputWarning]) -> La
                 what=f"column(s) {', '.join(show(u) for u in unused)} are not used",
                 file=col.file))
     else:
-        layout.series_cols = _wide_series_columns(raw_names, keep, col, hrow)
+        layout.series_cols = _wide_series_columns(raw_names, keep, col, hrow, layout)
     return layout
 
 
-def _named_columns(grid: Grid, raw_names: list[str], col: Collector
-                   ) -> tuple[list[int], dict[str, int]]:
-    """Positions of the named columns, and the first position of every lower-case name.
+def _named_columns(grid: Grid, raw_names: list[str], col: Collector,
+                   wanted: frozenset[str] | None = None
+                   ) -> tuple[list[int], dict[str, int], list[str]]:
+    """Positions of the named columns, the first position of every lower-case name, and the
+    unnamed columns that hold values when they are left out (``wanted`` given).
 
-    Unnamed columns are ignored when empty and a problem when they hold values; a name
-    given twice is a problem."""
+    Unnamed columns are ignored when empty and a problem when they hold values (without
+    ``wanted``); a name given twice is a problem when the study could use it."""
     names = [n.lower() for n in raw_names]
-    keep = []
+    keep, unnamed = [], []
     for j, n in enumerate(names):
         if n:
             keep.append(j)
             continue
         first = next((r for r, cells in grid.rows
                       if j < len(cells) and not is_missing(cells[j])), None)
-        if first is not None:
+        if first is not None and wanted is not None:
+            unnamed.append(f"column {j + 1} (no name)")
+        elif first is not None:
             col.add(f"column {j + 1} has no name but holds values (first on row {first})",
                     "give the column a name in the header, or delete it", row=grid.header_row)
+    used = None if wanted is None else _LONG_KNOWN | {w.lower() for w in wanted}
     seen: dict[str, int] = {}
     for j in keep:
         n = names[j]
-        if n in seen:
+        if n in seen and (used is None or n in used):
             col.add(f"column '{show(raw_names[j])}' appears twice (columns {seen[n] + 1} and "
                     f"{j + 1})", "rename or remove one of the two columns", row=grid.header_row)
         else:
-            seen[n] = j
-    return keep, seen
+            seen.setdefault(n, j)
+    return keep, seen, unnamed
 
 
 def _check_columns(has: set[str], raw_names: list[str], keep: list[int], col: Collector,
@@ -222,13 +243,18 @@ def _check_columns(has: set[str], raw_names: list[str], keep: list[int], col: Co
                   "keep one of them (se = cv * |value| is computed from cv)", row=hrow)
 
 
-def _wide_series_columns(raw_names: list[str], keep: list[int], col: Collector, hrow: int
-                         ) -> list[tuple[int, str]]:
-    """(position, series id) of every series column of a wide table."""
+def _wide_series_columns(raw_names: list[str], keep: list[int], col: Collector, hrow: int,
+                         layout: Layout) -> list[tuple[int, str]]:
+    """(position, series id) of every series column of a wide table that the study uses (the
+    others go to ``layout.unused``)."""
     series_cols = []
+    any_used = any(layout.uses(raw_names[j]) for j in keep if raw_names[j].lower() not in _TIME)
     for j in keep:
         n = raw_names[j].lower()
         if n in _TIME:
+            continue
+        if not layout.uses(raw_names[j]) and (any_used or n not in _LONG_ONLY):
+            layout.unused[raw_names[j]] = None
             continue
         if n in _LONG_ONLY:
             col.add(f"column '{show(raw_names[j])}' belongs to the long layout but there "
@@ -242,7 +268,7 @@ def _wide_series_columns(raw_names: list[str], keep: list[int], col: Collector, 
             continue
         series_cols.append((j, raw_names[j]))
     col.check()
-    if not series_cols:
+    if not series_cols and not layout.unused:
         col.fatal("there are no series columns next to the year column",
                   "add one column per series (the header is the series id), or use the "
                   "long layout (series, year, value)", row=hrow)
@@ -263,6 +289,8 @@ def _parse_row(r: int, cells: list[Any], layout: Layout, grid: Grid, decimal: st
         col.add(f"the row has {len(cells)} cells but the header has {ncol}", fix, row=r)
         return []
     cells = list(cells[:ncol]) + [None] * (ncol - len(cells))
+    if not _row_used(cells, layout):
+        return []
     year, month, prob = parse_time(cells[layout.time_j], layout.time_name,
                                    layout.month_j is not None)
     series = None
@@ -284,6 +312,21 @@ def _parse_row(r: int, cells: list[Any], layout: Layout, grid: Grid, decimal: st
         return []
     rec = _long_record(r, cells, layout.seen, series, year, month, decimal, col)
     return [] if rec is None else [rec]
+
+
+def _row_used(cells: list[Any], layout: Layout) -> bool:
+    """Whether a row holds anything of the series the study uses (always, without ``wanted``).
+    A row of an unused series is left out unchecked, and so is a wide row whose used cells
+    are all empty (a note or a total under the table)."""
+    if layout.wanted is None:
+        return True
+    if not layout.long:
+        return any(not is_missing(cells[j]) for j, _sid in layout.series_cols)
+    sid = _series_id(cells, layout.seen)
+    if sid in layout.wanted:
+        return True
+    layout.unused[sid or "(no name)"] = None
+    return False
 
 
 def _wide_records(r: int, cells: list[Any], layout: Layout, year: int, month: int | None,
@@ -329,6 +372,21 @@ def _long_record(r: int, cells: list[Any], seen: dict[str, int], series: str, ye
     if "unit" in seen and not is_missing(cells[seen["unit"]]):
         unit = header_name(cells[seen["unit"]])
     return Record(series, year, month, value, se, unit, r)
+
+
+def _series_id(cells: list[Any], seen: dict[str, int]) -> str:
+    """The id a long-layout row names (``series`` or ``series:group``), unchecked."""
+    raw = cells[seen["series"]]
+    name = "" if is_missing(raw) else header_name(raw)
+    if "group" in seen and not is_missing(cells[seen["group"]]):
+        return f"{name}:{header_name(cells[seen['group']])}"
+    return name
+
+
+def _long_uses_any(grid: Grid, layout: Layout) -> bool:
+    """Whether a long table names any series the study uses (its values may all be empty)."""
+    return layout.long and any(_series_id(list(cells) + [None] * layout.ncol, layout.seen)
+                               in layout.wanted for _r, cells in grid.rows)
 
 
 def _row_series(cells: list[Any], seen: dict[str, int]) -> tuple[str | None, Problem | None]:
@@ -407,3 +465,16 @@ def _warn_missing(recs: list[Record], layout: Layout, col: Collector,
         if sid not in present:
             warnings.append(InputWarning(what="the column has no values", file=col.file,
                                          series=sid))
+
+
+def _warn_unused(layout: Layout, col: Collector, warnings: list[InputWarning],
+                 shown: int = 10) -> None:
+    """One note listing the series of the file that the study does not use."""
+    unused = list(layout.unused)
+    if not unused:
+        return
+    names = ", ".join(f"'{show(u, 60)}'" for u in unused[:shown])
+    more = f" and {len(unused) - shown} more" if len(unused) > shown else ""
+    warnings.append(InputWarning(
+        what=f"{len(unused)} series not used by the study are ignored: {names}{more}",
+        file=col.file))
