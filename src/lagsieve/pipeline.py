@@ -23,6 +23,7 @@ from lagsieve.io.names import slug
 from lagsieve.io.files import sha256_file, write_csv, write_json, write_text
 from lagsieve.io.provenance import package_versions, tool_version
 from lagsieve.io.readers import read_inputs
+from lagsieve.io.tables import UnusedSeries
 from lagsieve.ledger.section import ledger_section
 from lagsieve.ledger.store import resolve_ledger_path
 from lagsieve.prep.align import annual_table, se_table
@@ -178,7 +179,8 @@ def check_study(config_path: str | Path):
     study = load_study(config_path)
     wanted = set(study.response_ids) | set(study.driver_ids)
     long, warnings = read_inputs(study.inputs, study.base_dir, wanted)  # other series: left out, noted
-    _raise_any(_absent_series(study, set(long["series"].unique())))
+    unused = {n for w in warnings if isinstance(w, UnusedSeries) for n in w.names}
+    _raise_any(_absent_series(study, set(long["series"].unique()), unused))
     annual, notes = to_annual(long, study.series_options())
     problems: list[InputProblem] = []
     for s in study.responses + study.drivers:
@@ -196,15 +198,17 @@ def _raise_any(problems: list[InputProblem]) -> None:
         raise InputErrors(problems)
 
 
-def _absent_series(study: Study, present: set[str]) -> list[InputProblem]:
-    """A problem for every configured series that no input holds, naming the nearest id."""
+def _absent_series(study: Study, present: set[str], others: set[str] = frozenset()) -> list[InputProblem]:
+    """A problem for every configured series that no input holds, naming the nearest id of the
+    inputs (``others``: the series the study does not use)."""
     problems = []
+    found = present | others
     for role, items in (("responses", study.responses), ("drivers", study.drivers)):
         for i, s in enumerate(items):
             if s["id"] not in present:
                 problems.append(InputProblem(
                     what="no input file holds this series",
-                    fix=f"check the id or add its file to inputs ({suggest(s['id'], present, 'series')})",
+                    fix=f"check the id or add its file to inputs ({suggest(s['id'], found, 'series')})",
                     file=str(study.path), key=f"{role}.{i}.id", series=s["id"]))
     return problems
 

@@ -54,7 +54,7 @@ from lagsieve.io.cells import (
     parse_time,
 )
 
-__all__ = ["FRAME_COLUMNS", "Grid", "empty_frame", "parse_grid"]
+__all__ = ["FRAME_COLUMNS", "Grid", "UnusedSeries", "empty_frame", "parse_grid"]
 
 FRAME_COLUMNS = ["series", "year", "month", "value", "se", "unit", "file", "row"]
 
@@ -87,6 +87,7 @@ class Layout:
     series_cols: list[tuple[int, str]] = field(default_factory=list)
     wanted: frozenset[str] | None = None  # the series the study uses (None: every series)
     unused: dict[str, None] = field(default_factory=dict)  # series left out, in order of appearance
+    unnamed: dict[str, None] = field(default_factory=dict)  # columns or rows without a name, left out
 
     def uses(self, series: str) -> bool:
         return self.wanted is None or series in self.wanted
@@ -98,6 +99,14 @@ class Layout:
     @property
     def time_j(self) -> int:
         return self.seen[self.time_name]
+
+
+@dataclass(frozen=True)
+class UnusedSeries(InputWarning):
+    """The note that lists the series of a file the study does not use; ``names`` holds all
+    of them (for suggestions when a configured id is not found)."""
+
+    names: tuple[str, ...] = ()
 
 
 class Record(NamedTuple):
@@ -172,7 +181,7 @@ def _read_header(grid: Grid, col: Collector, warnings: list[InputWarning],
     time_name = "year" if "year" in seen else "date"
     layout = Layout(raw_names=raw_names, seen=seen, long="series" in seen, time_name=time_name,
                     month_j=seen.get("month"), wanted=wanted)
-    layout.unused.update(dict.fromkeys(unnamed))
+    layout.unnamed.update(dict.fromkeys(unnamed))
     if layout.long:
         unused = [raw_names[j] for j in keep if raw_names[j].lower() not in _LONG_KNOWN]
         if unused:
@@ -268,7 +277,7 @@ def _wide_series_columns(raw_names: list[str], keep: list[int], col: Collector, 
             continue
         series_cols.append((j, raw_names[j]))
     col.check()
-    if not series_cols and not layout.unused:
+    if not series_cols and not (layout.unused or layout.unnamed):
         col.fatal("there are no series columns next to the year column",
                   "add one column per series (the header is the series id), or use the "
                   "long layout (series, year, value)", row=hrow)
@@ -325,7 +334,10 @@ def _row_used(cells: list[Any], layout: Layout) -> bool:
     sid = _series_id(cells, layout.seen)
     if sid in layout.wanted:
         return True
-    layout.unused[sid or "(no name)"] = None
+    if sid:
+        layout.unused[sid] = None
+    else:
+        layout.unnamed["(no name)"] = None
     return False
 
 
@@ -470,11 +482,11 @@ def _warn_missing(recs: list[Record], layout: Layout, col: Collector,
 def _warn_unused(layout: Layout, col: Collector, warnings: list[InputWarning],
                  shown: int = 10) -> None:
     """One note listing the series of the file that the study does not use."""
-    unused = list(layout.unused)
+    unused = list(layout.unnamed) + list(layout.unused)
     if not unused:
         return
     names = ", ".join(f"'{show(u, 60)}'" for u in unused[:shown])
     more = f" and {len(unused) - shown} more" if len(unused) > shown else ""
-    warnings.append(InputWarning(
+    warnings.append(UnusedSeries(
         what=f"{len(unused)} series not used by the study are ignored: {names}{more}",
-        file=col.file))
+        file=col.file, names=tuple(layout.unused)))
