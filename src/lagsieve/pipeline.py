@@ -28,6 +28,7 @@ from lagsieve.ledger.section import ledger_section
 from lagsieve.ledger.store import resolve_ledger_path
 from lagsieve.prep.align import annual_table, se_table
 from lagsieve.prep.annual import to_annual
+from lagsieve.prep.budget import budget_problems
 from lagsieve.prep.checks import check_positive, series_warnings
 from lagsieve.screen.response import screen_response
 
@@ -177,6 +178,7 @@ def check_study(config_path: str | Path):
     Raises :class:`InputErrors` with one problem per line for anything the user must fix.
     """
     study = load_study(config_path)
+    _raise_any(budget_problems(study))  # a plan over the budget: refused before any input is read
     wanted = set(study.response_ids) | set(study.driver_ids)
     long, warnings = read_inputs(study.inputs, study.base_dir, wanted)  # other series: left out, noted
     unused = {n for w in warnings if isinstance(w, UnusedSeries) for n in w.names}

@@ -102,6 +102,17 @@ def r_critical(n_eff, p: float = 0.05) -> np.ndarray:
 
 PANEL_SIZE = (5.0, 3.1)  # inches; every per-hypothesis panel has this size
 
+#: Largest figure drawn, in inches (width, height): 4800 x 4800 px at 300 dpi, about 90 MB of
+#: RGBA raster plus its RGB copy. A figure whose size grows with the study (coverage, heatmap,
+#: evidence map) is clipped to it; report.plan keeps their content below this size for large
+#: studies (summary forms), so the clip is a guard, never the way a figure is made to fit.
+MAX_FIGURE_INCHES = (16.0, 16.0)
+
+
+def capped_size(width: float, height: float) -> tuple[float, float]:
+    """``(width, height)`` in inches, each at most ``MAX_FIGURE_INCHES``."""
+    return min(float(width), MAX_FIGURE_INCHES[0]), min(float(height), MAX_FIGURE_INCHES[1])
+
 
 def _mark_invented(fig, invented: bool) -> None:
     """A small note in the bottom-right corner (laid out with the figure, never over data)."""
@@ -151,7 +162,7 @@ def coverage(series: list[str], labels: list[str], roles: list[str], years, obse
     obs = np.asarray(observed, bool)
     fil = np.asarray(filled, bool)
     k = len(series)
-    fig, ax = plt.subplots(figsize=(8.2, 0.3 * k + 1.25), layout="constrained")
+    fig, ax = plt.subplots(figsize=capped_size(8.2, 0.3 * k + 1.25), layout="constrained")
     for i in range(k):
         colour = RESPONSE_COLOUR if roles[i] == "response" else DRIVER_COLOUR
         runs, start = [], None
@@ -198,7 +209,7 @@ def driver_correlation(corr: np.ndarray, labels: list[str], threshold: float = 0
     m = k - 1
     mask = np.triu(np.ones((m, m), bool), k=1)
     side = max(3.6, 0.5 * m + 2.4)
-    fig, ax = plt.subplots(figsize=(side + 1.2, side), layout="constrained")
+    fig, ax = plt.subplots(figsize=capped_size(side + 1.2, side), layout="constrained")
     annot = np.empty((m, m), dtype=object)
     for i in range(m):
         for j in range(m):
@@ -236,7 +247,7 @@ def evidence_grid(grades: np.ndarray, lags: np.ndarray, row_labels: list[str], c
         for j in range(nc):
             if g[i, j] in GRADE_STYLE:
                 idx[i, j] = order.index(g[i, j])
-    fig, ax = plt.subplots(figsize=(max(5.5, 0.95 * nc + 2.6), 0.62 * nr + 1.9), layout="constrained")
+    fig, ax = plt.subplots(figsize=capped_size(max(5.5, 0.95 * nc + 2.6), 0.62 * nr + 1.9), layout="constrained")
     cmap = ListedColormap([GRADE_STYLE[k][0] for k in order]).with_extremes(bad="#ffffff")
     ax.imshow(np.ma.masked_invalid(idx), cmap=cmap, vmin=-0.5, vmax=len(order) - 0.5, aspect="auto")
     for i in range(nr):

@@ -32,7 +32,7 @@ def render_page(ctx: Context, figs: dict, plan, since: LedgerSection | None = No
     """The page's HTML from the context, the drawn figures and the plan of panels."""
     css, js = stylesheet(), script()
     return render("page.html", **sections.page_words(ctx), csp=content_security_policy(css, js), css=css, js=js,
-                  figs=figs, summary=sections.summary(ctx), table=sections.evidence_table(ctx),
+                  figs=figs, shortened=plan.shortened, summary=sections.summary(ctx), table=sections.evidence_table(ctx),
                   hypotheses=sections.hypotheses(ctx, plan.panels), data=sections.data(ctx), since=since,
                   methods=sections.methods(ctx, plan.tables), provenance=sections.provenance(ctx)) + "\n"
 

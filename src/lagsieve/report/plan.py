@@ -1,5 +1,14 @@
 """Which figures the report draws: the study-wide figures (evidence map, coverage, driver
-collinearity) and, per leading hypothesis, its panels, with the tables exported beside them."""
+collinearity) and, per leading hypothesis, its panels, with the tables exported beside them.
+
+Large studies get summary forms instead of figures that grow with the number of drivers (a
+500-driver heatmap at 0.5 inch per driver and 300 dpi needed 15 GB): beyond the caps below, the
+evidence map shows the best-ranked drivers, the coverage figure the responses and the least
+covered drivers, the collinearity heatmap the most correlated drivers (with the pairs above the
+threshold as a list), and the panels the leading hypotheses of each response up to a total.
+``Plan.shortened`` records each summary form with its counts; the page says so in words
+(templates overview.html, data.html, hypotheses.html) and the CSV exports stay complete, in long
+form where the full table would be one column per driver."""
 from __future__ import annotations
 
 from dataclasses import dataclass, field
@@ -16,6 +25,16 @@ from lagsieve.report.context import Context, gam_fit, gam_rows, is_missing, num,
 
 BASELINE_NAMES = ("climatology", "persistence", "trend")
 
+# Caps of the report's study-wide figures and lists. Each is chosen so that the full form of the
+# figure stays inside figures.MAX_FIGURE_INCHES (16 x 16 inches, 4800 x 4800 px at 300 dpi: about
+# 90 MB of raster) with its text still legible; the demo (3 responses, 12 drivers) is below every cap.
+MAP_MAX_DRIVERS = 14          # evidence map: 0.95 in per driver column + 2.6 in <= 16 in
+MAP_MAX_RESPONSES = 22        # evidence map: 0.62 in per response row + 1.9 in <= 16 in
+COVERAGE_MAX_SERIES = 48      # coverage: 0.3 in per series + 1.25 in <= 16 in
+HEATMAP_MAX_DRIVERS = 25      # collinearity heatmap: 0.5 in per driver + 3.6 in <= 16 in
+PAIR_LIST_MAX = 100           # collinear pairs listed on the page (all of them in driver_correlations.csv)
+PANEL_MAX_HYPOTHESES = 60     # leading hypotheses with panels (6 figures each), over all responses
+
 
 @dataclass
 class Plan:
@@ -25,11 +44,25 @@ class Plan:
     jobs: list[fg.FigureJob] = field(default_factory=list)
     panels: dict[str, dict] = field(default_factory=dict)
     tables: dict[str, pd.DataFrame] = field(default_factory=dict)
+    shortened: dict[str, dict] = field(default_factory=dict)  # figure -> counts of its summary form
+
+
+def _best_drivers(ctx: Context, dids: list[str], k: int) -> list[str]:
+    """The ``k`` drivers with the best rank in any response, in the study's order."""
+    ev = ctx.evidence[ctx.evidence["driver"].isin(dids)] if len(ctx.evidence) else ctx.evidence
+    best = ev.groupby("driver")["rank"].min() if len(ev) else pd.Series(dtype=float)
+    order = sorted(dids, key=lambda d: (best.get(d, np.inf), dids.index(d)))
+    keep = set(order[:k])
+    return [d for d in dids if d in keep]
 
 
 # ----------------------------------------------------------------------------- study-wide figures
 def _plan_map(ctx: Context, plan: Plan) -> None:
-    rids, dids = ctx.study.response_ids, ctx.study.driver_ids
+    all_r, all_d = ctx.study.response_ids, ctx.study.driver_ids
+    rids, dids = all_r[:MAP_MAX_RESPONSES], _best_drivers(ctx, all_d, MAP_MAX_DRIVERS)
+    if len(rids) < len(all_r) or len(dids) < len(all_d):
+        plan.shortened["evidence_map"] = {"responses": len(rids), "all_responses": len(all_r),
+                                          "drivers": len(dids), "all_drivers": len(all_d)}
     grades = np.full((len(rids), len(dids)), None, dtype=object)
     lags = np.full((len(rids), len(dids)), np.nan)
     for row in ctx.evidence.to_dict("records"):
@@ -40,7 +73,18 @@ def _plan_map(ctx: Context, plan: Plan) -> None:
     plan.jobs.append(fg.FigureJob("evidence_map", "evidence_grid", dict(
         grades=grades, lags=lags, row_labels=[ctx.label(r) for r in rids],
         col_labels=[ctx.label(d) for d in dids], invented=ctx.invented)))
-    plan.tables["evidence_map"] = pd.DataFrame(grades, index=pd.Index(rids, name="response"), columns=dids)
+    plan.tables["evidence_map"] = _map_table(ctx, grades, rids, dids, "evidence_map" in plan.shortened)
+
+
+def _map_table(ctx: Context, grades: np.ndarray, rids: list[str], dids: list[str], long: bool) -> pd.DataFrame:
+    """The evidence map as exported: responses x drivers (one column per driver) for a map drawn
+    in full, else long form (response, driver, grade, lag) with every hypothesis of the study."""
+    if not long:
+        return pd.DataFrame(grades, index=pd.Index(rids, name="response"), columns=dids)
+    cols = ["response", "driver", "grade", "lag"]
+    ev = ctx.evidence
+    return (ev[[c for c in cols if c in ev]].sort_values(["response", "driver"]).set_index("response")
+            if len(ev) else pd.DataFrame(columns=cols).set_index("response"))
 
 
 def _filled_years(ctx: Context, series: list[str], years: np.ndarray) -> np.ndarray:
@@ -68,17 +112,30 @@ def _coverage_rows(series, rids, years, observed, filled) -> list[dict]:
     return rows
 
 
+def _least_covered(series: list[str], observed: np.ndarray, filled: np.ndarray, rids: list[str]) -> list[int]:
+    """Rows of the coverage figure for a large study: the responses first (up to the cap), then
+    the drivers with the fewest observed years (most filled years breaking ties), in study order."""
+    resp = [k for k, s in enumerate(series) if s in rids][:COVERAGE_MAX_SERIES]
+    drv = [k for k, s in enumerate(series) if s not in rids]
+    drv.sort(key=lambda k: (int(observed[k].sum()), -int(filled[k].sum()), k))
+    return sorted(resp + drv[:COVERAGE_MAX_SERIES - len(resp)])
+
+
 def _plan_coverage(ctx: Context, plan: Plan) -> None:
     rids = ctx.study.response_ids
     series = [s for s in rids + ctx.study.driver_ids if s in ctx.table.columns]
     years = ctx.table.index.to_numpy()
     observed = np.stack([~np.isnan(ctx.table[s].to_numpy(float)) for s in series])
     filled = _filled_years(ctx, series, years)
+    plan.tables["coverage"] = pd.DataFrame(_coverage_rows(series, rids, years, observed, filled))
+    if len(series) > COVERAGE_MAX_SERIES:
+        keep = _least_covered(series, observed, filled, rids)
+        plan.shortened["coverage"] = {"series": len(keep), "all_series": len(series)}
+        series, observed, filled = [series[k] for k in keep], observed[keep], filled[keep]
     plan.jobs.append(fg.FigureJob("coverage", "coverage", dict(
         series=series, labels=[ctx.label(s) for s in series],
         roles=["response" if s in rids else "driver" for s in series],
         years=years, observed=observed, filled=filled, invented=ctx.invented)))
-    plan.tables["coverage"] = pd.DataFrame(_coverage_rows(series, rids, years, observed, filled))
 
 
 def _plan_collinearity(ctx: Context, plan: Plan) -> None:
@@ -86,10 +143,40 @@ def _plan_collinearity(ctx: Context, plan: Plan) -> None:
     if len(drv) < 2:
         return
     corr = driver_correlations(ctx.table, drv)
+    if len(drv) > HEATMAP_MAX_DRIVERS:
+        pairs = collinear_pairs(corr)
+        plan.tables["driver_correlations"] = pairs
+        over = pairs[pairs["r"].abs() > COLLINEAR_R]
+        listed = [(ctx.label(a), ctx.label(b), float(r)) for a, b, r in over.head(PAIR_LIST_MAX).itertuples(index=False)]
+        plan.shortened["driver_correlation"] = {"drivers": HEATMAP_MAX_DRIVERS, "all_drivers": len(drv),
+                                                "pairs_over": len(over), "listed": listed}
+        shown = _most_correlated(corr, HEATMAP_MAX_DRIVERS)
+        corr = corr.loc[shown, shown]
+    else:
+        plan.tables["driver_correlations"] = corr.rename_axis("driver").reset_index()
     plan.jobs.append(fg.FigureJob("driver_correlation", "driver_correlation", dict(
-        corr=corr.to_numpy(float), labels=[ctx.label(d) for d in drv], threshold=COLLINEAR_R,
+        corr=corr.to_numpy(float), labels=[ctx.label(d) for d in corr.index], threshold=COLLINEAR_R,
         invented=ctx.invented)))
-    plan.tables["driver_correlations"] = corr.rename_axis("driver").reset_index()
+
+
+def collinear_pairs(corr: pd.DataFrame) -> pd.DataFrame:
+    """Every pair of drivers once (driver, other, r), strongest |r| first (NaN last): the long form
+    of the correlation matrix, three columns whatever the number of drivers."""
+    names = list(corr.index)
+    i, j = np.triu_indices(len(names), k=1)
+    r = corr.to_numpy(float)[i, j]
+    order = np.lexsort((j, i, -np.nan_to_num(np.abs(r), nan=-1.0)))
+    return pd.DataFrame({"driver": np.asarray(names, dtype=object)[i[order]],
+                         "other": np.asarray(names, dtype=object)[j[order]], "r": r[order]})
+
+
+def _most_correlated(corr: pd.DataFrame, k: int) -> list[str]:
+    """The ``k`` drivers with the largest |r| to any other driver, in the study's order."""
+    a = np.nan_to_num(np.abs(corr.to_numpy(float)), nan=-1.0)  # a pair without r counts as none
+    np.fill_diagonal(a, -1.0)
+    strongest = a.max(axis=1)
+    keep = set(np.argsort(-strongest, kind="stable")[:k].tolist())
+    return [d for n, d in enumerate(corr.index) if n in keep]
 
 
 # ----------------------------------------------------------------------------- per hypothesis
@@ -204,6 +291,25 @@ def plan_figures(ctx: Context) -> Plan:
     _plan_map(ctx, plan)
     _plan_coverage(ctx, plan)
     _plan_collinearity(ctx, plan)
-    for row in top_rows(ctx):
+    for row in _panel_rows(ctx, plan):
         _plan_hypothesis(ctx, row, plan)
     return plan
+
+
+def _panel_rows(ctx: Context, plan: Plan) -> list[dict]:
+    """The top hypotheses of every response (``report.top``), fewer per response when all of them
+    together would exceed ``PANEL_MAX_HYPOTHESES``."""
+    rows = top_rows(ctx)
+    n_resp = max(1, len(ctx.study.response_ids))
+    if len(rows) <= PANEL_MAX_HYPOTHESES:
+        return rows
+    per = max(1, PANEL_MAX_HYPOTHESES // n_resp)
+    seen: dict[str, int] = {}
+    kept = []
+    for row in rows:
+        seen[row["response"]] = seen.get(row["response"], 0) + 1
+        if seen[row["response"]] <= per and len(kept) < PANEL_MAX_HYPOTHESES:
+            kept.append(row)
+    plan.shortened["hypotheses"] = {"per_response": per, "top": int(ctx.study.report.get("top", 3)),
+                                    "shown": len(kept), "all": len(rows)}
+    return kept
