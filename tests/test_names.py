@@ -183,3 +183,17 @@ def test_study_in_a_folder_with_comma_space_and_umlaut_runs(tmp_path, new_study)
     assert proc.returncode == 0, proc.stdout + proc.stderr
     assert "This was a dry-run" in proc.stdout
     assert f"{folder}/study/results/caldrin_shelf_demo/report.html" in proc.stdout
+
+
+def test_braces_in_a_path_are_refused_before_any_job_with_one_line(tmp_path, capsys):
+    """Snakemake reads '{x}' in any tracked path as a placeholder and has no escape for it
+    (tried with Snakemake 9: '{{x}}' is refused too), so such a study is refused in words."""
+    cfg = _wide_study(tmp_path / "hake {2024}", ["r"], ["d"])
+    with pytest.raises(SystemExit) as exc:
+        stages.plan_studies({"study_config": str(cfg), "out": str(tmp_path / "out")})
+    assert exc.value.code == 2
+    (line,) = capsys.readouterr().err.strip().splitlines()
+    assert line == (f"{cfg}: the path holds '{{' or '}}' (so do 1 more paths of the study), which the "
+                    "workflow engine reads as a placeholder; rename the folder or file without braces "
+                    "(or move the study)")
+    assert stages.pattern_problems([str(cfg).replace("{", "(").replace("}", ")")]) == []

@@ -165,10 +165,22 @@ def plan_studies(config: dict, check: bool = True) -> dict[str, PlannedStudy]:
             for spec in st.inputs:
                 p = Path(spec["path"])
                 inputs.append(str(p if p.is_absolute() else st.base_dir / p))
+            _raise_any(pattern_problems([str(st.path), *inputs, str(config.get("out", ""))]))
             planned[st.id] = PlannedStudy(st, str(st.path), inputs, _response_inputs(st, annual, inputs))
     except InputErrors as exc:
         sys.exit(report_problems(exc))
     return planned
+
+
+def pattern_problems(paths: list[str]) -> list[InputProblem]:
+    """Paths the workflow engine would misread: it takes '{...}' in any file name it tracks for
+    a placeholder and has no escape for a literal brace."""
+    bad = [p for p in dict.fromkeys(paths) if "{" in p or "}" in p]
+    if not bad:
+        return []
+    more = f" (so do {len(bad) - 1} more paths of the study)" if len(bad) > 1 else ""
+    return [InputProblem(what=f"the path holds '{{' or '}}'{more}, which the workflow engine reads as a placeholder",
+                         fix="rename the folder or file without braces (or move the study)", file=bad[0])]
 
 
 # ---------------------------------------------------------------- check and align
