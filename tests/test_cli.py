@@ -28,8 +28,13 @@ def test_init_then_check_ok(study):
 
 
 def test_init_refuses_existing(study):
+    """init into a study folder: one line listing what exists; nothing is replaced."""
+    before = _hashes(study.parent / "data")
+    config = study.read_bytes()
     proc = lagsieve("init", study.parent)
-    assert proc.returncode == 2 and "already exists" in proc.stderr
+    line = _expect_one_line(proc, "exist already", "config.yaml", "data/mortality_by_age.csv", "never overwrites")
+    assert line.startswith(f"{study.parent}: 6 of the files init writes")
+    assert _hashes(study.parent / "data") == before and study.read_bytes() == config
 
 
 def _set_value(path: Path, row: int, new: str) -> str:

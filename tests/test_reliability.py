@@ -2,6 +2,7 @@
 kill-and-resume, and ids that could reach a path refused."""
 from __future__ import annotations
 
+import json
 import os
 import signal
 import subprocess
@@ -15,6 +16,7 @@ import yaml
 
 from lagsieve import pipeline as stages
 from lagsieve.io.config import load_study
+from lagsieve.io.lock import LOCK_NAME
 from lagsieve.io.names import slug
 from lagsieve.screen import response as screening
 
@@ -68,7 +70,11 @@ def test_failure_in_one_hypothesis_is_contained(tmp_path, monkeypatch, new_study
 
 
 @pytest.mark.slow
-def test_killed_run_resumes(tmp_path, new_study):
+@pytest.mark.parametrize("rerun", [[], ["--resume"]], ids=["plain", "resume"])
+def test_killed_run_resumes(tmp_path, new_study, rerun):
+    """A run killed outright (lagsieve and Snakemake, SIGKILL) leaves the tool's lock of a dead
+    pid and Snakemake's own lock; the same command run again (or with the older --resume) takes
+    the lock over, clears Snakemake's, redoes the incomplete jobs and finishes."""
     cfg = set_screen(new_study, surrogates=99)
     out = tmp_path / "s" / "results"
     env = dict(os.environ, MPLBACKEND="Agg")
@@ -86,9 +92,16 @@ def test_killed_run_resumes(tmp_path, new_study):
     # no half-written file is left under a final name: every stage writes to a temporary name
     leftovers = [p for p in out.rglob("*.csv") if p.stat().st_size == 0]
     assert not leftovers
-    resumed = lagsieve("run", cfg, "--cores", "2", "--resume")  # = snakemake --unlock, then --rerun-incomplete
+    # the dead run's locks: the tool's (its pid) and Snakemake's
+    assert json.loads((out / LOCK_NAME).read_text())["pid"] == proc.pid
+    assert list((out / ".snakemake" / "locks").iterdir())
+    resumed = lagsieve("run", cfg, "--cores", "2", *rerun)
     assert resumed.returncode == 0, resumed.stderr[-2000:]
+    assert "LockException" not in resumed.stderr and "IncompleteFilesException" not in resumed.stderr
+    assert f"the run that held {out} has stopped (pid {proc.pid}" in resumed.stderr
     assert (out / "caldrin_shelf_demo" / "evidence.csv").stat().st_size > 0
+    assert (out / "caldrin_shelf_demo" / "report.html").stat().st_size > 0
+    assert not (out / LOCK_NAME).exists() and not list((out / ".snakemake" / "locks").iterdir())
 
 
 @pytest.mark.parametrize("key, value, needle", [

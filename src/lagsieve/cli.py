@@ -15,6 +15,7 @@ from __future__ import annotations
 import argparse
 import errno
 import os
+import shlex
 import subprocess
 import sys
 from pathlib import Path
@@ -24,6 +25,7 @@ from jinja2 import TemplateNotFound
 import lagsieve
 import lagsieve.workflow
 from lagsieve.errors import InputErrors, report_problems
+from lagsieve.io.lock import RESULTS_FIX, check_folder, claim_results, make_folder
 
 EXIT_USER = 2
 REINSTALL = "python -m pip install --force-reinstall lagsieve"
@@ -35,16 +37,13 @@ def _err(msg: str) -> int:
 
 
 def cmd_init(args) -> int:
-    from lagsieve.demo import demo_config_text, write_demo  # lazy: see the module docstring
+    from lagsieve.demo.write import DATA_FOLDER, write_study  # lazy: see the module docstring
 
-    d = Path(args.dir)
-    cfg = d / "config.yaml"
-    if cfg.exists():
-        return _err(f"{cfg}: a config already exists here; choose an empty folder or remove it first")
-    d.mkdir(parents=True, exist_ok=True)
-    write_demo(d / "data")
-    cfg.write_text(demo_config_text("data"), encoding="utf-8")
-    print(f"wrote {cfg} and the invented demo data in {d / 'data'}; next: lagsieve run {cfg}")
+    try:
+        cfg = write_study(args.dir)
+    except InputErrors as exc:
+        return report_problems(exc)
+    print(f"wrote {cfg} and the invented demo data in {cfg.parent / DATA_FOLDER}; next: lagsieve run {cfg}")
     return 0
 
 
@@ -94,17 +93,62 @@ def cmd_check(args) -> int:
 
 
 def cmd_run(args, extra: list[str]) -> int:
-    from lagsieve.io.config import WORKFLOW  # lazy: see the module docstring
+    """Check the study and its ledger, lock the results folder (:mod:`lagsieve.io.lock`), run
+    the workflow. Every refusal comes before anything is written under the results folder."""
+    from lagsieve.ledger.store import check_ledger, resolve_ledger_path  # lazy: see the module docstring
 
+    if args.cores < 1:
+        return _err(f"--cores {args.cores}: a run needs at least one core; give --cores 1 or more "
+                    f"(this machine has {os.cpu_count() or 1})")
     try:
         study, *_ = _check(args.config)
+        cfg = Path(args.config).resolve()
+        out = Path(args.out).resolve() if args.out else cfg.parent / "results"
+        check_folder(out, "the results folder cannot be made", RESULTS_FIX)
+        check_ledger(resolve_ledger_path(study, out / study.id))
+        lock = claim_results(out, shlex.join(["lagsieve", "run", str(cfg), "--out", str(out),
+                                              "--cores", str(args.cores), *extra]))
     except InputErrors as exc:
         return report_problems(exc)
-    cfg = Path(args.config).resolve()
-    out = Path(args.out).resolve() if args.out else cfg.parent / "results"
-    out.mkdir(parents=True, exist_ok=True)
+    with lock:
+        if lock.took_over is not None:
+            print(f"note: the run that held {out} has stopped ({lock.took_over.describe()}); "
+                  f"this run continues where it stopped", file=sys.stderr)
+        try:
+            return _run_workflow(args, extra, study, cfg, out, lock)
+        except InputErrors as exc:
+            return report_problems(exc)
+
+
+def _snakemake_locked(out: Path) -> bool:
+    """Whether Snakemake's own lock files are in ``out`` (left by a killed run: while this run
+    holds the tool's lock no other run writes there)."""
+    locks = out / ".snakemake" / "locks"
+    return locks.is_dir() and any(locks.iterdir())
+
+
+def _wait(proc: subprocess.Popen, lock) -> int:
+    """Wait for the workflow engine (its pid joins the lock's record); on Ctrl-C, which reaches
+    it too, wait while it stops its jobs, so that the lock is released after it."""
+    try:
+        lock.record_child(proc.pid)
+    except OSError:
+        pass  # the lock still names this process, which lives as long as the engine runs
+    try:
+        return proc.wait()
+    except KeyboardInterrupt:
+        proc.wait()
+        return 130
+
+
+def _run_workflow(args, extra: list[str], study, cfg: Path, out: Path, lock) -> int:
+    """Snakemake on the locked results folder ``out``: a stale Snakemake lock is cleared and
+    the jobs a killed run left half done are redone, so a plain rerun continues a run."""
+    from lagsieve.io.config import WORKFLOW  # lazy: see the module docstring
+
     snakefile = WORKFLOW / "Snakefile"
     _require(snakefile)
+    make_folder(out / study.id / "work", "the study's results folder cannot be made", RESULTS_FIX)
     from lagsieve.pipeline import write_run_config  # lazy: see the module docstring
 
     # the paths go in a YAML file: `--config key=value` would cut a folder name at its commas
@@ -112,14 +156,14 @@ def cmd_run(args, extra: list[str]) -> int:
     cmd = [sys.executable, "-m", "snakemake", "--snakefile", str(snakefile), "--configfile", str(run_config),
            "--directory", str(out), "--cores", str(args.cores), *extra]
     env = dict(os.environ)
-    if args.resume:
-        # a killed run leaves Snakemake's lock and its incomplete-job markers behind
+    if args.resume or lock.took_over is not None or _snakemake_locked(out):
+        # a killed run leaves Snakemake's lock behind; this run holds the folder, so it is stale
         subprocess.run(cmd + ["--unlock"], env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-        cmd.append("--rerun-incomplete")
-    proc = subprocess.run(cmd, env=env)
-    if proc.returncode == 0 and not ({"-n", "--dry-run", "--dryrun"} & set(extra)):
+    cmd.append("--rerun-incomplete")  # and the jobs it left half done are done again
+    returncode = _wait(subprocess.Popen(cmd, env=env), lock)
+    if returncode == 0 and not ({"-n", "--dry-run", "--dryrun"} & set(extra)):
         print(f"results in {out / study.id}")
-    return proc.returncode
+    return returncode
 
 
 def cmd_ledger(args) -> int:
@@ -136,16 +180,19 @@ def build_parser() -> argparse.ArgumentParser:
                                 "or condition honestly: lagged and nonlinear, out of sample, against surrogates.")
     p.add_argument("--version", action="version", version=f"lagsieve {lagsieve.__version__}")
     sub = p.add_subparsers(dest="command", required=True)
-    s = sub.add_parser("init", help="write a new study folder with a commented config and the invented demo data")
+    s = sub.add_parser("init", help="write a new study folder with a commented config and the invented demo data "
+                       "(never overwrites a file: refuses, naming them, if any of its files exists)")
     s.add_argument("dir")
     s = sub.add_parser("check", help="validate a study config and every input file")
     s.add_argument("config")
     s = sub.add_parser("run", help="run the screening workflow for a study (extra options go to Snakemake)")
     s.add_argument("config")
-    s.add_argument("--cores", type=int, default=max(1, os.cpu_count() or 1))
-    s.add_argument("--out", help="results folder (default: results/ beside the config)")
+    s.add_argument("--cores", type=int, default=max(1, os.cpu_count() or 1), help="cores to use (1 or more)")
+    s.add_argument("--out", help="results folder (default: results/ beside the config); one run at a time "
+                   "writes there: a second is refused while the first lives")
     s.add_argument("--resume", action="store_true",
-                   help="after an interrupted run: remove the stale lock and redo incomplete jobs")
+                   help="not needed any more: a plain rerun after an interrupted run continues it (it clears "
+                        "the dead run's locks and redoes its incomplete jobs); refused while that run lives")
     s = sub.add_parser("ledger", help="print the forecast track record of a study")
     s.add_argument("config")
     s.add_argument("--out", help="results folder (default: results/ beside the config)")

@@ -1,20 +1,34 @@
-"""Write the invented demo study to a folder: the four data files and TRUTH.md.
+"""Write the invented demo study to a folder: the four data files and TRUTH.md
+(:func:`write_demo`), and with its config a new study folder (:func:`write_study`, what
+`lagsieve init` writes).
 
 Every file goes through :func:`lagsieve.io.files.atomic_path` (a temporary name in the
-folder, then a rename), so a reader never sees a half-written file.
+folder, then a rename), so a reader never sees a half-written file. :func:`write_study` never
+replaces a file: it refuses, with one line listing them, when any of its files exists, and
+puts each file in place with a link that fails rather than overwrite one made meanwhile.
 """
 from __future__ import annotations
 
+import errno
 import os
+import tempfile
 from pathlib import Path
 
 import pandas as pd
 
-from lagsieve.demo.texts import truth_markdown
+from lagsieve.demo.texts import demo_config_text, truth_markdown
 from lagsieve.demo.world import DEFAULT_SEED, DemoData, simulate_demo
+from lagsieve.errors import InputErrors, fail, show
 from lagsieve.io.files import write_csv, write_text
+from lagsieve.io.lock import make_folder, os_problem
 
-__all__ = ["DEMO_FILES", "demo_files", "write_demo"]
+__all__ = ["CONFIG_NAME", "DATA_FOLDER", "DEMO_FILES", "demo_files", "study_files", "write_demo",
+           "write_study"]
+
+CONFIG_NAME = "config.yaml"
+DATA_FOLDER = "data"
+# os.link's errors on a file system without hard links (then a checked rename is used)
+NO_HARD_LINKS = (errno.EPERM, errno.ENOTSUP, errno.EOPNOTSUPP, errno.EXDEV, errno.EMLINK)
 
 #: File names written by :func:`write_demo` (data files first, in config input order).
 DEMO_FILES = (
@@ -55,3 +69,59 @@ def write_demo(outdir: str | os.PathLike, seed: int = DEFAULT_SEED) -> list[Path
             write_csv(content, path)
         paths.append(path)
     return paths
+
+
+def study_files(folder: str | os.PathLike) -> list[Path]:
+    """The files :func:`write_study` writes into ``folder``: the config, then the data files."""
+    folder = Path(folder)
+    return [folder / CONFIG_NAME] + [folder / DATA_FOLDER / name for name in DEMO_FILES]
+
+
+def _place(src: Path, dest: Path) -> None:
+    """Move ``src`` to ``dest``; FileExistsError, and nothing moved, if ``dest`` exists."""
+    try:
+        os.link(src, dest)  # fails if dest exists, even one made a moment ago
+    except OSError as exc:  # a file system without hard links: check, then rename
+        if exc.errno not in NO_HARD_LINKS:
+            raise
+        if os.path.lexists(dest):
+            raise FileExistsError(errno.EEXIST, "exists", str(dest)) from None
+        os.rename(src, dest)
+        return
+    src.unlink()
+
+
+def _refuse_existing(folder: Path) -> None:
+    if folder.exists() and not folder.is_dir():
+        fail("this is a file, not a folder", "give the name of a new folder for the study: lagsieve init DIR",
+             file=show(str(folder), 300))
+    existing = [p for p in study_files(folder) if os.path.lexists(p)]
+    if existing:
+        names = ", ".join(show(str(p.relative_to(folder)), 80) for p in existing)
+        fail(f"{len(existing)} of the files init writes exist already ({names})",
+             "init never overwrites a file: give a new or empty folder (lagsieve init NEWDIR)",
+             file=show(str(folder), 300))
+
+
+def write_study(folder: str | os.PathLike, seed: int = DEFAULT_SEED) -> Path:
+    """Write a new study into ``folder``: ``config.yaml`` and the demo data in ``data/``; return
+    the config's path. Never overwrites: :class:`InputErrors` (one line) when the folder is a
+    file, when any of its files exists (listed), or when the folder cannot be written."""
+    folder = Path(folder)
+    _refuse_existing(folder)
+    fix = "give another folder: lagsieve init DIR"
+    make_folder(folder, "the study folder cannot be made", fix)
+    try:
+        with tempfile.TemporaryDirectory(prefix=".lagsieve-init-", dir=folder) as tmp:
+            staged = Path(tmp)
+            write_demo(staged / DATA_FOLDER, seed)
+            write_text(demo_config_text(DATA_FOLDER), staged / CONFIG_NAME)
+            (folder / DATA_FOLDER).mkdir(exist_ok=True)
+            for src, dest in zip(study_files(staged), study_files(folder)):
+                _place(src, dest)
+    except OSError as exc:
+        if isinstance(exc, FileExistsError):
+            _refuse_existing(folder)  # made by someone else while init wrote: name them
+        where = exc.filename or folder  # e.g. data/ that is a file
+        raise InputErrors([os_problem(exc, where, "the study folder cannot be written", fix)]) from None
+    return folder / CONFIG_NAME

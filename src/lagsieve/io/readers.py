@@ -264,8 +264,8 @@ def read_table(spec: str | Mapping[str, Any], base_dir: str | Path,
     if not path.is_absolute():
         path = Path(base_dir) / path
     ext = path.suffix.lower()
-    try:
-        exists, is_dir = path.exists(), path.is_dir()
+    try:  # stat only: opening a named pipe would wait for a writer for ever
+        exists, is_dir, is_file = path.exists(), path.is_dir(), path.is_file()
     except (OSError, ValueError) as exc:
         col.fatal(f"the path cannot be used ({show(str(exc), 80)})",
                   "check the path under inputs for stray characters")
@@ -276,6 +276,9 @@ def read_table(spec: str | Mapping[str, Any], base_dir: str | Path,
     if is_dir:
         col.fatal("this is a folder, not a file", "give the path of a table file "
                   f"({SUPPORTED})")
+    if not is_file:
+        col.fatal("this is not a regular file (a named pipe, device or socket)",
+                  f"give the path of a table file saved on disk ({SUPPORTED})")
     if ext == ".xls":
         col.fatal("old-style .xls workbooks are not read",
                   "save the workbook as .xlsx, or export the sheet as CSV")

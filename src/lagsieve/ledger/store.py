@@ -32,14 +32,20 @@ Tables (SQLite, one file, several studies may share it)
 """
 from __future__ import annotations
 
+import errno
+import os
+import shutil
 import sqlite3
+import tempfile
 from contextlib import contextmanager
+from dataclasses import dataclass
 from pathlib import Path
 
 import pandas as pd
 
-from lagsieve.errors import fail
+from lagsieve.errors import fail, show
 from lagsieve.io.config import Study
+from lagsieve.io.lock import unusable_folder
 from lagsieve.stats.backtest import BASELINES
 
 DEFAULT_NAME = "ledger.sqlite"
@@ -175,14 +181,17 @@ def schema_version(con: sqlite3.Connection) -> str | None:
     return None if row is None else str(row[0])
 
 
+def _unknown_version(version: str, path: str) -> None:
+    fail(f"the forecast ledger has schema version {version}, which this lagsieve (schema "
+         f"{SCHEMA_VERSION}) does not know", "update lagsieve, or set ledger.path to another file",
+         file=path)
+
+
 def _upgrade(con: sqlite3.Connection, version: str) -> None:
     """Apply the migrations from ``version`` up to ``SCHEMA_VERSION`` (inside a transaction)."""
     while version != SCHEMA_VERSION:
         if version not in MIGRATIONS:
-            path = con.execute("PRAGMA database_list").fetchone()[2]
-            fail(f"the forecast ledger has schema version {version}, which this lagsieve (schema "
-                 f"{SCHEMA_VERSION}) does not know", "update lagsieve, or set ledger.path to another file",
-                 file=path)
+            _unknown_version(version, con.execute("PRAGMA database_list").fetchone()[2])
         version, statements = MIGRATIONS[version]
         for stmt in statements:
             con.execute(stmt)
@@ -205,13 +214,22 @@ def ensure_schema(con: sqlite3.Connection) -> None:
 
 def connect(path: str | Path) -> sqlite3.Connection:
     """Open (or create) a ledger for writing, its schema created or upgraded
-    (:func:`ensure_schema`). Autocommit mode: every write goes through :func:`transaction`."""
+    (:func:`ensure_schema`). Autocommit mode: every write goes through :func:`transaction`.
+    A file that is not a sound ledger is refused first (:func:`check_ledger`), untouched."""
+    check_ledger(path)
     Path(path).parent.mkdir(parents=True, exist_ok=True)
     con = sqlite3.connect(str(path), isolation_level=None, timeout=60)
     con.row_factory = sqlite3.Row
     con.execute("PRAGMA foreign_keys = ON")
     try:
         ensure_schema(con)
+    except sqlite3.OperationalError as exc:
+        con.close()
+        if not str(getattr(exc, "sqlite_errorname", "")).startswith(UNWRITABLE):
+            raise  # a fault of the program (a migration), not of the user's disk
+        fail(f"the forecast ledger cannot be written ({show(str(exc), 80)})",
+             "free some space or make the file writable, or set ledger.path to a new file; the "
+             "ledger is kept as it was", file=show(str(path), 300))
     except BaseException:
         con.close()
         raise
@@ -224,6 +242,117 @@ def open_readonly(path: str | Path) -> sqlite3.Connection:
     con = sqlite3.connect(Path(path).resolve().as_uri() + "?mode=ro", uri=True)
     con.row_factory = sqlite3.Row
     return con
+
+
+# ---------------------------------------------------------------- checking an existing ledger
+SQLITE_HEADER = b"SQLite format 3\x00"
+# SQLite's errors that mean the file cannot be written (a full disk, a read-only file or folder)
+UNWRITABLE = ("SQLITE_FULL", "SQLITE_READONLY", "SQLITE_CANTOPEN", "SQLITE_IOERR", "SQLITE_PERM")
+
+
+@dataclass(frozen=True)
+class LedgerState:
+    """What a read-only look at a ledger file found."""
+
+    verdict: str           # SQLite's ``PRAGMA quick_check``, its first finding: "ok" when sound
+    tables: int            # how many tables the database holds
+    ledger: bool           # whether they are the ledger's (``runs`` or ``meta``)
+    version: str | None    # the ledger's schema version
+
+
+def _look(path: Path, writable: bool = False) -> LedgerState:
+    """Check ``path`` with SQLite (read-only unless ``writable``: only ever for a scratch copy)."""
+    uri = path.resolve().as_uri() + ("" if writable else "?mode=ro")
+    con = sqlite3.connect(uri, uri=True, timeout=5)
+    try:
+        lines = str(con.execute("PRAGMA quick_check").fetchone()[0]).splitlines()
+        verdict = next((ln for ln in lines if not ln.startswith("***")), lines[0])  # skip "*** in database main ***"
+        tables = con.execute("SELECT count(*) FROM sqlite_master WHERE type='table'").fetchone()[0]
+        return LedgerState(verdict, tables, has_schema(con) or schema_version(con) is not None,
+                           schema_version(con))
+    finally:
+        con.close()
+
+
+def inspect_ledger(path: str | Path) -> LedgerState:
+    """:func:`_look` at a ledger without changing it. A ledger that a killed run left with a hot
+    journal cannot be read read-only (SQLite would roll the journal back first): then a scratch
+    copy of the file and its journal is rolled back and checked instead."""
+    path = Path(path)
+    try:
+        return _look(path)
+    except sqlite3.OperationalError as exc:
+        if getattr(exc, "sqlite_errorname", "") != "SQLITE_READONLY_ROLLBACK":
+            raise
+    with tempfile.TemporaryDirectory(prefix="lagsieve-ledger-") as tmp:
+        copy = Path(tmp) / path.name
+        shutil.copyfile(path, copy)
+        shutil.copyfile(f"{path}-journal", f"{copy}-journal")
+        return _look(copy, writable=True)
+
+
+def _place_problem(path: Path) -> tuple[str, str] | None:
+    """Why ``path`` cannot hold a ledger file (a folder, a pipe, a path through a file, a folder
+    or file that may not be written), or None; found without writing."""
+    fix = "set ledger.path to a file name such as ledger.sqlite"
+    code = unusable_folder(path.parent)
+    if code in (errno.EEXIST, errno.ENOTDIR):
+        return "a part of the forecast ledger's path is a file, not a folder", fix
+    if code == errno.EACCES:
+        return "the forecast ledger's folder may not be written by you", fix
+    if path.is_dir():
+        return "the forecast ledger's path is a folder, not a file", f"{fix}, or move the folder aside"
+    if path.exists() and not path.is_file():
+        return "the forecast ledger's path is not a regular file (a named pipe, device or socket)", fix
+    if path.exists() and not os.access(path, os.R_OK | os.W_OK):
+        return ("the forecast ledger may not be read and written by you",
+                "make it writable (chmod u+rw), or set ledger.path to a new file")
+    return None
+
+
+def _content_problem(path: Path) -> tuple[str, str] | None:
+    """Why the existing file ``path`` is not a sound ledger, or None (read only, never written)."""
+    keep = f"move it aside (e.g. to {path.name}.damaged) and run again to start a new ledger, or set " \
+           f"ledger.path to a new file; the old file is kept unchanged"
+    with open(path, "rb") as fh:
+        head = fh.read(len(SQLITE_HEADER))
+    if not head:
+        return None  # an empty file: SQLite makes it a new database
+    if head != SQLITE_HEADER:
+        return "the file is not an SQLite database, so not a forecast ledger", keep
+    try:
+        state = inspect_ledger(path)
+    except sqlite3.OperationalError as exc:
+        if getattr(exc, "sqlite_errorname", "") == "SQLITE_BUSY":
+            return None  # a run is writing it: the lock on the results folder speaks to that
+        return (f"the forecast ledger cannot be opened ({show(str(exc), 80)})",
+                "check that the file is readable by you; the file is kept unchanged")
+    except sqlite3.DatabaseError as exc:
+        return f"the forecast ledger is damaged (SQLite: {show(str(exc), 80)})", keep
+    if state.verdict != "ok":
+        return f"the forecast ledger is damaged (SQLite's quick_check: {show(state.verdict, 80)})", keep
+    if state.tables and not state.ledger:
+        return ("the file is an SQLite database but not a forecast ledger (none of the ledger's tables)",
+                "set ledger.path to a new file; this database is kept unchanged")
+    if state.version is not None and state.version != SCHEMA_VERSION and state.version not in MIGRATIONS:
+        _unknown_version(state.version, show(str(path), 300))
+    return None
+
+
+def check_ledger(path: str | Path) -> None:
+    """Refuse, with one line (:class:`InputErrors`), a ledger path that cannot be used: a folder,
+    a pipe, a path through a file, a file that is not an SQLite database, a damaged database
+    (``PRAGMA quick_check`` on a read-only connection), a database that is not a ledger, or a
+    ledger of an unknown schema. A missing file is fine (the run starts a new ledger). Nothing
+    is written: the file's bytes and time stamps stay as they are."""
+    path = Path(path)
+    try:
+        problem = _place_problem(path) or (path.exists() and _content_problem(path)) or None
+    except OSError as exc:
+        problem = (f"the forecast ledger cannot be read ({show(exc.strerror or type(exc).__name__, 80)})",
+                   "check that the file is readable by you; the file is kept unchanged")
+    if problem is not None:
+        fail(*problem, file=show(str(path), 300))
 
 
 # ---------------------------------------------------------------- reading tables
