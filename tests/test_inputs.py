@@ -1050,6 +1050,19 @@ def test_check_passes_a_study_with_a_1700_driver_and_a_notes_column(tmp_path):
                            "'Notes (see sheet 2)!'" for w in warnings)
 
 
+def test_a_misspelt_id_is_matched_against_the_unused_series(tmp_path):
+    from lagsieve.pipeline import check_study
+
+    write(tmp_path, "sun.csv", SUNSPOTS)
+    cfg = tmp_path / "config.yaml"
+    cfg.write_text("study: hist\ninputs: [sun.csv]\nresponses: [{id: sunspot}]\ndrivers: [{id: x}]\n",
+                   encoding="utf-8")
+    with pytest.raises(InputErrors) as info:
+        check_study(cfg)
+    first = assert_one_line_each(info.value)[0]
+    assert "series 'sunspot': no input file holds this series" in first and "sunspots" in first
+
+
 # ----------------------------------------------------------------------------- config defaults
 
 def test_screen_defaults_come_from_the_schema():
