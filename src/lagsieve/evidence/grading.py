@@ -12,6 +12,13 @@ import pandas as pd
 from lagsieve.evidence.vocabulary import COLLINEAR_R, GRADE_ORDER, SHORT_OVERLAP_YEARS
 from lagsieve.stats.multiplicity import bh_qvalues
 
+#: Hypothesis columns the grading reads. A screen in which no hypothesis reached a stage (no
+#: out-of-sample forecast anywhere, every pair constant) writes none of that stage's columns:
+#: they are then added, empty, so that every hypothesis is graded by the same rules.
+GRADED_COLUMNS = ("lag", "n", "r", "p_naive", "n_eff", "p_adjusted", "p_detrended", "p_surrogate",
+                  "p_surrogate_lag", "oos_skill", "oos_skill_climatology", "oos_skill_persistence",
+                  "oos_skill_trend", "oos_n", "oos_p_surrogate", "retest_skill")
+
 
 def driver_correlations(table: pd.DataFrame, drivers: list[str], min_years: int = 10) -> pd.DataFrame:
     """Pairwise-complete Pearson r between drivers (transformed, same year); NaN below min_years."""
@@ -21,6 +28,13 @@ def driver_correlations(table: pd.DataFrame, drivers: list[str], min_years: int 
 def _get(row, key, default=np.nan):
     v = row.get(key, default)
     return default if v is None or (isinstance(v, float) and np.isnan(v)) else v
+
+
+def _yes(row, key) -> bool:
+    """A yes/no entry of a row; missing (NaN, as a CSV gives it for a hypothesis that never
+    reached the check) is no."""
+    v = row.get(key, False)
+    return False if v is None or (isinstance(v, float) and np.isnan(v)) else bool(v)
 
 
 def flags_for(row: dict, alpha: float, fdr: float) -> list[str]:
@@ -42,10 +56,10 @@ def flags_for(row: dict, alpha: float, fdr: float) -> list[str]:
         f.append("lag-selected")
     if n < SHORT_OVERLAP_YEARS:
         f.append("short-overlap")
-    if _get(row, "loo_max_change") > 0.2 or bool(row.get("loo_sign_flip", False)):
+    if _get(row, "loo_max_change") > 0.2 or _yes(row, "loo_sign_flip"):
         f.append("influential-year")
     h1, h2 = _get(row, "r_first_half"), _get(row, "r_second_half")
-    if (not np.isnan(h1) and not np.isnan(h2) and np.sign(h1) != np.sign(h2)) or bool(row.get("window_sign_flip", False)):
+    if (not np.isnan(h1) and not np.isnan(h2) and np.sign(h1) != np.sign(h2)) or _yes(row, "window_sign_flip"):
         f.append("unstable")
     significant = p_s <= alpha or _get(row, "q_value") <= fdr
     if significant and _get(row, "retest_skill") <= 0:
@@ -97,7 +111,22 @@ def cap_collinear(ev: pd.DataFrame) -> pd.Series:
     return grades
 
 
-def summary_sentence(row: dict) -> str:
+def insufficient_reason(row: dict, min_overlap: int) -> str:
+    """Why a hypothesis graded insufficient-data could not be judged, in plain words: the
+    reason its status records, else the rule of :func:`grade_row` that it missed."""
+    status = str(row.get("status", "") or "")
+    kind, _, words = status.partition(":")
+    if kind == "failed":
+        return f"the computation failed ({words.strip()})"
+    if kind == "insufficient" and words.strip():
+        return words.strip()
+    n = int(_get(row, "n", 0))
+    if n < min_overlap:
+        return f"{n} overlapping years, fewer than min_overlap {min_overlap}"
+    return "no out-of-sample skill could be computed"
+
+
+def summary_sentence(row: dict, min_overlap: int = 0) -> str:
     """A plain-words line for the report: what supports the hypothesis, or why it was set aside."""
     g = row["grade"]
     lag = row.get("lag")
@@ -116,7 +145,7 @@ def summary_sentence(row: dict) -> str:
         return f"{lead}, {direction}: set aside as a shared trend (naive p = {_get(row, 'p_naive'):.3f}; " \
                f"detrended r = {_get(row, 'r_detrended'):.2f}; surrogate p = {_get(row, 'p_surrogate'):.2f})"
     if g == "insufficient-data":
-        return f"insufficient data ({row.get('status', '')}; {int(_get(row, 'n', 0))} overlapping years)"
+        return f"insufficient data: {insufficient_reason(row, min_overlap)}"
     return f"{lead}, {direction}: no support (surrogate p = {_get(row, 'p_surrogate'):.2f}; " \
            f"out-of-sample skill {sk:+.2f})" + (f"; flags: {flags}" if flags else "")
 
@@ -124,8 +153,11 @@ def summary_sentence(row: dict) -> str:
 def build_evidence(hypotheses: pd.DataFrame, table: pd.DataFrame, screen: dict) -> pd.DataFrame:
     """Study-wide evidence: q-values over all hypotheses, collinearity, flags, grades, ranks."""
     ev = hypotheses.copy()
+    for col in GRADED_COLUMNS:
+        if col not in ev:
+            ev[col] = np.nan
     alpha, fdr, min_overlap = screen["alpha"], screen["fdr"], screen["min_overlap"]
-    ev["q_value"] = bh_qvalues(ev["p_surrogate"].to_numpy(float)) if "p_surrogate" in ev else np.nan
+    ev["q_value"] = bh_qvalues(ev["p_surrogate"].to_numpy(float))
     drivers = sorted(ev["driver"].unique())
     corr = driver_correlations(table, drivers)
     partners = {}
@@ -149,5 +181,5 @@ def build_evidence(hypotheses: pd.DataFrame, table: pd.DataFrame, screen: dict) 
                         ascending=[True, True, True, True, False], na_position="last", kind="mergesort")
     ev["rank"] = ev.groupby("response").cumcount() + 1
     ev = ev.drop(columns="_g")
-    ev["summary"] = [summary_sentence(r) for r in ev.to_dict("records")]
+    ev["summary"] = [summary_sentence(r, min_overlap) for r in ev.to_dict("records")]
     return ev.reset_index(drop=True)

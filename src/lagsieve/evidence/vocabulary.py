@@ -18,8 +18,9 @@ GRADE_RULES = {
     "none": "no support after adjustment.",
     "spurious-trend": "the naive correlation is significant but the evidence collapses after detrending, "
                       "against surrogates, or against the trend baseline out of sample.",
-    "insufficient-data": "too few overlapping years for the screening or the out-of-sample scheme, or the "
-                         "hypothesis failed numerically (see status).",
+    "insufficient-data": "too few overlapping years for the screening or the out-of-sample scheme, a series "
+                         "that is constant where the two overlap, or a computation that failed; the reason is in "
+                         "the status column and in the list Not computed of the summary.",
 }
 
 FLAGS = {
@@ -51,5 +52,5 @@ GRADE_WORDS = {  # one-line meaning of each grade, for the report's summary and 
     "weak": "some support, not enough to carry forward",
     "none": "no support after adjustment",
     "spurious-trend": "shares a trend only",
-    "insufficient-data": "too few years to judge",
+    "insufficient-data": "could not be judged",
 }

@@ -14,6 +14,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
+from lagsieve.errors import fmt_number
 from lagsieve.prep.align import forecast_frame, inverse_variance_weights, shift_batch
 from lagsieve.stats import correlation as st
 from lagsieve.stats.backtest import (
@@ -124,12 +125,12 @@ def screen_hypothesis(table: pd.DataFrame, response: dict, driver: dict, lags: l
     hyp = {"response": rid, "driver": did, "category": driver.get("category", "other"),
            "expected_sign": sign, "model": "linear", "lags_tried": len(lags)}
     if not scan.data:
-        hyp.update(status=f"insufficient: no lag has {MIN_YEARS} overlapping years", n=int(screen_rows["n"].max()))
+        hyp.update(status=f"insufficient: {no_lag_reason(table, rid, did, lags)}", n=int(screen_rows["n"].max()))
         return screen_rows, hyp, None, None
     max_stat = _in_sample_evidence(hyp, scan, screen_rows, lags, use_gam)
     nulls = [pd.DataFrame({"response": rid, "driver": did, "test": "in-sample", "statistic": "best-lag r (directed)",
                            "value": max_stat[1:], "observed": max_stat[0]})]
-    fc, oos_null = _out_of_sample(hyp, table, rid, did, lags, batch, screen, response_se)
+    fc, oos_null, oos_reason = _out_of_sample(hyp, table, rid, did, lags, batch, screen, response_se)
     if oos_null is not None:
         nulls.append(oos_null)
     if use_gam:
@@ -137,8 +138,41 @@ def screen_hypothesis(table: pd.DataFrame, response: dict, driver: dict, lags: l
         if len(g):
             for col in GAM_COLUMNS:
                 hyp[col] = g.iloc[0].get(col)
-    hyp["status"] = "ok"
+    hyp["status"] = f"insufficient: {oos_reason}" if oos_reason else "ok"
     return screen_rows, hyp, fc, pd.concat(nulls, ignore_index=True)
+
+
+# --------------------------------------------------------------------------- what could not be screened
+
+
+def constant_value(values: np.ndarray) -> float | None:
+    """The value of a series that takes one value in every observed year (at least two); None
+    otherwise. Tested exactly (max == min): a constant's mean is not always exact in floating
+    point, so its centred values can be 1e-17 noise that a correlation would divide by."""
+    v = np.asarray(values, float)
+    v = v[~np.isnan(v)]
+    return float(v[0]) if len(v) >= 2 and v.max() == v.min() else None
+
+
+def constant_words(series: str, value: float) -> str:
+    """'m:age2 is constant (0.2 every year): correlations are undefined'."""
+    return f"{series} is constant ({fmt_number(value)} every year): correlations are undefined"
+
+
+def no_lag_reason(table: pd.DataFrame, rid: str, did: str, lags: list[int]) -> str:
+    """Why no lag of a hypothesis could be screened, in plain words."""
+    for sid in (rid, did):
+        value = constant_value(table[sid].to_numpy(float))
+        if value is not None:
+            return constant_words(sid, value)
+    y = table[rid].to_numpy(float)
+    x = table[did].to_numpy(float)[None, :]
+    counts = [int((~(np.isnan(y) | np.isnan(shift_batch(x, k)[0]))).sum()) for k in lags]
+    if max(counts) == 0:
+        return f"{did} has no value in any year of {rid} at the lags tried ({', '.join(map(str, lags))})"
+    if max(counts) < MIN_YEARS:
+        return f"no lag has {MIN_YEARS} overlapping years (most: {max(counts)})"
+    return f"{rid} or {did} is constant over the years they share at every lag: correlations are undefined"
 
 
 # --------------------------------------------------------------------------- in sample
@@ -167,8 +201,10 @@ def _scan_lags(table, rid, did, sign, lags, batch, screen) -> _LagScan:
         base = {"response": rid, "driver": did, "lag": k, "model": "linear", "n": n,
                 "first_year": int(years_full[ok][0]) if n else None,
                 "last_year": int(years_full[ok][-1]) if n else None}
-        if n < MIN_YEARS:
-            scan.rows.append(dict(base, status=f"skipped: fewer than {MIN_YEARS} overlapping years"))
+        skip = f"fewer than {MIN_YEARS} overlapping years" if n < MIN_YEARS else _constant_pair(
+            rid, y_full[ok], did, xk[0, ok])
+        if skip:
+            scan.rows.append(dict(base, status=f"skipped: {skip}"))
             scan.stats.append(np.full(batch.shape[0], np.nan))
             if use_gam:
                 scan.gam_stats.append(np.full(batch.shape[0], np.nan))
@@ -184,6 +220,14 @@ def _scan_lags(table, rid, did, sign, lags, batch, screen) -> _LagScan:
             scan.gam_stats.append(g_stat)
         scan.rows.append(dict(base, **_linear_lag_row(x[0], y, yrs, float(r_all[0]), stat)))
     return scan
+
+
+def _constant_pair(rid: str, y: np.ndarray, did: str, x: np.ndarray) -> str | None:
+    """Why a lag cannot be screened when one series is constant over the shared years."""
+    for sid, v in ((rid, y), (did, x)):
+        if constant_value(v) is not None:
+            return f"{sid} is constant over these years ({fmt_number(v[0])})"
+    return None
 
 
 def _linear_lag_row(x: np.ndarray, y: np.ndarray, yrs: np.ndarray, r: float, stat: np.ndarray) -> dict:
@@ -268,13 +312,14 @@ def _stability(x: np.ndarray, y: np.ndarray, window: int = 15) -> dict:
 
 def _out_of_sample(hyp: dict, table, rid, did, lags, batch, screen, response_se):
     """Backtest (rolling origin) and re-test of the hypothesis: adds the ``oos_*`` and
-    ``retest_*`` entries to ``hyp``; returns (forecasts, null statistics), None when the
-    backtest leaves fewer than MIN_FORECASTS forecasts."""
+    ``retest_*`` entries to ``hyp``; returns (forecasts, null statistics, reason). ``reason``
+    says in plain words why the backtest cannot be judged (None when it can); with fewer
+    than MIN_FORECASTS forecasts the forecasts and nulls are None too."""
     ff = forecast_frame(table, rid, did, lags)
     initial, holdout = backtest_windows(len(ff.years), screen.get("validation", {}))
     hyp.update(oos_initial=initial, oos_n=max(0, len(ff.years) - initial))
     if len(ff.years) - initial < MIN_FORECASTS:
-        return None, None
+        return None, None, too_few_forecasts(len(ff.years), initial)
     X = np.stack([shift_batch(batch, k)[:, ff.rows] for k in lags], axis=1)  # (S, L, T)
     models = tuple(m for m in ("linear", "gam") if m in screen["models"])
     w = None
@@ -291,7 +336,16 @@ def _out_of_sample(hyp: dict, table, rid, did, lags, batch, screen, response_se)
         rt = retest(ff.y, ff.ylag, ff.years, X[0], np.asarray(lags), holdout, ro.candidate, weights=w)
         hyp["retest_skill"] = rt.min_skill
         hyp["retest_years"] = f"{int(rt.years[0])}-{int(rt.years[-1])}"
-    return fc, null
+    reason = None if np.isfinite(hyp["oos_skill"]) else (
+        "out-of-sample skill is undefined: a baseline forecasts the response without error")
+    return fc, null, reason
+
+
+def too_few_forecasts(usable: int, initial: int) -> str:
+    """Why a hypothesis has no out-of-sample forecasts, in plain words."""
+    left = max(0, usable - initial)
+    return (f"no out-of-sample forecasts (the first training window of {initial} years leaves {left} of "
+            f"{usable} usable years to forecast; at least {MIN_FORECASTS} are needed)")
 
 
 def _backtest_summary(ro: RollingOriginResult) -> dict:

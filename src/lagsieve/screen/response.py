@@ -3,6 +3,8 @@ see :mod:`lagsieve.screen.hypothesis`), optionally in several processes."""
 from __future__ import annotations
 
 import multiprocessing as mp
+import sys
+import traceback
 from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass
 
@@ -23,16 +25,34 @@ class ResponseScreen:
     nulls: pd.DataFrame  # surrogate statistics, for the report
 
 
+NUMERICAL = (np.linalg.LinAlgError, ValueError, FloatingPointError, ZeroDivisionError)
+
+#: Columns of the per-response tables when no hypothesis produced a row of them.
+FORECAST_COLUMNS = ["response", "driver", "year", "observed"]
+NULL_COLUMNS = ["response", "driver", "test", "statistic", "value", "observed"]
+
+
+def failure_words(exc: BaseException) -> str:
+    """The reason recorded for a hypothesis whose computation raised ``exc``: the message of a
+    numerical failure as it is; anything else named by its type as well, so it can be traced."""
+    words = " ".join(str(exc).split()) or type(exc).__name__
+    return words if isinstance(exc, NUMERICAL) else f"{type(exc).__name__}: {words}"
+
+
 def _screen_one(table, response, driver, lags, screen, se):
-    """screen_hypothesis with a numerical failure turned into a ``failed: <reason>`` row."""
+    """screen_hypothesis with any failure turned into a ``failed: <reason>`` row: one
+    hypothesis never stops the others (the traceback goes to the job's log)."""
     rid = response["id"]
     try:
         return screen_hypothesis(table, response, driver, lags, screen, se)
-    except (np.linalg.LinAlgError, ValueError, FloatingPointError, ZeroDivisionError) as exc:
+    except Exception as exc:  # noqa: BLE001 - recorded in the row's status, the stage goes on
+        if not isinstance(exc, NUMERICAL):
+            traceback.print_exc(file=sys.stderr)
+        why = failure_words(exc)
         s = pd.DataFrame([{"response": rid, "driver": driver["id"], "lag": k, "model": "linear",
-                           "status": f"failed: {exc}"} for k in lags])
+                           "status": f"failed: {why}"} for k in lags])
         h = {"response": rid, "driver": driver["id"], "category": driver.get("category"),
-             "expected_sign": driver.get("expected_sign"), "status": f"failed: {exc}"}
+             "expected_sign": driver.get("expected_sign"), "status": f"failed: {why}"}
         return s, h, None, None
 
 
@@ -57,8 +77,9 @@ def _run_parallel(tasks: list[tuple], table: pd.DataFrame, workers: int) -> list
     return results
 
 
-def _concat(frames: list[pd.DataFrame]) -> pd.DataFrame:
-    return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame()
+def _concat(frames: list[pd.DataFrame], columns: list[str] | None = None) -> pd.DataFrame:
+    """The frames stacked; with none, an empty frame with ``columns`` (so its CSV has a header)."""
+    return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(columns=columns)
 
 
 def screen_response(table: pd.DataFrame, study, response_id: str, se_table: pd.DataFrame | None = None,
@@ -81,6 +102,6 @@ def screen_response(table: pd.DataFrame, study, response_id: str, se_table: pd.D
     return ResponseScreen(
         screen=_concat([r[0] for r in results]),
         hypotheses=pd.DataFrame([r[1] for r in results]),
-        forecasts=_concat([r[2] for r in results if r[2] is not None]),
-        nulls=_concat([r[3] for r in results if r[3] is not None]),
+        forecasts=_concat([r[2] for r in results if r[2] is not None], FORECAST_COLUMNS),
+        nulls=_concat([r[3] for r in results if r[3] is not None], NULL_COLUMNS),
     )
