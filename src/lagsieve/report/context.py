@@ -7,6 +7,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
+from lagsieve.evidence.grading import insufficient_reason
 from lagsieve.evidence.vocabulary import GRADE_WORDS
 from lagsieve.prep.align import lagged_pair
 from lagsieve.stats.splines import fit_pspline, partial_effect
@@ -77,13 +78,22 @@ def _weak_reason(row: dict, flags: list[str]) -> str:
     return "weak: short of the moderate rule"
 
 
+def not_computed_reason(row: dict, min_overlap: int = 0) -> str:
+    """Why a hypothesis graded insufficient-data could not be judged: the reason its summary
+    gives (written by the evidence stage, which knows the screen's min_overlap), else the
+    reason worked out again from its row."""
+    said = text(row.get("summary"))
+    prefix = "insufficient data: "
+    return said[len(prefix):] if said.startswith(prefix) else insufficient_reason(row, min_overlap)
+
+
 def set_aside_reason(row: dict) -> str:
     """A few words on why a hypothesis is not carried forward."""
     g, flags = text(row.get("grade")), flag_list(row.get("flags"))
     if g == "spurious-trend":
         return "shares a trend only; nothing left after detrending or against trend-keeping surrogates"
     if g == "insufficient-data":
-        return "computation failed" if "failed" in flags else "too few overlapping years to judge"
+        return "not computed: " + not_computed_reason(row)
     if g == "none":
         words = "no support after adjustment"
         if "sign-unexpected" in flags:
@@ -136,6 +146,21 @@ class Context:
     def axis(self, sid) -> str:
         u = self.units.get(sid)
         return f"{self.label(sid)} ({u})" if u else self.label(sid)
+
+
+def not_computed(ctx: Context) -> list[tuple[str, list[str]]]:
+    """The hypotheses that could not be judged (grade insufficient-data), grouped by the reason
+    in plain words: [(reason, ['response label × driver label', ...])], in the order of the
+    evidence table."""
+    ev = ctx.evidence
+    if not len(ev) or "grade" not in ev:
+        return []
+    min_overlap = int(ctx.study.screen.get("min_overlap", 0))
+    groups: dict[str, list[str]] = {}
+    for row in ev[ev["grade"] == "insufficient-data"].to_dict("records"):
+        groups.setdefault(not_computed_reason(row, min_overlap), []).append(
+            f"{ctx.label(row['response'])} \u00d7 {ctx.label(row['driver'])}")
+    return list(groups.items())
 
 
 def top_rows(ctx: Context) -> list[dict]:

@@ -18,7 +18,9 @@ import io
 import multiprocessing as mp
 import os
 import pickle
+import sys
 import textwrap
+import traceback
 import warnings
 from concurrent.futures import ProcessPoolExecutor
 from concurrent.futures.process import BrokenProcessPool
@@ -372,6 +374,27 @@ def forecasts(years, observed, baselines: dict, model, hardest: str, response: s
     return fig
 
 
+def null_limits(values: np.ndarray, observed: float) -> tuple[float, float]:
+    """The x range of a null distribution panel: the finite surrogate ``values`` and the real
+    driver's value (when finite), with 5% room. A few surrogates can be far out (a skill of -40
+    against a good baseline): below the 1% quantile they are left beyond the left edge when the
+    lowest lies more than 4 interquartile ranges below the lower quartile."""
+    v = np.asarray(values, float)
+    v = v[np.isfinite(v)]
+    known = [observed] if np.isfinite(observed) else []
+    if not len(v) and not known:
+        return -0.05, 1.05
+    lo = min(known) if known else np.inf
+    if len(v):
+        q1, q25, q75 = np.quantile(v, [0.01, 0.25, 0.75])
+        far = np.min(v) < q25 - 4.0 * (q75 - q25)
+        lo = min([q1 if far else np.min(v)] + known)
+    top = max(([float(np.max(v))] if len(v) else []) + known)
+    span = (top - lo) if len(v) else 1.0
+    span = span if span > 0 else 1.0
+    return float(lo - 0.05 * span), float(top + 0.05 * span)
+
+
 def null_distributions(panels: list[dict], invented: bool = False):
     """Histograms of the statistic over the surrogate drivers with the real driver's value.
     ``panels``: dicts with values, observed, label, p, title."""
@@ -381,19 +404,12 @@ def null_distributions(panels: list[dict], invented: bool = False):
         v = np.asarray(p["values"], float)
         v = v[np.isfinite(v)]
         obs = float(p["observed"])
-        # a few surrogates can be far out (e.g. a skill of -40 against a good baseline); show
-        # the bulk and say how many lie beyond the left edge
-        lo = obs
-        if len(v):
-            q1, q25, q75 = np.quantile(v, [0.01, 0.25, 0.75])
-            far = np.min(v) < q25 - 4.0 * (q75 - q25)
-            lo = min(q1 if far else np.min(v), obs)
-        span = (max(np.max(v), obs) - lo) if len(v) else 1.0
-        lo -= 0.05 * span
+        lo, hi = null_limits(v, obs)
         shown = v[v >= lo]
         ax.hist(shown, bins=int(np.clip(len(shown) // 10, 8, 30)), color="#b8d4ec", edgecolor="white", linewidth=0.4, label="surrogates")
-        ax.axvline(obs, color=DRIVER_COLOUR, lw=2, label="real driver")
-        ax.set_xlim(lo, max(np.max(v) if len(v) else obs, obs) + 0.05 * span)
+        if np.isfinite(obs):  # a statistic that could not be computed has no line to draw
+            ax.axvline(obs, color=DRIVER_COLOUR, lw=2, label="real driver")
+        ax.set_xlim(lo, hi)
         ax.set_xlabel(mpl_text(p["label"]))
         if k == 0:
             ax.set_ylabel("surrogates")
@@ -482,10 +498,18 @@ def save(fig, figures_dir: str | Path, name: str) -> tuple[str, tuple[int, int]]
 
 def _draw_job(job: FigureJob, figures_dir: str):
     """Build and rasterise one job; return (name, base64, size, pickled figure or None). When
-    the figure cannot be pickled its SVG is written at once."""
+    the figure cannot be pickled its SVG is written at once. A figure that cannot be drawn
+    gives (name, None, None, None) and its traceback in the log (stderr): the page leaves it
+    out, and the rest of the report is still made."""
     with plt.rc_context(RC):
-        fig = BUILDERS[job.builder](**job.kwargs)
-        b64, size = save_png(fig, figures_dir, job.name)
+        try:
+            fig = BUILDERS[job.builder](**job.kwargs)
+            b64, size = save_png(fig, figures_dir, job.name)
+        except Exception:  # noqa: BLE001 - one figure never stops the report
+            sys.stderr.write(f"lagsieve: figure {job.name} could not be drawn; left out of the report\n")
+            traceback.print_exc(file=sys.stderr)
+            plt.close("all")
+            return job.name, None, None, None
         try:
             blob = pickle.dumps(fig)
         except Exception:  # some artist that does not pickle: write the SVG here instead
@@ -552,6 +576,8 @@ class FigureRenderer:
             results = [_draw_job(*a) for a in args]
         out = {}
         for name, b64, size, blob in results:
+            if b64 is None:  # not drawn (see _draw_job)
+                continue
             out[name] = (b64, size)
             if blob is not None:
                 self._blobs[name] = blob

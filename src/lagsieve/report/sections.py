@@ -8,8 +8,8 @@ import pandas as pd
 
 from lagsieve.evidence.vocabulary import COLLINEAR_R, GRADES, SUPPORTED
 from lagsieve.report import figures as fg
-from lagsieve.report.context import (Context, is_missing, lead_words, num, p_text, range_words, set_aside_reason,
-                                     summary_line, text)
+from lagsieve.report.context import (Context, is_missing, lead_words, not_computed, num, p_text, range_words,
+                                     set_aside_reason, summary_line, text)
 from lagsieve.report.methods import methods_paragraphs, reference_list
 
 CAUTIONS = [
@@ -87,6 +87,8 @@ def summary(ctx: Context) -> dict:
     return {"n_responses": len(ctx.study.response_ids), "n_drivers": len(ctx.study.driver_ids),
             "n_hypotheses": len(ev), "first_year": int(ctx.table.index.min()), "last_year": int(ctx.table.index.max()),
             "counts": [(g, int(counts.get(g, 0))) for g in GRADES if counts.get(g, 0)],
+            "none_supported": not ev["grade"].isin(SUPPORTED).any() if len(ev) else True,
+            "not_computed": not_computed(ctx),
             "responses": [_response_summary(ctx, rid) for rid in ctx.study.response_ids]}
 
 
