@@ -20,8 +20,8 @@ from lagsieve import pipeline as stages
 from lagsieve.errors import InputErrors
 from lagsieve.evidence.vocabulary import COLLINEAR_R
 from lagsieve.io.config import load_study
-from lagsieve.prep.budget import (MAX_HYPOTHESES_PER_RESPONSE, MAX_SCREEN_ROWS, MAX_SURROGATE_VALUES,
-                                  budget_problems, plan_size)
+from lagsieve.prep.budget import (MAX_HYPOTHESES, MAX_HYPOTHESES_PER_RESPONSE, MAX_HYPOTHESES_WITH_PDF,
+                                  MAX_SCREEN_ROWS, MAX_SURROGATE_VALUES, budget_problems, plan_size)
 from lagsieve.report import figures as fg
 from lagsieve.report import plan as rp
 from lagsieve.report.context import Context
@@ -252,3 +252,28 @@ def test_check_refuses_too_many_drivers_for_one_response(tmp_path):
     assert proc.stderr.strip() == (f"{cfg}: study has {n:,} drivers for one response (limit "
                                    f"{MAX_HYPOTHESES_PER_RESPONSE:,}); split the drivers across several study "
                                    "configs (each with part of the drivers)")
+
+
+def test_the_500_driver_study_fits_the_budget_even_with_999_surrogates(tmp_path):
+    """The study of the issue (500 drivers x 3 responses, lags 0-3, linear) is allowed: its report
+    is bounded by the caps, not refused; at the default 999 surrogates it is just inside."""
+    (tmp_path / "data.csv").write_text("series,year,value\n")
+    study = load_study(write_config(tmp_path / "config.yaml", _raw(500, 3, surrogates=999)))
+    size = plan_size(study)
+    assert (size.screen_rows, size.hypotheses, size.surrogate_values) == (6_000, 1_500, 2_997_000)
+    assert budget_problems(study) == []
+
+
+def test_a_pdf_report_has_a_lower_hypothesis_limit(tmp_path):
+    (tmp_path / "data.csv").write_text("series,year,value\n")
+    n = MAX_HYPOTHESES_WITH_PDF // 2 + 50  # per response under its limit, the study over the PDF's
+    raw = _raw(n, 2)
+    del raw["report"]["pdf"]  # the default: a PDF copy
+    cfg = write_config(tmp_path / "config.yaml", raw)
+    (line,) = [p.line() for p in budget_problems(load_study(cfg))]
+    assert line == (f"{cfg}: study has {2 * n:,} hypotheses (responses x drivers) with a PDF report (limit "
+                    f"{MAX_HYPOTHESES_WITH_PDF:,}); set report.pdf: false (the HTML report holds them all) or split "
+                    "the drivers across several study configs")
+    raw["report"]["pdf"] = False
+    assert budget_problems(load_study(write_config(tmp_path / "config.yaml", raw))) == []
+    assert 2 * n < MAX_HYPOTHESES

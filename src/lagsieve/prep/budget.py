@@ -31,6 +31,13 @@ MAX_HYPOTHESES_PER_RESPONSE = 2_000
 #: reads and stacks: about 350 MB per million at the peak, so 3 million is about 1 GB (500 drivers
 #: x 3 responses with the default 999 surrogates, 2,997,000 values, still passes).
 MAX_SURROGATE_VALUES = 3_000_000
+#: hypotheses of a study whose report has a PDF copy: WeasyPrint lays out the whole page, whose
+#: ranked table has a row per hypothesis; on the 500-driver page (1,500 rows) it peaked at
+#: 1,155 MB and took 181 s, about 0.6 MB per row over some 250 MB, so 2,500 rows stay near 1.8 GB.
+MAX_HYPOTHESES_WITH_PDF = 2_500
+#: hypotheses of a study without a PDF: the page (about 2 kB of HTML per hypothesis on the
+#: 500-driver page, 5.3 MB in all with its figures) stays a few tens of MB.
+MAX_HYPOTHESES = 10_000
 
 @dataclass(frozen=True)
 class PlanSize:
@@ -40,6 +47,7 @@ class PlanSize:
     hypotheses: int
     largest_response: int  # hypotheses of the response with the most drivers
     surrogate_values: int
+    pdf: bool  # the report has a PDF copy (report.pdf, default true)
 
 
 def plan_size(study: Study) -> PlanSize:
@@ -50,7 +58,8 @@ def plan_size(study: Study) -> PlanSize:
     hyps = sum(len(drivers) for drivers in per_response)
     return PlanSize(screen_rows=rows, hypotheses=hyps,
                     largest_response=max((len(d) for d in per_response), default=0),
-                    surrogate_values=2 * hyps * int(study.screen.get("surrogates", 0)))
+                    surrogate_values=2 * hyps * int(study.screen.get("surrogates", 0)),
+                    pdf=(study.raw.get("report") or {}).get("pdf") is not False)
 
 
 def budget_problems(study: Study) -> list[InputProblem]:
@@ -62,6 +71,9 @@ def budget_problems(study: Study) -> list[InputProblem]:
          f"{split}, or screen fewer lags or models"),
         (size.largest_response, MAX_HYPOTHESES_PER_RESPONSE, "drivers for one response",
          f"{split} (each with part of the drivers)"),
+        (size.hypotheses, MAX_HYPOTHESES_WITH_PDF if size.pdf else MAX_HYPOTHESES,
+         "hypotheses (responses x drivers)" + (" with a PDF report" if size.pdf else ""),
+         ("set report.pdf: false (the HTML report holds them all) or " if size.pdf else "") + split),
         (size.surrogate_values, MAX_SURROGATE_VALUES, "stored surrogate values (hypotheses x surrogates x 2)",
          f"lower screen.surrogates or {split}"),
     ]
