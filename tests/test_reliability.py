@@ -101,7 +101,7 @@ def test_killed_run_resumes(tmp_path, new_study, rerun):
     assert f"the run that held {out} has stopped (pid {proc.pid}" in resumed.stderr
     assert (out / "caldrin_shelf_demo" / "evidence.csv").stat().st_size > 0
     assert (out / "caldrin_shelf_demo" / "report.html").stat().st_size > 0
-    assert not (out / LOCK_NAME).exists() and not list((out / ".snakemake" / "locks").iterdir())
+    assert not (out / LOCK_NAME).exists() and not list((out / ".snakemake" / "locks").glob("*"))
 
 
 @pytest.mark.parametrize("key, value, needle", [
