@@ -29,7 +29,7 @@ from lagsieve.ledger.store import resolve_ledger_path
 from lagsieve.prep.align import annual_table, se_table
 from lagsieve.prep.annual import to_annual
 from lagsieve.prep.budget import budget_problems
-from lagsieve.prep.checks import check_positive, series_warnings
+from lagsieve.prep.checks import check_positive, series_warnings, unscreenable_responses
 from lagsieve.screen.response import screen_response
 
 SCREEN_COLUMNS = ["response", "driver", "lag", "model", "n", "first_year", "last_year", "r", "p_naive",
@@ -200,6 +200,7 @@ def check_study(config_path: str | Path):
     for s in study.responses + study.drivers:
         problems += check_positive(annual, s["id"], s.get("transform", "none"), long)
     _raise_any(problems)
+    _raise_any(unscreenable_responses(study, annual))
     if study.screen.get("weights") == "inverse-variance":
         _raise_any(_responses_without_se(study, annual))
     units = {s["id"]: s["unit"] for s in study.responses + study.drivers if s.get("unit")}

@@ -8,8 +8,10 @@ import numpy as np
 import pandas as pd
 
 from lagsieve.errors import InputProblem, InputWarning, fmt_number, show
+from lagsieve.io.config import Study
+from lagsieve.prep.align import annual_table, shift_batch
 
-__all__ = ["check_positive", "series_warnings"]
+__all__ = ["check_positive", "series_warnings", "unscreenable_responses"]
 
 def check_positive(annual_df: pd.DataFrame, series: str, transform: str | None,
                    sources: pd.DataFrame | None = None) -> list[InputProblem]:
@@ -98,3 +100,52 @@ def series_warnings(annual_df: pd.DataFrame, min_overlap: int,
                         what=f"the data give unit '{show(u)}' but the config says "
                              f"'{show(expected)}'", file=file, series=sid))
     return out
+
+
+def _best_overlap(table: pd.DataFrame, rid: str, drivers: list[tuple[str, list[int]]]) -> tuple[int, str, int]:
+    """(years, driver, lag) of the largest overlap of a response with one of its drivers at one
+    of that driver's lags, counted as the screen counts it (filled years included)."""
+    y = table[rid].to_numpy(float) if rid in table else np.full(len(table), np.nan)
+    best = (0, "", 0)
+    for did, lags in drivers:
+        if did not in table:
+            continue
+        x = table[did].to_numpy(float)[None, :]
+        for k in lags:
+            n = int((~(np.isnan(y) | np.isnan(shift_batch(x, k)[0]))).sum())
+            if n > best[0]:
+                best = (n, did, k)
+    return best
+
+
+def _unscreenable(table: pd.DataFrame, rid: str, drivers: list[tuple[str, list[int]]], need: int
+                  ) -> tuple[str, str] | None:
+    """(what is wrong, how to fix it) when nothing can be screened for one response; else None."""
+    if not drivers:
+        return ("no driver is screened against this response (every driver's responses list leaves it out)",
+                "add the response to a driver's responses, or remove the response")
+    n, did, lag = _best_overlap(table, rid, drivers)
+    if n >= need:
+        return None
+    best = f" (most: {n} with '{show(did)}' at lag {lag})" if n else ""
+    return (f"shares fewer than screen.min_overlap = {need} years with every one of its drivers at every "
+            f"lag{best}, so nothing can be screened for it",
+            "extend the series, lower screen.min_overlap, or remove the response")
+
+
+def unscreenable_responses(study: Study, annual: pd.DataFrame) -> list[InputProblem]:
+    """A problem for every response of which nothing could be screened: no driver is paired
+    with it, or none of its drivers shares ``screen.min_overlap`` years with it at any lag, so
+    every one of its hypotheses could only be graded insufficient-data. (A short, constant or
+    missing driver is not refused: it is one candidate among several, and the report says why
+    it could not be judged.)"""
+    table = annual_table(annual, {})
+    need = int(study.screen["min_overlap"])
+    problems = []
+    for i, r in enumerate(study.responses):
+        drivers = [(d["id"], study.lags_for(d)) for d in study.drivers_for(r["id"])]
+        found = _unscreenable(table, r["id"], drivers, need)
+        if found:
+            problems.append(InputProblem(what=found[0], fix=found[1], file=str(study.path),
+                                         key=f"responses.{i}", series=r["id"]))
+    return problems
