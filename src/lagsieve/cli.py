@@ -3,6 +3,12 @@
 A user's mistake prints one line per problem and exits with status 2, never a traceback; so
 does a file of the installed package that has gone missing (with the advice to reinstall).
 
+User files are kept: `init` never overwrites a file (:func:`lagsieve.demo.write.write_study`);
+`run` writes only under its results folder, which it locks for the run
+(:mod:`lagsieve.io.lock`: a second run is refused while the first lives; a dead run's lock is
+taken over, so a plain rerun continues a killed run), after checking the study, the folder
+and the forecast ledger (:func:`lagsieve.ledger.store.check_ledger`) without writing.
+
 Lazy imports, for two reasons. Measured (`python -X importtime -m lagsieve --help`, this
 shared machine): 0.35-0.4 s with the imports below, 3.3-4.5 s when the stages
 (lagsieve.pipeline, lagsieve.demo, lagsieve.ledger: pandas, scipy.stats) are imported at
@@ -180,9 +186,10 @@ def build_parser() -> argparse.ArgumentParser:
                                 "or condition honestly: lagged and nonlinear, out of sample, against surrogates.")
     p.add_argument("--version", action="version", version=f"lagsieve {lagsieve.__version__}")
     sub = p.add_subparsers(dest="command", required=True)
-    s = sub.add_parser("init", help="write a new study folder with a commented config and the invented demo data "
-                       "(never overwrites a file: refuses, naming them, if any of its files exists)")
-    s.add_argument("dir")
+    text = ("write a new study folder with a commented config and the invented demo data (never overwrites "
+            "a file: refuses, naming them, if any of its files exists)")
+    s = sub.add_parser("init", help=text, description=text)
+    s.add_argument("dir", help="the study folder: new, or one without config.yaml and data/ files of the same names")
     s = sub.add_parser("check", help="validate a study config and every input file")
     s.add_argument("config")
     s = sub.add_parser("run", help="run the screening workflow for a study (extra options go to Snakemake)")
