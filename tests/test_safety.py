@@ -487,3 +487,33 @@ def test_ledger_on_a_full_disk_is_one_line(tmp_path, monkeypatch):
     monkeypatch.setattr(store, "ensure_schema", lambda con: con.execute("SELECT * FROM no_such_table"))
     with pytest.raises(sqlite3.OperationalError, match="no_such_table"):
         connect(tmp_path / "ledger.sqlite")
+
+
+def _claim_and_hold(args):
+    folder, start = args
+    import time as _time
+
+    while _time.time() < start:  # all contenders start together
+        _time.sleep(0.001)
+    try:
+        held = claim_results(folder, "contender")
+    except InputErrors as exc:
+        return "refused" if "in progress" in str(exc) or "changing hands" in str(exc) else str(exc)
+    _time.sleep(1.5)  # hold it while the others try
+    held.release()
+    return "held"
+
+
+def test_one_of_many_reruns_takes_over_a_stale_lock(tmp_path):
+    """Four reruns start at once on a folder with a dead run's lock: exactly one takes it over,
+    the others are refused (the stale lock is renamed aside before removal, so no rerun can
+    remove the lock another has just made)."""
+    import multiprocessing as mp
+    import time
+
+    _write_lock(tmp_path, pid=_reaped())
+    start = time.time() + 1.0
+    with mp.get_context("fork").Pool(4) as pool:
+        outcomes = pool.map(_claim_and_hold, [(tmp_path, start)] * 4)
+    assert sorted(outcomes) == ["held", "refused", "refused", "refused"], outcomes
+    assert list(tmp_path.iterdir()) == []  # released, nothing left aside
