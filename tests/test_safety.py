@@ -517,3 +517,15 @@ def test_one_of_many_reruns_takes_over_a_stale_lock(tmp_path):
         outcomes = pool.map(_claim_and_hold, [(tmp_path, start)] * 4)
     assert sorted(outcomes) == ["held", "refused", "refused", "refused"], outcomes
     assert list(tmp_path.iterdir()) == []  # released, nothing left aside
+
+
+def test_check_and_ledger_write_nothing(new_study, capsys):
+    """`check` and `ledger` only read: the study folder (config, data, an existing ledger) keeps
+    every byte and time stamp, and no file appears."""
+    ledger = _ledger(new_study.parent / "results" / "caldrin_shelf_demo" / "ledger.sqlite")
+    before = _state(new_study.parent)
+    assert lagsieve("check", new_study).returncode == 0
+    cli.main(["ledger", str(new_study)])
+    capsys.readouterr()
+    assert _state(new_study.parent) == before
+    assert ledger.exists()
