@@ -21,7 +21,7 @@ import pytest
 from helpers import REPO, lagsieve, make_report, run_study, tiny_config
 from lagsieve import pipeline as stages
 from lagsieve.errors import InputErrors
-from lagsieve.evidence.grading import build_evidence, flags_for
+from lagsieve.evidence.grading import build_evidence, flags_for, insufficient_reason
 from lagsieve.report import figures as fg
 from lagsieve.screen import response as screen_response_module
 from lagsieve.screen.hypothesis import constant_value, too_few_forecasts
@@ -127,6 +127,29 @@ def test_no_forecasts_report_says_what_was_not_computed(no_forecasts):
     assert ("M age 2 \u00d7 " in html and "the first training window of 36 years leaves 3 of 39 usable years "
             "to forecast; at least 5 are needed" in html)
     assert not (res / "report.pdf").exists()
+
+
+def test_check_warns_that_nothing_can_be_forecast(no_forecasts):
+    cfg, res, _ = no_forecasts
+    _, _, _, warnings = stages.check_study(cfg)
+    (w,) = [w for w in warnings if "initial_years" in w.what]
+    assert w.line() == (f"warning: {cfg}: screen.validation.initial_years = 36 leaves fewer than 5 years to "
+                        "forecast for every hypothesis (at most 3), so none can be graded above "
+                        "insufficient-data; a smaller first training window gives forecasts")
+    assert "screen.validation.initial_years = 36 leaves fewer than 5 years" in _report_text(res)
+
+
+def test_demo_settings_give_no_backtest_warning(new_study):
+    _, _, _, warnings = stages.check_study(new_study)
+    assert not [w for w in warnings if "initial_years" in w.what]
+
+
+def test_insufficient_reason_words():
+    assert insufficient_reason({"status": "ok", "n": 12}, 15) == "12 overlapping years, fewer than min_overlap 15"
+    assert insufficient_reason({"status": "failed: singular matrix"}, 15) == \
+        "the computation failed (singular matrix)"
+    assert insufficient_reason({"status": "insufficient: x is constant"}, 15) == "x is constant"
+    assert insufficient_reason({"status": "ok", "n": 30}, 15) == "no out-of-sample skill could be computed"
 
 
 def test_too_few_forecasts_words():

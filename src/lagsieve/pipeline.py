@@ -29,7 +29,7 @@ from lagsieve.ledger.store import resolve_ledger_path
 from lagsieve.prep.align import annual_table, se_table
 from lagsieve.prep.annual import to_annual
 from lagsieve.prep.budget import budget_problems
-from lagsieve.prep.checks import check_positive, series_warnings, unscreenable_responses
+from lagsieve.prep.checks import backtest_warnings, check_positive, series_warnings, unscreenable_responses
 from lagsieve.screen.response import screen_response
 
 SCREEN_COLUMNS = ["response", "driver", "lag", "model", "n", "first_year", "last_year", "r", "p_naive",
@@ -205,6 +205,7 @@ def check_study(config_path: str | Path):
         _raise_any(_responses_without_se(study, annual))
     units = {s["id"]: s["unit"] for s in study.responses + study.drivers if s.get("unit")}
     warnings = list(warnings) + list(series_warnings(annual, study.screen["min_overlap"], units))
+    warnings += backtest_warnings(study, annual)
     return study, annual, notes, warnings
 
 

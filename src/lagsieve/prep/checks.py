@@ -9,9 +9,11 @@ import pandas as pd
 
 from lagsieve.errors import InputProblem, InputWarning, fmt_number, show
 from lagsieve.io.config import Study
-from lagsieve.prep.align import annual_table, shift_batch
+from lagsieve.prep.align import annual_table, forecast_frame, shift_batch
 
-__all__ = ["check_positive", "series_warnings", "unscreenable_responses"]
+__all__ = ["MIN_FORECASTS", "backtest_warnings", "check_positive", "series_warnings", "unscreenable_responses"]
+
+MIN_FORECASTS = 5  # fewest out-of-sample forecasts a backtest is judged on (the screen's rule)
 
 def check_positive(annual_df: pd.DataFrame, series: str, transform: str | None,
                    sources: pd.DataFrame | None = None) -> list[InputProblem]:
@@ -149,3 +151,22 @@ def unscreenable_responses(study: Study, annual: pd.DataFrame) -> list[InputProb
             problems.append(InputProblem(what=found[0], fix=found[1], file=str(study.path),
                                          key=f"responses.{i}", series=r["id"]))
     return problems
+
+
+def backtest_warnings(study: Study, annual: pd.DataFrame) -> list[InputWarning]:
+    """A warning when the configured first training window (``screen.validation.initial_years``)
+    leaves fewer than MIN_FORECASTS years to forecast for every hypothesis: the study still runs
+    (in-sample statistics are reported), but no hypothesis can be graded above insufficient-data."""
+    initial = (study.screen.get("validation") or {}).get("initial_years")
+    if not initial:
+        return []
+    table = annual_table(annual, {})
+    most = max((len(forecast_frame(table, r, d["id"], study.lags_for(d)).years) - int(initial)
+                for r in study.response_ids for d in study.drivers_for(r)
+                if r in table and d["id"] in table), default=0)
+    if most >= MIN_FORECASTS:
+        return []
+    return [InputWarning(what=f"screen.validation.initial_years = {initial} leaves fewer than {MIN_FORECASTS} "
+                              f"years to forecast for every hypothesis (at most {max(most, 0)}), so none can be "
+                              "graded above insufficient-data; a smaller first training window gives forecasts",
+                         file=str(study.path))]

@@ -16,6 +16,7 @@ import pandas as pd
 
 from lagsieve.errors import fmt_number
 from lagsieve.prep.align import forecast_frame, inverse_variance_weights, shift_batch
+from lagsieve.prep.checks import MIN_FORECASTS
 from lagsieve.stats import correlation as st
 from lagsieve.stats.backtest import (
     BASELINES,
@@ -28,7 +29,6 @@ from lagsieve.stats.shapes import shape_word
 from lagsieve.stats.splines import fit_pspline, partial_effect, smooth_p_value
 from lagsieve.stats.surrogates import make_surrogates
 
-MIN_FORECASTS = 5
 MIN_YEARS = 6  # overlapping years a lag needs to be screened
 
 #: Columns of the best lag's linear screen row copied into the hypothesis row.
