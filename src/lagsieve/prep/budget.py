@@ -7,8 +7,8 @@ limits below with one line saying how to split it, before any job starts.
 
 The limits come from ``bench/large.py`` (2 shared cores, 40 years, lags 0-3, linear, 19
 surrogates; bench/README.md has the table): with 500 drivers x 3 responses (1,500 hypotheses,
-6,000 screen rows) the largest job peaked at 921 MB (the report, summed over its drawing
-processes), a screen job at 552 MB against 451 MB with 40 drivers: about 0.22 MB per hypothesis
+6,000 screen rows) the largest job peaked at 921 MB without a PDF and 1,735 MB with one (the
+report, summed over its drawing processes), a screen job at 552 MB against 451 MB with 40 drivers: about 0.22 MB per hypothesis
 over a fixed 440 MB. Parsing stored surrogate values (nulls.csv) took 177 MB per million at its
 peak, and the report stacks every response's values (twice that while they are joined). Each
 limit keeps its job under about 1.5 GB, inside the 2 GB target.
@@ -32,9 +32,10 @@ MAX_HYPOTHESES_PER_RESPONSE = 2_000
 #: x 3 responses with the default 999 surrogates, 2,997,000 values, still passes).
 MAX_SURROGATE_VALUES = 3_000_000
 #: hypotheses of a study whose report has a PDF copy: WeasyPrint lays out the whole page, whose
-#: ranked table has a row per hypothesis; on the 500-driver page (1,500 rows) it peaked at
-#: 1,155 MB and took 181 s, about 0.6 MB per row over some 250 MB, so 2,500 rows stay near 1.8 GB.
-MAX_HYPOTHESES_WITH_PDF = 2_500
+#: ranked table has a row per hypothesis. On the 500-driver page (1,500 rows) it alone peaked at
+#: 1,155 MB (181 s), about 0.6 MB per row over some 250 MB, and the whole report job at 1,735 MB
+#: (bench/large.py --pdf, drawing processes summed); 300 more rows bring it to about 1.9 GB.
+MAX_HYPOTHESES_WITH_PDF = 1_800
 #: hypotheses of a study without a PDF: the page (about 2 kB of HTML per hypothesis on the
 #: 500-driver page, 5.3 MB in all with its figures) stays a few tens of MB.
 MAX_HYPOTHESES = 10_000
