@@ -172,6 +172,12 @@ def test_panels_capped_over_many_responses(tmp_path):
     per = rp.PANEL_MAX_HYPOTHESES // 30
     assert plan.shortened["hypotheses"] == {"per_response": per, "top": 3, "shown": 30 * per, "all": 90}
     assert len(plan.panels) == 30 * per
+    # the evidence map keeps its first 22 responses (all 12 drivers), and says so
+    assert _job(plan, "evidence_map").kwargs["grades"].shape == (rp.MAP_MAX_RESPONSES, 12)
+    assert plan.shortened["evidence_map"] == {"responses": rp.MAP_MAX_RESPONSES, "all_responses": 30,
+                                              "drivers": 12, "all_drivers": 12}
+    page = render_page(ctx, {"evidence_map": ("", (1, 1))}, plan)
+    assert f"each response shows its {per} best-ranked ({30 * per} in all)" in page
     for rid in ctx.study.response_ids:  # each response keeps its best-ranked hypotheses
         keys = [k for k, info in plan.panels.items() if info["row"]["response"] == rid]
         ranks = sorted(info["row"]["rank"] for k, info in plan.panels.items() if k in keys)
