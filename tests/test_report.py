@@ -264,7 +264,7 @@ def test_pdf_has_pages_and_study_id(demo):
     reader = PdfReader(demo["res"] / "report.pdf")
     assert len(reader.pages) >= 1
     text = "".join(p.extract_text() or "" for p in reader.pages[:3])
-    assert demo["study"].study in text.replace("\n", "")
+    assert demo["study"].id in text.replace("\n", "")
 
 
 def test_pdf_fallback_with_matplotlib(tiny, tmp_path):
