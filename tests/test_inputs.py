@@ -815,7 +815,7 @@ CELL = st.one_of(
 )
 
 
-def number_text(x: float, decimal: str) -> str:
+def number(x: float, decimal: str) -> str:
     text = repr(x)
     return text.replace(".", ",") if decimal == "," else text
 
@@ -843,7 +843,7 @@ def csv_text(draw):
         header = ["year"] + draw(st.lists(st.sampled_from(["velk_m", "Temp", "x.1", "sst-2"]),
                                           min_size=1, max_size=3, unique=True))
         years = draw(st.lists(st.integers(1990, 2030), min_size=1, max_size=8, unique=True))
-        rows = [[cell(str(y))] + [cell(number_text(draw(finite), decimal))
+        rows = [[cell(str(y))] + [cell(number(draw(finite), decimal))
                                   for _ in header[1:]] for y in years]
     else:
         extras = draw(st.lists(st.sampled_from(["month", "se", "cv", "unit", "group"]),
@@ -853,10 +853,10 @@ def csv_text(draw):
         for _ in range(draw(st.integers(1, 8))):
             good = {"series": draw(st.sampled_from(["velk", "had", "x.1"])),
                     "year": str(draw(st.integers(1990, 2000))),
-                    "value": number_text(draw(finite), decimal),
+                    "value": number(draw(finite), decimal),
                     "month": str(draw(st.integers(1, 12))),
-                    "se": number_text(draw(st.floats(0, 10)), decimal),
-                    "cv": number_text(draw(st.floats(0, 1)), decimal),
+                    "se": number(draw(st.floats(0, 10)), decimal),
+                    "cv": number(draw(st.floats(0, 1)), decimal),
                     "unit": "kg", "group": draw(st.sampled_from(["n", "s", ""]))}
             rows.append([cell(good[name]) for name in header])
     newline = draw(st.sampled_from(["\n", "\r\n"]))

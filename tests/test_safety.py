@@ -11,8 +11,6 @@ import errno
 import hashlib
 import json
 import os
-import shutil
-import signal
 import socket
 import sqlite3
 import subprocess

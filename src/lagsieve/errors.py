@@ -95,11 +95,6 @@ def show(value: Any, limit: int = 40) -> str:
     return "".join(c if c.isprintable() else repr(c)[1:-1] for c in text)
 
 
-def fmt_number(x: float) -> str:
-    """A number as messages and notes write it (six significant digits)."""
-    return f"{x:.6g}"
-
-
 def nearest(word: str, choices: Iterable[str], n: int = 3) -> list[str]:
     """The ``n`` choices most like ``word`` (difflib's similarity ratio), best first.
 

@@ -10,7 +10,8 @@ import pandas as pd
 from lagsieve.io.config import load_study
 from lagsieve.ledger.forecast import LEVEL
 from lagsieve.ledger.store import has_schema, open_readonly, resolve_ledger_path, runs_frame
-from lagsieve.ledger.track import number_text, track_record
+from lagsieve.ledger.track import track_record
+from lagsieve.formats import number
 from lagsieve.stats.backtest import BASELINES
 
 EXIT_MISSING = 2  # no ledger, an unreadable one, or no run of the study: the user's next step is `lagsieve run`
@@ -32,11 +33,11 @@ def track_table(track: pd.DataFrame) -> pd.DataFrame:
     """The track record as the command prints it: one line per hypothesis, numbers as text.
     ``skill_own_baseline`` is the skill against the baseline each forecast was built on (the
     track record's ``skill_hardest``), ``skill_<b>`` against baseline b."""
-    skill = lambda col: [number_text(v, SKILL_FORMAT) or "-" for v in track[col]]  # noqa: E731
+    skill = lambda col: [number(v, SKILL_FORMAT) or "-" for v in track[col]]  # noqa: E731
     show = track.assign(
         hypothesis=track["response"] + " <- " + track["driver"],
         inside=[f"{i}/{s}" if s else "-" for i, s in zip(track["inside"], track["scored"])],
-        mae=[number_text(v) or "-" for v in track["mae"]],
+        mae=[number(v) or "-" for v in track["mae"]],
         skill_own_baseline=skill("skill_hardest"),
         **{f"skill_{b}": skill(f"skill_{b}") for b in BASELINES})
     cols = ["hypothesis", "made", "open", "scored", "superseded", "inside", "mae", "skill_own_baseline"] + \

@@ -16,7 +16,8 @@ import pandas as pd
 from lagsieve.io.config import Study
 from lagsieve.ledger.forecast import LEVEL
 from lagsieve.ledger.store import has_schema, open_readonly, query_frame
-from lagsieve.ledger.track import SinceLastRun, number_text, since_previous_run, years_text
+from lagsieve.ledger.track import SinceLastRun, since_previous_run
+from lagsieve.formats import number, year_spans
 from lagsieve.ledger.update import grade_rows
 
 MISSING, UNREADABLE, NO_RUN, READ = "missing", "unreadable", "no-run", "read"
@@ -105,13 +106,13 @@ def _data_blocks(s: SinceLastRun) -> list[Block]:
     d = s.data
     if s.previous is None:
         return [_heading("Data"), _table(["series", "years recorded"],
-                                         [[x.series, years_text(x.added)] for x in d.itertuples()])]
+                                         [[x.series, year_spans(x.added)] for x in d.itertuples()])]
     ch = [x for x in d.itertuples() if x.added or x.filled_in or x.restated or x.removed]
     if not ch:
         return [_heading("Data"), _text("No year was added or restated in any series.")]
     return [_heading("Data"), _table(
         ["series", "years added", "years filled in", "years restated", "years removed"],
-        [[x.series, years_text(x.added), years_text(x.filled_in), years_text(x.restated), years_text(x.removed)]
+        [[x.series, year_spans(x.added), year_spans(x.filled_in), year_spans(x.restated), year_spans(x.removed)]
          for x in ch])]
 
 
@@ -131,16 +132,16 @@ def _scored_blocks(s: SinceLastRun) -> list[Block]:
     if len(s.scored):
         out.append(_table(["response", "driver", "year", "forecast", "interval", "observed", "outcome",
                            "hardest baseline", "baseline forecast"],
-                          [[f.response, f.driver, int(f.target_year), number_text(f.forecast),
-                            f"{number_text(f.lower)} to {number_text(f.upper)}", number_text(f.observed),
-                            "inside" if f.inside else "outside", f.baseline, number_text(getattr(f, f"fc_{f.baseline}"))]
+                          [[f.response, f.driver, int(f.target_year), number(f.forecast),
+                            f"{number(f.lower)} to {number(f.upper)}", number(f.observed),
+                            "inside" if f.inside else "outside", f.baseline, number(getattr(f, f"fc_{f.baseline}"))]
                            for f in s.scored.itertuples()]))
     else:
         out.append(_text("None: no forecast year has arrived since the previous run."))
     if len(s.superseded):
         out += [_heading("Forecasts superseded at this run (not scored)"),
                 _table(["response", "driver", "year", "forecast", "reason"],
-                       [[f.response, f.driver, int(f.target_year), number_text(f.forecast), f.superseded_reason]
+                       [[f.response, f.driver, int(f.target_year), number(f.forecast), f.superseded_reason]
                         for f in s.superseded.itertuples()])]
     return out
 
@@ -154,8 +155,8 @@ def _made_blocks(s: SinceLastRun) -> list[Block]:
     out = [_heading("Forecasts made at this run")]
     if len(s.made):
         out.append(_table(["response", "driver", "grade", "year", "forecast", "interval", "candidate"],
-                          [[f.response, f.driver, f.grade, int(f.target_year), number_text(f.forecast),
-                            f"{number_text(f.lower)} to {number_text(f.upper)}", _candidate_words(f)]
+                          [[f.response, f.driver, f.grade, int(f.target_year), number(f.forecast),
+                            f"{number(f.lower)} to {number(f.upper)}", _candidate_words(f)]
                            for f in s.made.itertuples()]))
     else:
         out.append(_text("None."))
@@ -173,7 +174,7 @@ def _track_blocks(s: SinceLastRun) -> list[Block]:
         ["response", "driver", "made", "open", "scored", "superseded", "inside interval", "MAE",
          "skill vs hardest", "closer than hardest", "latest"],
         [[t.response, t.driver, t.made, t.open, t.scored, t.superseded, f"{t.inside}/{t.scored}" if t.scored else "",
-          number_text(t.mae), number_text(t.skill_hardest, "{:+.2f}"), f"{t.beat_hardest}/{t.scored}" if t.scored else "",
+          number(t.mae), number(t.skill_hardest, "{:+.2f}"), f"{t.beat_hardest}/{t.scored}" if t.scored else "",
           t.last] for t in s.track.itertuples()])]
 
 

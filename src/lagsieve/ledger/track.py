@@ -18,26 +18,6 @@ SKILL_CUTS = (0.05, 0.10, 0.20)  # the surrogate p of skill: the grade rules' cu
 NOTABLE_MOVE = 0.05  # a statistic that moved this much is named even without crossing a threshold
 
 
-def number_text(v, fmt: str = "{:.3f}") -> str:
-    """A number as text; empty for a missing value (the track record's cells)."""
-    if v is None or (isinstance(v, float) and math.isnan(v)):
-        return ""
-    return fmt.format(float(v))
-
-
-def years_text(years) -> str:
-    """1990, 1991, 1992, 1995 -> '1990-1992, 1995'."""
-    ys = sorted(int(y) for y in years)
-    out, i = [], 0
-    while i < len(ys):
-        j = i
-        while j + 1 < len(ys) and ys[j + 1] == ys[j] + 1:
-            j += 1
-        out.append(str(ys[i]) if i == j else f"{ys[i]}-{ys[j]}")
-        i = j + 1
-    return ", ".join(out)
-
-
 # ---------------------------------------------------------------- track record
 def _skill(e_model: pd.Series, e_base: pd.Series) -> float:
     ok = e_model.notna() & e_base.notna()

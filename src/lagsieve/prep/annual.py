@@ -11,7 +11,8 @@ from typing import Any, Mapping
 import numpy as np
 import pandas as pd
 
-from lagsieve.errors import InputErrors, InputProblem, fmt_number, show
+from lagsieve.errors import InputErrors, InputProblem, show
+from lagsieve.formats import short_number
 from lagsieve.io.cells import Problem
 
 __all__ = ["ANNUAL_COLUMNS", "to_annual"]
@@ -271,8 +272,8 @@ def _fill(annual: pd.DataFrame, sid: str, fill: str, max_gap: int
                 new_rows.append({"year": y, "value": v, "se": math.nan, "row": pd.NA,
                                  "filled": True})
                 notes.append({"series": sid, "year": y, "action": "filled",
-                              "reason": f"linear interpolation between {a} ({fmt_number(va)}) and "
-                                        f"{b} ({fmt_number(vb)}) giving {fmt_number(v)}"})
+                              "reason": f"linear interpolation between {a} ({short_number(va)}) and "
+                                        f"{b} ({short_number(vb)}) giving {short_number(v)}"})
         else:
             if fill == "linear":
                 reason = (f"gap of {gap} years ({span}) is longer than max_gap {max_gap}; "

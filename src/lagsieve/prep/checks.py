@@ -7,7 +7,8 @@ from typing import Mapping
 import numpy as np
 import pandas as pd
 
-from lagsieve.errors import InputProblem, InputWarning, fmt_number, show
+from lagsieve.errors import InputProblem, InputWarning, show
+from lagsieve.formats import short_number
 from lagsieve.io.config import Study
 from lagsieve.prep.align import annual_table, forecast_frame, shift_batch
 
@@ -48,7 +49,7 @@ def check_positive(annual_df: pd.DataFrame, series: str, transform: str | None,
             file, row = str(s0["file"]), int(s0["row"])
     more = f", {len(bad)} years affected" if len(bad) > 1 else ""
     return [InputProblem(
-        what=f"value {fmt_number(value)} in {int(first['year'])} cannot take the {transform} "
+        what=f"value {short_number(value)} in {int(first['year'])} cannot take the {transform} "
              f"transform ({need}{more})",
         fix="use transform: log1p or none for this series, or correct the value",
         file=file, row=row, series=series)]
@@ -81,7 +82,7 @@ def series_warnings(annual_df: pd.DataFrame, min_overlap: int,
                 file=file, series=sid))
         if n >= 2 and np.all(v == v[0]):
             out.append(InputWarning(
-                what=f"all {n} values are {fmt_number(v[0])}; a constant series carries no signal",
+                what=f"all {n} values are {short_number(v[0])}; a constant series carries no signal",
                 file=file, series=sid))
         elif n >= 5:
             med = float(np.median(v))
@@ -90,8 +91,8 @@ def series_warnings(annual_df: pd.DataFrame, min_overlap: int,
                 z = np.abs(v - med) / mad
                 for k in np.flatnonzero(z > 4):
                     out.append(InputWarning(
-                        what=f"value {fmt_number(v[k])} in {int(years[k])} is {z[k]:.1f} scaled MADs "
-                             f"from the median {fmt_number(med)}; check it is not a typing error",
+                        what=f"value {short_number(v[k])} in {int(years[k])} is {z[k]:.1f} scaled MADs "
+                             f"from the median {short_number(med)}; check it is not a typing error",
                         file=file, series=sid))
         expected = units_expected.get(sid)
         if expected and "unit" in g:

@@ -1,4 +1,4 @@
-"""What the report is made from (:class:`Context`), number formats and the plain words that
+"""What the report is made from (:class:`Context`) and the plain words that
 describe a hypothesis (why it is set aside, its one-line summary). No markup here."""
 from __future__ import annotations
 
@@ -8,41 +8,10 @@ import numpy as np
 import pandas as pd
 
 from lagsieve.evidence.grading import insufficient_reason
+from lagsieve.formats import is_missing, text
 from lagsieve.evidence.vocabulary import GRADE_WORDS
 from lagsieve.prep.align import lagged_pair
 from lagsieve.stats.splines import fit_pspline, partial_effect
-
-
-# ----------------------------------------------------------------------------- number formats
-def is_missing(v) -> bool:
-    if v is None:
-        return True
-    try:
-        return bool(pd.isna(v))
-    except (TypeError, ValueError):
-        return False
-
-
-def num(v, fmt: str = "{:.3f}") -> str:
-    """A number as text with ``fmt``; empty when missing, the value as given when not a number."""
-    if is_missing(v):
-        return ""
-    try:
-        return fmt.format(float(v))
-    except (TypeError, ValueError):
-        return str(v)
-
-
-def p_text(v) -> str:
-    """A p- or q-value for reading: three decimals, '< 0.001' below that."""
-    if is_missing(v):
-        return ""
-    v = float(v)
-    return "< 0.001" if v < 0.001 else f"{v:.3f}"
-
-
-def text(v) -> str:
-    return "" if is_missing(v) else str(v)
 
 
 def flag_list(v) -> list[str]:
@@ -54,14 +23,6 @@ def lead_words(lag) -> str:
         return "no lag chosen"
     lag = int(lag)
     return "same year" if lag == 0 else f"{lag}-year lead"
-
-
-def range_words(lags) -> str:
-    """0, 1, 2, 3 -> '0–3'; 0, 2 -> '0, 2'."""
-    lags = sorted(int(v) for v in lags)
-    if len(lags) > 2 and lags == list(range(lags[0], lags[-1] + 1)):
-        return f"{lags[0]}\u2013{lags[-1]}"
-    return ", ".join(map(str, lags))
 
 
 # ----------------------------------------------------------------------------- plain words

@@ -8,7 +8,8 @@ import pandas as pd
 
 from lagsieve.evidence.vocabulary import SUPPORTED
 from lagsieve.io.files import write_csv
-from lagsieve.report.context import Context, set_aside_reason, summary_line, text
+from lagsieve.report.context import Context, set_aside_reason, summary_line
+from lagsieve.formats import text
 from lagsieve.report.plan import Plan
 
 FIGURE_WORDS = {

@@ -21,7 +21,8 @@ from lagsieve.evidence.vocabulary import COLLINEAR_R
 from lagsieve.io.names import pair_slug
 from lagsieve.prep.align import lagged_pair
 from lagsieve.report import figures as fg
-from lagsieve.report.context import Context, gam_fit, gam_rows, is_missing, num, p_text, text, top_rows
+from lagsieve.report.context import Context, gam_fit, gam_rows, top_rows
+from lagsieve.formats import is_missing, number, p_text, text
 
 BASELINE_NAMES = ("climatology", "persistence", "trend")
 
@@ -261,8 +262,8 @@ def _gam_panel(ctx, key, row, gam_row, gfit, jobs, info) -> None:
     if gfit is None:
         return
     gl = int(gam_row["lag"])
-    line = (f"lag {gl}: edf {num(gam_row.get('edf'), '{:.1f}')}, deviance explained "
-            f"{num(gam_row.get('deviance_explained'), '{:.0%}')}, p(smooth) {p_text(gam_row.get('p_smooth'))}")
+    line = (f"lag {gl}: edf {number(gam_row.get('edf'), '{:.1f}')}, deviance explained "
+            f"{number(gam_row.get('deviance_explained'), '{:.0%}')}, p(smooth) {p_text(gam_row.get('p_smooth'))}")
     jobs.append(fg.FigureJob(f"{key}__gam", "gam_effect", dict(
         grid=gfit["grid"], curve=gfit["curve"], lower=gfit["lo"], upper=gfit["hi"],
         x_obs=gfit["pair"].x, driver=ctx.axis(row["driver"]) + ("" if gl == 0 else f", {gl}-year lead"),

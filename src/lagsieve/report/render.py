@@ -15,7 +15,8 @@ from jinja2 import Environment, PackageLoader, StrictUndefined, select_autoescap
 from lagsieve.evidence.vocabulary import FLAGS, GRADE_RULES
 from lagsieve.ledger.section import LedgerSection, ledger_section
 from lagsieve.report import figures as fg
-from lagsieve.report.context import flag_list, lead_words, num, p_text, range_words, text
+from lagsieve.report.context import flag_list, lead_words
+from lagsieve.formats import lag_range, number, p_text, text
 
 GRADE_CLASS = {g: f"g-{i}" for i, g in enumerate(fg.GRADE_STYLE)}  # CSS class of each grade's badge
 
@@ -28,7 +29,7 @@ def environment() -> Environment:
                       autoescape=select_autoescape(enabled_extensions=("html",), disabled_extensions=("txt", "css"),
                                                    default_for_string=True, default=True),
                       undefined=StrictUndefined, trim_blocks=True, lstrip_blocks=True)
-    env.filters.update(num=num, p=p_text, text=text, lead=lead_words, flags=flag_list, range_words=range_words,
+    env.filters.update(num=number, p=p_text, text=text, lead=lead_words, flags=flag_list, range_words=lag_range,
                        g=lambda v: f"{v:g}")
     env.globals.update(GRADE_CLASS=GRADE_CLASS, GRADE_RULES=GRADE_RULES, FLAGS=FLAGS)
     return env

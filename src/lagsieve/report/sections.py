@@ -8,8 +8,8 @@ import pandas as pd
 
 from lagsieve.evidence.vocabulary import COLLINEAR_R, GRADES, SUPPORTED
 from lagsieve.report import figures as fg
-from lagsieve.report.context import (Context, is_missing, lead_words, not_computed, num, p_text, range_words,
-                                     set_aside_reason, summary_line, text)
+from lagsieve.report.context import Context, lead_words, not_computed, set_aside_reason, summary_line
+from lagsieve.formats import is_missing, lag_range, number, p_text, text
 from lagsieve.report.methods import methods_paragraphs, reference_list
 
 CAUTIONS = [
@@ -99,7 +99,7 @@ def _cell(ctx: Context, row: dict, key: str, kind: str, fmt: str | None) -> dict
         return {"kind": "driver", "v": ctx.label(v), "text": ctx.label(v), "id": text(v),
                 "note": text(row.get("category"))}
     if key == "oos_skill":
-        return {"kind": "skill", "v": num(v, "{:.6g}"), "text": num(v, fmt), "note": text(row.get("oos_hardest"))}
+        return {"kind": "skill", "v": number(v, "{:.6g}"), "text": number(v, fmt), "note": text(row.get("oos_hardest"))}
     if key == "response":
         return {"kind": "response", "v": text(v), "text": text(v)}
     if kind == "grade":
@@ -107,9 +107,9 @@ def _cell(ctx: Context, row: dict, key: str, kind: str, fmt: str | None) -> dict
     if kind == "flags":
         return {"kind": "flags", "v": text(v), "text": text(v)}
     if kind == "p":
-        return {"kind": "plain", "v": num(v, "{:.6g}"), "text": p_text(v)}
+        return {"kind": "plain", "v": number(v, "{:.6g}"), "text": p_text(v)}
     if kind == "num":
-        return {"kind": "plain", "v": num(v, "{:.6g}"), "text": num(v, fmt)}
+        return {"kind": "plain", "v": number(v, "{:.6g}"), "text": number(v, fmt)}
     return {"kind": "plain", "v": text(v), "text": text(v)}
 
 
@@ -127,14 +127,14 @@ def evidence_table(ctx: Context) -> dict:
 # ----------------------------------------------------------------------------- leading hypotheses
 def key_numbers(row: dict) -> list[tuple[str, str]]:
     """The numbers shown under a hypothesis' heading (those that are not empty)."""
-    items = [("r", num(row.get("r"), "{:+.2f}")),
-             ("n / n eff", f'{num(row.get("n"), "{:.0f}")} / {num(row.get("n_eff"), "{:.1f}")}'),
+    items = [("r", number(row.get("r"), "{:+.2f}")),
+             ("n / n eff", f'{number(row.get("n"), "{:.0f}")} / {number(row.get("n_eff"), "{:.1f}")}'),
              ("p adj", p_text(row.get("p_adjusted"))), ("p surr", p_text(row.get("p_surrogate"))),
-             ("q", p_text(row.get("q_value"))), ("r detrended", num(row.get("r_detrended"), "{:+.2f}"))]
+             ("q", p_text(row.get("q_value"))), ("r detrended", number(row.get("r_detrended"), "{:+.2f}"))]
     for b in ("climatology", "persistence", "trend"):
-        items.append((f"skill vs {b}", num(row.get(f"oos_skill_{b}"), "{:+.2f}")))
+        items.append((f"skill vs {b}", number(row.get(f"oos_skill_{b}"), "{:+.2f}")))
     items += [("DM p", p_text(row.get("oos_p"))), ("p skill (surr)", p_text(row.get("oos_p_surrogate"))),
-              ("re-test", f'{num(row.get("retest_skill"), "{:+.2f}")} {text(row.get("retest_years"))}')]
+              ("re-test", f'{number(row.get("retest_skill"), "{:+.2f}")} {text(row.get("retest_years"))}')]
     return [(k, v) for k, v in items if v.strip()]
 
 
@@ -187,8 +187,8 @@ def _series_row(ctx: Context, role: str, s: dict, cov: pd.DataFrame | None) -> l
     return [s["id"], s.get("label", ""),
             f"driver ({s.get('category', 'other')})" if driver else f"response ({s.get('kind', 'other')})",
             s.get("unit", ""), s.get("transform", "none"),
-            f"{agg.get('how', 'mean')} of months {range_words(agg['months'])}" if agg else "",
-            range_words(s.get("lags") or ctx.study.screen["lags"]) if driver else "",
+            f"{agg.get('how', 'mean')} of months {lag_range(agg['months'])}" if agg else "",
+            lag_range(s.get("lags") or ctx.study.screen["lags"]) if driver else "",
             s.get("expected_sign", "") if driver else "", yrs]
 
 

@@ -14,7 +14,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from lagsieve.errors import fmt_number
+from lagsieve.formats import short_number
 from lagsieve.prep.align import forecast_frame, inverse_variance_weights, shift_batch
 from lagsieve.prep.checks import MIN_FORECASTS
 from lagsieve.stats import correlation as st
@@ -156,7 +156,7 @@ def constant_value(values: np.ndarray) -> float | None:
 
 def constant_words(series: str, value: float) -> str:
     """'m:age2 is constant (0.2 every year): correlations are undefined'."""
-    return f"{series} is constant ({fmt_number(value)} every year): correlations are undefined"
+    return f"{series} is constant ({short_number(value)} every year): correlations are undefined"
 
 
 def no_lag_reason(table: pd.DataFrame, rid: str, did: str, lags: list[int]) -> str:
@@ -226,7 +226,7 @@ def _constant_pair(rid: str, y: np.ndarray, did: str, x: np.ndarray) -> str | No
     """Why a lag cannot be screened when one series is constant over the shared years."""
     for sid, v in ((rid, y), (did, x)):
         if constant_value(v) is not None:
-            return f"{sid} is constant over these years ({fmt_number(v[0])})"
+            return f"{sid} is constant over these years ({short_number(v[0])})"
     return None
 
 
