@@ -130,3 +130,34 @@ def test_results_are_written_with_the_users_umask(tmp_path):
         os.umask(old)
     assert (tmp_path / "a.txt").stat().st_mode & 0o777 == 0o644
     assert (tmp_path / "b.txt").stat().st_mode & 0o777 == 0o640
+
+
+def test_a_config_that_is_a_folder_or_a_pipe_is_named_as_such(tmp_path):
+    import os
+
+    from lagsieve.io.config import load_study
+
+    for path, words in ((tmp_path, "the config path is a folder"),):
+        with pytest.raises(InputErrors) as info:
+            load_study(path)
+        assert words in info.value.problems[0].line()
+    fifo = tmp_path / "c.yaml"
+    os.mkfifo(fifo)
+    with pytest.raises(InputErrors) as info:  # must not block on opening the pipe
+        load_study(fifo)
+    assert "not a regular file" in info.value.problems[0].line()
+
+
+def test_check_refuses_braces_in_a_path_with_one_line(new_study, tmp_path):
+    """The workflow engine reads '{...}' in a tracked file name as a placeholder (Snakemake
+    documentation on wildcards); such a study is refused at check, not half-way."""
+    import shutil
+
+    from helpers import lagsieve
+
+    braced = tmp_path / "study {2024}"
+    shutil.copytree(new_study.parent, braced)
+    proc = lagsieve("check", braced / "config.yaml")
+    assert proc.returncode == 2
+    lines = proc.stderr.strip().splitlines()
+    assert len(lines) == 1 and "which the workflow engine reads as a placeholder" in lines[0]

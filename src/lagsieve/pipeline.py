@@ -190,6 +190,7 @@ def check_study(config_path: str | Path):
     Raises :class:`InputErrors` with one problem per line for anything the user must fix.
     """
     study = load_study(config_path)
+    _raise_any(pattern_problems([str(study.path)] + [str(study.base_dir / s["path"]) for s in study.inputs]))
     _raise_any(budget_problems(study))  # a plan over the budget: refused before any input is read
     wanted = set(study.response_ids) | set(study.driver_ids)
     long, warnings = read_inputs(study.inputs, study.base_dir, wanted)  # other series: left out, noted
