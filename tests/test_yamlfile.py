@@ -161,3 +161,17 @@ def test_check_refuses_braces_in_a_path_with_one_line(new_study, tmp_path):
     assert proc.returncode == 2
     lines = proc.stderr.strip().splitlines()
     assert len(lines) == 1 and "which the workflow engine reads as a placeholder" in lines[0]
+
+
+def test_schema_messages_never_expand_a_large_value(new_study):
+    """A wrong value that is a large structure (here 20,000 nested lists) is named, not printed."""
+    from lagsieve.io.config import load_study
+
+    text = new_study.read_text()
+    big = "[" + ", ".join(["[1, 2, 3]"] * 20000) + "]"
+    new_study.write_text(text.replace("  seed: 20261201 ", f"  seed: {big} "))
+    with pytest.raises(InputErrors) as info:
+        load_study(new_study)
+    lines = [p.line() for p in info.value.problems]
+    assert len(lines) == 1 and "screen.seed" in lines[0]
+    assert len(lines[0]) < 400

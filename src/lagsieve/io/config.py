@@ -16,7 +16,7 @@ from typing import Any
 import jsonschema
 import yaml
 
-from lagsieve.errors import InputErrors, InputProblem, closest, suggest
+from lagsieve.errors import InputErrors, InputProblem, closest, show, suggest
 from lagsieve.io.names import name_key, periodic
 from lagsieve.io.yamlfile import read_yaml
 
@@ -167,20 +167,20 @@ def _schema_problem(err: jsonschema.ValidationError, file: str) -> InputProblem:
             what=f"unknown key(s) {', '.join(map(repr, extra))}",
             fix=f"{' '.join(hints)} (allowed here: {', '.join(allowed)})", file=file, key=key)
     if v == "required":
-        return InputProblem(what=err.message, fix="add the key (see config/README.md)", file=file, key=key)
+        return InputProblem(what=show(err.message, 200), fix="add the key (see config/README.md)", file=file, key=key)
     if v == "enum":
         options = [str(o) for o in err.validator_value]
         near = closest(err.instance, options) if isinstance(err.instance, str) else None
         hint = f"did you mean '{near}'? " if near else ""
         return InputProblem(
-            what=f"value {err.instance!r} is not allowed",
+            what=f"value {show(repr(err.instance), 60)} is not allowed",
             fix=f"{hint}use one of {', '.join(options)}", file=file, key=key)
     if v == "pattern":
         return InputProblem(
-            what=f"value {err.instance!r} has characters that are not allowed",
+            what=f"value {show(repr(err.instance), 60)} has characters that are not allowed",
             fix="use letters, digits, '_', '.', '-' (and one ':' between a series and its group); study ids use lower case only",
             file=file, key=key)
-    return InputProblem(what=err.message, fix="correct the value (see config/README.md)", file=file, key=key)
+    return InputProblem(what=show(err.message, 200), fix="correct the value (see config/README.md)", file=file, key=key)
 
 
 def load_study(path: str | Path) -> Study:
