@@ -24,6 +24,7 @@ import os
 import shlex
 import subprocess
 import sys
+import tempfile
 from pathlib import Path
 
 from jinja2 import TemplateNotFound
@@ -35,6 +36,7 @@ from lagsieve.io.lock import RESULTS_FIX, check_folder, claim_results, make_fold
 
 EXIT_USER = 2
 REINSTALL = "python -m pip install --force-reinstall lagsieve"
+DRY_RUN = {"-n", "--dry-run", "--dryrun"}  # Snakemake's options for a dry run
 
 
 def _err(msg: str) -> int:
@@ -154,20 +156,25 @@ def _run_workflow(args, extra: list[str], study, cfg: Path, out: Path, lock) -> 
 
     snakefile = WORKFLOW / "Snakefile"
     _require(snakefile)
-    make_folder(out / study.id / "work", "the study's results folder cannot be made", RESULTS_FIX)
-    from lagsieve.pipeline import write_run_config  # lazy: see the module docstring
+    dry = bool(DRY_RUN & set(extra))
+    with tempfile.TemporaryDirectory(prefix="lagsieve-") as scratch:
+        # a dry run writes nothing of the study: its run config goes to a scratch folder
+        work = Path(scratch) if dry else out / study.id / "work"
+        if not dry:
+            make_folder(work, "the study's results folder cannot be made", RESULTS_FIX)
+        from lagsieve.pipeline import write_run_config  # lazy: see the module docstring
 
-    # the paths go in a YAML file: `--config key=value` would cut a folder name at its commas
-    run_config = write_run_config(cfg, out, out / study.id / "work" / "run_config.yaml")
-    cmd = [sys.executable, "-m", "snakemake", "--snakefile", str(snakefile), "--configfile", str(run_config),
-           "--directory", str(out), "--cores", str(args.cores), *extra]
-    env = dict(os.environ)
-    if args.resume or lock.took_over is not None or _snakemake_locked(out):
-        # a killed run leaves Snakemake's lock behind; this run holds the folder, so it is stale
-        subprocess.run(cmd + ["--unlock"], env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-    cmd.append("--rerun-incomplete")  # and the jobs it left half done are done again
-    returncode = _wait(subprocess.Popen(cmd, env=env), lock)
-    if returncode == 0 and not ({"-n", "--dry-run", "--dryrun"} & set(extra)):
+        # the paths go in a YAML file: `--config key=value` would cut a folder name at its commas
+        run_config = write_run_config(cfg, out, work / "run_config.yaml")
+        cmd = [sys.executable, "-m", "snakemake", "--snakefile", str(snakefile), "--configfile", str(run_config),
+               "--directory", str(out), "--cores", str(args.cores), *extra]
+        env = dict(os.environ)
+        if args.resume or lock.took_over is not None or _snakemake_locked(out):
+            # a killed run leaves Snakemake's lock behind; this run holds the folder, so it is stale
+            subprocess.run(cmd + ["--unlock"], env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+        cmd.append("--rerun-incomplete")  # and the jobs it left half done are done again
+        returncode = _wait(subprocess.Popen(cmd, env=env), lock)
+    if returncode == 0 and not dry:
         print(f"results in {out / study.id}")
     return returncode
 
