@@ -1,8 +1,9 @@
 """Shared fixtures: a copy of the invented demo study in a temporary folder, run once.
 
 Plain helpers (run the command line, write a study, simulate a series) are in helpers.py.
-A test that uses ``demo_run`` runs Snakemake, so it is marked ``slow`` here (no test can
-forget it): ``python -m pytest -m "not slow"`` leaves every Snakemake run out.
+A test that uses ``demo_run`` runs Snakemake, and one that uses ``demo_report`` screens and
+reports the whole demo: both are marked ``slow`` here (no test can forget it), so
+``python -m pytest -m "not slow"`` leaves every Snakemake run and whole-demo run out.
 """
 from __future__ import annotations
 
@@ -12,7 +13,7 @@ import pytest
 
 from helpers import init_study, lagsieve
 
-SLOW_FIXTURES = {"demo_run"}
+SLOW_FIXTURES = {"demo_run", "demo_report"}  # Snakemake, or the whole demo through the stages
 
 
 def pytest_collection_modifyitems(config, items):

@@ -33,6 +33,7 @@ def _run_stages(cfg, out):
     stages.run_evidence(cfg, work / "annual.csv", work, out / "screen.csv", out / "evidence.csv")
 
 
+@pytest.mark.slow  # two whole runs of the demo study through the stages
 def test_two_runs_are_byte_identical(tmp_path, new_study):
     cfg = set_screen(new_study, surrogates=19, models=["linear", "gam"])
     _run_stages(cfg, tmp_path / "a")

@@ -2,7 +2,7 @@
 
 Two studies are screened once per session by calling the stage functions directly:
 
-* ``demo``: the invented demo study of ``config/config.yaml`` with fewer surrogates (99) and
+* ``demo_report``: the invented demo study of ``config/config.yaml`` with fewer surrogates (99) and
   two hypotheses per response in detail, so the session stays short;
 * ``tiny``: two responses and three drivers of the demo data, with hostile labels and title
   (``<script>alert(1)</script>``, quotes, ``$`` signs) to check escaping.
@@ -55,7 +55,9 @@ def png_ok(data: bytes) -> tuple[bool, float]:
 
 # ----------------------------------------------------------------------------- fixtures
 @pytest.fixture(scope="session")
-def demo(tmp_path_factory):
+def demo_report(tmp_path_factory):
+    """The whole demo study screened and reported (stage functions, no Snakemake): about 20 s,
+    so the tests that use it are marked slow (tests/conftest.py, SLOW_FIXTURES)."""
     base = tmp_path_factory.mktemp("demo")
     src = REPO / "config" / "config.yaml"
     raw = yaml.safe_load(src.read_text(encoding="utf-8"))
@@ -146,8 +148,8 @@ def test_a_hostile_series_label_is_escaped_everywhere(tiny, label, escaped):
     assert h.count("<script") == 1
 
 
-def test_embedded_images_are_png_and_not_blank(demo):
-    uris = data_uris(demo["html"])
+def test_embedded_images_are_png_and_not_blank(demo_report):
+    uris = data_uris(demo_report["html"])
     assert len(uris) >= 10
     for d in uris:
         is_png, std = png_ok(d)
@@ -155,8 +157,8 @@ def test_embedded_images_are_png_and_not_blank(demo):
 
 
 # ----------------------------------------------------------------------------- content
-def test_summary_in_plain_words(demo):
-    ev, text, st = demo["evidence"], demo["html"], demo["study"]
+def test_summary_in_plain_words(demo_report):
+    ev, text, st = demo_report["evidence"], demo_report["html"], demo_report["study"]
     summary = text.split('id="summary"')[1].split('id="overview"')[0]
     labels = {d["id"]: d.get("label", d["id"]) for d in st.drivers}
     supported = ev[ev["grade"].isin(["strong", "moderate"])]
@@ -169,15 +171,15 @@ def test_summary_in_plain_words(demo):
     assert "Set aside" in summary
 
 
-def test_invented_banner_and_cautions(demo):
-    h = demo["html"]
+def test_invented_banner_and_cautions(demo_report):
+    h = demo_report["html"]
     assert "Invented data." in h and "invented demonstration data" in h
     for words in ("Association is not cause", "generates hypotheses", "do not replace"):
         assert words in h
 
 
-def test_flags_and_grades_have_words(demo):
-    h, ev = demo["html"], demo["evidence"]
+def test_flags_and_grades_have_words(demo_report):
+    h, ev = demo_report["html"], demo_report["evidence"]
     for codes in ev["flags"].dropna():
         for c in codes.split(";"):
             assert f'<span class="flag" title="{hh.escape(FLAGS[c])}">{c}</span>' in h
@@ -190,30 +192,30 @@ def test_flags_and_grades_have_words(demo):
         assert re.search(rf'<span class="grade g-\d" title="[^"]*">{re.escape(g)}</span>', h)
 
 
-def test_table_rows_and_sort_keys(demo):
-    h, ev = demo["html"], demo["evidence"]
+def test_table_rows_and_sort_keys(demo_report):
+    h, ev = demo_report["html"], demo_report["evidence"]
     body = h.split('<table id="evidence-table"')[1].split("</table>")[0]
     assert body.count("<tr data-response=") == len(ev)
     assert 'data-key="r" data-type="num"' in body
 
 
-def test_panels_of_top_hypotheses(demo):
-    h, ev = demo["html"], demo["evidence"]
-    top = int(demo["study"].report["top"])
-    for rid in demo["study"].response_ids:
+def test_panels_of_top_hypotheses(demo_report):
+    h, ev = demo_report["html"], demo_report["evidence"]
+    top = int(demo_report["study"].report["top"])
+    for rid in demo_report["study"].response_ids:
         for row in ev[ev.response == rid].sort_values("rank").head(top).to_dict("records"):
             key = f"{slug(rid)}__{slug(row['driver'])}"
             assert f'id="h-{key}"' in h
             for kind in ("overlay", "scatter", "lags", "forecasts", "nulls"):
-                assert (demo["res"] / "figures" / f"{key}__{kind}.png").is_file()
+                assert (demo_report["res"] / "figures" / f"{key}__{kind}.png").is_file()
     for alt in ("standardised overlay", "lag profile of r", "out-of-sample forecasts", "surrogate null"):
         assert f'alt="{alt}' in h
     for name in ("evidence_map", "coverage", "driver_correlation"):
-        assert (demo["res"] / "figures" / f"{name}.png").is_file()
+        assert (demo_report["res"] / "figures" / f"{name}.png").is_file()
 
 
-def test_methods_generated_from_run(demo):
-    h, st = demo["html"], demo["study"]
+def test_methods_generated_from_run(demo_report):
+    h, st = demo_report["html"], demo_report["study"]
     methods = h.split('id="methods-text"')[1].split("</div>")[0]
     assert "99 surrogate series" in methods
     assert "shares the real driver's linear trend" in hh.unescape(methods)
@@ -221,7 +223,7 @@ def test_methods_generated_from_run(demo):
     assert f"seed {st.screen['seed']}" in methods
     assert "Ebisuzaki" in methods and "Benjamini" in methods and "Pyper" in methods
     ctx = Context(study=st, table=pd.DataFrame({"x": [1.0]}, index=[2000]), screen=pd.DataFrame(),
-                  evidence=demo["evidence"], forecasts=pd.DataFrame(), nulls=pd.DataFrame(),
+                  evidence=demo_report["evidence"], forecasts=pd.DataFrame(), nulls=pd.DataFrame(),
                   notes=pd.DataFrame(), annual=None, provenance={})
     st.screen["surrogate_keep_trend"] = False
     try:
@@ -231,8 +233,8 @@ def test_methods_generated_from_run(demo):
     assert "not preserved" in text
 
 
-def test_provenance_block(demo):
-    h, res = demo["html"], demo["res"]
+def test_provenance_block(demo_report):
+    h, res = demo_report["html"], demo_report["res"]
     prov = json.loads((res / "provenance.json").read_text())
     for digest in prov["inputs_sha256"].values():
         assert digest in h
@@ -242,10 +244,10 @@ def test_provenance_block(demo):
 
 
 # ----------------------------------------------------------------------------- exports
-def test_figure_and_table_exports(demo):
+def test_figure_and_table_exports(demo_report):
     from PIL import Image
 
-    figs = demo["res"] / "figures"
+    figs = demo_report["res"] / "figures"
     manifest = pd.read_csv(figs / "figures.csv")
     assert len(manifest) >= 10
     for name in manifest["figure"]:
@@ -255,16 +257,16 @@ def test_figure_and_table_exports(demo):
         assert "<svg" in svg and "</svg>" in svg
     for table in ("evidence_table", "summary", "coverage", "driver_correlations", "evidence_map"):
         assert len(pd.read_csv(figs / f"{table}.csv")) > 0
-    assert len(pd.read_csv(figs / "evidence_table.csv")) == len(demo["evidence"])
+    assert len(pd.read_csv(figs / "evidence_table.csv")) == len(demo_report["evidence"])
 
 
-def test_pdf_has_pages_and_study_id(demo):
+def test_pdf_has_pages_and_study_id(demo_report):
     from pypdf import PdfReader
 
-    reader = PdfReader(demo["res"] / "report.pdf")
+    reader = PdfReader(demo_report["res"] / "report.pdf")
     assert len(reader.pages) >= 1
     text = "".join(p.extract_text() or "" for p in reader.pages[:3])
-    assert demo["study"].id in text.replace("\n", "")
+    assert demo_report["study"].id in text.replace("\n", "")
 
 
 def test_pdf_fallback_with_matplotlib(tiny, tmp_path):
