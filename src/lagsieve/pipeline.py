@@ -25,6 +25,7 @@ from lagsieve.io.provenance import package_versions, tool_version
 from lagsieve.io.readers import read_inputs
 from lagsieve.io.tables import UnusedSeries
 from lagsieve.ledger.section import ledger_section
+from lagsieve.ledger.update import input_hashes
 from lagsieve.ledger.store import resolve_ledger_path
 from lagsieve.prep.align import annual_table, se_table
 from lagsieve.prep.annual import to_annual
@@ -161,10 +162,7 @@ def plan_studies(config: dict, check: bool = True) -> dict[str, PlannedStudy]:
                 print(f"{path}: key 'study': id '{st.id}' is used by two configs; give each study its own id",
                       file=sys.stderr)
                 sys.exit(2)
-            inputs = []
-            for spec in st.inputs:
-                p = Path(spec["path"])
-                inputs.append(str(p if p.is_absolute() else st.base_dir / p))
+            inputs = [str(p) for p in st.input_paths()]
             _raise_any(pattern_problems([str(st.path), *inputs, str(config.get("out", ""))]))
             planned[st.id] = PlannedStudy(st, str(st.path), inputs, _response_inputs(st, annual, inputs))
     except InputErrors as exc:
@@ -190,7 +188,7 @@ def check_study(config_path: str | Path):
     Raises :class:`InputErrors` with one problem per line for anything the user must fix.
     """
     study = load_study(config_path)
-    _raise_any(pattern_problems([str(study.path)] + [str(study.base_dir / s["path"]) for s in study.inputs]))
+    _raise_any(pattern_problems([str(p) for p in [study.path, *study.input_paths()]]))
     _raise_any(budget_problems(study))  # a plan over the budget: refused before any input is read
     wanted = set(study.response_ids) | set(study.driver_ids)
     long, warnings = read_inputs(study.inputs, study.base_dir, wanted)  # other series: left out, noted
@@ -271,7 +269,7 @@ def response_annual(study: Study, response_id: str, files: list[str] | None = No
     specs = study.inputs
     if files is not None:
         keep = {str(Path(f).resolve()) for f in files}
-        specs = [sp for sp in study.inputs if str((study.base_dir / sp["path"]).resolve()) in keep]
+        specs = [sp for sp, p in zip(study.inputs, study.input_paths()) if str(p.resolve()) in keep]
     wanted = {response_id} | {d["id"] for d in study.drivers_for(response_id)}
     long, _ = read_inputs(specs, study.base_dir, wanted)
     options = {k: v for k, v in study.series_options().items() if k in wanted}
@@ -340,10 +338,7 @@ def _response_tables(dirs: dict, name: str) -> pd.DataFrame:
 
 def _report_provenance(study: Study, annual_csv, dirs: dict, t0: float) -> dict:
     """What provenance.json records before the report is drawn: config, inputs, versions, times."""
-    inputs = {}
-    for spec in study.inputs:
-        p = Path(spec["path"])
-        inputs[spec["path"]] = sha256_file(p if p.is_absolute() else study.base_dir / p)
+    inputs = input_hashes(study)
     screened = [(d / "screen.csv").stat().st_mtime for d in dirs.values() if (d / "screen.csv").is_file()]
     prov = {
         "study": study.id,

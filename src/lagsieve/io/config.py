@@ -56,6 +56,10 @@ class Study:
             out[s["id"]] = {k: s[k] for k in ("transform", "aggregate", "fill", "max_gap", "unit") if k in s}
         return out
 
+    def input_paths(self) -> list[Path]:
+        """Every input file's path, resolved against the config's folder (absolute paths kept)."""
+        return [self.base_dir / spec["path"] for spec in self.inputs]  # `/` keeps an absolute path
+
     def transforms(self) -> dict[str, str]:
         """The configured transform of every series, by id."""
         return {s["id"]: s.get("transform", "none") for s in self.responses + self.drivers}

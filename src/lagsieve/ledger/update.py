@@ -81,12 +81,8 @@ def run_key(data_sha: str, grades: pd.DataFrame) -> str:
 def input_hashes(study: Study) -> dict[str, str]:
     """SHA-256 of every input file of ``study`` (``missing`` for a file not found), by its
     path as written in the config."""
-    out = {}
-    for spec in study.inputs:
-        p = Path(spec["path"])
-        p = p if p.is_absolute() else study.base_dir / p
-        out[spec["path"]] = sha256_file(p) if p.is_file() else "missing"
-    return out
+    return {spec["path"]: sha256_file(p) if p.is_file() else "missing"
+            for spec, p in zip(study.inputs, study.input_paths())}
 
 
 # ---------------------------------------------------------------- one update
