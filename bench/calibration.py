@@ -23,12 +23,24 @@ planted (a real lagged effect)
   unit variance and b = rho / sqrt(1 - rho^2), so corr(y_t, x_{t-k}) = rho exactly in the
   population; rho = 0.5 and 0.7, planted lag k = 0, 1, 2.
 
+planted, harder cases (rho = 0.5 and 0.7, planted lag 1 only)
+  planted_t3        as planted, but e is Student t with 3 df scaled to unit variance
+                    (heavy tails); a stationary driver
+  planted_trend_resp as planted, plus a linear rise of 2 noise sd in the response only
+                    (a trending response; a stationary driver)
+  planted_rw        the driver is a Gaussian random walk standardised over the record
+                    (a stochastic trend), y_t = b x_{t-k} + e_t
+  planted_trend_drv the driver is a linear rise of 2 noise sd + AR(1) noise (phi 0.5),
+                    standardised; y_t = b x_{t-k} + e_t (a real effect carried by a trend)
+
 Every driver is screened with expected_sign 'any' (no sign stated beforehand), so nothing
 is gained from a known direction.
 
 Reported per cell: for null worlds the naive false-positive rate (linear p_naive < 0.05 at
 lag 0, and at the selected lag), P(strong) and P(strong or moderate); for planted worlds
-P(strong), P(strong or moderate) and the share whose selected lag equals the planted lag.
+P(strong), P(strong or moderate) and the share whose selected lag equals the planted lag; for
+every cell the share given a shared-trend verdict (spurious-trend or trend-confounded), and the
+shares set aside as autocorrelation-only and no-forecast-skill.
 Each with a 95% Wilson score interval (statsmodels ``proportion_confint(method='wilson')``).
 
 Usage::
@@ -36,6 +48,9 @@ Usage::
     python bench/calibration.py --quick                 # ~40 worlds per cell
     python bench/calibration.py --reps 200 --models linear
     python bench/calibration.py --reps 100 --models linear,gam --n 40   # only n = 40 cells
+
+Results go to bench/out/ (not tracked) unless --out names a stem; the committed tables in
+bench/results/ are copies of runs that the README quotes.
 
 Seeds: world i of cell c uses ``numpy.random.SeedSequence([seed, c, i])`` for both its data
 and its surrogate seed, so results do not depend on the number of processes.
@@ -67,7 +82,11 @@ LAGS = [0, 1, 2]
 LEAD = max(LAGS)  # extra driver years before the first response year
 NULL_WORLDS = ("ar1_0.3", "ar1_0.8", "random_walk", "trends", "step_vs_trend")
 RHOS = (0.5, 0.7)
-NS = (25, 40, 60)
+NS = (20, 25, 40, 60)
+HARDER = ("planted_t3", "planted_trend_resp", "planted_rw", "planted_trend_drv")  # planted lag 1 only
+STATIONARY_DRIVER = ("planted", "planted_t3", "planted_trend_resp")  # cells held to the power target
+TREND_FREE = ("ar1_0.3", "ar1_0.8", "planted", "planted_t3")  # no series has a trend
+SHARED_TREND = ("spurious-trend", "trend-confounded")  # the verdicts that say "a shared trend"
 TREND_RISE = 2.0  # rise over the record, in noise sd
 STEP_SIZE = 2.0
 NOISE_PHI = 0.5
@@ -103,15 +122,33 @@ def simulate(world: str, n: int, rng: np.random.Generator, rho: float = 0.0, lag
         brk = int(rng.integers(round(0.3 * m), round(0.7 * m) + 1))
         x = STEP_SIZE * (np.arange(m) >= brk) + ar1(rng, m, NOISE_PHI)
         y = TREND_RISE * t + ar1(rng, m, NOISE_PHI)
-    elif world == "planted":
-        x = ar1(rng, m, DRIVER_PHI)
-        b = rho / np.sqrt(1.0 - rho * rho)
-        y = np.full(m, np.nan)
-        y[lag:] = b * x[: m - lag] + rng.normal(size=m - lag)
+    elif world.startswith("planted"):
+        x, y = _planted(world, m, t, rng, rho, lag)
     else:
         raise ValueError(world)
     y = y.copy()
     y[:LEAD] = np.nan  # the response record starts LEAD years after the driver's
+    return x, y
+
+
+def _standardised(v: np.ndarray) -> np.ndarray:
+    return (v - v.mean()) / v.std()
+
+
+def _planted(world: str, m: int, t: np.ndarray, rng: np.random.Generator, rho: float, lag: int):
+    """Driver and response of a planted world: y_t = b x_{t-k} + e_t (+ a trend in y)."""
+    if world == "planted_rw":
+        x = _standardised(np.cumsum(rng.normal(size=m)))
+    elif world == "planted_trend_drv":
+        x = _standardised(TREND_RISE * t + ar1(rng, m, NOISE_PHI))
+    else:
+        x = ar1(rng, m, DRIVER_PHI)
+    b = rho / np.sqrt(1.0 - rho * rho)
+    e = rng.standard_t(3, size=m - lag) / np.sqrt(3.0) if world == "planted_t3" else rng.normal(size=m - lag)
+    y = np.full(m, np.nan)
+    y[lag:] = b * x[: m - lag] + e
+    if world == "planted_trend_resp":
+        y[lag:] += TREND_RISE * t[lag:]
     return x, y
 
 
@@ -181,6 +218,10 @@ def cells() -> list[dict]:
         for lag in LAGS:
             for n in NS:
                 out.append(dict(kind="planted", world="planted", n=n, rho=rho, lag=lag))
+    for world in HARDER:
+        for rho in RHOS:
+            for n in NS:
+                out.append(dict(kind="planted", world=world, n=n, rho=rho, lag=1))
     for i, c in enumerate(out):
         c["cell"] = i
     return out
@@ -201,7 +242,9 @@ def summarise(cell_list: list[dict], results: pd.DataFrame) -> pd.DataFrame:
             "naive_selected": int((ok["p_naive_sel"] < ALPHA).sum()),
             "strong": int((g == "strong").sum()),
             "strong_or_moderate": int(g.isin(["strong", "moderate"]).sum()),
-            "spurious_trend": int((g == "spurious-trend").sum()),
+            "shared_trend": int(g.isin(SHARED_TREND).sum()),
+            "autocorrelation_only": int((g == "autocorrelation-only").sum()),
+            "no_forecast_skill": int((g == "no-forecast-skill").sum()),
         }
         if c["kind"] == "planted":
             parts["lag_correct"] = int((ok["lag"] == c["lag"]).sum())
@@ -231,13 +274,28 @@ def targets(summary: pd.DataFrame) -> list[str]:
     lines.append(f"null worlds meeting both targets: {n_met} of {len(nulls)}; highest P(strong) "
                  f"{worst_s['strong']:.3f} ({worst_s['world']}, n={worst_s['n']}); highest P(strong or moderate) "
                  f"{worst_sm['strong_or_moderate']:.3f} ({worst_sm['world']}, n={worst_sm['n']})")
-    p = summary[(summary["kind"] == "planted") & (summary["rho"] == 0.7) & (summary["n"] == 40)]
+    p = summary[(summary["kind"] == "planted") & (summary["rho"] == 0.7) & (summary["n"] == 40)
+                & summary["world"].isin(STATIONARY_DRIVER)]
     for _, r in p.iterrows():
         verdict = "met" if r["strong_or_moderate"] >= 0.80 else "MISSED"
-        lines.append(f"{verdict}: planted |r| = 0.7, lag {int(r['planted_lag'])}, n = 40: P(strong or moderate) = "
+        lines.append(f"{verdict}: {r['world']}, |r| = 0.7, lag {int(r['planted_lag'])}, n = 40: P(strong or moderate) = "
                      f"{r['strong_or_moderate']:.3f} [{r['strong_or_moderate_lo']:.3f}, {r['strong_or_moderate_hi']:.3f}]"
                      f" (target >= 0.80)")
-    return lines
+    return lines + _shared_trend_targets(summary)
+
+
+def _shared_trend_targets(summary: pd.DataFrame) -> list[str]:
+    """Shared-trend verdicts in worlds where no series has a trend: at most 5% (issue 15)."""
+    free = summary[summary["world"].isin(TREND_FREE)]
+    if free.empty:
+        return []
+    worlds = int(free["reps"].sum())
+    k = int(round((free["shared_trend"] * free["reps"]).sum()))
+    est, lo, hi = rate(k, worlds)
+    worst = free.loc[free["shared_trend"].idxmax()]
+    verdict = "met" if est <= 0.05 and worst["shared_trend"] <= 0.05 else "MISSED"
+    return [f"{verdict}: shared-trend verdicts in trend-free worlds: {k} of {worlds} ({fmt(est, lo, hi)}); "
+            f"highest cell {worst['shared_trend']:.3f} ({worst['world']}, n={worst['n']}) (target <= 0.05)"]
 
 
 def fmt(est, lo, hi) -> str:
@@ -246,25 +304,28 @@ def fmt(est, lo, hi) -> str:
     return f"{est:.3f} [{lo:.3f}, {hi:.3f}]"
 
 
+def _cell(r, name: str) -> str:
+    return fmt(r[name], r[f"{name}_lo"], r[f"{name}_hi"])
+
+
 def markdown(summary: pd.DataFrame, header: str, target_lines: list[str]) -> str:
     out = [header, ""]
     out += ["### Null worlds (no relationship)", "",
-            "| world | n | worlds | naive FP, lag 0 | naive FP, selected lag | P(strong) | P(strong or moderate) | P(spurious-trend) |",
-            "| --- | ---: | ---: | --- | --- | --- | --- | --- |"]
+            "| world | n | worlds | naive FP, lag 0 | naive FP, selected lag | P(strong) | P(strong or moderate) "
+            "| P(shared trend) | P(autocorrelation-only) | P(no-forecast-skill) |",
+            "| --- | ---: | ---: | --- | --- | --- | --- | --- | --- | --- |"]
     for _, r in summary[summary["kind"] == "null"].iterrows():
-        out.append(f"| {r['world']} | {r['n']} | {r['reps']} | {fmt(r['naive_lag0'], r['naive_lag0_lo'], r['naive_lag0_hi'])} | "
-                   f"{fmt(r['naive_selected'], r['naive_selected_lo'], r['naive_selected_hi'])} | "
-                   f"{fmt(r['strong'], r['strong_lo'], r['strong_hi'])} | "
-                   f"{fmt(r['strong_or_moderate'], r['strong_or_moderate_lo'], r['strong_or_moderate_hi'])} | "
-                   f"{fmt(r['spurious_trend'], r['spurious_trend_lo'], r['spurious_trend_hi'])} |")
+        out.append(f"| {r['world']} | {r['n']} | {r['reps']} | {_cell(r, 'naive_lag0')} | {_cell(r, 'naive_selected')} | "
+                   f"{_cell(r, 'strong')} | {_cell(r, 'strong_or_moderate')} | {_cell(r, 'shared_trend')} | "
+                   f"{_cell(r, 'autocorrelation_only')} | {_cell(r, 'no_forecast_skill')} |")
     out += ["", "### Planted lagged effects", "",
-            "| rho | planted lag | n | worlds | P(strong) | P(strong or moderate) | selected lag = planted |",
-            "| ---: | ---: | ---: | ---: | --- | --- | --- |"]
+            "| world | rho | planted lag | n | worlds | P(strong) | P(strong or moderate) | selected lag = planted "
+            "| P(shared trend) |",
+            "| --- | ---: | ---: | ---: | ---: | --- | --- | --- | --- |"]
     for _, r in summary[summary["kind"] == "planted"].iterrows():
-        out.append(f"| {r['rho']:.1f} | {int(r['planted_lag'])} | {r['n']} | {r['reps']} | "
-                   f"{fmt(r['strong'], r['strong_lo'], r['strong_hi'])} | "
-                   f"{fmt(r['strong_or_moderate'], r['strong_or_moderate_lo'], r['strong_or_moderate_hi'])} | "
-                   f"{fmt(r['lag_correct'], r['lag_correct_lo'], r['lag_correct_hi'])} |")
+        out.append(f"| {r['world']} | {r['rho']:.1f} | {int(r['planted_lag'])} | {r['n']} | {r['reps']} | "
+                   f"{_cell(r, 'strong')} | {_cell(r, 'strong_or_moderate')} | {_cell(r, 'lag_correct')} | "
+                   f"{_cell(r, 'shared_trend')} |")
     out += ["", "### Targets", ""] + [f"- {t}" for t in target_lines]
     errs = int(summary["errors"].sum())
     ins = int(summary["insufficient"].sum())
@@ -283,14 +344,15 @@ def main(argv=None) -> int:
     ap.add_argument("--processes", type=int, default=2)
     ap.add_argument("--n", default=None, help="only these record lengths, e.g. '40' or '25,60' (default all)")
     ap.add_argument("--out", default=None,
-                    help="output stem (default bench/results/calibration, or calibration_linear_gam with gam)")
+                    help="output stem (default bench/out/calibration, or calibration_linear_gam with gam; "
+                         "bench/out/ is not tracked)")
     args = ap.parse_args(argv)
     reps = 40 if args.quick else args.reps
     models = [m.strip() for m in args.models.split(",") if m.strip()]
     if not set(models) <= {"linear", "gam"} or "linear" not in models:
         ap.error("--models must be 'linear' or 'linear,gam'")
     here = Path(__file__).resolve().parent
-    stem = Path(args.out) if args.out else here / "results" / ("calibration" if models == ["linear"] else "calibration_linear_gam")
+    stem = Path(args.out) if args.out else here / "out" / ("calibration" if models == ["linear"] else "calibration_linear_gam")
     stem.parent.mkdir(parents=True, exist_ok=True)
     cl = cells()
     if args.n:

@@ -187,7 +187,7 @@ def main(argv=None) -> int:
     ap.add_argument("--max-seconds", type=float, default=2400, help="stop a run after this long (default 2400)")
     ap.add_argument("--pdf", action="store_true", help="write each study's PDF report too (slower)")
     ap.add_argument("--seed", type=int, default=11)
-    ap.add_argument("--out", default=str(REPO / "bench" / "results" / "scale"))
+    ap.add_argument("--out", default=str(REPO / "bench" / "out" / "scale"))  # bench/out/ is not tracked
     args = ap.parse_args(argv)
     env = dict(os.environ, PYTHONPATH=os.pathsep.join(filter(None, [str(REPO / "src"), os.environ.get("PYTHONPATH")])),
                MPLBACKEND="Agg")

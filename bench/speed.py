@@ -335,7 +335,7 @@ def main(argv=None) -> int:
                     help="also fail when lagsieve's gam forecasts differ from the exact (ridge-free) fit by > 1e-5")
     ap.add_argument("--level", type=float, default=10.0,
                     help="mean level of the simulated responses (default 10; agreement is relative to it)")
-    ap.add_argument("--out", default=str(Path(__file__).resolve().parent / "results" / "speed.csv"))
+    ap.add_argument("--out", default=str(Path(__file__).resolve().parent / "out" / "speed.csv"))  # not tracked
     args = ap.parse_args(argv)
     warnings.simplefilter("ignore")
     hyps = make_hypotheses(args.seed, level=args.level)

@@ -38,10 +38,15 @@ SCREEN_COLUMNS = ["response", "driver", "lag", "model", "n", "first_year", "last
                   "p_surrogate_lag", "edf", "deviance_explained", "p_smooth", "shape", "status"]
 EVIDENCE_COLUMNS = ["response", "driver", "category", "expected_sign", "lag", "model", "n", "first_year",
                     "last_year", "r", "p_naive", "n_eff", "p_adjusted", "r_detrended", "p_detrended", "r_diff",
-                    "slope", "slope_se", "p_surrogate", "p_surrogate_lag", "q_value", "oos_skill",
-                    "oos_skill_climatology", "oos_skill_persistence", "oos_skill_trend", "oos_n", "oos_p",
+                    "p_differenced", "trend_p_response", "trend_p_driver", "driver_trend_r2",
+                    "slope", "slope_se", "slope_ci_low", "slope_ci_high", "r_ci_low", "r_ci_high",
+                    "effect", "effect_ci_low", "effect_ci_high", "effect_basis", "effect_largest_allowed",
+                    "p_surrogate", "p_surrogate_lag", "q_value", "oos_skill",
+                    "oos_skill_climatology", "oos_skill_persistence", "oos_skill_trend", "oos_skill_trend_ar1",
+                    "oos_n", "oos_p", "oos_test",
                     "oos_p_surrogate", "oos_hardest", "oos_lag", "oos_lag_share", "retest_skill", "retest_years",
-                    "gam_gain", "edf", "shape", "grade", "flags", "rank", "collinear_with", "summary", "status"]
+                    "retest_model", "gam_gain", "edf", "shape", "grade", "flags", "rank", "collinear_with",
+                    "summary", "status"]
 
 
 # ---------------------------------------------------------------- job logs
@@ -313,7 +318,7 @@ def run_evidence(config_path, annual_csv, work_dir, out_screen, out_evidence) ->
     dirs = response_dirs(work_dir, study)
     hyps = pd.concat([pd.read_csv(d / "hypotheses.csv") for d in dirs.values()], ignore_index=True)
     scr = pd.concat([pd.read_csv(d / "screen.csv") for d in dirs.values()], ignore_index=True)
-    ev = build_evidence(hyps, table, study.screen)
+    ev = build_evidence(hyps, table, study.screen, study.responses + study.drivers)
     write_csv(ordered(scr, SCREEN_COLUMNS), out_screen)
     write_csv(ordered(ev, EVIDENCE_COLUMNS), out_evidence)
 

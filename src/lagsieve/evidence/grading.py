@@ -9,15 +9,18 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from lagsieve.evidence.vocabulary import COLLINEAR_R, GRADE_ORDER, SHORT_OVERLAP_YEARS
+from lagsieve.evidence.effects import add_effects
+from lagsieve.evidence.vocabulary import COLLINEAR_R, DRIVER_TREND_R2, GRADE_ORDER, SHORT_OVERLAP_YEARS
+from lagsieve.stats.backtest import BASELINES
 from lagsieve.stats.multiplicity import bh_qvalues
 
 #: Hypothesis columns the grading reads. A screen in which no hypothesis reached a stage (no
 #: out-of-sample forecast anywhere, every pair constant) writes none of that stage's columns:
 #: they are then added, empty, so that every hypothesis is graded by the same rules.
-GRADED_COLUMNS = ("lag", "n", "r", "p_naive", "n_eff", "p_adjusted", "p_detrended", "p_surrogate",
-                  "p_surrogate_lag", "oos_skill", "oos_skill_climatology", "oos_skill_persistence",
-                  "oos_skill_trend", "oos_n", "oos_p_surrogate", "retest_skill")
+GRADED_COLUMNS = ("lag", "n", "r", "p_naive", "n_eff", "p_adjusted", "p_detrended", "p_differenced",
+                  "trend_p_response", "trend_p_driver", "driver_trend_r2", "p_surrogate", "p_surrogate_lag",
+                  "oos_skill", *(f"oos_skill_{b}" for b in BASELINES), "oos_n", "oos_p_surrogate", "retest_skill")
+TREND_BASELINES = tuple(b for b in BASELINES if b.startswith("trend"))  # the baselines that forecast a trend
 
 
 def driver_correlations(table: pd.DataFrame, drivers: list[str], min_years: int = 10) -> pd.DataFrame:
@@ -37,19 +40,57 @@ def _yes(row, key) -> bool:
     return False if v is None or (isinstance(v, float) and np.isnan(v)) else bool(v)
 
 
+def _at_most(value: float, level: float) -> bool:
+    """value <= level; a value that could not be computed (NaN) is not significant."""
+    return bool(value <= level)
+
+
+def shared_trend(row: dict, alpha: float) -> bool:
+    """The shared-trend reason (flag ``trend-shared``): naively significant; both series carry
+    a significant trend (:func:`lagsieve.stats.correlation.trend_test`; a test that is missing
+    counts as a trend); neither the detrended nor the differenced correlation is significant;
+    and a trend baseline forecasts as well as the candidate (skill <= 0 against the harder of
+    the trend baselines; missing skill counts as not beaten)."""
+    if not _at_most(_get(row, "p_naive"), alpha):
+        return False
+    trends = all(not _get(row, k) > alpha for k in ("trend_p_response", "trend_p_driver"))
+    gone = not _at_most(_get(row, "p_detrended"), alpha) and not _at_most(_get(row, "p_differenced"), alpha)
+    skills = [_get(row, f"oos_skill_{b}") for b in TREND_BASELINES]
+    skills = [v for v in skills if not np.isnan(v)]
+    trend_as_good = not skills or min(skills) <= 0
+    return trends and gone and trend_as_good
+
+
+def _forecasts_survive(row: dict) -> bool:
+    """Out-of-sample skill over the hardest baseline that surrogates rarely reach (the
+    moderate rule's forecast part)."""
+    return _get(row, "oos_skill") > 0 and _at_most(_get(row, "oos_p_surrogate"), 0.10)
+
+
+def reason_flags(row: dict, alpha: float) -> list[str]:
+    """The flags that name a reason to set a hypothesis aside (one reason, one word; see
+    ``SET_ASIDE`` in the vocabulary). At most one of ``trend-shared``, ``autocorrelation-only``
+    and ``no-forecast-skill``; ``driver-trend`` is said whenever the driver is mostly a line."""
+    f = []
+    p_naive, p_s = _get(row, "p_naive"), _get(row, "p_surrogate")
+    if shared_trend(row, alpha):
+        f.append("trend-shared")
+    elif _at_most(p_naive, alpha) and not _at_most(p_s, alpha):
+        f.append("autocorrelation-only")
+    elif _at_most(p_s, alpha) and not np.isnan(_get(row, "oos_skill")) and not _forecasts_survive(row):
+        f.append("no-forecast-skill")
+    if _get(row, "driver_trend_r2") >= DRIVER_TREND_R2:
+        f.append("driver-trend")
+    return f
+
+
 def flags_for(row: dict, alpha: float, fdr: float) -> list[str]:
     """The flag codes of one hypothesis row (see ``FLAGS``)."""
-    f = []
     status = str(row.get("status", "ok"))
     if status.startswith("failed"):
         return ["failed"]
-    p_naive, p_s = _get(row, "p_naive"), _get(row, "p_surrogate")
-    p_det = _get(row, "p_detrended")
-    sk_trend = _get(row, "oos_skill_trend")
-    n = _get(row, "n", 0)
-    # a detrended test that could not be computed does not clear the trend
-    if p_naive <= alpha and (not p_det <= alpha or not p_s <= alpha or (not np.isnan(sk_trend) and sk_trend <= 0)):
-        f.append("trend-shared")
+    f = reason_flags(row, alpha)
+    p_s, n = _get(row, "p_surrogate"), _get(row, "n", 0)
     if _get(row, "n_eff") < n / 2:
         f.append("autocorrelated")
     if _get(row, "lags_tried", 1) > 1 and _get(row, "p_surrogate_lag") <= alpha < p_s:
@@ -72,6 +113,16 @@ def flags_for(row: dict, alpha: float, fdr: float) -> list[str]:
     return f
 
 
+def _set_aside_grade(flags: list[str]) -> str | None:
+    """The grade naming the one reason a hypothesis is set aside, if its flags give one."""
+    if "trend-shared" in flags:
+        return "trend-confounded" if "driver-trend" in flags else "spurious-trend"
+    for reason in ("autocorrelation-only", "no-forecast-skill"):
+        if reason in flags:
+            return reason
+    return None
+
+
 def grade_row(row: dict, flags: list[str], alpha: float, fdr: float, min_overlap: int) -> str:
     """The grade of one hypothesis under ``GRADE_RULES`` (first rule that holds)."""
     if not str(row.get("status", "ok")).startswith("ok") or _get(row, "n", 0) < min_overlap \
@@ -79,7 +130,7 @@ def grade_row(row: dict, flags: list[str], alpha: float, fdr: float, min_overlap
         return "insufficient-data"
     sign_ok = "sign-unexpected" not in flags
     trend = "trend-shared" in flags
-    skills = [_get(row, f"oos_skill_{b}") for b in ("climatology", "persistence", "trend")]
+    skills = [_get(row, f"oos_skill_{b}") for b in BASELINES]
     q, ps, pos = _get(row, "q_value"), _get(row, "p_surrogate"), _get(row, "oos_p_surrogate")
     sk = _get(row, "oos_skill")
     retested = not np.isnan(_get(row, "retest_skill"))
@@ -88,8 +139,9 @@ def grade_row(row: dict, flags: list[str], alpha: float, fdr: float, min_overlap
         return "strong"
     if ps <= alpha and sk > 0 and pos <= 0.10 and sign_ok and not trend:
         return "moderate"
-    if trend:
-        return "spurious-trend"
+    reason = _set_aside_grade(flags)
+    if reason:
+        return reason
     if _get(row, "p_adjusted") <= alpha or ps <= 0.10 or (sk > 0 and pos <= 0.20):
         return "weak"
     return "none"
@@ -126,31 +178,62 @@ def insufficient_reason(row: dict, min_overlap: int) -> str:
     return "no out-of-sample skill could be computed"
 
 
-def summary_sentence(row: dict, min_overlap: int = 0) -> str:
-    """A plain-words line for the report: what supports the hypothesis, or why it was set aside."""
-    g = row["grade"]
+def _lead_direction(row: dict) -> str:
     lag = row.get("lag")
     lead = "same year" if lag == 0 else f"{int(lag)}-year lead" if lag == lag and lag is not None else "no lag"
     r = _get(row, "r")
-    direction = "positive" if r > 0 else "negative" if r < 0 else "no"
-    sk, n_oos = _get(row, "oos_skill"), _get(row, "oos_n", 0)
+    return f"{lead}, {'positive' if r > 0 else 'negative' if r < 0 else 'no'}"
+
+
+def _skill_words(row: dict) -> str:
+    """Out-of-sample skill in words: mean squared forecast error X% lower than the baseline's."""
+    sk, n_oos = _get(row, "oos_skill"), int(_get(row, "oos_n", 0))
     hardest = row.get("oos_hardest") or "hardest"
-    q = _get(row, "q_value")
-    if g in ("strong", "moderate", "weak"):
-        skill = (f"adds {100 * sk:.0f}% skill over the {hardest} baseline over {int(n_oos)} forecasts"
-                 if sk > 0 else f"no skill over the {hardest} baseline over {int(n_oos)} forecasts")
-        return f"{lead}, {direction}: {g} ({skill}; q = {q:.2f})"
-    flags = row.get("flags", "")
+    if sk > 0:
+        return f"squared forecast error {100 * sk:.0f}% lower than the {hardest} baseline's over {n_oos} forecasts"
+    return f"no skill over the {hardest} baseline over {n_oos} forecasts"
+
+
+def set_aside_sentence(row: dict) -> str | None:
+    """Why a hypothesis graded with one of ``SET_ASIDE`` was set aside, with its numbers."""
+    g = row["grade"]
+    p = {k: _get(row, k) for k in ("p_naive", "p_surrogate", "r_detrended", "r_diff", "driver_trend_r2",
+                                   "oos_skill", "oos_p_surrogate")}
     if g == "spurious-trend":
-        return f"{lead}, {direction}: set aside as a shared trend (naive p = {_get(row, 'p_naive'):.3f}; " \
-               f"detrended r = {_get(row, 'r_detrended'):.2f}; surrogate p = {_get(row, 'p_surrogate'):.2f})"
+        return (f"set aside as a shared trend (naive p = {p['p_naive']:.3f}; detrended r = {p['r_detrended']:.2f}; "
+                f"differenced r = {p['r_diff']:.2f}; a trend forecasts as well)")
+    if g == "trend-confounded":
+        return (f"set aside: the driver is mostly its own trend (r^2 with the year {p['driver_trend_r2']:.2f}), "
+                f"so no screen can tell its effect apart from a trend shared with the response "
+                f"(naive p = {p['p_naive']:.3f}; detrended r = {p['r_detrended']:.2f})")
+    if g == "autocorrelation-only":
+        return (f"set aside as autocorrelation only: no stronger than surrogates with the same spectrum "
+                f"(naive p = {p['p_naive']:.3f}; surrogate p = {p['p_surrogate']:.2f})")
+    if g == "no-forecast-skill":
+        return (f"set aside for no forecast skill: supported in sample (surrogate p = {p['p_surrogate']:.2f}), "
+                f"but {_skill_words(row)} (surrogate p of skill {p['oos_p_surrogate']:.2f})")
+    return None
+
+
+def summary_sentence(row: dict, min_overlap: int = 0) -> str:
+    """A plain-words line for the report: what supports the hypothesis, or why it was set aside.
+    Evidence is strong or weak; an effect's size is given in units elsewhere (never "strong effect")."""
+    g = row["grade"]
+    head = _lead_direction(row)
+    if g in ("strong", "moderate", "weak"):
+        return f"{head}: {g} evidence ({_skill_words(row)}; q = {_get(row, 'q_value'):.2f})"
     if g == "insufficient-data":
         return f"insufficient data: {insufficient_reason(row, min_overlap)}"
-    return f"{lead}, {direction}: no support (surrogate p = {_get(row, 'p_surrogate'):.2f}; " \
-           f"out-of-sample skill {sk:+.2f})" + (f"; flags: {flags}" if flags else "")
+    aside = set_aside_sentence(row)
+    if aside:
+        return f"{head}: {aside}"
+    flags = row.get("flags", "")
+    return f"{head}: no support (surrogate p = {_get(row, 'p_surrogate'):.2f}; " \
+           f"out-of-sample skill {_get(row, 'oos_skill'):+.2f})" + (f"; flags: {flags}" if flags else "")
 
 
-def build_evidence(hypotheses: pd.DataFrame, table: pd.DataFrame, screen: dict) -> pd.DataFrame:
+def build_evidence(hypotheses: pd.DataFrame, table: pd.DataFrame, screen: dict,
+                   series: list[dict] | None = None) -> pd.DataFrame:
     """Study-wide evidence: q-values over all hypotheses, collinearity, flags, grades, ranks."""
     ev = hypotheses.copy()
     for col in GRADED_COLUMNS:
@@ -181,5 +264,6 @@ def build_evidence(hypotheses: pd.DataFrame, table: pd.DataFrame, screen: dict) 
                         ascending=[True, True, True, True, False], na_position="last", kind="mergesort")
     ev["rank"] = ev.groupby("response").cumcount() + 1
     ev = ev.drop(columns="_g")
+    ev = add_effects(ev, series, table)  # series: config entries (label, unit, transform)
     ev["summary"] = [summary_sentence(r, min_overlap) for r in ev.to_dict("records")]
     return ev.reset_index(drop=True)

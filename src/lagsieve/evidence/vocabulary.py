@@ -3,29 +3,50 @@ thresholds behind them. The report, the README tables and the grading code all r
 """
 from __future__ import annotations
 
-GRADES = ("strong", "moderate", "weak", "none", "spurious-trend", "insufficient-data")
-GRADE_ORDER = {"strong": 0, "moderate": 1, "weak": 2, "spurious-trend": 3, "none": 4, "insufficient-data": 5}
+GRADES = ("strong", "moderate", "weak", "no-forecast-skill", "autocorrelation-only", "trend-confounded",
+          "spurious-trend", "none", "insufficient-data")
+GRADE_ORDER = {g: i for i, g in enumerate(GRADES)}  # the order of ranks within a response
+
+#: The grades that set a hypothesis aside for one named reason, each with its flag (one reason, one word).
+SET_ASIDE = ("no-forecast-skill", "autocorrelation-only", "trend-confounded", "spurious-trend")
 
 GRADE_RULES = {
     "strong": "q-value <= FDR level, surrogate p of out-of-sample skill <= 0.05, skill > 0 against every "
-              "baseline (climatology, persistence, trend), the sign stated beforehand, a re-test on the "
-              "latest years that was possible, and neither trend-shared nor failed-retest.",
+              "baseline (climatology, persistence, trend, trend with AR(1) errors), the sign stated "
+              "beforehand, a re-test on the latest years that was possible, and neither trend-shared nor "
+              "failed-retest.",
     "moderate": "surrogate p (best lag and model, paid for) <= alpha, skill > 0 against the hardest baseline "
                 "with surrogate p of skill <= 0.10, the sign stated beforehand, and not trend-shared; or strong, "
                 "but collinear with a driver that is also strong and forecasts the same response better.",
     "weak": "some support (autocorrelation-adjusted p <= alpha, surrogate p <= 0.10, or positive skill "
-            "with surrogate p of skill <= 0.20) but short of moderate.",
+            "with surrogate p of skill <= 0.20) but short of moderate, and none of the reasons below.",
+    "no-forecast-skill": "in-sample evidence survives surrogates (surrogate p <= alpha), but out-of-sample "
+                         "skill does not (skill <= 0 against the hardest baseline, or surrogate p of skill "
+                         "> 0.10).",
+    "autocorrelation-only": "the naive correlation is significant, but not against surrogates with the same "
+                            "spectrum (surrogate p > alpha), and it is not a shared trend.",
+    "trend-confounded": "as spurious-trend, but the driver is little more than its own straight line "
+                        "(r^2 with the year >= 0.8): no screen can tell its effect apart from any trend "
+                        "shared with the response.",
+    "spurious-trend": "the naive correlation is significant; both series carry a significant trend; neither the "
+                      "detrended nor the differenced correlation is significant; and a trend baseline forecasts "
+                      "as well as the candidate out of sample.",
     "none": "no support after adjustment.",
-    "spurious-trend": "the naive correlation is significant but the evidence collapses after detrending, "
-                      "against surrogates, or against the trend baseline out of sample.",
     "insufficient-data": "too few overlapping years for the screening or the out-of-sample scheme, a series "
                          "that is constant where the two overlap, or a computation that failed; the reason is in "
                          "the status column and in the list Not computed of the summary.",
 }
 
 FLAGS = {
-    "trend-shared": "Naively significant, but not after detrending, against surrogates with the same "
-                    "spectrum, or against the trend baseline out of sample: the two series may only share a trend.",
+    "trend-shared": "Naively significant; both series trend; neither the detrended nor the differenced "
+                    "correlation is significant; and a trend baseline forecasts as well as the candidate: the "
+                    "two series may only share a trend.",
+    "driver-trend": "A straight line in the year explains at least 80% of the driver's variance over the "
+                    "screened years: its effect cannot be told apart from any other trend.",
+    "autocorrelation-only": "Naively significant, but not against surrogates with the same spectrum: "
+                            "autocorrelation alone makes correlations this large common.",
+    "no-forecast-skill": "Supported in sample against surrogates, but no out-of-sample skill over the hardest "
+                         "baseline (skill <= 0, or not better than the surrogates' skill, p > 0.10).",
     "autocorrelated": "The effective sample size is less than half the number of years, so neighbouring "
                       "years carry overlapping information.",
     "lag-selected": "Significant at the chosen lag alone, but not once the choice among the lags tried is "
@@ -44,13 +65,19 @@ FLAGS = {
 SHORT_OVERLAP_YEARS = 25  # common practice: below about 25 years, lagged screens have little power
 COLLINEAR_R = 0.7  # Dormann et al. (2013, Ecography 36:27-46) rule of thumb
 
+DRIVER_TREND_R2 = 0.8  # common practice, no published source: a driver 80% straight line is "a trend"
+
 SUPPORTED = ("strong", "moderate")  # the grades a hypothesis is carried forward with
 
 GRADE_WORDS = {  # one-line meaning of each grade, for the report's summary and the set-aside reasons
     "strong": "supported in sample, against surrogates and out of sample",
     "moderate": "supported, short of the strong rule",
     "weak": "some support, not enough to carry forward",
+    "no-forecast-skill": "real in sample, but no forecast skill on years not used to fit",
+    "autocorrelation-only": "no stronger than autocorrelated series with no link (surrogates)",
+    "trend-confounded": "the driver is mostly its own trend: cannot be told apart from a shared trend",
+    "spurious-trend": "a shared trend only: nothing left after detrending or differencing, and a trend "
+                      "forecasts as well",
     "none": "no support after adjustment",
-    "spurious-trend": "shares a trend only",
     "insufficient-data": "could not be judged",
 }

@@ -9,7 +9,7 @@ import pandas as pd
 
 from lagsieve.evidence.grading import insufficient_reason
 from lagsieve.formats import is_missing, text
-from lagsieve.evidence.vocabulary import GRADE_WORDS
+from lagsieve.evidence.vocabulary import GRADE_WORDS, SET_ASIDE
 from lagsieve.prep.align import lagged_pair
 from lagsieve.stats.splines import fit_pspline, partial_effect
 
@@ -51,8 +51,8 @@ def not_computed_reason(row: dict, min_overlap: int = 0) -> str:
 def set_aside_reason(row: dict) -> str:
     """A few words on why a hypothesis is not carried forward."""
     g, flags = text(row.get("grade")), flag_list(row.get("flags"))
-    if g == "spurious-trend":
-        return "shares a trend only; nothing left after detrending or against trend-keeping surrogates"
+    if g in SET_ASIDE:
+        return GRADE_WORDS[g]
     if g == "insufficient-data":
         return "not computed: " + not_computed_reason(row)
     if g == "none":

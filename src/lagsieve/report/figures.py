@@ -44,8 +44,11 @@ GRADE_STYLE = {
     "strong": ("#0b3c68", "#ffffff", "strong"),
     "moderate": ("#3d85c6", "#ffffff", "moderate"),
     "weak": ("#b8d4ec", "#10263a", "weak"),
-    "none": ("#e9e9e9", "#2b2b2b", "none"),
+    "no-forecast-skill": ("#d7c6e6", "#241433", "no forecast"),
+    "autocorrelation-only": ("#f6d09a", "#2a1a00", "autocorr."),
+    "trend-confounded": ("#d99a5b", "#1f1300", "trend driver"),
     "spurious-trend": ("#e8913a", "#1f1300", "trend only"),
+    "none": ("#e9e9e9", "#2b2b2b", "none"),
     "insufficient-data": ("#ffffff", "#555555", "too few data"),
 }
 GRADE_COLOURS = {g: s[0] for g, s in GRADE_STYLE.items()}
@@ -58,6 +61,7 @@ BASELINE_STYLES = {           # grey family, told apart by dash pattern and mark
     "climatology": ("#8c8c8c", (0, (1, 1.5)), None),
     "persistence": ("#6f6f6f", (0, (4, 2)), None),
     "trend": ("#4a4a4a", (0, (6, 2, 1, 2)), None),
+    "trend_ar1": ("#2f2f2f", (0, (2, 1, 2, 3)), None),
 }
 CORR_CMAP = LinearSegmentedColormap.from_list(
     "lagsieve_div", ["#0b3c68", "#6fa3d2", "#f7f7f5", "#eda363", "#9c3d0c"])
