@@ -12,10 +12,12 @@ Outside sources named beside each check:
 from __future__ import annotations
 
 import copy
+import re
 
 import numpy as np
 import pandas as pd
 import pytest
+from helpers import REPO
 from statsmodels.stats.multitest import multipletests
 
 from lagsieve.io import config
@@ -439,3 +441,13 @@ def test_a_linear_driver_is_trend_confounded_not_spurious():
     assert "spurious-trend" not in found
     assert found.count("trend-confounded") >= 6, found
     assert not set(found) & set(vocabulary.SUPPORTED)
+
+
+def test_readme_tables_document_every_grade_and_flag():
+    """The README's grade and flag tables name every code of the vocabulary, and no other (the
+    documentation stays true; common practice, no outside source)."""
+    text = (REPO / "README.md").read_text(encoding="utf-8")
+    grades = text[text.index("### Grades"):text.index("### Flags")]
+    flags = text[text.index("### Flags"):text.index("## Output files")]
+    assert re.findall(r"^\| `([a-z-]+)` \|", grades, re.M) == list(vocabulary.GRADES)
+    assert re.findall(r"^\| `([a-z-]+)` \|", flags, re.M) == list(vocabulary.FLAGS)

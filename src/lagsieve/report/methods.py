@@ -12,6 +12,9 @@ REF = {
              "correlation analyses of fish data. Can. J. Fish. Aquat. Sci. 55:2127-2140.",
     "granger": "Granger, C.W.J. & Newbold, P. (1974) Spurious regressions in econometrics. "
                "J. Econometrics 2:111-120.",
+    "santer": "Santer, B.D., Wigley, T.M.L., Boyle, J.S., Gaffen, D.J., Hnilo, J.J., Nychka, D., Parker, D.E. & "
+              "Taylor, K.E. (2000) Statistical significance of trends and trend differences in layer-average "
+              "atmospheric temperature time series. J. Geophys. Res. 105:7337-7356.",
     "newey": "Newey, W.K. & West, K.D. (1987) A simple, positive semi-definite, heteroskedasticity and "
              "autocorrelation consistent covariance matrix. Econometrica 55:703-708.",
     "ebisuzaki": "Ebisuzaki, W. (1997) A method to estimate the statistical significance of a correlation "
@@ -82,7 +85,7 @@ def methods_facts(ctx: Context) -> dict:
 
 def cited(facts: dict) -> list[str]:
     """Keys of the references the methods text cites, in the order it cites them."""
-    refs = ["pyper", "granger", "newey"]
+    refs = ["pyper", "granger", "santer", "newey"]
     if facts["gam"]:
         refs += ["eilers", "craven", "wood"]
     refs += ["ebisuzaki", "theiler"] if facts["surrogate_method"] == "phase" else ["buhlmann"]
