@@ -181,12 +181,16 @@ def run_world(task: tuple) -> dict:
             rows, hyp, _, _ = screen_hypothesis(table, {"id": "resp"}, {"id": "drv", "expected_sign": "any"},
                                                 LAGS, scr)
             ev = build_evidence(pd.DataFrame([hyp]), table, scr).iloc[0]
+            # the same world graded as if the re-test on the latest years played no part in the
+            # grades: what the re-test buys in false positives and costs in power
+            no_retest = dict(hyp, retest_skill=np.inf)
+            grade_no_retest = build_evidence(pd.DataFrame([no_retest]), table, scr)["grade"].iloc[0]
         lin0 = rows[(rows["model"] == "linear") & (rows["lag"] == 0)]
-        out.update(grade=ev["grade"], lag=ev.get("lag"), p_naive_sel=ev.get("p_naive"),
+        out.update(grade=ev["grade"], grade_no_retest=grade_no_retest, lag=ev.get("lag"), p_naive_sel=ev.get("p_naive"),
                    p_naive_lag0=float(lin0["p_naive"].iloc[0]) if len(lin0) else np.nan,
                    model=ev.get("model"), status=str(ev.get("status")))
     except Exception as exc:  # recorded, counted as failures in the table
-        out.update(grade="error", lag=np.nan, p_naive_sel=np.nan, p_naive_lag0=np.nan, model=None,
+        out.update(grade="error", grade_no_retest="error", lag=np.nan, p_naive_sel=np.nan, p_naive_lag0=np.nan, model=None,
                    status=f"error: {type(exc).__name__}: {exc}")
     out["seconds"] = time.perf_counter() - t0
     return out
@@ -242,6 +246,8 @@ def summarise(cell_list: list[dict], results: pd.DataFrame) -> pd.DataFrame:
             "naive_selected": int((ok["p_naive_sel"] < ALPHA).sum()),
             "strong": int((g == "strong").sum()),
             "strong_or_moderate": int(g.isin(["strong", "moderate"]).sum()),
+            "strong_no_retest": int((ok["grade_no_retest"] == "strong").sum()),
+            "strong_or_moderate_no_retest": int(ok["grade_no_retest"].isin(["strong", "moderate"]).sum()),
             "shared_trend": int(g.isin(SHARED_TREND).sum()),
             "autocorrelation_only": int((g == "autocorrelation-only").sum()),
             "no_forecast_skill": int((g == "no-forecast-skill").sum()),
@@ -326,6 +332,16 @@ def markdown(summary: pd.DataFrame, header: str, target_lines: list[str]) -> str
         out.append(f"| {r['world']} | {r['rho']:.1f} | {int(r['planted_lag'])} | {r['n']} | {r['reps']} | "
                    f"{_cell(r, 'strong')} | {_cell(r, 'strong_or_moderate')} | {_cell(r, 'lag_correct')} | "
                    f"{_cell(r, 'shared_trend')} |")
+    out += ["", "### The re-test's part in the grades", "",
+            "The same worlds graded as if the re-test on the latest years played no part (its skill set to "
+            "+inf): what requiring a re-test buys in false positives and costs in power.", "",
+            "| world | rho | lag | n | P(strong) | P(strong), no re-test | P(strong or moderate) | "
+            "P(strong or moderate), no re-test |", "| --- | ---: | ---: | ---: | --- | --- | --- | --- |"]
+    for _, r in summary.iterrows():
+        rho = "" if np.isnan(r["rho"]) else f"{r['rho']:.1f}"
+        lag = "" if np.isnan(r["planted_lag"]) else int(r["planted_lag"])
+        out.append(f"| {r['world']} | {rho} | {lag} | {r['n']} | {r['strong']:.3f} | {r['strong_no_retest']:.3f} | "
+                   f"{r['strong_or_moderate']:.3f} | {r['strong_or_moderate_no_retest']:.3f} |")
     out += ["", "### Targets", ""] + [f"- {t}" for t in target_lines]
     errs = int(summary["errors"].sum())
     ins = int(summary["insufficient"].sum())
