@@ -350,3 +350,17 @@ def test_report_survives_missing_pieces(tiny, tmp_path):
     assert any(n.endswith("__overlay") for n in figs)
     for d in data_uris(html_text):
         assert png_ok(d)[0]
+
+
+def test_effects_in_table_and_panels(tiny):
+    """The effect column, its legend line outside any tooltip (visible in print) and the panels'
+    effect phrase (lagsieve.evidence.effects)."""
+    h = tiny["html"]
+    ev = pd.read_csv(tiny["res"] / "evidence.csv")
+    assert 'data-key="effect" data-type="num"' in h and "Effect (95% CI)" in h
+    legend = h.split('<p class="note effect-note">')[1].split("</p>")[0]
+    assert legend.startswith("Effect: the change in the response, in its units") and "halving" in legend
+    shown = ev[ev["effect"].notna() & ev["lag"].notna()]
+    assert len(shown) and shown["effect_basis"].str.len().gt(0).all()
+    assert h.count('<p class="effect">') >= 1 and "(95% CI " in h.split('<p class="effect">')[1]
+    assert "strong effect" not in h

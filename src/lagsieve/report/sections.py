@@ -6,6 +6,7 @@ import json
 
 import pandas as pd
 
+from lagsieve.evidence.effects import allowed_phrase, effect_cell, effect_phrase
 from lagsieve.evidence.vocabulary import COLLINEAR_R, GRADES, SUPPORTED
 from lagsieve.report import figures as fg
 from lagsieve.report.context import Context, lead_words, not_computed, set_aside_reason, summary_line
@@ -24,6 +25,10 @@ CAUTIONS = [
 NAV = [("summary", "Summary"), ("overview", "Evidence map"), ("table", "Ranked evidence"),
        ("hypotheses", "Leading hypotheses"), ("data", "Data"), ("methods", "Methods"), ("provenance", "Provenance")]
 
+EFFECT_NOTE = ("Effect: the change in the response, in its units (% for a log-transformed response), for a "
+               "one-unit change of the driver, or for a halving of a log-transformed driver, at the chosen lag; "
+               "95% interval from the slope's autocorrelation-robust standard error on the effective sample size.")
+
 TABLE_COLS = [  # key, heading, tooltip, kind, format
     ("response", "Response", "response series id", "text", None),
     ("rank", "Rank", "rank within the response (1 = best supported)", "num", "{:.0f}"),
@@ -40,6 +45,7 @@ TABLE_COLS = [  # key, heading, tooltip, kind, format
     ("oos_n", "Fcst", "number of out-of-sample forecasts", "num", "{:.0f}"),
     ("oos_p_surrogate", "p skill", "surrogate p-value of the out-of-sample skill", "p", None),
     ("retest_skill", "Re-test", "skill on the latest years, fitted before them", "num", "{:+.2f}"),
+    ("effect", "Effect (95% CI)", EFFECT_NOTE, "effect", None),
     ("grade", "Grade", "grade by the rules listed below the table", "grade", None),
     ("flags", "Flags", "cautions; hover a code for its meaning", "flags", None),
 ]
@@ -102,6 +108,9 @@ def _cell(ctx: Context, row: dict, key: str, kind: str, fmt: str | None) -> dict
         return {"kind": "skill", "v": number(v, "{:.6g}"), "text": number(v, fmt), "note": text(row.get("oos_hardest"))}
     if key == "response":
         return {"kind": "response", "v": text(v), "text": text(v)}
+    if kind == "effect":
+        value, note = effect_cell(row)
+        return {"kind": "effect", "v": number(v, "{:.6g}"), "text": value, "note": note}
     if kind == "grade":
         return {"kind": "grade", "v": GRADE_SORT.get(text(v), 9), "text": text(v)}
     if kind == "flags":
@@ -115,12 +124,12 @@ def _cell(ctx: Context, row: dict, key: str, kind: str, fmt: str | None) -> dict
 
 def evidence_table(ctx: Context) -> dict:
     """Columns (key, heading, tooltip, sort type) and one row of cells per hypothesis."""
-    columns = [{"key": key, "name": name, "tip": tip, "type": "num" if kind in ("num", "p") else "text"}
+    columns = [{"key": key, "name": name, "tip": tip, "type": "num" if kind in ("num", "p", "effect") else "text"}
                for key, name, tip, kind, _ in TABLE_COLS]
     rows = [{"response": text(row.get("response")), "grade": text(row.get("grade")),
              "cells": [_cell(ctx, row, key, kind, fmt) for key, _, _, kind, fmt in TABLE_COLS]}
             for row in ctx.evidence.to_dict("records")]
-    return {"columns": columns, "rows": rows, "grades": GRADES,
+    return {"columns": columns, "rows": rows, "grades": GRADES, "effect_note": EFFECT_NOTE,
             "responses": [(r, ctx.label(r)) for r in ctx.study.response_ids]}
 
 
@@ -130,12 +139,18 @@ def key_numbers(row: dict) -> list[tuple[str, str]]:
     items = [("r", number(row.get("r"), "{:+.2f}")),
              ("n / n eff", f'{number(row.get("n"), "{:.0f}")} / {number(row.get("n_eff"), "{:.1f}")}'),
              ("p adj", p_text(row.get("p_adjusted"))), ("p surr", p_text(row.get("p_surrogate"))),
-             ("q", p_text(row.get("q_value"))), ("r detrended", number(row.get("r_detrended"), "{:+.2f}"))]
+             ("q", p_text(row.get("q_value"))), ("r detrended", number(row.get("r_detrended"), "{:+.2f}")),
+             ("r 95% CI", _range(row, "r_ci_low", "r_ci_high", "{:+.2f}"))]
     for b in ("climatology", "persistence", "trend"):
         items.append((f"skill vs {b}", number(row.get(f"oos_skill_{b}"), "{:+.2f}")))
     items += [("DM p", p_text(row.get("oos_p"))), ("p skill (surr)", p_text(row.get("oos_p_surrogate"))),
               ("re-test", f'{number(row.get("retest_skill"), "{:+.2f}")} {text(row.get("retest_years"))}')]
     return [(k, v) for k, v in items if v.strip()]
+
+
+def _range(row: dict, low: str, high: str, fmt: str) -> str:
+    lo, hi = number(row.get(low), fmt), number(row.get(high), fmt)
+    return f"{lo} to {hi}" if lo and hi else ""
 
 
 def _panel(ctx: Context, key: str, info: dict) -> dict:
@@ -149,6 +164,8 @@ def _panel(ctx: Context, key: str, info: dict) -> dict:
     return {"key": key, "response": rid, "response_label": ctx.label(rid), "driver_label": ctx.label(did),
             "rank": int(row["rank"]), "lead": lead_words(int(row["lag"])), "grade": row.get("grade"),
             "summary": summary_line(row), "flags": row.get("flags"), "numbers": key_numbers(row),
+            "effect": effect_phrase(row, ctx.units.get(rid, ""), ctx.label(rid)),
+            "allowed": allowed_phrase(row, ctx.units.get(rid, ""), ctx.label(rid)),
             "shape": text(gam_row.get("shape")) if gam_row is not None else "", "figures": figures,
             "scatter_smooth": info.get("scatter_smooth"), "smooth_trend": info.get("smooth_trend"),
             "forecast_n": info.get("forecast_n", ""), "null_n": info.get("null_n", ""),
