@@ -1,5 +1,6 @@
 """Tests for lagsieve.stats.backtest (rolling-origin forecasts, baselines, skill, DM-HLN, re-test)
-and for the out-of-sample parts of lagsieve.screen.hypothesis.screen_hypothesis.
+and for the out-of-sample parts of lagsieve.screen.hypothesis.screen_hypothesis. Clark-West, the
+trend + AR(1) baseline's own checks and the spline re-test: tests/test_forecast_tests.py.
 
 Outside sources named beside each check:
 - Diebold & Mariano 1995, J. Bus. Econ. Stat. 13:253-263, with the small-sample correction of
@@ -98,6 +99,8 @@ def _design_raw(b, ylag, year):
         return np.ones((len(year), 1))
     if b == "persistence":
         return np.column_stack([np.ones(len(year)), ylag])
+    if b == "trend_ar1":  # y_t = a + b t + u_t, u_t = phi u_{t-1} + e_t  <=>  y_t = c0 + c1 t + phi y_{t-1} + e_t
+        return np.column_stack([np.ones(len(year)), ylag, year.astype(float)])
     return np.column_stack([np.ones(len(year)), year.astype(float)])
 
 
@@ -163,8 +166,8 @@ def test_rolling_origin_matches_statsmodels_loop():
     for b in backtest.BASELINES:
         mse_m = np.mean((obs[None, :] - model[b]) ** 2, axis=-1)
         np.testing.assert_allclose(ro.added_skill[b][which], 1 - mse_m / mse_b[b], rtol=1e-8, atol=1e-10)
-    # the candidate: at every origin the baseline + lag with the least GCV = n RSS / (n - p)^2
-    # on the training rows, from statsmodels OLS fits
+    # the candidate: at every origin the baseline + lag with the least GCV = n RSS / (n - 1.4 p)^2
+    # on the training rows (the splines' GCV with gamma 1.4, edf = p), from statsmodels OLS fits
     cfc = np.empty((len(which), ro.n))
     for si, w in enumerate(which):
         for oi, i in enumerate(range(initial, len(ff.y))):
@@ -174,7 +177,7 @@ def test_rolling_origin_matches_statsmodels_loop():
                     Z = backtest.baseline_design(b, ff.ylag, ff.years.astype(float))
                     W = np.column_stack([Z, X[w, li]])
                     fit = sm.OLS(ff.y[:i], W[:i]).fit()
-                    gcv = i * fit.ssr / (i - W.shape[1]) ** 2
+                    gcv = i * fit.ssr / (i - 1.4 * W.shape[1]) ** 2
                     if best is None or gcv < best[0]:
                         best = (gcv, float(W[i] @ fit.params))
             cfc[si, oi] = best[1]
@@ -391,9 +394,11 @@ def test_selection_bias_best_of_30_noise_drivers():
 
 def test_selection_bias_all_candidates_graded_together():
     # The three worlds where the full-sample best candidate, graded on its own, came out
-    # strong (seeds 11, 14, 16): graded together with all 30 candidates, the BH q-values
-    # (Benjamini & Hochberg 1995, JRSS B 57:289-300) stop any of them being strong.
+    # strong with three baselines (seeds 11, 14, 16): graded together with all 30 candidates, the
+    # BH q-values (Benjamini & Hochberg 1995, JRSS B 57:289-300) stop any of them being strong.
     # Measured min q = 0.30 in each world (the smallest surrogate p with 99 surrogates is 0.01).
+    # Alone, with the fourth baseline (trend + AR(1)), seeds 11 and 14 are still strong and seed 16
+    # moderate (its re-test skill against the hardest baseline fell from +0.07 to -0.06).
     lags = [0, 1, 2]
     sc = _screen(surrogates=99, lags=lags, validation={"initial_years": 15})
     for seed in (11, 14, 16):
@@ -408,7 +413,7 @@ def test_selection_bias_all_candidates_graded_together():
         _, d = _best_in_sample(table, lags, 40)
         alone = evidence.build_evidence(ev[ev.driver == d].drop(columns=["q_value", "grade", "flags", "rank",
                                                                       "summary", "collinear_with"]), table, sc)
-        assert alone["grade"].iloc[0] == "strong"
+        assert alone["grade"].iloc[0] in ("strong", "moderate")
 
 
 # ----------------------------------------------------------------- true effect and shared trend
@@ -484,7 +489,7 @@ def test_shared_trend_only_has_no_skill_against_trend_baseline(phi, min_share_sk
 
 
 # ----------------------------------------------------------------- re-test
-@pytest.mark.parametrize("baseline", ["trend", "persistence", "climatology"])
+@pytest.mark.parametrize("baseline", ["trend", "persistence", "climatology", "trend_ar1"])
 def test_retest_matches_manual_statsmodels(baseline):
     ff, X, lags = _forecast_inputs(71, n=34, n_surr=1)
     holdout = 6

@@ -33,6 +33,7 @@ from lagsieve.ledger.track import data_changes, since_previous_run, track_record
 from lagsieve.ledger.update import grade_rows, update_ledger, write_run
 from lagsieve.ledger.section import Block, LedgerSection
 from lagsieve.report.render import ledger_section_html, render_ledger_section
+from lagsieve.stats.backtest import BASELINES
 
 from lagsieve import pipeline as stages
 from lagsieve.cli import main
@@ -340,7 +341,8 @@ def test_first_delivery_records_forecasts_for_2023(history):
         assert f["lag"] == e["lag"] and f["baseline"] == e["oos_baseline"] and f["grade"] == e["grade"]
         assert f["status"] == "scored" and f["level"] == 0.8 and f["lower"] < f["forecast"] < f["upper"]
         assert json.loads(f["inputs_sha256"]).keys() == {f"data/{n}" for n in FILES}
-        assert len(q(d.db, "SELECT * FROM baseline_forecasts WHERE forecast_id = ?", (f["forecast_id"],))) == 3
+        assert len(q(d.db, "SELECT * FROM baseline_forecasts WHERE forecast_id = ?", (f["forecast_id"],))) == \
+            len(BASELINES)
     assert q(d.db, "SELECT count(*) AS n FROM scores WHERE run_id = 1")[0]["n"] == 0
     assert any("'open'" in line and "INSERT INTO \"forecasts\"" in line for line in history["r2022"]["dump"])
     assert not any("INSERT INTO \"scores\"" in line for line in history["r2022"]["dump"])
@@ -544,7 +546,7 @@ def test_cli_prints_the_track_record(history, capsys):
         # skill against the baseline each forecast was built on
         assert line.split()[9] == (f"{t.skill_hardest:+.2f}" if t.scored else "-")
     assert out[1].split() == ["hypothesis", "made", "open", "scored", "superseded", "inside", "mae",
-                              "skill_own_baseline", "skill_climatology", "skill_persistence", "skill_trend", "last"]
+                              "skill_own_baseline"] + [f"skill_{b}" for b in BASELINES] + ["last"]
     # the default results folder is results/ beside the config, as for `lagsieve run`
     assert main(["ledger", str(d.config)]) == 0
 

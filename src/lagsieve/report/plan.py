@@ -23,8 +23,9 @@ from lagsieve.prep.align import lagged_pair
 from lagsieve.report import figures as fg
 from lagsieve.report.context import Context, gam_fit, gam_rows, top_rows
 from lagsieve.formats import is_missing, number, p_text, text
+from lagsieve.stats.backtest import BASELINES
 
-BASELINE_NAMES = ("climatology", "persistence", "trend")
+BASELINE_NAMES = BASELINES
 
 # Caps of the report's study-wide figures and lists. Each is chosen so that the full form of the
 # figure stays inside figures.MAX_FIGURE_INCHES (16 x 16 inches, 4800 x 4800 px at 300 dpi: about

@@ -11,6 +11,7 @@ from lagsieve.evidence.vocabulary import COLLINEAR_R, GRADES, SUPPORTED
 from lagsieve.report import figures as fg
 from lagsieve.report.context import Context, lead_words, not_computed, set_aside_reason, summary_line
 from lagsieve.formats import is_missing, lag_range, number, p_text, text
+from lagsieve.stats.backtest import BASELINES
 from lagsieve.report.methods import methods_paragraphs, reference_list
 
 CAUTIONS = [
@@ -141,9 +142,10 @@ def key_numbers(row: dict) -> list[tuple[str, str]]:
              ("p adj", p_text(row.get("p_adjusted"))), ("p surr", p_text(row.get("p_surrogate"))),
              ("q", p_text(row.get("q_value"))), ("r detrended", number(row.get("r_detrended"), "{:+.2f}")),
              ("r 95% CI", _range(row, "r_ci_low", "r_ci_high", "{:+.2f}"))]
-    for b in ("climatology", "persistence", "trend"):
+    for b in BASELINES:
         items.append((f"skill vs {b}", number(row.get(f"oos_skill_{b}"), "{:+.2f}")))
-    items += [("DM p", p_text(row.get("oos_p"))), ("p skill (surr)", p_text(row.get("oos_p_surrogate"))),
+    test = "CW p" if row.get("oos_test") == "clark-west" else "DM p"
+    items += [(test, p_text(row.get("oos_p"))), ("p skill (surr)", p_text(row.get("oos_p_surrogate"))),
               ("re-test", f'{number(row.get("retest_skill"), "{:+.2f}")} {text(row.get("retest_years"))}')]
     return [(k, v) for k, v in items if v.strip()]
 

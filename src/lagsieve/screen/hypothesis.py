@@ -21,6 +21,7 @@ from lagsieve.stats import correlation as st
 from lagsieve.stats.backtest import (
     BASELINES,
     RollingOriginResult,
+    clark_west,
     diebold_mariano,
     retest,
     rolling_origin,
@@ -33,7 +34,8 @@ MIN_YEARS = 6  # overlapping years a lag needs to be screened
 
 #: Columns of the best lag's linear screen row copied into the hypothesis row.
 BEST_LAG_COLUMNS = ("lag", "n", "first_year", "last_year", "r", "p_naive", "n_eff", "p_adjusted", "r_detrended",
-                    "p_detrended", "r_diff", "slope", "slope_se", "p_surrogate_lag")
+                    "p_detrended", "r_diff", "p_differenced", "trend_p_response", "trend_p_driver",
+                    "driver_trend_r2", "slope", "slope_se", "p_surrogate_lag")
 #: Columns of the best lag's spline screen row copied into the hypothesis row.
 GAM_COLUMNS = ("edf", "deviance_explained", "p_smooth", "shape")
 
@@ -237,9 +239,12 @@ def _linear_lag_row(x: np.ndarray, y: np.ndarray, yrs: np.ndarray, r: float, sta
     r_det = float(st.detrended_r(x, y, yrs))
     slope, se = st.hac_slope(x, y)
     n_eff_det = st.effective_n(st.detrend(x, yrs), st.detrend(y, yrs))
+    (r_ty, p_ty), (r_tx, p_tx) = st.trend_test(y, yrs), st.trend_test(x, yrs)
     return {"r": r, "p_naive": float(st.correlation_p(r, n)), "n_eff": neff,
             "p_adjusted": float(st.correlation_p(r, neff)), "r_detrended": r_det,
             "p_detrended": float(st.correlation_p(r_det, n_eff_det)), "r_diff": float(st.differenced_r(x, y, yrs)),
+            "p_differenced": float(st.differenced_p(x, y, yrs)),
+            "trend_p_response": float(p_ty), "trend_p_driver": float(p_tx), "driver_trend_r2": float(r_tx**2),
             "slope": float(slope), "slope_se": float(se), "p_surrogate_lag": surrogate_p(stat), "status": "ok"}
 
 
@@ -314,7 +319,11 @@ def _out_of_sample(hyp: dict, table, rid, did, lags, batch, screen, response_se)
     """Backtest (rolling origin) and re-test of the hypothesis: adds the ``oos_*`` and
     ``retest_*`` entries to ``hyp``; returns (forecasts, null statistics, reason). ``reason``
     says in plain words why the backtest cannot be judged (None when it can); with fewer
-    than MIN_FORECASTS forecasts the forecasts and nulls are None too."""
+    than MIN_FORECASTS forecasts the forecasts and nulls are None too.
+
+    The re-test on the latest years fits the form the forecasts chose (``model``: a line, or
+    the penalised spline when the spline won at most origins) on the candidate's baseline,
+    and records it in ``retest_model``."""
     ff = forecast_frame(table, rid, did, lags)
     initial, holdout = backtest_windows(len(ff.years), screen.get("validation", {}))
     hyp.update(oos_initial=initial, oos_n=max(0, len(ff.years) - initial))
@@ -333,8 +342,10 @@ def _out_of_sample(hyp: dict, table, rid, did, lags, batch, screen, response_se)
     fc = _forecast_table(ro, rid, did)
     fc["extrapolated"] = _extrapolated(X[0], ro.candidate_lag[0], np.asarray(lags), initial)
     if len(ff.years) - holdout >= max(10, initial // 2):
-        rt = retest(ff.y, ff.ylag, ff.years, X[0], np.asarray(lags), holdout, ro.candidate, weights=w)
+        rt = retest(ff.y, ff.ylag, ff.years, X[0], np.asarray(lags), holdout, ro.candidate, weights=w,
+                    model=hyp.get("model", "linear"))
         hyp["retest_skill"] = rt.min_skill
+        hyp["retest_model"] = rt.model
         hyp["retest_years"] = f"{int(rt.years[0])}-{int(rt.years[-1])}"
     reason = None if np.isfinite(hyp["oos_skill"]) else (
         "out-of-sample skill is undefined: a baseline forecasts the response without error")
@@ -349,7 +360,13 @@ def too_few_forecasts(usable: int, initial: int) -> str:
 
 
 def _backtest_summary(ro: RollingOriginResult) -> dict:
-    """The hypothesis entries of the real driver's backtest (``model`` with the spline)."""
+    """The hypothesis entries of the real driver's backtest (``model`` with the spline).
+
+    ``oos_p`` tests the candidate against the hardest baseline, and ``oos_test`` names the
+    test. When the candidate is built on that baseline at most origins (``candidate ==
+    hardest``: the baseline is the candidate without the driver, a nested comparison) it is
+    the Clark & West (2007) adjusted MSPE test; otherwise (a candidate on another baseline,
+    not nested) Diebold-Mariano with the Harvey-Leybourne-Newbold (1997) correction."""
     sk = ro.skill
     out = {}
     for b in BASELINES:
@@ -360,7 +377,10 @@ def _backtest_summary(ro: RollingOriginResult) -> dict:
     out["oos_hardest"] = ro.hardest
     out["oos_baseline"] = ro.candidate
     e_m, e_b = ro.errors()
-    out["oos_p"] = diebold_mariano(e_m, e_b).p_value
+    if ro.candidate == ro.hardest:
+        out["oos_p"], out["oos_test"] = clark_west(e_m, e_b).p_value, "clark-west"
+    else:
+        out["oos_p"], out["oos_test"] = diebold_mariano(e_m, e_b).p_value, "diebold-mariano"
     out["oos_p_surrogate"] = surrogate_p(ms)
     lag_counts = pd.Series(ro.candidate_lag[0]).value_counts()
     out["oos_lag"] = int(lag_counts.index[0])

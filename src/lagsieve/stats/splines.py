@@ -9,7 +9,15 @@ cubic B-splines on equally spaced knots and ``D`` is the difference matrix of or
 (P-splines: Eilers & Marx 1996, Statistical Science 11:89-121). The smoothing
 parameter ``lam`` is chosen from a log-spaced grid by generalised cross-validation,
 ``GCV = n * RSS / (n - gamma * edf)^2`` (Craven & Wahba 1979, Numerische Mathematik
-31:377-403), where ``edf`` is the trace of the hat matrix.
+31:377-403), where ``edf`` is the trace of the hat matrix, with the inflation factor
+``gamma = 1.4`` (:data:`GCV_GAMMA`) everywhere lagsieve fits a spline: ordinary GCV
+(gamma = 1) is known to undersmooth in a sizeable share of small samples, and 1.4 is the
+value Kim & Gu (2004, JRSS B 66:337-356) recommend and Wood (2017, section 4.2) discusses
+(both quoted from memory). REML (Wood 2011, JRSS B 73:3-36) is not implemented.
+
+Basis size: :func:`default_n_basis` of the number of rows a fit is trained on (about n / 4,
+at least 5, at most 10), the same rule for the in-sample fit (its n) and for the
+rolling-origin and re-test fits (the rows of their first training window).
 
 Identifiability: ``f`` carries the weighted sum-to-zero constraint
 ``sum_i w_i f(x_i) = 0`` over the rows used in the fit, absorbed by a Householder
@@ -38,6 +46,7 @@ from scipy import stats
 
 __all__ = [
     "DEFAULT_LAM_GRID",
+    "GCV_GAMMA",
     "PSplineFit",
     "PartialEffect",
     "bspline_basis",
@@ -45,6 +54,7 @@ __all__ = [
     "difference_penalty",
     "fit_pspline",
     "partial_effect",
+    "penalised_window_fit",
     "penalty_block",
     "predict_pspline",
     "smooth_p_value",
@@ -52,6 +62,10 @@ __all__ = [
 
 #: Default grid of smoothing parameters (25 values, 1e-3 ... 1e5, log-spaced).
 DEFAULT_LAM_GRID = 10.0 ** np.linspace(-3.0, 5.0, 25)
+
+#: GCV inflation factor of every smoothing choice (Kim & Gu 2004; Wood 2017, section 4.2;
+#: both from memory). pygam 0.12 hard-wires the same value in its GCV score.
+GCV_GAMMA = 1.4
 
 # Relative size of the ridge added to X'WX so that its Cholesky factor always exists
 # (pygam adds sqrt(machine eps) to the diagonal for the same reason). It changes fitted
@@ -156,6 +170,10 @@ def default_n_basis(n: int) -> int:
     at 10 because annual series of 20-60 years cannot support more wiggles than that and
     the penalty does the rest, and floored at 5 so that a cubic basis with the sum-to-zero
     constraint keeps 4 smooth coefficients (enough for a hump or a threshold).
+
+    ``n`` is the number of rows the fit is trained on: the in-sample fit passes its own n,
+    the rolling-origin forecasts the first training window (so a 15-year window gets 5
+    basis functions, not 10) and the re-test its training years.
     """
     return int(max(5, min(10, int(n) // 4)))
 
@@ -239,7 +257,7 @@ def fit_pspline(
     mask=None,
     degree: int = 3,
     penalty_order: int = 2,
-    gamma: float = 1.0,
+    gamma: float = GCV_GAMMA,
 ) -> PSplineFit:
     """Fit ``y = a + f(x) [+ b * trend]`` by penalised least squares, batched.
 
@@ -270,9 +288,9 @@ def fit_pspline(
     degree, penalty_order : int
         B-spline degree (3) and difference order of the penalty (2).
     gamma : float
-        GCV inflation factor; 1 is ordinary GCV. Values above 1 favour smoother fits
-        (pygam uses 1.4; from memory this value goes back to Kim & Gu 2004, JRSS B
-        66:337-356, and is discussed in Wood 2017).
+        GCV inflation factor, default :data:`GCV_GAMMA` = 1.4; 1 is ordinary GCV. Values
+        above 1 favour smoother fits (pygam uses 1.4; from memory this value goes back to
+        Kim & Gu 2004, JRSS B 66:337-356, and is discussed in Wood 2017, section 4.2).
 
     Raises
     ------
@@ -607,8 +625,9 @@ def smooth_p_value(fit: PSplineFit, method: str = "f") -> np.ndarray:
     ``F(edf_s, n - edf)``, where ``edf`` is the trace of the hat matrix and
     ``edf_s = edf - 1 [- 1 with trend]`` (Hastie & Tibshirani 1990, "Generalized
     Additive Models", section 3.9, from memory). It treats ``lam`` as fixed, so after
-    GCV selection it is anti-conservative: on pure noise (n = 40, default grid) it
-    rejected at the 5% level in about 14-15% of simulations (about 11% at n = 20).
+    GCV selection it is anti-conservative: on pure noise (n = 40, default grid, 1,000
+    simulations) it rejected at the 5% level in 11.4% with gamma 1.4 (15.0% with ordinary
+    GCV) and in 9.5% at n = 20 (9.9%).
 
     ``method="wald"``: a simplified version of the Wald-type test of Wood (2013,
     Biometrika 100:221-228): ``T = f' V_f^{r-} f`` with ``f`` the smooth at the data,
@@ -616,7 +635,7 @@ def smooth_p_value(fit: PSplineFit, method: str = "f") -> np.ndarray:
     ``r = max(1, round(edf_s))``, referred to ``F(r, n - edf)`` via ``T / r``. Wood's
     treatment of non-integer rank (and his use of an alternative edf) is not
     reproduced, so this is an approximation of an approximation. Same simulations:
-    about 9-10% rejections at the 5% level for n = 40, 8% for n = 20.
+    8.0% rejections at the 5% level for n = 40 (9.9% with ordinary GCV), 6.4% for n = 20.
 
     Both are screening aids, not exact tests; use surrogate nulls where exactness matters.
     """
@@ -761,7 +780,7 @@ def expanding_penalised(
     y: np.ndarray,
     origins: np.ndarray,
     lam_grid: np.ndarray | None = None,
-    gamma: float = 1.0,
+    gamma: float = GCV_GAMMA,
     retune_every: int = 1,
     weights: np.ndarray | None = None,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -771,7 +790,7 @@ def expanding_penalised(
     W : (..., T, q) design (fixed across origins), P : (q, q) penalty (zero rows/columns for
     unpenalised terms), y : (T,), ``origins`` consecutive integers. At a tuning origin one
     eigen-decomposition gives RSS, edf and GCV = n RSS / (n - gamma edf)^2 (Craven & Wahba
-    1979) for the whole grid of lambda: the Demmler-Reinsch form (Wood 2017, section 5.4 —
+    1979; gamma = :data:`GCV_GAMMA` = 1.4 by default) for the whole grid of lambda: the Demmler-Reinsch form (Wood 2017, section 5.4 —
     section number from memory), here shifted to C = A + mu P, A = W'W, so that it stays
     accurate when A is nearly singular, and restricted to the penalised subspace (see
     :class:`_SubspaceForm` for the formulas).
@@ -811,6 +830,38 @@ def expanding_penalised(
     held = np.repeat(np.arange(len(tune)), np.diff(np.r_[tune, len(origins)]))  # origin -> tuning index
     edf_o = edf_b[..., held]
     return fc, _window_gcv(W, y, w, origins, beta_o, edf_o, gamma), edf_o
+
+
+def penalised_window_fit(
+    W: np.ndarray,
+    P: np.ndarray,
+    y: np.ndarray,
+    n_train: int,
+    lam_grid: np.ndarray | None = None,
+    gamma: float = GCV_GAMMA,
+    weights: np.ndarray | None = None,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Penalised least squares on the rows [0, n_train) with lambda chosen there by GCV.
+
+    The single-window case of :func:`expanding_penalised` (same shifted Demmler-Reinsch form,
+    same ridge, same GCV = n RSS / (n - gamma edf)^2), for fits whose coefficients are then
+    frozen (the re-test on the latest years). W : (..., T, q), P : (q, q), y : (T,).
+    Returns (coefficients (..., q), lambda (...), edf (...), GCV (...)).
+    """
+    lam = _check_grid(DEFAULT_LAM_GRID if lam_grid is None else lam_grid)
+    W = np.asarray(W, float)
+    y = np.asarray(y, float)
+    w = np.ones(len(y)) if weights is None else np.asarray(weights, float)
+    form = _subspace_form(*_tuning_equations(W, y, w, np.array([int(n_train)])), P)
+    s, rss, edf = form.grid(lam)  # (..., 1, L, r), (..., 1, L), (..., 1, L)
+    gcv = _gcv_score(float(n_train), rss, edf, gamma, floor=1e-9)
+    best = _best_on_grid(gcv)  # (..., 1)
+    _, beta = form.solution(lam[best], np.take_along_axis(s, best[..., None, None], axis=-2)[..., 0, :])
+
+    def at_best(a):
+        return np.take_along_axis(a, best[..., None], axis=-1)[..., 0, 0]
+
+    return beta[..., 0, :], lam[best][..., 0], at_best(edf), at_best(gcv)
 
 
 def _tuning_equations(W: np.ndarray, y: np.ndarray, w: np.ndarray, o_t: np.ndarray):
