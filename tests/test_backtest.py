@@ -484,7 +484,11 @@ def test_shared_trend_only_has_no_skill_against_trend_baseline(phi, min_share_sk
     assert np.mean(np.array(p_surr) <= 0.05) <= 0.2
     assert np.mean(np.array(sk_trend) <= 0) >= min_share_skill
     assert np.mean(np.array(added) <= 0) >= min_share_added
-    assert grades.count("spurious-trend") >= 22
+    # With one reason per verdict and four baselines (measured): phi 0.0 spurious-trend 26,
+    # no-forecast-skill 2, strong 1, moderate 1; phi 0.4 spurious-trend 19, autocorrelation-only 5,
+    # none 3, no-forecast-skill 2, moderate 1. Every set-aside reason counts as set aside here.
+    assert grades.count("spurious-trend") >= 17
+    assert sum(g not in ("strong", "moderate", "weak") for g in grades) >= 26
     assert grades.count("strong") <= 2  # a 5% false-positive rate allows about 1.5 of 30
 
 
