@@ -3,8 +3,9 @@
 The invented demo data (lagsieve.demo) are delivered as they would arrive: first every series
 up to 2022, then up to 2023, then up to 2024, and every delivery runs the stages (align,
 screen, evidence) and the ledger update directly (no Snakemake, 99 surrogates, linear models).
-The 2024 delivery also restates one past value of the true prey driver (forage_biomass 2010),
-so the forecasts made from the old value must be superseded, not scored.
+The 2024 delivery also restates one past value of a response (M of ages 3-4 in 2010, as a new
+assessment would), so the forecasts trained on the old value must be superseded, not scored,
+while those of the other responses are scored.
 
 Independent checks: the forecast and its 80 % prediction interval against statsmodels OLS
 (``get_prediction(...).summary_frame(alpha=0.2)``, columns ``obs_ci_lower/upper``), the WLS
@@ -43,7 +44,8 @@ from lagsieve.demo import demo_config_text, write_demo
 
 STUDY = "caldrin_shelf_demo"
 FILES = ("mortality_by_age.csv", "surveys_annual.csv", "indices_long.csv", "bottom_temperature_monthly.csv")
-RESTATED = ("forage_biomass", 2010, 1.25)  # series, year, factor applied in the 2024 delivery
+# series id, its group in mortality_by_age.csv, year, factor applied in the 2024 delivery
+RESTATED = ("m:age3-4", "age3-4", 2010, 1.25)
 
 
 def dump(db) -> list[str]:
@@ -77,9 +79,10 @@ class Deliveries:
         for name in FILES:
             df = pd.read_csv(self.full / name)
             df = df[df["year"] <= last_year].copy()
-            if restate and name == "surveys_annual.csv":
-                s, y, k = RESTATED
-                df.loc[df["year"] == y, s] = np.round(df.loc[df["year"] == y, s] * k, 1)
+            if restate and name == "mortality_by_age.csv":
+                _, group, y, k = RESTATED
+                at = (df["group"] == group) & (df["year"] == y)
+                df.loc[at, "value"] = np.round(df.loc[at, "value"] * k, 4)
             df.to_csv(data / name, index=False, lineterminator="\n", float_format="%.10g")
 
     def stages(self) -> None:
@@ -403,12 +406,12 @@ def test_second_delivery_scores_the_2023_forecasts(history):
 
 def test_restated_value_supersedes_instead_of_scoring(history):
     d = history["d"]
-    series, year, _ = RESTATED
+    series, _, year, _ = RESTATED
     fc24 = q(d.db, "SELECT f.*, s.forecast_id AS scored FROM forecasts f LEFT JOIN scores s USING (forecast_id) "
                    "WHERE f.target_year = 2024")
-    uses = [f for f in fc24 if f["driver"] == series]
-    others = [f for f in fc24 if f["driver"] != series]
-    assert uses and others, "the demo should give forecasts with and without the restated driver"
+    uses = [f for f in fc24 if f["response"] == series]
+    others = [f for f in fc24 if f["response"] != series]
+    assert uses and others, "the demo should give forecasts with and without the restated response"
     for f in uses:
         assert f["status"] == "superseded" and f["scored"] is None and f["superseded_run"] == 3
         assert f["superseded_reason"] == f"training data changed: {series} {year} restated"
@@ -512,8 +515,8 @@ def test_since_previous_run_lists_data_grades_and_outcomes(history):
     assert html.startswith('<section id="since-previous-run">') and html.rstrip().endswith("</section>")
     assert "<h2>Since the previous run</h2>" in html
     assert "run 3 recorded" in html and "compared with run 2" in html
-    assert "<td>forage_biomass</td><td>2024</td><td></td><td>2010</td>" in html
-    assert "training data changed: forage_biomass 2010 restated" in html
+    assert "<td>m:age3-4</td><td>2024</td><td></td><td>2010</td>" in html
+    assert "training data changed: m:age3-4 2010 restated" in html
     assert "does not match" not in html
     stale = ledger_section_html(d.db, STUDY, history["r2022"]["evidence"])
     assert "does not match the grades of this report" in stale

@@ -32,6 +32,7 @@ from lagsieve.report.figures import mpl_text, r_critical
 from lagsieve.report.html import build_report, render_page
 from lagsieve.report.methods import methods_paragraphs
 from lagsieve.report.pdf import write_pdf
+from lagsieve.report.render import GRADE_CLASS
 from lagsieve.report.plan import plan_figures
 from lagsieve.report.render import static_text, stylesheet
 
@@ -119,7 +120,9 @@ def test_style_and_script_are_the_package_files(tiny):
     assert style == stylesheet() and style.startswith(static_text("report.css"))
     assert script == static_text("report.js") and "evidence-table" in script
     # one badge rule per grade, with the colours of the figures (figures.GRADE_STYLE)
-    assert ".g-0{background:#0b3c68;color:#ffffff;" in style and ".g-5{background:#ffffff;color:#555555;border:1px dashed" in style
+    dashed = GRADE_CLASS["insufficient-data"]  # the class of each grade follows figures.GRADE_STYLE's order
+    assert ".g-0{background:#0b3c68;color:#ffffff;" in style
+    assert f".{dashed}{{background:#ffffff;color:#555555;border:1px dashed" in style
 
 
 def _page_with_labels(tiny, label: str) -> str:
