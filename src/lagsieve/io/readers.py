@@ -34,7 +34,7 @@ from lagsieve.errors import InputErrors, InputProblem, InputWarning, closest, sh
 from lagsieve.io.cells import Collector
 from lagsieve.io.tables import Grid, empty_frame, parse_grid
 
-__all__ = ["SUPPORTED", "read_inputs", "read_table"]
+__all__ = ["SUPPORTED", "read_grid", "read_inputs", "read_table"]
 
 TEXT_EXTENSIONS = {".csv", ".tsv", ".txt"}
 SUPPORTED = ".csv, .tsv, .txt, .xlsx, .parquet"
@@ -256,6 +256,16 @@ def read_table(spec: str | Mapping[str, Any], base_dir: str | Path,
     :class:`InputErrors` with every problem found in the file. The file is only read, never
     written.
     """
+    grid, col, decimal, warnings = read_grid(spec, base_dir)
+    frame = parse_grid(grid, decimal, col, warnings, wanted)
+    return frame, warnings
+
+
+def read_grid(spec: str | Mapping[str, Any], base_dir: str | Path
+              ) -> tuple[Grid, Collector, str, list[InputWarning]]:
+    """Read one file as it is written: its header and rows (:class:`Grid`), the problem
+    collector labelled with the file, the decimal mark and the warnings so far. Other tables
+    than series (per-fish samples) parse the grid themselves."""
     s = _normalise_spec(spec)
     label = _label(s.path)
     col = Collector(label)
@@ -298,8 +308,7 @@ def read_table(spec: str | Mapping[str, Any], base_dir: str | Path,
     except OSError as exc:
         col.fatal(f"the file cannot be read ({show(exc.strerror or type(exc).__name__, 80)})",
                   "check that the file is readable by you and not locked by another program")
-    frame = parse_grid(grid, s.decimal, col, warnings, wanted)
-    return frame, warnings
+    return grid, col, s.decimal, warnings
 
 
 
