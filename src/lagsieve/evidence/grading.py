@@ -9,8 +9,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from lagsieve.evidence.effects import add_effects
-from lagsieve.evidence.vocabulary import COLLINEAR_R, DRIVER_TREND_R2, GRADE_ORDER, SHORT_OVERLAP_YEARS
+from lagsieve.evidence.effects import add_effects, allowed_phrase, effect_phrase
+from lagsieve.evidence.vocabulary import COLLINEAR_R, DRIVER_TREND_R2, GRADE_ORDER, SHORT_OVERLAP_YEARS, SUPPORTED
 from lagsieve.stats.backtest import BASELINES
 from lagsieve.stats.multiplicity import bh_qvalues
 
@@ -190,7 +190,7 @@ def _skill_words(row: dict) -> str:
     sk, n_oos = _get(row, "oos_skill"), int(_get(row, "oos_n", 0))
     hardest = row.get("oos_hardest") or "hardest"
     if sk > 0:
-        return f"squared forecast error {100 * sk:.0f}% lower than the {hardest} baseline's over {n_oos} forecasts"
+        return f"squared forecast error {100 * sk:.0f}% below that of the {hardest} baseline over {n_oos} forecasts"
     return f"no skill over the {hardest} baseline over {n_oos} forecasts"
 
 
@@ -215,21 +215,30 @@ def set_aside_sentence(row: dict) -> str | None:
     return None
 
 
-def summary_sentence(row: dict, min_overlap: int = 0) -> str:
-    """A plain-words line for the report: what supports the hypothesis, or why it was set aside.
-    Evidence is strong or weak; an effect's size is given in units elsewhere (never "strong effect")."""
+def _effect_words(row: dict, label: str | None) -> str:
+    """'; ' + the effect in units (supported) or the largest effect still allowed (set aside)."""
+    words = effect_phrase(row, response_label=label) if row["grade"] in SUPPORTED \
+        else allowed_phrase(row, response_label=label)
+    return f"; {words}" if words else ""
+
+
+def summary_sentence(row: dict, min_overlap: int = 0, label: str | None = None) -> str:
+    """A plain-words line for the report: what supports the hypothesis, or why it was set aside,
+    with the effect in the response's units (``label`` names the response). Evidence is strong
+    or weak; an effect is never called strong."""
     g = row["grade"]
     head = _lead_direction(row)
-    if g in ("strong", "moderate", "weak"):
-        return f"{head}: {g} evidence ({_skill_words(row)}; q = {_get(row, 'q_value'):.2f})"
     if g == "insufficient-data":
         return f"insufficient data: {insufficient_reason(row, min_overlap)}"
-    aside = set_aside_sentence(row)
-    if aside:
-        return f"{head}: {aside}"
-    flags = row.get("flags", "")
-    return f"{head}: no support (surrogate p = {_get(row, 'p_surrogate'):.2f}; " \
-           f"out-of-sample skill {_get(row, 'oos_skill'):+.2f})" + (f"; flags: {flags}" if flags else "")
+    if g in ("strong", "moderate", "weak"):
+        said = f"{head}: {g} evidence ({_skill_words(row)}; q = {_get(row, 'q_value'):.2f})"
+    else:
+        aside = set_aside_sentence(row)
+        flags = row.get("flags", "")
+        said = f"{head}: {aside}" if aside else \
+            f"{head}: no support (surrogate p = {_get(row, 'p_surrogate'):.2f}; " \
+            f"out-of-sample skill {_get(row, 'oos_skill'):+.2f})" + (f"; flags: {flags}" if flags else "")
+    return said + _effect_words(row, label)
 
 
 def build_evidence(hypotheses: pd.DataFrame, table: pd.DataFrame, screen: dict,
@@ -265,5 +274,6 @@ def build_evidence(hypotheses: pd.DataFrame, table: pd.DataFrame, screen: dict,
     ev["rank"] = ev.groupby("response").cumcount() + 1
     ev = ev.drop(columns="_g")
     ev = add_effects(ev, series, table)  # series: config entries (label, unit, transform)
-    ev["summary"] = [summary_sentence(r, min_overlap) for r in ev.to_dict("records")]
+    labels = {s["id"]: s.get("label") for s in series or []}
+    ev["summary"] = [summary_sentence(r, min_overlap, labels.get(r["response"])) for r in ev.to_dict("records")]
     return ev.reset_index(drop=True)

@@ -41,12 +41,12 @@ FLAGS = {
     "trend-shared": "Naively significant; both series trend; neither the detrended nor the differenced "
                     "correlation is significant; and a trend baseline forecasts as well as the candidate: the "
                     "two series may only share a trend.",
-    "driver-trend": "A straight line in the year explains at least 80% of the driver's variance over the "
+    "driver-trend": "A straight line in the year explains at least 80% of the variance of the driver over the "
                     "screened years: its effect cannot be told apart from any other trend.",
     "autocorrelation-only": "Naively significant, but not against surrogates with the same spectrum: "
                             "autocorrelation alone makes correlations this large common.",
     "no-forecast-skill": "Supported in sample against surrogates, but no out-of-sample skill over the hardest "
-                         "baseline (skill <= 0, or not better than the surrogates' skill, p > 0.10).",
+                         "baseline (skill <= 0, or not better than the skill of the surrogates, p > 0.10).",
     "autocorrelated": "The effective sample size is less than half the number of years, so neighbouring "
                       "years carry overlapping information.",
     "lag-selected": "Significant at the chosen lag alone, but not once the choice among the lags tried is "

@@ -37,6 +37,17 @@ REF = {
               "Statistical Science 11:89-121.",
     "craven": "Craven, P. & Wahba, G. (1979) Smoothing noisy data with spline functions. "
               "Numerische Mathematik 31:377-403.",
+    "kimgu": "Kim, Y.-J. & Gu, C. (2004) Smoothing spline Gaussian regression: more scalable computation via "
+             "efficient approximation. J. R. Stat. Soc. B 66:337-356.",
+    "westfall": "Westfall, P.H. & Young, S.S. (1993) Resampling-Based Multiple Testing: Examples and Methods "
+                "for p-Value Adjustment. Wiley, New York.",
+    "clarkwest": "Clark, T.E. & West, K.D. (2007) Approximately normal tests for equal predictive accuracy in "
+                 "nested models. J. Econometrics 138:291-311.",
+    "schuirmann": "Schuirmann, D.J. (1987) A comparison of the two one-sided tests procedure and the power "
+                  "approach for assessing the equivalence of average bioavailability. "
+                  "J. Pharmacokinet. Biopharm. 15:657-680.",
+    "fisher": "Fisher, R.A. (1921) On the \"probable error\" of a coefficient of correlation deduced from a "
+              "small sample. Metron 1:3-32.",
     "wood": "Wood, S.N. (2017) Generalized Additive Models: An Introduction with R, 2nd ed. "
             "Chapman & Hall/CRC, Boca Raton.",
 }
@@ -85,11 +96,11 @@ def methods_facts(ctx: Context) -> dict:
 
 def cited(facts: dict) -> list[str]:
     """Keys of the references the methods text cites, in the order it cites them."""
-    refs = ["pyper", "granger", "santer", "newey"]
+    refs = ["pyper", "granger", "santer", "newey", "fisher", "schuirmann"]
     if facts["gam"]:
-        refs += ["eilers", "craven", "wood"]
+        refs += ["eilers", "craven", "kimgu", "wood", "westfall"]
     refs += ["ebisuzaki", "theiler"] if facts["surrogate_method"] == "phase" else ["buhlmann"]
-    return refs + ["tashman", "bergmeir", "dm", "hln", "bh", "dormann"]
+    return refs + ["tashman", "bergmeir", "clarkwest", "dm", "hln", "bh", "dormann"]
 
 
 def methods_paragraphs(ctx: Context) -> tuple[list[str], list[str]]:
