@@ -1132,6 +1132,22 @@ def test_unknown_config_key_suggests_the_nearest(tmp_path):
     assert "did you mean 'm'?" in str(info.value)
 
 
+def test_a_smoothing_criterion_or_test_that_does_not_exist_is_one_line(tmp_path):
+    """The smoothing criterion (GCV with gamma 1.4) and the forecast tests (Clark-West where
+    nested, Diebold-Mariano otherwise) are fixed by the method: asking for others is refused
+    in one line that names every key allowed there."""
+    (tmp_path / "d.csv").write_text("year,m,x\n2000,1,2\n")
+    cfg = tmp_path / "c.yaml"
+    cfg.write_text("study: s1\ninputs: [d.csv]\nresponses: [{id: m}]\ndrivers: [{id: x}]\n"
+                   "screen: {smoothing: reml, forecast_test: dm}\n")
+    with pytest.raises(InputErrors) as info:
+        load_study(cfg)
+    lines = str(info.value).splitlines()
+    assert len(lines) == 1
+    assert "unknown key(s) 'forecast_test', 'smoothing'; remove 'forecast_test'; remove 'smoothing'" in lines[0]
+    assert "allowed here: alpha, fdr, gam_trend, lags," in lines[0]
+
+
 # ----------------------------------------------------------------------------- files
 
 def test_sha256_of_text_and_file(tmp_path):

@@ -169,7 +169,7 @@ def _schema_problem(err: jsonschema.ValidationError, file: str) -> InputProblem:
                  for k in extra]
         return InputProblem(
             what=f"unknown key(s) {', '.join(map(repr, extra))}",
-            fix=f"{' '.join(hints)} (allowed here: {', '.join(allowed)})", file=file, key=key)
+            fix=f"{'; '.join(hints)} (allowed here: {', '.join(allowed)})", file=file, key=key)
     if v == "required":
         return InputProblem(what=show(err.message, 200), fix="add the key (see config/README.md)", file=file, key=key)
     if v == "enum":
