@@ -15,7 +15,7 @@ from scipy import stats
 from lagsieve.condition.index import build_design, cell_icc, cell_means, season_operator
 from lagsieve.condition.lengthweight import fit_reference, huber_line, log_kn
 from lagsieve.condition.poor import bootstrap_shares
-from lagsieve.condition.samples import SAMPLE_COLUMNS
+from lagsieve.condition.samples import SAMPLE_COLUMNS, assign_groups, read_samples
 from lagsieve.condition.series import OUTPUT_COLUMNS, condition_series
 from lagsieve.condition.settings import check_condition
 from lagsieve.condition.simulate import FishWorld, simulate_fish
@@ -288,3 +288,147 @@ def test_shifted_sampling_months_move_the_naive_mean_not_the_adjusted_index():
     spring = res.season_effects.set_index(["age_group", "season"]).effect
     assert spring[("old", "spring")] - spring[("old", "autumn")] == pytest.approx(-0.13,
                                                                                    abs=0.02)
+
+
+# ----------------------------------------------------------------------------- the table
+
+
+def test_table_columns_ids_and_determinism():
+    world = FishWorld(season_effect=SEASONS, years=tuple(range(2000, 2006)))
+    fish = simulate_fish(world, np.random.default_rng(4))
+    res = condition_series(fish, _settings(), seed=9)
+    table = res.table
+    assert list(table.columns) == OUTPUT_COLUMNS
+    ids = set(table.series)
+    assert {"kn:old", "kn:young-spring", "below:mid", "below:mid-autumn"} <= ids
+    for sid in ids:  # valid series ids with a plain file name (src/lagsieve/io/names.py)
+        assert SAFE_ID.match(sid) and "~" not in slug(sid), sid
+    assert not table.duplicated(["series", "year"]).any()
+    cells = table[table.season != ""]
+    np.testing.assert_allclose(cells.n_effective, cells.n_fish / cells.design_effect)
+    assert table.value.notna().all() and (table.se >= 0).all()
+    # a zero share has no bootstrap variation (se 0); every other value has a positive se
+    assert (table.se[(table.kind == "kn") | (table.value > 0)] > 0).all()
+    again = condition_series(fish, _settings(), seed=9).table
+    pd.testing.assert_frame_equal(table, again)
+    other = condition_series(fish, _settings(), seed=10).table
+    below = table.kind == "below"
+    assert not np.allclose(table.se[below], other.se[below])
+    np.testing.assert_array_equal(table.value, other.value)
+
+
+def test_sensitivity_grid_holds_the_threshold_and_rises_with_it():
+    fish = simulate_fish(FishWorld(years=(2000, 2001, 2002)), np.random.default_rng(6))
+    res = condition_series(fish, _settings(threshold=0.87), seed=1)
+    sens = res.sensitivity
+    assert sorted(sens.threshold.unique()) == [0.75, 0.8, 0.85, 0.87, 0.9, 0.95]
+    at = sens[sens.threshold == 0.87].set_index(["series", "year"]).value
+    main = res.table[res.table.kind == "below"].set_index(["series", "year"]).value
+    pd.testing.assert_series_equal(at.sort_index(), main.sort_index(), check_names=False)
+    wide = sens[sens.series == "below:old"].pivot(index="year", columns="threshold",
+                                                   values="value")
+    assert (np.diff(wide.to_numpy(), axis=1) >= -1e-12).all()
+
+
+# ----------------------------------------------------------------------------- bad input
+
+
+@pytest.mark.parametrize("change, expected", [
+    ({"threshold": 2.0}, "key 'condition.threshold': '2.0' is not a number in (0, 2)"),
+    ({"threshold": 0}, "key 'condition.threshold': '0' is not a number in (0, 2)"),
+    ({"age_groups": {"a": [1, 3], "b": [3, 5]}},
+     "key 'condition.age_groups.b': ages 3-3 are also in age group 'a' [1, 3]"),
+    ({"age_groups": {"a": [5, 3]}}, "key 'condition.age_groups.a': the range [5, 3] is empty"),
+    ({"age_groups": {}}, "key 'condition.age_groups': '{}' is not a mapping"),
+    ({"seasons": {"w": [12, 1], "s": [1, 2]}},
+     "key 'condition.seasons.s': month 1 is also in season 'w'"),
+    ({"seasons": {"w": [13]}}, "key 'condition.seasons.w': '[13]' is not a list of months"),
+    ({"seasons": {"early-spring": [3]}}, "the name 'early-spring' cannot be part of a series"),
+    ({"reference_years": [2020, 1990]}, "the first year 2020 is after the last year 1990"),
+    ({"bootstrap": 3}, "key 'condition.bootstrap': '3' is not a whole number"),
+    ({"colour": 1}, "key 'condition.colour': unknown key"),
+])
+def test_config_mistakes_are_one_line_each(change, expected):
+    with pytest.raises(InputErrors) as exc:
+        check_condition({**SECTION, **change}, "config.yaml")
+    lines = str(exc.value).splitlines()
+    assert len(lines) == 1 and lines[0].startswith("config.yaml: ")
+    assert expected in lines[0]
+
+
+def _write(tmp_path, text: str, name: str = "fish.csv"):
+    path = tmp_path / name
+    path.write_text(text)
+    return path
+
+
+def test_bad_cells_each_one_line_with_file_row_and_column(tmp_path):
+    path = _write(tmp_path, "year,month,set,length,weight,age\n"
+                  "2000,3,a,30,250,2\n"
+                  "2000,13,a,30,250,2\n"
+                  "2000,3,a,0,250,2\n"
+                  "2000,3,a,30,-5,2\n"
+                  "2000,3,a,30,heavy,2\n"
+                  "98,3,a,30,250,2\n")
+    before = path.read_bytes()
+    with pytest.raises(InputErrors) as exc:
+        read_samples(["fish.csv"], tmp_path)
+    lines = sorted(str(exc.value).splitlines())
+    assert lines == sorted([
+        "fish.csv:3: month 13 is outside 1-12; write the month the fish was caught as 1-12 "
+        "or a month name",
+        "fish.csv:4: length '0' is not positive; give the fish's length as a number above 0, "
+        "or delete the row",
+        "fish.csv:5: weight '-5' is not positive; give the fish's weight as a number above 0, "
+        "or delete the row",
+        "fish.csv:6: weight 'heavy' is not a number; write a plain number such as 0.25, or "
+        "leave the cell empty for a missing value",
+        "fish.csv:7: year 98 is outside 1000-2999; write the full four-digit year (for "
+        "example 1998)"])
+    assert path.read_bytes() == before  # input files are only read
+
+
+def test_mixed_weight_types_are_refused(tmp_path):
+    _write(tmp_path, "year,month,set,length,weight,age,weight_type\n"
+           "2000,3,a,30,250,2,whole\n2000,3,a,31,260,2,Whole\n2000,3,b,30,200,2,gutted\n")
+    with pytest.raises(InputErrors) as exc:
+        read_samples(["fish.csv"], tmp_path)
+    (line,) = str(exc.value).splitlines()
+    assert line.startswith("fish.csv:4: column 'weight_type': gutted weights are mixed with "
+                           "whole weights (first whole on fish.csv:2)")
+
+
+def test_missing_haul_ids_and_ages_outside_groups_are_warnings(tmp_path):
+    _write(tmp_path, "Year,MONTH,Length (mm),weight [kg],age,set\n"
+           "2000,mar,300,0.25,2,\n2000,3,310,0.26,40,a\n2000,3,320,0.3,3,a\n")
+    fish, warnings = read_samples(["fish.csv"], tmp_path)
+    assert fish.length.tolist() == [30.0, 31.0, 32.0]      # mm -> cm
+    assert fish.weight.tolist() == [250.0, 260.0, 300.0]   # kg -> g
+    assert fish.haul.tolist()[1:] == ["2000/a", "2000/a"]
+    assert fish.haul[0] != fish.haul[1]
+    (warn,) = [w.line() for w in warnings]
+    assert warn.startswith("warning: fish.csv: 1 fish have no set (haul id): rows 2")
+    settings = _settings(age_groups={"young": [1, 2], "mid": [3, 5]})
+    kept, notes = assign_groups(fish, settings)
+    assert len(kept) == 2
+    (note,) = [w.line() for w in notes]
+    assert note.startswith("warning: fish.csv: 1 fish have an age outside every age group "
+                           "(or no age) and are left out (rows 3)")
+
+
+@pytest.mark.parametrize("suffix", [".tsv", ".xlsx", ".parquet"])
+def test_samples_read_from_every_supported_format(tmp_path, suffix):
+    frame = pd.DataFrame({"year": [2000, 2000], "month": [3, 4], "set": ["a", "b"],
+                          "length": [30.0, 31.5], "weight": [250.0, 270.0], "age": [2, 3]})
+    path = tmp_path / f"fish{suffix}"
+    if suffix == ".tsv":
+        frame.to_csv(path, sep="\t", index=False)
+    elif suffix == ".xlsx":
+        frame.to_excel(path, index=False)
+    else:
+        frame.to_parquet(path, index=False)
+    fish, warnings = read_samples([path.name], tmp_path)
+    assert warnings == []
+    assert list(fish.columns) == SAMPLE_COLUMNS
+    assert fish.length.tolist() == [30.0, 31.5] and fish.row.tolist() == [2, 3]
+    assert fish.haul.tolist() == ["2000/a", "2000/b"]

@@ -153,7 +153,8 @@ def _months(values: np.ndarray, rows: np.ndarray, col: Collector) -> np.ndarray:
         if prob is None and month is None:
             prob = ("month is empty", "give every fish the month it was caught")
         if prob:
-            col.add(prob[0], prob[1], row=int(rows[i]))
+            col.add(prob[0], "write the month the fish was caught as 1-12 or a month name",
+                    row=int(rows[i]))
         x[i] = np.nan if month is None else month
     return x
 

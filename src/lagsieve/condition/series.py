@@ -114,7 +114,7 @@ def _sensitivity(design, boot, stats, fits) -> pd.DataFrame:
     for k, threshold in enumerate(boot.thresholds):
         rows = _share_rows(design, boot, k, stats, fits)
         parts.append(rows[["series", "year", "value", "se"]].assign(threshold=threshold))
-    return pd.concat(parts, ignore_index=True)[SENSITIVITY_COLUMNS]
+    return pd.concat(parts, ignore_index=True)[SENSITIVITY_COLUMNS].astype({"year": "int64"})
 
 
 def _effects(fits) -> pd.DataFrame:
