@@ -34,13 +34,15 @@ from lagsieve.prep.checks import backtest_warnings, check_positive, series_warni
 from lagsieve.screen.response import screen_response
 
 SCREEN_COLUMNS = ["response", "driver", "lag", "model", "n", "first_year", "last_year", "r", "p_naive",
-                  "n_eff", "p_adjusted", "r_detrended", "p_detrended", "r_diff", "slope", "slope_se",
+                  "n_eff", "p_adjusted", "r_detrended", "p_detrended", "r_diff", "p_differenced",
+                  "trend_p_response", "trend_p_driver", "driver_trend_r2", "slope", "slope_se",
                   "p_surrogate_lag", "edf", "deviance_explained", "p_smooth", "shape", "status"]
 EVIDENCE_COLUMNS = ["response", "driver", "category", "expected_sign", "lag", "model", "n", "first_year",
                     "last_year", "r", "p_naive", "n_eff", "p_adjusted", "r_detrended", "p_detrended", "r_diff",
                     "p_differenced", "trend_p_response", "trend_p_driver", "driver_trend_r2",
                     "slope", "slope_se", "slope_ci_low", "slope_ci_high", "r_ci_low", "r_ci_high",
-                    "effect", "effect_ci_low", "effect_ci_high", "effect_basis", "effect_largest_allowed",
+                    "effect", "effect_ci_low", "effect_ci_high", "effect_basis", "effect_unit",
+                    "effect_largest_allowed",
                     "p_surrogate", "p_surrogate_lag", "q_value", "oos_skill",
                     "oos_skill_climatology", "oos_skill_persistence", "oos_skill_trend", "oos_skill_trend_ar1",
                     "oos_n", "oos_p", "oos_test",

@@ -790,8 +790,8 @@ def expanding_penalised(
     W : (..., T, q) design (fixed across origins), P : (q, q) penalty (zero rows/columns for
     unpenalised terms), y : (T,), ``origins`` consecutive integers. At a tuning origin one
     eigen-decomposition gives RSS, edf and GCV = n RSS / (n - gamma edf)^2 (Craven & Wahba
-    1979; gamma = :data:`GCV_GAMMA` = 1.4 by default) for the whole grid of lambda: the Demmler-Reinsch form (Wood 2017, section 5.4 —
-    section number from memory), here shifted to C = A + mu P, A = W'W, so that it stays
+    1979; gamma = :data:`GCV_GAMMA` = 1.4 by default) for the whole grid of lambda: the
+    Demmler-Reinsch form (Wood 2017, section 5.4 — section number from memory), here shifted to C = A + mu P, A = W'W, so that it stays
     accurate when A is nearly singular, and restricted to the penalised subspace (see
     :class:`_SubspaceForm` for the formulas).
 
