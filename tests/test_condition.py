@@ -432,3 +432,51 @@ def test_samples_read_from_every_supported_format(tmp_path, suffix):
     assert list(fish.columns) == SAMPLE_COLUMNS
     assert fish.length.tolist() == [30.0, 31.5] and fish.row.tolist() == [2, 3]
     assert fish.haul.tolist() == ["2000/a", "2000/b"]
+
+
+def test_stratum_problems_name_row_and_column(tmp_path):
+    _write(tmp_path, "year,month,set,length,weight,age,stratum,stratum_area\n"
+           "2000,3,a,30,250,2,n,100\n2000,3,b,30,250,2,n,120\n2000,3,c,30,250,2,s,\n")
+    with pytest.raises(InputErrors) as exc:
+        read_samples(["fish.csv"], tmp_path)
+    assert sorted(str(exc.value).splitlines()) == [
+        "fish.csv:3: stratum 'n' has area 120 here but 100 on row 2; give each stratum one "
+        "area",
+        "fish.csv:4: stratum_area (empty) of stratum 's' is not a positive number; give the "
+        "stratum's area (any unit, the same for all)"]
+
+
+def test_unconnected_seasons_leave_the_adjusted_series_empty_with_a_warning():
+    # Odd years sampled only in spring, even years only in autumn: year and season effects
+    # cannot be told apart, so no season-adjusted value is made.
+    months = {y: ((5,) if y % 2 else (11,)) for y in range(2000, 2006)}
+    fish = simulate_fish(FishWorld(years=tuple(range(2000, 2006)), months=months),
+                         np.random.default_rng(8))
+    res = condition_series(fish, _settings(), seed=1, file="config.yaml")
+    annual = res.table[res.table.season == ""]
+    assert len(annual) and annual.value.isna().all()
+    assert any("cannot be separated from the year effect" in w.line() for w in res.warnings)
+
+
+def test_adjusted_share_does_not_follow_shifted_months():
+    # The poor-condition share under the same shift of sampling months as above: the naive
+    # annual share rises when only spring (the low) is sampled, the adjusted share not.
+    months = {y: ((5, 11) if y < 2005 else (5,)) for y in range(2000, 2010)}
+    world = FishWorld(months=months, season_effect=SEASONS, hauls_per_month=20)
+    res = condition_series(simulate_fish(world, np.random.default_rng(12)), _settings(),
+                           seed=3)
+    below = res.fish.assign(b=np.exp(res.fish.log_kn) < 0.85).groupby("year").b.mean()
+    assert below[below.index >= 2005].mean() - below[below.index < 2005].mean() > 0.03
+    adj = res.table[res.table.series == "below:old"].set_index("year")
+    rise = adj.value[adj.index >= 2005].mean() - adj.value[adj.index < 2005].mean()
+    assert abs(rise) < 3 * np.sqrt(np.mean(adj.se**2) / 2.5)
+
+
+def test_a_haul_in_two_months_is_refused(tmp_path):
+    _write(tmp_path, "year,month,set,length,weight,age\n"
+           "2000,3,a,30,250,2\n2000,3,a,31,260,2\n2000,4,a,30,200,2\n2001,4,a,30,200,2\n")
+    with pytest.raises(InputErrors) as exc:
+        read_samples(["fish.csv"], tmp_path)
+    assert str(exc.value).splitlines() == [
+        "fish.csv:4: set 'a' of 2000 is in month 4 here but in month 3 on row 2; give each "
+        "haul one month, or different set ids to different hauls"]

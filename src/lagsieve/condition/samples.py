@@ -214,7 +214,8 @@ def _strata(grid: Grid, cols, rows, decimal, col: Collector) -> tuple[np.ndarray
     values = _column(grid, cols["stratum_area"][0])
     area = _numbers(values, rows, decimal, "stratum_area", col)
     for i in np.flatnonzero((names != "") & ~(area > 0)):
-        col.add(f"stratum_area '{show(values[i])}' of stratum '{show(names[i])}' is not a "
+        shown = "(empty)" if is_missing(values[i]) else f"'{show(values[i])}'"
+        col.add(f"stratum_area {shown} of stratum '{show(names[i])}' is not a "
                 "positive number", "give the stratum's area (any unit, the same for all)",
                 row=int(rows[i]))
     for i in np.flatnonzero(names == ""):
@@ -222,9 +223,9 @@ def _strata(grid: Grid, cols, rows, decimal, col: Collector) -> tuple[np.ndarray
                 "column", row=int(rows[i]))
     frame = pd.DataFrame({"s": names, "a": area, "r": rows})
     first = frame[frame.a > 0].groupby("s", sort=False).agg(a=("a", "first"), r=("r", "first"))
-    joined = frame.join(first, on="s", rsuffix="0")
+    joined = frame.merge(first, left_on="s", right_index=True, how="left", suffixes=("", "0"))
     for s, a, r, a0, r0 in joined[(joined.a > 0) & (joined.a != joined.a0)].itertuples(index=False):
-        col.add(f"stratum '{show(s)}' has area {a:g} here but {a0:g} on row {r0}",
+        col.add(f"stratum '{show(s)}' has area {a:g} here but {a0:g} on row {int(r0)}",
                 "give each stratum one area", row=int(r))
     return names, area
 
@@ -235,6 +236,19 @@ def _ragged(grid: Grid, col: Collector) -> None:
         if len(cells) > ncol and any(not is_missing(c) for c in cells[ncol:]):
             col.add(f"the row has {len(cells)} cells but the header has {ncol}",
                     "remove the extra delimiter, or quote the cell that holds it", row=r)
+
+
+def _one_month_per_haul(out: dict, col: Collector) -> None:
+    """A haul (year and set) is one catch: fish of one haul in two months is a problem."""
+    frame = pd.DataFrame({"haul": out["haul"], "month": out["month"], "row": out["row"]})
+    frame = frame[np.isfinite(frame.month)]
+    first = frame.groupby("haul", sort=False).agg(m0=("month", "first"), r0=("row", "first"))
+    joined = frame.merge(first, left_on="haul", right_index=True)
+    for haul, month, row, m0, r0 in joined[joined.month != joined.m0].itertuples(index=False):
+        col.add(f"set '{show(str(haul).split('/', 1)[-1])}' of {str(haul).split('/')[0]} is "
+                f"in month {month:.0f} here but in month {m0:.0f} on row {int(r0)}",
+                "give each haul one month, or different set ids to different hauls",
+                row=int(row))
 
 
 def _read_one(spec: Any, base_dir: str | Path) -> tuple[pd.DataFrame, list[InputWarning]]:
@@ -262,6 +276,7 @@ def _read_one(spec: Any, base_dir: str | Path) -> tuple[pd.DataFrame, list[Input
     out["stratum"], out["stratum_area"] = _strata(grid, cols, rows, decimal, col)
     out["sex"] = _texts(get("sex")) if "sex" in cols else empty
     out["haul"] = _hauls(grid, cols, rows, years, col, warnings)
+    _one_month_per_haul(out, col)
     col.check()
     frame = pd.DataFrame(out)[SAMPLE_COLUMNS]
     keep = np.isfinite(frame["length"].to_numpy()) & np.isfinite(frame["weight"].to_numpy())

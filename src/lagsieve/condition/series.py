@@ -10,8 +10,8 @@ sample files first. The long table (:data:`OUTPUT_COLUMNS`) has one row per seri
   the threshold, per cell and season-adjusted, se from the haul-level bootstrap.
 
 ``n_fish`` and ``n_sets`` count fish and hauls (summed over the seasons of a year for the
-annual rows); ``design_effect`` is Kish's 1 + (m - 1) rho of the cell (for annual rows
-n_fish / the summed effective fish); ``rho`` is the intraclass correlation of the cell
+annual rows); ``design_effect`` is Kish's 1 + (m - 1) rho of the cell (for annual rows the
+fish-weighted mean over the year's cells where it is defined); ``rho`` is the intraclass correlation of the cell
 (log Kn for ``kn``, the below-threshold indicator for ``below``); ``n_effective`` is
 n_fish / design_effect.
 """
@@ -72,16 +72,20 @@ def _annual_rows(design, fits, kind: str, value, se, stats) -> list[pd.DataFrame
     out = []
     for group, fit in fits.items():
         cells = design.cells.iloc[fit.cells]
-        sums = pd.DataFrame({"year": cells.year.to_numpy(), "n": stats.n_fish[fit.cells],
-                             "g": stats.n_sets[fit.cells],
-                             "e": stats.n_effective[fit.cells]}).groupby("year").sum()
+        n, deff = stats.n_fish[fit.cells], stats.design_effect[fit.cells]
+        defined = np.isfinite(deff)
+        sums = pd.DataFrame({"year": cells.year.to_numpy(), "n": n, "g": stats.n_sets[fit.cells],
+                             "nd": np.where(defined, n * deff, 0.0),
+                             "nn": np.where(defined, n, 0)}).groupby("year").sum()
         sums = sums.loc[fit.years]
+        with np.errstate(divide="ignore", invalid="ignore"):  # no cell with a defined deff
+            deff_year = np.where(sums.nn > 0, sums.nd / sums.nn, np.nan)
         v, s = (value(fit), se(fit)) if fit.identified else (np.nan, np.nan)
         out.append(pd.DataFrame({
             "series": f"{kind}:{group}", "year": fit.years, "value": v, "se": s,
             "n_fish": sums.n.to_numpy(), "n_sets": sums.g.to_numpy(),
-            "design_effect": sums.n.to_numpy() / sums.e.to_numpy(), "rho": np.nan,
-            "n_effective": sums.e.to_numpy(), "kind": kind, "age_group": group,
+            "design_effect": deff_year, "rho": np.nan,
+            "n_effective": sums.n.to_numpy() / deff_year, "kind": kind, "age_group": group,
             "season": ""}))
     return out
 
