@@ -16,8 +16,8 @@ from lagsieve.condition.index import build_design, cell_icc, cell_means, season_
 from lagsieve.condition.lengthweight import fit_reference, huber_line, log_kn
 from lagsieve.condition.poor import bootstrap_shares
 from lagsieve.condition.samples import SAMPLE_COLUMNS, assign_groups, read_samples
-from lagsieve.condition.series import OUTPUT_COLUMNS, condition_series
-from lagsieve.condition.settings import check_condition
+from lagsieve.condition.series import OUTPUT_COLUMNS, condition_series, read_condition
+from lagsieve.condition.settings import check_condition, series_ids
 from lagsieve.condition.simulate import FishWorld, simulate_fish
 from lagsieve.errors import InputErrors
 from lagsieve.io.names import SAFE_ID, slug
@@ -480,3 +480,22 @@ def test_a_haul_in_two_months_is_refused(tmp_path):
     assert str(exc.value).splitlines() == [
         "fish.csv:4: set 'a' of 2000 is in month 4 here but in month 3 on row 2; give each "
         "haul one month, or different set ids to different hauls"]
+
+
+def test_read_condition_end_to_end_with_age_group_column_and_strata(tmp_path):
+    world = FishWorld(years=(2000, 2001, 2002), season_effect=SEASONS)
+    fish = simulate_fish(world, np.random.default_rng(21))
+    groups = np.where(fish.age <= 2, "young", np.where(fish.age <= 5, "mid", "old"))
+    stratum = np.where(pd.factorize(fish.haul)[0] % 2 == 0, "in", "out")
+    pd.DataFrame({"year": fish.year.astype(int), "month": fish.month.astype(int),
+                  "set": fish.haul.str.split("/").str[1], "length": fish.length,
+                  "weight": fish.weight, "age_group": groups, "stratum": stratum,
+                  "stratum_area": np.where(stratum == "in", 3.0, 1.0)}
+                 ).to_csv(tmp_path / "fish.csv", index=False)
+    settings = _settings(reference_years=[2000, 2002])
+    res = read_condition(settings, tmp_path, seed=2, file="config.yaml")
+    assert res.warnings == []
+    assert len(res.fish) == len(fish)
+    assert set(res.table.series) == set(series_ids(settings.age_groups, ["spring", "winter",
+                                                                          "summer", "autumn"]))
+    assert 2.9 < res.reference.b < 3.2  # the invented b is 3.05
