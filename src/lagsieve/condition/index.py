@@ -35,7 +35,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-__all__ = ["CELL_KEYS", "CellStats", "Design", "SeasonFit", "build_design", "cell_means",
+__all__ = ["CELL_KEYS", "CellStats", "Design", "SeasonFit", "build_design", "cell_means", "combine_strata", "psu_totals",
            "cell_icc", "season_fits", "season_operator"]
 
 CELL_KEYS = ["group", "season", "year"]
