@@ -14,11 +14,16 @@ driver when the screen's model is ``gam``), and with ``screen.weights: inverse-v
 every fit is weighted by 1/se^2 as in the screen. Values are on the model's scale (the
 response's transform).
 
-Prediction interval (``LEVEL`` = 80 %, two-sided): the classical OLS prediction interval from
-the candidate's training residuals, forecast +- t(0.90; n - p) * s * sqrt(1 + w0' (W'W)^-1 w0),
-with s^2 = RSS / (n - p). It ignores the uncertainty of the lag choice and assumes independent
-residuals, so it is expected to be too narrow for autocorrelated series; its coverage on the
-scored years is what the track record reports.
+Prediction interval (``LEVEL`` = 80 %, two-sided): the OLS prediction interval from the
+candidate's training residuals with the parameter part inflated for autocorrelated residuals,
+forecast +- t(0.90; n - p) * s * sqrt(1 + k * w0' (W'W)^-1 w0), with s^2 = RSS / (n - p) and
+k = (1 + rho) / (1 - rho), rho the lag-1 autocorrelation of the training residuals (pairs of
+consecutive years; clipped to [0, 0.9]; :func:`lagsieve.ledger.scores.ar1_inflation`). Under
+AR(1) errors the residual variance s^2 still estimates the variance of a new year's error, but
+the least-squares coefficients vary more than (W'W)^-1 s^2 says, by about the factor k that
+shrinks the effective sample size to n (1 - rho) / (1 + rho) (Bartlett 1946); with rho <= 0 the
+interval is the classical one. It still ignores the uncertainty of the lag choice; its coverage
+on the scored years is what the track record reports.
 """
 from __future__ import annotations
 
@@ -30,6 +35,7 @@ import pandas as pd
 from scipy import stats as _st
 
 from lagsieve.ledger.fingerprint import training_hash, used_values
+from lagsieve.ledger.scores import ar1_coefficient, ar1_inflation
 from lagsieve.prep.align import forecast_frame, inverse_variance_weights
 from lagsieve.stats.backtest import BASELINES, baseline_design
 from lagsieve.stats.splines import fit_pspline, predict_pspline
@@ -73,8 +79,10 @@ class NextYearForecast:
 
 
 def ols_forecast(W: np.ndarray, y: np.ndarray, w0: np.ndarray, level: float,
-                 weights: np.ndarray | None = None) -> Prediction:
-    """Least-squares fit of y on W; forecast at w0 with its two-sided prediction interval.
+                 weights: np.ndarray | None = None, years: np.ndarray | None = None) -> Prediction:
+    """Least-squares fit of y on W; forecast at w0 with its two-sided prediction interval, the
+    parameter part inflated by the AR(1) factor of the residuals (module docstring; ``years``
+    tell which rows are consecutive, default all).
 
     With ``weights`` (mean 1) the fit is weighted least squares and the new year gets weight 1,
     the mean precision of the training years (its standard error is not known yet). Columns
@@ -95,17 +103,19 @@ def ols_forecast(W: np.ndarray, y: np.ndarray, w0: np.ndarray, level: float,
     df = n - p
     s = float(np.sqrt(resid @ resid / df))
     lev = np.linalg.solve(r.T, w0)
-    se = s * float(np.sqrt(1.0 + lev @ lev))
+    k = ar1_inflation(ar1_coefficient(resid, np.arange(n) if years is None else years))
+    se = s * float(np.sqrt(1.0 + k * (lev @ lev)))
     fc = float(w0 @ beta)
     t = float(_st.t.ppf(0.5 + level / 2.0, df))
     return Prediction(fc, fc - t * se, fc + t * se, s)
 
 
 def gam_forecast(x: np.ndarray, y: np.ndarray, Z: np.ndarray, x0: float, z0: np.ndarray, level: float,
-                 weights: np.ndarray | None = None) -> Prediction:
+                 weights: np.ndarray | None = None, years: np.ndarray | None = None) -> Prediction:
     """Baseline + penalised spline of the driver, forecast at (x0, z0) with an approximate
-    prediction interval: t on n - edf degrees of freedom with variance s^2 (1 + edf / n), the
-    average leverage standing in for the exact leverage of the new point."""
+    prediction interval: t on n - edf degrees of freedom with variance s^2 (1 + k edf / n), the
+    average leverage standing in for the exact leverage of the new point and k the AR(1) factor
+    of the residuals (module docstring)."""
     other = Z[:, 1:]
     trend = other[:, 0] if other.shape[1] else None
     fit = fit_pspline(x, y, trend=trend, weights=weights)
@@ -113,7 +123,10 @@ def gam_forecast(x: np.ndarray, y: np.ndarray, Z: np.ndarray, x0: float, z0: np.
     n, edf = float(fit.n_used), float(fit.edf)
     df = max(n - edf, 1.0)
     s = float(np.sqrt(fit.rss / df))
-    half = float(_st.t.ppf(0.5 + level / 2.0, df)) * s * float(np.sqrt(1.0 + edf / n))
+    resid = (np.asarray(y, float) - np.ravel(fit.fitted)) * (1.0 if weights is None else np.sqrt(weights))
+    ok = np.isfinite(resid)
+    k = ar1_inflation(ar1_coefficient(resid[ok], (np.arange(len(resid)) if years is None else years)[ok]))
+    half = float(_st.t.ppf(0.5 + level / 2.0, df)) * s * float(np.sqrt(1.0 + k * edf / n))
     return Prediction(fc, fc - half, fc + half, s)
 
 
@@ -148,7 +161,7 @@ class TrainingSet:
         out = {}
         for b in BASELINES:
             Z, z0 = self.design(b)
-            out[b] = tuple(ols_forecast(Z, self.y, z0, level, self.weights)[:3])
+            out[b] = tuple(ols_forecast(Z, self.y, z0, level, self.weights, self.years)[:3])
         return out
 
     def candidate(self, baseline: str, x0: float, level: float, model: str) -> Prediction:
@@ -156,8 +169,9 @@ class TrainingSet:
         a penalised spline when ``model`` is ``gam`` and there are enough years, else a line."""
         Z, z0 = self.design(baseline)
         if model == "gam" and len(self.y) >= GAM_MIN_YEARS:
-            return gam_forecast(self.x, self.y, Z, x0, z0, level, self.weights)
-        return ols_forecast(np.column_stack([Z, self.x]), self.y, np.append(z0, x0), level, self.weights)
+            return gam_forecast(self.x, self.y, Z, x0, z0, level, self.weights, self.years)
+        return ols_forecast(np.column_stack([Z, self.x]), self.y, np.append(z0, x0), level, self.weights,
+                            self.years)
 
 
 def _origin(table: pd.DataFrame, response: str, driver: str, lag: int) -> tuple[int | None, float, str]:
