@@ -74,7 +74,10 @@ def run_study(cfg: Path, out: Path, parallel: bool = True) -> Path:
     study = load_study(cfg)
     res = out / study.id
     work = res / "work"
-    stages.run_align(cfg, work / "annual.csv", work / "notes.csv")
+    condition = condition_files(res)
+    if study.condition is not None:  # the condition stage first, as the workflow runs it
+        stages.run_condition(cfg, *condition)
+    stages.run_align(cfg, work / "annual.csv", work / "notes.csv", condition[:1] if study.condition else [])
     jobs = [(cfg, work / "annual.csv", rid, work / "responses" / slug(rid)) for rid in study.response_ids]
     if parallel and len(jobs) > 1:
         import multiprocessing as mp
@@ -88,13 +91,19 @@ def run_study(cfg: Path, out: Path, parallel: bool = True) -> Path:
     return res
 
 
+def condition_files(res: Path) -> list[Path]:
+    """The condition stage's outputs under a study's result folder, in run_condition's order."""
+    return [res / "condition.csv", res / "condition_sensitivity.csv", res / "work" / "condition_fish.csv",
+            res / "work" / "condition_fit.json"]
+
+
 def make_report(cfg: Path, res: Path, out: Path | None = None, screen_csv: Path | None = None) -> Path:
     """run_report for a screened study into ``out`` (default: the result folder)."""
     out = out or res
     work = res / "work"
     stages.run_report(cfg, work / "annual.csv", work / "notes.csv", work, screen_csv or res / "screen.csv",
                       res / "evidence.csv", out / "report.html", out / "provenance.json", out / "figures",
-                      threads=2)
+                      threads=2, condition=[p for p in condition_files(res) if p.is_file()])
     return out
 
 

@@ -16,14 +16,19 @@ import pandas as pd
 import yaml
 from threadpoolctl import threadpool_limits
 
+from lagsieve.condition.lengthweight import fit_reference
+from lagsieve.condition.samples import assign_groups, read_samples
+from lagsieve.condition.series import input_frame, read_condition
+from lagsieve.condition.settings import ConditionSettings, check_condition, series_ids
 from lagsieve.errors import InputErrors, InputProblem, report_problems, suggest
-from lagsieve.evidence.grading import build_evidence
+from lagsieve.evidence.grading import finish_evidence, grade_hypotheses
+from lagsieve.evidence.rivals import cap_by_rivals, conditional_table
 from lagsieve.io.config import Study, load_study
 from lagsieve.io.names import slug
 from lagsieve.io.files import sha256_file, write_csv, write_json, write_text
 from lagsieve.io.provenance import package_versions, tool_version
 from lagsieve.io.readers import read_inputs
-from lagsieve.io.tables import UnusedSeries
+from lagsieve.io.tables import UnusedSeries, empty_frame
 from lagsieve.ledger.section import ledger_section
 from lagsieve.ledger.update import input_hashes
 from lagsieve.ledger.store import resolve_ledger_path
@@ -48,7 +53,7 @@ EVIDENCE_COLUMNS = ["response", "driver", "category", "expected_sign", "lag", "m
                     "oos_n", "oos_p", "oos_test",
                     "oos_p_surrogate", "oos_hardest", "oos_lag", "oos_lag_share", "retest_skill", "retest_years",
                     "retest_model", "gam_gain", "edf", "shape", "grade", "flags", "rank", "collinear_with",
-                    "summary", "status"]
+                    "rival", "rival_added_skill", "summary", "status"]
 
 
 # ---------------------------------------------------------------- job logs
@@ -93,10 +98,17 @@ class PlannedStudy:
     config_path: str
     input_paths: list[str]
     response_inputs: dict[str, list[str]]  # response slug -> files holding it or its drivers
+    sample_paths: list[str] = ()           # the condition stage's per-fish files
+    condition_responses: frozenset = frozenset()  # response slugs that need condition.csv
 
     @property
     def response_slugs(self) -> list[str]:
         return [slug(r) for r in self.study.response_ids]
+
+    @property
+    def condition(self) -> dict | None:
+        """The study's ``condition:`` section (defaults filled), None without one."""
+        return self.study.condition
 
 
 def study_configs(config: dict, default: str = "config/config.yaml") -> list[str]:
@@ -170,8 +182,10 @@ def plan_studies(config: dict, check: bool = True) -> dict[str, PlannedStudy]:
                       file=sys.stderr)
                 sys.exit(2)
             inputs = [str(p) for p in st.input_paths()]
-            _raise_any(pattern_problems([str(st.path), *inputs, str(config.get("out", ""))]))
-            planned[st.id] = PlannedStudy(st, str(st.path), inputs, _response_inputs(st, annual, inputs))
+            samples = [str(p) for p in sample_paths(st)]
+            _raise_any(pattern_problems([str(st.path), *inputs, *samples, str(config.get("out", ""))]))
+            planned[st.id] = PlannedStudy(st, str(st.path), inputs, _response_inputs(st, annual, inputs),
+                                          samples, _condition_responses(st))
     except InputErrors as exc:
         sys.exit(report_problems(exc))
     return planned
@@ -189,30 +203,127 @@ def pattern_problems(paths: list[str]) -> list[InputProblem]:
 
 
 # ---------------------------------------------------------------- check and align
-def check_study(config_path: str | Path):
+def check_study(config_path: str | Path, condition: str | Path | list | None = None):
     """Load the config and every input; return (study, annual, notes, warnings).
 
-    Raises :class:`InputErrors` with one problem per line for anything the user must fix.
+    ``condition``: the study's condition.csv (stage `condition`); without it the condition
+    section and its samples are checked, and the series it makes count as present, but their
+    values (not yet computed) are not. Raises :class:`InputErrors` with one problem per line
+    for anything the user must fix, the config's, the inputs' and the samples' together.
     """
     study = load_study(config_path)
-    _raise_any(pattern_problems([str(p) for p in [study.path, *study.input_paths()]]))
+    _raise_any(pattern_problems([str(p) for p in [study.path, *study.input_paths(), *sample_paths(study)]]))
     _raise_any(budget_problems(study))  # a plan over the budget: refused before any input is read
-    wanted = set(study.response_ids) | set(study.driver_ids)
-    long, warnings = read_inputs(study.inputs, study.base_dir, wanted)  # other series: left out, noted
+    cond_ids, warnings, problems = check_samples(study)
+    wanted = (set(study.response_ids) | set(study.driver_ids)) - cond_ids
+    try:
+        long, more = read_inputs(study.inputs, study.base_dir, wanted)  # other series: left out, noted
+    except InputErrors as exc:
+        problems, long, more = problems + list(exc.problems), empty_frame(), []
+    _raise_any(problems)
+    warnings = list(more) + warnings
     unused = {n for w in warnings if isinstance(w, UnusedSeries) for n in w.names}
-    _raise_any(_absent_series(study, set(long["series"].unique()), unused))
+    present = set(long["series"].unique())
+    _raise_any(_absent_series(study, present | cond_ids, unused) + _condition_clashes(study, cond_ids, present | unused))
+    table = _condition_table(condition)
+    if table is not None:
+        long = pd.concat([long, input_frame(table, cond_ids & set(study.response_ids + study.driver_ids))],
+                         ignore_index=True)
     annual, notes = to_annual(long, study.series_options())
+    _check_values(study, annual, long, cond_ids if table is None else set())
+    units = {s["id"]: s["unit"] for s in study.responses + study.drivers if s.get("unit")}
+    warnings = warnings + list(series_warnings(annual, study.screen["min_overlap"], units))
+    warnings += backtest_warnings(study, annual)
+    return study, annual, notes, warnings
+
+
+def _check_values(study: Study, annual: pd.DataFrame, long: pd.DataFrame, unknown: set[str]) -> None:
+    """Value checks of the annual table; those that need a series of ``unknown`` (condition
+    series not computed yet) are left to the stage that has them."""
     problems: list[InputProblem] = []
     for s in study.responses + study.drivers:
         problems += check_positive(annual, s["id"], s.get("transform", "none"), long)
     _raise_any(problems)
-    _raise_any(unscreenable_responses(study, annual))
+    if unknown:
+        needs = {r: {r} | {d["id"] for d in study.drivers_for(r)} for r in study.response_ids}
+        keep = lambda p: not (needs.get(p.series, set()) & unknown)  # noqa: E731
+    else:
+        keep = lambda p: True  # noqa: E731
+    _raise_any([p for p in unscreenable_responses(study, annual) if keep(p)])
     if study.screen.get("weights") == "inverse-variance":
-        _raise_any(_responses_without_se(study, annual))
-    units = {s["id"]: s["unit"] for s in study.responses + study.drivers if s.get("unit")}
-    warnings = list(warnings) + list(series_warnings(annual, study.screen["min_overlap"], units))
-    warnings += backtest_warnings(study, annual)
-    return study, annual, notes, warnings
+        _raise_any([p for p in _responses_without_se(study, annual) if keep(p)])
+
+
+# ---------------------------------------------------------------- condition
+def sample_paths(study: Study) -> list[Path]:
+    """The condition stage's per-fish files, resolved against the config's folder."""
+    if study.condition is None:
+        return []
+    specs = study.condition.get("samples") or []
+    specs = [specs] if isinstance(specs, (str, dict)) else specs
+    return [study.base_dir / (sp["path"] if isinstance(sp, dict) else str(sp)) for sp in specs
+            if isinstance(sp, (str, dict)) and (not isinstance(sp, dict) or isinstance(sp.get("path"), str))]
+
+
+def condition_settings(study: Study) -> ConditionSettings | None:
+    """The checked ``condition:`` section, None without one (raises :class:`InputErrors`)."""
+    return None if study.condition is None else check_condition(study.condition, str(study.path))
+
+
+def check_samples(study: Study) -> tuple[set[str], list, list[InputProblem]]:
+    """Check the condition section, read its samples and fit the reference (cheap: no index, no
+    bootstrap). Returns (the series ids it makes, warnings, problems)."""
+    if study.condition is None:
+        return set(), [], []
+    try:
+        settings = condition_settings(study)
+        fish, warnings = read_samples(settings.samples, study.base_dir)
+        fish, more = assign_groups(fish, settings)
+        _, fit = fit_reference(fish, settings.reference_years, str(study.path))
+    except InputErrors as exc:
+        return set(), [], list(exc.problems)
+    return set(series_ids(settings.age_groups, settings.seasons)), warnings + more + fit, []
+
+
+def _condition_clashes(study: Study, cond_ids: set[str], in_inputs: set[str]) -> list[InputProblem]:
+    return [InputProblem(what="an input file holds a series with the id of a condition series",
+                         fix="rename that series in its file or the age group / season that makes the id",
+                         file=str(study.path), key="condition", series=sid)
+            for sid in sorted(cond_ids & in_inputs)]
+
+
+def _condition_responses(study: Study) -> frozenset:
+    """Slugs of the responses whose screen reads condition.csv (it or a driver is a condition series)."""
+    if study.condition is None:
+        return frozenset()
+    ids = set(series_ids(study.condition.get("age_groups") or {}, study.condition.get("seasons") or {}))
+    return frozenset(slug(r) for r in study.response_ids
+                     if ({r} | {d["id"] for d in study.drivers_for(r)}) & ids)
+
+
+def _condition_table(condition) -> pd.DataFrame | None:
+    """condition.csv as a frame; ``condition`` is its path, or a list of none or one path (as the
+    workflow gives an optional input)."""
+    if isinstance(condition, (list, tuple)):  # a Snakemake input list is a list
+        condition = next(iter(condition), None)
+    return None if condition is None else pd.read_csv(condition, keep_default_na=False, na_values=[""])
+
+
+def run_condition(config_path, out_table, out_sensitivity, out_fish, out_fit) -> None:
+    """Stage `condition`: the condition series (condition.csv), the threshold sensitivity, and for
+    the report the fish with their log Kn and the reference fit with the season effects."""
+    study = load_study(config_path)
+    settings = condition_settings(study)
+    res = read_condition(settings, study.base_dir, study.screen["seed"], str(study.path), time.perf_counter)
+    write_csv(res.table, out_table)
+    write_csv(res.sensitivity, out_sensitivity)
+    fish = res.fish[["year", "month", "group", "season", "length", "weight", "log_kn"]].rename(columns={"group": "age_group"})
+    write_csv(fish, out_fish)
+    write_json({"reference": dict(vars(res.reference)), "season_effects": res.season_effects.to_dict("records"),
+                "settings": {"threshold": settings.threshold, "thresholds": list(settings.thresholds),
+                             "bootstrap": settings.bootstrap, "age_groups": {k: list(v) for k, v in settings.age_groups.items()},
+                             "seasons": {k: list(v) for k, v in settings.seasons.items()}},
+                "warnings": [w.line() for w in res.warnings], "timings": res.timings}, out_fit)
 
 
 def _raise_any(problems: list[InputProblem]) -> None:
@@ -250,9 +361,10 @@ def _responses_without_se(study: Study, annual: pd.DataFrame) -> list[InputProbl
     return problems
 
 
-def run_align(config_path: str | Path, out_annual: str | Path, out_notes: str | Path) -> None:
-    """Stage `align`: write the tidy annual table and the list of dropped or filled years."""
-    study, annual, notes, warnings = check_study(config_path)
+def run_align(config_path: str | Path, out_annual: str | Path, out_notes: str | Path, condition=None) -> None:
+    """Stage `align`: write the tidy annual table and the list of dropped or filled years
+    (``condition``: the study's condition.csv, or a list of none or one path)."""
+    study, annual, notes, warnings = check_study(config_path, condition)
     role = {i: "response" for i in study.response_ids} | {i: "driver" for i in study.driver_ids}
     annual = annual.assign(role=annual["series"].map(role)).sort_values(["series", "year"])
     notes_df = pd.DataFrame(notes, columns=["series", "year", "action", "reason"])
@@ -270,31 +382,39 @@ def load_table(study: Study, annual_csv: str | Path) -> pd.DataFrame:
 
 
 # ---------------------------------------------------------------- screen
-def response_annual(study: Study, response_id: str, files: list[str] | None = None) -> pd.DataFrame:
+def response_annual(study: Study, response_id: str, files: list[str] | None = None,
+                    condition=None) -> pd.DataFrame:
     """The tidy annual data of one response and its drivers, read from ``files`` only (the
-    inputs that hold them; default: every input), exactly as `align` reads them."""
+    inputs that hold them; default: every input) and from the study's condition.csv
+    (``condition``, when one of them is a condition series), exactly as `align` reads them."""
     specs = study.inputs
     if files is not None:
         keep = {str(Path(f).resolve()) for f in files}
         specs = [sp for sp, p in zip(study.inputs, study.input_paths()) if str(p.resolve()) in keep]
     wanted = {response_id} | {d["id"] for d in study.drivers_for(response_id)}
-    long, _ = read_inputs(specs, study.base_dir, wanted)
+    table = _condition_table(condition)
+    from_condition = set(table["series"]) & wanted if table is not None else set()
+    long, _ = read_inputs(specs, study.base_dir, wanted - from_condition)
+    if table is not None:
+        long = pd.concat([long, input_frame(table, from_condition)], ignore_index=True)
     options = {k: v for k, v in study.series_options().items() if k in wanted}
     annual, _ = to_annual(long, options)
     return annual
 
 
 def run_screen(config_path, annual_csv, response_id: str, out_dir, threads: int = 1,
-               files: list[str] | None = None) -> None:
+               files: list[str] | None = None, condition=None) -> None:
     """Stage `screen` for one response: screen rows, hypothesis rows, forecasts, nulls.
 
     With ``annual_csv`` the aligned study table is used; otherwise (the workflow) the
-    response's own input ``files`` are read, so that its job depends on those files only.
+    response's own input ``files`` are read, so that its job depends on those files only, and
+    the study's condition.csv (``condition``) when a series of the response comes from it.
     """
     study = load_study(config_path)
     by_slug = {slug(r): r for r in study.response_ids}
     response_id = by_slug.get(response_id, response_id)
-    annual = pd.read_csv(annual_csv) if annual_csv is not None else response_annual(study, response_id, files)
+    annual = (pd.read_csv(annual_csv) if annual_csv is not None
+              else response_annual(study, response_id, files, condition))
     transforms = study.transforms()
     table = annual_table(annual, transforms)
     se = se_table(annual, transforms) if study.screen.get("weights") == "inverse-variance" else None
@@ -314,15 +434,20 @@ def response_dirs(work: str | Path, study: Study) -> dict[str, Path]:
 
 # ---------------------------------------------------------------- evidence
 def run_evidence(config_path, annual_csv, work_dir, out_screen, out_evidence) -> None:
-    """Stage `evidence`: study-wide q-values, flags, grades and ranks."""
+    """Stage `evidence`: study-wide q-values, flags, grades (strong and moderate capped when the
+    strongest rival explains the same signal) and ranks; ``conditional.csv`` beside evidence.csv."""
     study = load_study(config_path)
     table = load_table(study, annual_csv)
     dirs = response_dirs(work_dir, study)
     hyps = pd.concat([pd.read_csv(d / "hypotheses.csv") for d in dirs.values()], ignore_index=True)
     scr = pd.concat([pd.read_csv(d / "screen.csv") for d in dirs.values()], ignore_index=True)
-    ev = build_evidence(hyps, table, study.screen, study.responses + study.drivers)
+    graded = grade_hypotheses(hyps, table, study.screen)
+    lags = {d["id"]: study.lags_for(d) for d in study.drivers}
+    cond = conditional_table(graded, table, study.drivers, lags, study.screen)
+    ev = finish_evidence(cap_by_rivals(graded, cond), table, study.screen, study.responses + study.drivers)
     write_csv(ordered(scr, SCREEN_COLUMNS), out_screen)
     write_csv(ordered(ev, EVIDENCE_COLUMNS), out_evidence)
+    write_csv(cond, Path(out_evidence).with_name("conditional.csv"))  # beside evidence.csv
 
 
 # ---------------------------------------------------------------- report
@@ -370,12 +495,13 @@ def _report_provenance(study: Study, annual_csv, dirs: dict, t0: float) -> dict:
 
 def run_report(config_path, annual_csv, notes_csv, work_dir, screen_csv, evidence_csv,
                out_report, out_provenance, figures_dir, started: float | None = None,
-               out_pdf=None, threads: int | None = None) -> None:
+               out_pdf=None, threads: int | None = None, condition=None) -> None:
     """Stage `report`: figures and tables under ``figures_dir``, the self-contained HTML
     report, its PDF copy (``out_pdf``, default ``report.pdf`` beside the report, unless the
     config sets ``report.pdf: false``) and provenance.json.
 
     ``threads``: worker processes for drawing the figures (default: up to 4 CPUs).
+    ``condition``: the condition stage's outputs (paths), shown in a section of their own.
     """
     # Imported here, not at the top: the report modules (matplotlib, the figure code) add 1.5-2 s
     # to the import of this module (python -X importtime, 2-core machine), which every other stage
@@ -383,6 +509,7 @@ def run_report(config_path, annual_csv, notes_csv, work_dir, screen_csv, evidenc
     from lagsieve.report.figures import FigureRenderer
     from lagsieve.report.html import build_report  # matplotlib: see above
     from lagsieve.report.pdf import write_report_pdf  # matplotlib: see above
+    from lagsieve.report.condition import read_outputs  # matplotlib (figures): see above
 
     t0 = time.time() if started is None else started
     study = load_study(config_path)
@@ -399,7 +526,8 @@ def run_report(config_path, annual_csv, notes_csv, work_dir, screen_csv, evidenc
     with FigureRenderer(figures_dir, workers) as renderer:
         since = ledger_section(resolve_ledger_path(study, Path(out_report).parent), study, evidence)
         html, figs = build_report(study, table, screen, evidence, forecasts, nulls, notes, prov, figures_dir,
-                                  annual=annual, renderer=renderer, since=since)
+                                  annual=annual, renderer=renderer, since=since,
+                                  condition=read_outputs(condition))
         write_text(html, out_report)
         renderer.write_svgs()  # the SVG copies are written by the workers while the PDF is made
         if pdf_wanted(study):

@@ -19,6 +19,25 @@ def response_files(name):
     return inner
 
 
+def condition_for_response(wildcards):
+    """condition.csv when a series of this response comes from the condition stage."""
+    if wildcards.response in STUDIES[wildcards.study].condition_responses:
+        return [f"{OUT}/{wildcards.study}/condition.csv"]
+    return []
+
+
+def condition_outputs(*names):
+    """The condition stage's outputs ``names`` (paths under the study's folder) when the study
+    has a condition section, else none."""
+
+    def inner(wildcards):
+        if STUDIES[wildcards.study].condition is None:
+            return []
+        return [f"{OUT}/{wildcards.study}/{name}" for name in names]
+
+    return inner
+
+
 def expand_all():
     outs = []
     for s in STUDIES:

@@ -5,6 +5,7 @@ rule evidence:
     input:
         config=cfg,
         data=lambda w: STUDIES[w.study].input_paths,
+        condition=condition_outputs("condition.csv"),
         hypotheses=response_files("hypotheses.csv"),
         screens=response_files("screen.csv"),
     output:

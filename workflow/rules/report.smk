@@ -13,6 +13,12 @@ REPORT_INPUT = dict(
     evidence=f"{OUT}/{{study}}/evidence.csv",
     forecasts=response_files("forecasts.csv"),
     nulls=response_files("nulls.csv"),
+    condition=condition_outputs(
+        "condition.csv",
+        "condition_sensitivity.csv",
+        "work/condition_fish.csv",
+        "work/condition_fit.json",
+    ),
 )
 REPORT_OUTPUT = {
     "report": report(

@@ -3,6 +3,7 @@ rule screen:
     input:
         config=cfg,
         data=lambda w: STUDIES[w.study].response_inputs[w.response],
+        condition=condition_for_response,
     output:
         screen=f"{OUT}/{{study}}/work/responses/{{response}}/screen.csv",
         hypotheses=f"{OUT}/{{study}}/work/responses/{{response}}/hypotheses.csv",

@@ -4,6 +4,7 @@ from pathlib import Path
 from lagsieve.pipeline import logged, run_align, run_evidence
 
 with logged(snakemake):
-    run_align(snakemake.input.config, snakemake.output.annual, snakemake.output.notes)
+    run_align(snakemake.input.config, snakemake.output.annual, snakemake.output.notes,
+              condition=list(snakemake.input.condition))
     run_evidence(snakemake.input.config, snakemake.output.annual, Path(snakemake.output.annual).parent,
                  snakemake.output.screen, snakemake.output.evidence)

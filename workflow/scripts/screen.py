@@ -5,4 +5,5 @@ from lagsieve.pipeline import logged, run_screen
 
 with logged(snakemake):
     run_screen(snakemake.input.config, None, snakemake.wildcards.response,
-               Path(snakemake.output.screen).parent, threads=snakemake.threads, files=list(snakemake.input.data))
+               Path(snakemake.output.screen).parent, threads=snakemake.threads, files=list(snakemake.input.data),
+               condition=list(snakemake.input.condition))

@@ -30,9 +30,10 @@ from lagsieve.condition.poor import bootstrap_shares
 from lagsieve.condition.samples import assign_groups, read_samples
 from lagsieve.condition.settings import ConditionSettings
 from lagsieve.errors import InputWarning
+from lagsieve.io.tables import FRAME_COLUMNS
 
 __all__ = ["ConditionResult", "OUTPUT_COLUMNS", "SENSITIVITY_COLUMNS", "condition_rng",
-           "condition_series", "read_condition"]
+           "condition_series", "input_frame", "read_condition"]
 
 OUTPUT_COLUMNS = ["series", "year", "value", "se", "n_fish", "n_sets", "design_effect", "rho",
                   "n_effective", "kind", "age_group", "season"]
@@ -183,3 +184,16 @@ def read_condition(settings: ConditionSettings, base_dir: str | Path, seed: int,
     timings = {"read": t1 - t0, **result.timings}
     return ConditionResult(**{**result.__dict__, "warnings": warnings + result.warnings,
                               "timings": timings})
+
+
+def input_frame(table: pd.DataFrame, wanted) -> pd.DataFrame:
+    """The rows of the ``wanted`` series of a condition table (condition.csv) as the tidy input
+    frame of :mod:`lagsieve.io.tables` (``FRAME_COLUMNS``): value and se enter the annual
+    table like those of any input series; ``file`` is ``condition.csv``, ``row`` its row."""
+    rows = table[table["series"].isin(set(wanted))]
+    return pd.DataFrame({
+        "series": rows["series"].astype(str), "year": rows["year"].astype("int64"),
+        "month": pd.Series(pd.NA, index=rows.index, dtype="Int64"),
+        "value": rows["value"].astype(float), "se": rows["se"].astype(float), "unit": "",
+        "file": "condition.csv", "row": (rows.index.to_numpy() + 2).astype("int64")},
+        index=rows.index)[FRAME_COLUMNS].reset_index(drop=True)

@@ -31,6 +31,8 @@ class FishWorld:
     sd_fish: float = 0.08
     season_effect: dict = field(default_factory=lambda: {m: 0.0 for m in range(1, 13)})
     year_effect: dict = field(default_factory=dict)   # year -> log Kn shift (all ages)
+    # (first age, last age) -> {year: log Kn shift} for the fish of those ages only
+    age_year_effect: dict = field(default_factory=dict)
     max_age: int = 10
 
 
@@ -55,6 +57,9 @@ def simulate_fish(world: FishWorld, rng: np.random.Generator) -> pd.DataFrame:
     effect = (rng.normal(0, world.sd_haul, n_hauls)[haul]
               + np.vectorize(world.season_effect.get)(haul_month)[haul]
               + np.array([world.year_effect.get(y, 0.0) for y in haul_year])[haul])
+    for (lo, hi), shifts in world.age_year_effect.items():
+        inside = (age >= lo) & (age <= hi)
+        effect += inside * np.array([shifts.get(y, 0.0) for y in haul_year])[haul]
     log_w = np.log(world.a) + world.b * np.log(length) + effect + rng.normal(0, world.sd_fish, n)
     frame = pd.DataFrame({
         "file": "invented", "row": np.arange(2, n + 2), "year": haul_year[haul].astype(float),

@@ -12,6 +12,7 @@ import numpy as np
 from jinja2 import Environment, PackageLoader, StrictUndefined
 
 from lagsieve.demo.check import association_check
+from lagsieve.demo.fish import AGE_GROUPS, CONDITION, PREY_BETA, SEASON_EFFECT
 from lagsieve.demo.world import (
     CLIMATE_YEARS,
     DEFAULT_SEED,
@@ -127,6 +128,8 @@ def truth_context(data: DemoData) -> dict:
         "truth_rows": _truth_rows(data),
         "effects": effects[["driver", "response", "size"]].to_dict("records"),
         "check_rows": _check_rows(data),
+        "fish": {"n": len(data.fish), "first": int(data.fish["year"].min()), "last": int(data.fish["year"].max()),
+                 "groups": AGE_GROUPS, "beta": PREY_BETA, "seasons": SEASON_EFFECT, **CONDITION},
     }
 
 

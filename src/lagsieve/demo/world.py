@@ -27,6 +27,8 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
+from lagsieve.demo.fish import fish_samples
+
 __all__ = [
     "DEFAULT_SEED",
     "DRIVERS",
@@ -135,6 +137,7 @@ class DemoData:
     drivers: pd.DataFrame
     seed: int
     parameters: dict = field(default_factory=dict)
+    fish: pd.DataFrame | None = None   # the per-fish samples (lagsieve.demo.fish)
 
 
 # --------------------------------------------------------------------------- drivers
@@ -463,4 +466,5 @@ def simulate_demo(seed: int = DEFAULT_SEED) -> DemoData:
     return DemoData(mortality=mortality, surveys_annual=_surveys_annual(drivers.annual),
                     indices_long=_indices_long(drivers),
                     bottom_temperature_monthly=drivers.monthly, truth=truth_table(),
-                    components=components, drivers=drivers.annual, seed=seed, parameters=params)
+                    components=components, drivers=drivers.annual, seed=seed, parameters=params,
+                    fish=fish_samples(seed, RESPONSE_YEARS, drivers.annual))

@@ -1,4 +1,4 @@
-"""Write the invented demo study to a folder: the four data files and TRUTH.md
+"""Write the invented demo study to a folder: the five data files and TRUTH.md
 (:func:`write_demo`), and with its config a new study folder (:func:`write_study`, what
 `lagsieve init` writes).
 
@@ -36,6 +36,7 @@ DEMO_FILES = (
     "surveys_annual.csv",
     "indices_long.csv",
     "bottom_temperature_monthly.csv",
+    "fish_samples.csv",
     "TRUTH.md",
 )
 
@@ -47,6 +48,7 @@ def demo_files(data: DemoData) -> dict[str, pd.DataFrame | str]:
         "surveys_annual.csv": data.surveys_annual,
         "indices_long.csv": data.indices_long,
         "bottom_temperature_monthly.csv": data.bottom_temperature_monthly,
+        "fish_samples.csv": data.fish,
         "TRUTH.md": truth_markdown(data),
     }
 

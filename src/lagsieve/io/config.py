@@ -40,6 +40,7 @@ class Study:
     screen: dict
     report: dict
     ledger_path: str | None = None
+    condition: dict | None = None  # the ``condition:`` section with its defaults, when present
 
     @property
     def response_ids(self) -> list[str]:
@@ -255,4 +256,4 @@ def _build(path: Path, raw: dict) -> Study:
     ledger = (raw.get("ledger") or {}).get("path")
     return Study(path=path.resolve(), raw=raw, id=raw["study"], base_dir=base, inputs=inputs,
                  responses=responses, drivers=drivers, screen=full["screen"], report=full["report"],
-                 ledger_path=ledger)
+                 ledger_path=ledger, condition=full.get("condition"))

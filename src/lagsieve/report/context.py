@@ -89,6 +89,7 @@ class Context:
     labels: dict = field(default_factory=dict)
     units: dict = field(default_factory=dict)
     invented: bool = False
+    condition: dict | None = None   # the condition stage's outputs (report.condition.read_outputs)
 
     @classmethod
     def of(cls, study, table, screen, evidence, forecasts, nulls, notes, provenance,

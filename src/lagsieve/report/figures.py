@@ -449,8 +449,99 @@ def gam_effect(grid, curve, lower, upper, x_obs, driver: str, response: str, sta
     return fig
 
 
+# ----------------------------------------------------------------------------- condition (issue 18)
+GROUP_COLOURS = ("#0b3c68", "#c4561b", "#3b7d3b", "#7a3d8c", "#8a6d1f", "#2d7f8a")
+
+
+def condition_fit(log_length, log_weight, log_a: float, b: float, seasons: list[str], residuals: list,
+                  invented: bool = False):
+    """The length-weight reference on log-log axes (a sample of the fish and the fitted line),
+    and the residuals (log Kn) by season as box plots."""
+    fig, (ax, bx) = plt.subplots(1, 2, figsize=(8.6, 3.6), layout="constrained")
+    x = np.asarray(log_length, float)
+    ax.scatter(x, np.asarray(log_weight, float), s=3, alpha=0.25, color=RESPONSE_COLOUR, linewidths=0,
+               label="fish (a sample)")
+    grid = np.linspace(np.nanmin(x), np.nanmax(x), 50)
+    ax.plot(grid, log_a + b * grid, color=DRIVER_COLOUR, lw=1.6, label=f"reference: b = {b:.3f}")
+    ax.set_xlabel("log length (cm)")
+    ax.set_ylabel("log weight (g)")
+    ax.legend(fontsize=7, frameon=False, loc="upper left")
+    bx.boxplot([np.asarray(r, float) for r in residuals], showfliers=False)
+    bx.set_xticks(range(1, len(seasons) + 1), [mpl_text(_short(s, 14)) for s in seasons])
+    bx.axhline(0, color=INK, lw=0.6, ls="--")
+    bx.set_ylabel("log Kn (residual from the reference)")
+    _mark_invented(fig, invented)
+    return fig
+
+
+def condition_indices(panels: list[dict], invented: bool = False):
+    """Season-adjusted annual indices by age group with their 95% intervals: one panel per kind
+    (``panels``: title, ylabel, lines of group, years, value, low, high)."""
+    fig, axes = plt.subplots(1, len(panels), figsize=(4.4 * len(panels), 3.6), layout="constrained",
+                             squeeze=False)
+    for ax, panel in zip(axes[0], panels):
+        for k, line in enumerate(panel["lines"]):
+            colour = GROUP_COLOURS[k % len(GROUP_COLOURS)]
+            yrs, v, lo, hi = _gapped(line["years"], line["value"], line["low"], line["high"])
+            ax.fill_between(yrs, lo, hi, color=colour, alpha=0.18, linewidth=0)
+            ax.plot(yrs, v, color=colour, lw=1.3, label=mpl_text(_short(line["group"], 20)))
+        ax.set_title(mpl_text(panel["title"]), loc="left", fontsize=8.5)
+        ax.set_ylabel(mpl_text(panel["ylabel"]))
+        ax.set_xlabel("year")
+        _integer_years(ax)
+    axes[0][0].legend(fontsize=7, frameon=False, title="age group", title_fontsize=7)
+    _mark_invented(fig, invented)
+    return fig
+
+
+def condition_design(seasons: list[str], effects: dict, years, design: dict, invented: bool = False):
+    """Season effects on log Kn by age group (``effects``: group -> one value per season) and the
+    design effect of the annual condition index by year (``design``: group -> one per year)."""
+    fig, (ax, bx) = plt.subplots(1, 2, figsize=(8.6, 3.4), layout="constrained")
+    width = 0.8 / max(1, len(effects))
+    for k, (group, vals) in enumerate(effects.items()):
+        colour = GROUP_COLOURS[k % len(GROUP_COLOURS)]
+        ax.bar(np.arange(len(seasons)) + k * width, vals, width, color=colour,
+               label=mpl_text(_short(group, 20)))
+        bx.plot(years, design[group], color=colour, lw=1.2, marker="o", ms=2.5)
+    ax.set_xticks(np.arange(len(seasons)) + width * (len(effects) - 1) / 2,
+                  [mpl_text(_short(s, 14)) for s in seasons])
+    ax.axhline(0, color=INK, lw=0.6)
+    ax.set_ylabel("season effect on log Kn")
+    ax.legend(fontsize=7, frameon=False, title="age group", title_fontsize=7)
+    bx.axhline(1, color=INK, lw=0.6, ls="--")
+    bx.set_ylabel("design effect 1 + (m - 1) rho")
+    bx.set_xlabel("year")
+    _integer_years(bx)
+    _mark_invented(fig, invented)
+    return fig
+
+
+def condition_sensitivity(groups: list[str], thresholds: list[float], years, shares: dict, chosen: float,
+                          invented: bool = False):
+    """The season-adjusted poor-condition share by year at every threshold of the grid, one
+    panel per age group (``shares``: group -> array thresholds x years); the chosen threshold bold."""
+    fig, axes = plt.subplots(1, len(groups), figsize=(3.2 * len(groups) + 1, 3.4), layout="constrained",
+                             squeeze=False, sharey=True)
+    cmap = plt.get_cmap("viridis")
+    for ax, group in zip(axes[0], groups):
+        for j, t in enumerate(thresholds):
+            bold = np.isclose(t, chosen)
+            ax.plot(years, shares[group][j], color=cmap(j / max(1, len(thresholds) - 1)),
+                    lw=2.0 if bold else 0.9, label=f"{t:g}" + (" (chosen)" if bold else ""))
+        ax.set_title(mpl_text(_short(group, 20)), loc="left", fontsize=8.5)
+        ax.set_xlabel("year")
+        _integer_years(ax)
+    axes[0][0].set_ylabel("share of fish below the threshold")
+    axes[0][-1].legend(fontsize=6.5, frameon=False, title="threshold Kn", title_fontsize=7)
+    _mark_invented(fig, invented)
+    return fig
+
+
 BUILDERS = {f.__name__: f for f in (coverage, driver_correlation, evidence_grid, overlay, scatter,
-                                    lag_profile, forecasts, null_distributions, gam_effect)}
+                                    lag_profile, forecasts, null_distributions, gam_effect,
+                                    condition_fit, condition_indices, condition_design,
+                                    condition_sensitivity)}
 
 
 # ----------------------------------------------------------------------------- rendering

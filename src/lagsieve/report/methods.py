@@ -8,6 +8,14 @@ from lagsieve.report.context import Context
 from lagsieve.report.render import render_text
 
 REF = {
+    "lecren": "Le Cren, E.D. (1951) The length-weight relationship and seasonal cycle in gonad weight and "
+              "condition in the perch (Perca fluviatilis). J. Anim. Ecol. 20:201-219.",
+    "huber": "Huber, P.J. (1964) Robust estimation of a location parameter. Ann. Math. Statist. 35:73-101.",
+    "froese": "Froese, R. (2006) Cube law, condition factor and weight-length relationships: history, "
+              "meta-analysis and recommendations. J. Appl. Ichthyol. 22:241-253.",
+    "kish": "Kish, L. (1965) Survey Sampling. Wiley, New York.",
+    "raowu": "Rao, J.N.K. & Wu, C.F.J. (1988) Resampling inference with complex survey data. "
+             "J. Amer. Statist. Assoc. 83:231-241.",
     "pyper": "Pyper, B.J. & Peterman, R.M. (1998) Comparison of methods to account for autocorrelation in "
              "correlation analyses of fish data. Can. J. Fish. Aquat. Sci. 55:2127-2140.",
     "granger": "Granger, C.W.J. & Newbold, P. (1974) Spurious regressions in econometrics. "
@@ -91,7 +99,18 @@ def methods_facts(ctx: Context) -> dict:
             "surrogate_method": sc.get("surrogate_method", "phase"), "surrogates": int(sc["surrogates"]),
             "keep_trend": bool(sc.get("surrogate_keep_trend", True)), "n_hypotheses": len(ctx.evidence),
             "fdr": sc["fdr"], "alpha": sc["alpha"], "inverse_variance": sc.get("weights") == "inverse-variance",
-            "seed": sc["seed"]}
+            "seed": sc["seed"], "condition": _condition_facts(ctx)}
+
+
+def _condition_facts(ctx: Context) -> dict | None:
+    """What the methods text says of the condition stage (None without one)."""
+    out = ctx.condition
+    if out is None:
+        return None
+    st, ref = out["settings"], out["reference"]
+    return {"years": ref["years"], "n_fish": int(ref["n_fish"]), "b": float(ref["b"]),
+            "groups": list(st["age_groups"]), "seasons": list(st["seasons"]), "threshold": st["threshold"],
+            "thresholds": st["thresholds"], "bootstrap": st["bootstrap"]}
 
 
 def cited(facts: dict) -> list[str]:
@@ -100,7 +119,8 @@ def cited(facts: dict) -> list[str]:
     if facts["gam"]:
         refs += ["eilers", "craven", "kimgu", "wood", "westfall"]
     refs += ["ebisuzaki", "theiler"] if facts["surrogate_method"] == "phase" else ["buhlmann"]
-    return refs + ["tashman", "bergmeir", "clarkwest", "dm", "hln", "bh", "dormann"]
+    refs += ["tashman", "bergmeir", "clarkwest", "dm", "hln", "bh", "dormann"]
+    return refs + (["lecren", "huber", "froese", "kish", "raowu"] if facts.get("condition") else [])
 
 
 def methods_paragraphs(ctx: Context) -> tuple[list[str], list[str]]:

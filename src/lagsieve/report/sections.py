@@ -68,7 +68,14 @@ def page_words(ctx: Context) -> dict:
     return {"title": st.raw.get("title") or st.id, "study_id": st.id, "invented": ctx.invented,
             "tool_version": str(prov.get("tool_version", "")),
             "made": str(prov.get("finished", prov.get("started", ""))),
-            "description": st.raw.get("description") or "", "cautions": CAUTIONS, "nav": NAV}
+            "description": st.raw.get("description") or "", "cautions": CAUTIONS,
+            "nav": NAV if ctx.condition is None else _with_condition(NAV)}
+
+
+def _with_condition(nav: list) -> list:
+    """The navigation with the condition section after the data section."""
+    at = [a for a, _ in nav].index("data") + 1
+    return nav[:at] + [("condition", "Condition")] + nav[at:]
 
 
 def _aside_groups(ctx: Context, aside: pd.DataFrame) -> list[tuple[str, list[dict]]]:
