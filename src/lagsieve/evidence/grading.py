@@ -28,6 +28,28 @@ def driver_correlations(table: pd.DataFrame, drivers: list[str], min_years: int 
     return table[drivers].corr(method="pearson", min_periods=min_years)
 
 
+def lagged_driver_correlations(table: pd.DataFrame, lags: dict[str, int], min_years: int = 10) -> pd.DataFrame:
+    """Pairwise-complete Pearson r between drivers as they are paired with one response: each
+    driver shifted by its own lag (row t holds driver d of year t - lags[d]); NaN below min_years.
+    Two drivers that echo each other at another lag are collinear where they meet the response."""
+    shifted = pd.DataFrame({d: table[d].shift(int(k)) for d, k in lags.items()}, index=table.index)
+    return shifted.corr(method="pearson", min_periods=min_years)
+
+
+def collinear_partners(ev: pd.DataFrame, table: pd.DataFrame) -> list[str]:
+    """For every hypothesis, the other drivers of its response correlated with it at |r| >
+    COLLINEAR_R at the lags paired with the response (``;``-joined, sorted); a hypothesis
+    without a lag is taken at lag 0."""
+    out = pd.Series("", index=ev.index, dtype=object)
+    for rid, grp in ev.groupby("response", sort=False):
+        lags = {d: (0 if pd.isna(k) else int(k)) for d, k in zip(grp["driver"], grp["lag"])}
+        corr = lagged_driver_correlations(table, lags)
+        for i, d in zip(grp.index, grp["driver"]):
+            c = corr[d].drop(d).abs()
+            out[i] = ";".join(sorted(c[c > COLLINEAR_R].index))
+    return out.tolist()
+
+
 def _get(row, key, default=np.nan):
     v = row.get(key, default)
     return default if v is None or (isinstance(v, float) and np.isnan(v)) else v
@@ -238,28 +260,29 @@ def summary_sentence(row: dict, min_overlap: int = 0, label: str | None = None) 
         said = f"{head}: {aside}" if aside else \
             f"{head}: no support (surrogate p = {_get(row, 'p_surrogate'):.2f}; " \
             f"out-of-sample skill {_get(row, 'oos_skill'):+.2f})" + (f"; flags: {flags}" if flags else "")
-    return said + _effect_words(row, label)
+    return said + _rival_words(row) + _effect_words(row, label)
 
 
-def build_evidence(hypotheses: pd.DataFrame, table: pd.DataFrame, screen: dict,
-                   series: list[dict] | None = None) -> pd.DataFrame:
-    """Study-wide evidence: q-values over all hypotheses, collinearity, flags, grades, ranks."""
+def _rival_words(row: dict) -> str:
+    """'; capped: <rival> explains the same signal (...)' for a driver its rival capped, else ''."""
+    rival = str(row.get("rival", "") or "")
+    if not rival or rival == "nan":
+        return ""
+    added = _get(row, "rival_added_skill")
+    skill = f"skill added given it {added:+.2f}" if not np.isnan(added) else "no forecast test given it"
+    return f"; capped at weak: {rival} explains the same signal ({skill})"
+
+
+def grade_hypotheses(hypotheses: pd.DataFrame, table: pd.DataFrame, screen: dict) -> pd.DataFrame:
+    """Study-wide q-values, collinear partners (at the lags paired with each response), flags
+    and grades of every hypothesis, before ranks and sentences (:func:`finish_evidence`)."""
     ev = hypotheses.copy()
     for col in GRADED_COLUMNS:
         if col not in ev:
             ev[col] = np.nan
     alpha, fdr, min_overlap = screen["alpha"], screen["fdr"], screen["min_overlap"]
     ev["q_value"] = bh_qvalues(ev["p_surrogate"].to_numpy(float))
-    drivers = sorted(ev["driver"].unique())
-    corr = driver_correlations(table, drivers)
-    partners = {}
-    for d in drivers:
-        c = corr[d].drop(d).abs()
-        partners[d] = ";".join(sorted(c[c > COLLINEAR_R].index))
-    ev["collinear_with"] = [
-        ";".join(p for p in partners.get(d, "").split(";") if p and p in set(ev.loc[ev.response == r, "driver"]))
-        for r, d in zip(ev["response"], ev["driver"])
-    ]
+    ev["collinear_with"] = collinear_partners(ev, table) if len(ev) else []
     flags, grades = [], []
     for row in ev.to_dict("records"):
         f = flags_for(row, alpha, fdr)
@@ -268,6 +291,14 @@ def build_evidence(hypotheses: pd.DataFrame, table: pd.DataFrame, screen: dict,
     ev["flags"] = flags
     ev["grade"] = grades
     ev["grade"] = cap_collinear(ev)
+    return ev
+
+
+def finish_evidence(ev: pd.DataFrame, table: pd.DataFrame, screen: dict,
+                    series: list[dict] | None = None) -> pd.DataFrame:
+    """Ranks within each response, effects in units and the one-sentence summaries of graded
+    hypotheses (:func:`grade_hypotheses`, and any cap by a rival in between)."""
+    ev = ev.copy()
     ev["_g"] = ev["grade"].map(GRADE_ORDER)
     ev = ev.sort_values(["response", "_g", "oos_p_surrogate", "p_surrogate", "oos_skill"],
                         ascending=[True, True, True, True, False], na_position="last", kind="mergesort")
@@ -275,5 +306,13 @@ def build_evidence(hypotheses: pd.DataFrame, table: pd.DataFrame, screen: dict,
     ev = ev.drop(columns="_g")
     ev = add_effects(ev, series, table)  # series: config entries (label, unit, transform)
     labels = {s["id"]: s.get("label") for s in series or []}
-    ev["summary"] = [summary_sentence(r, min_overlap, labels.get(r["response"])) for r in ev.to_dict("records")]
+    ev["summary"] = [summary_sentence(r, screen["min_overlap"], labels.get(r["response"]))
+                     for r in ev.to_dict("records")]
     return ev.reset_index(drop=True)
+
+
+def build_evidence(hypotheses: pd.DataFrame, table: pd.DataFrame, screen: dict,
+                   series: list[dict] | None = None) -> pd.DataFrame:
+    """Study-wide evidence: q-values, collinearity, flags, grades, ranks (no rival check; see
+    :mod:`lagsieve.evidence.rivals` for the grades that survive their strongest rival)."""
+    return finish_evidence(grade_hypotheses(hypotheses, table, screen), table, screen, series)

@@ -14,10 +14,14 @@ GRADE_RULES = {
     "strong": "q-value <= FDR level, surrogate p of out-of-sample skill <= 0.05, skill > 0 against every "
               "baseline (climatology, persistence, trend, trend with AR(1) errors), the sign stated "
               "beforehand, a re-test on the latest years that was possible, and neither trend-shared nor "
-              "failed-retest.",
+              "failed-retest; and support kept given the strongest rival (below).",
     "moderate": "surrogate p (best lag and model, paid for) <= alpha, skill > 0 against the hardest baseline "
                 "with surrogate p of skill <= 0.10, the sign stated beforehand, and not trend-shared; or strong, "
-                "but collinear with a driver that is also strong and forecasts the same response better.",
+                "but collinear with a driver that is also strong and forecasts the same response better. Strong "
+                "and moderate also require support kept given the strongest rival (the other driver of the "
+                "response graded weak or better given which this one adds least forecast skill): added skill "
+                "> 0 with surrogate p <= 0.10 and partial correlation with surrogate p <= alpha, both against "
+                "residual surrogates; a driver that loses it is weak and flagged explained-by-rival.",
     "weak": "some support (autocorrelation-adjusted p <= alpha, surrogate p <= 0.10, or positive skill "
             "with surrogate p of skill <= 0.20) but short of moderate, and none of the reasons below.",
     "no-forecast-skill": "in-sample evidence survives surrogates (surrogate p <= alpha), but out-of-sample "
@@ -59,6 +63,10 @@ FLAGS = {
     "collinear": "Correlated with another driver at |r| > 0.7 (Dormann et al. 2013): the evidence cannot "
                  "separate the two.",
     "sign-unexpected": "The estimated sign is opposite to the sign stated before the screening.",
+    "explained-by-rival": "Another driver of the same response explains the same signal: given that rival "
+                          "(named in the rival column) this driver no longer adds forecast skill that its "
+                          "residual surrogates rarely reach, or its partial correlation does not survive them; "
+                          "capped at weak.",
     "failed": "The computation failed for this hypothesis; see its status.",
 }
 

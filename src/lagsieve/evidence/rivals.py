@@ -1,0 +1,162 @@
+"""Evidence for a driver given its rivals, and grades that survive the strongest rival.
+
+After every hypothesis has been graded alone (:func:`lagsieve.evidence.grading.grade_hypotheses`),
+each driver graded strong or moderate is tested again given each competitor: every other
+driver of the same response graded weak or better, at the competitor's own selected lag.
+In sample, the partial correlation of driver and response given the competitor, with
+Freedman-Lane residual surrogates (the lag chosen inside the null); out of sample, the nested
+rolling origin, baseline + competitor against baseline + competitor + driver
+(:mod:`lagsieve.stats.conditional`). One row per response x driver x competitor
+(``CONDITIONAL_COLUMNS``, written to ``conditional.csv``).
+
+The strongest rival of a driver is the competitor given which the driver adds least out-of-
+sample skill (:func:`strongest_rival`). A driver keeps its support given a competitor
+(:func:`keeps_support`) when it still adds skill (> 0) with surrogate p of the added skill <=
+0.10, and its partial correlation has surrogate p <= alpha. A strong or moderate driver that
+does not keep its support given its strongest rival is capped at weak, flagged
+``explained-by-rival``, and the rival is named in the ``rival`` column (:func:`cap_by_rivals`).
+Two drivers that each keep their support given the other both keep their grades.
+"""
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from lagsieve.prep.checks import MIN_FORECASTS
+from lagsieve.screen.hypothesis import backtest_windows, directed, driver_rng, surrogate_p
+from lagsieve.stats.conditional import nested_rolling_origin, partial_r_lags, residual_surrogates, shift_rows
+
+#: The grades a driver is tested at (the ones a rival can cap) and the grades of its competitors.
+TESTED_GRADES = ("strong", "moderate")
+RIVAL_GRADES = ("strong", "moderate", "weak")
+ADDED_P = 0.10  # surrogate p of the added skill a driver must reach to keep its support (the moderate rule's)
+
+CONDITIONAL_COLUMNS = ["response", "driver", "competitor", "driver_lag", "competitor_lag", "partial_r",
+                       "partial_lag", "partial_n", "p_partial_surrogate", "oos_n", "added_skill", "p_clark_west",
+                       "p_added_surrogate", "keeps_support", "status"]
+
+
+def pair_rng(seed: int, response: str, driver: str, competitor: str) -> np.random.Generator:
+    """The generator of one conditional test's surrogates: from the study seed and the three ids
+    (order of drivers, responses and workers plays no part)."""
+    return driver_rng(seed, f"{driver}\x1fgiven\x1f{competitor}\x1ffor\x1f{response}")
+
+
+def _best_over_lags(stat: np.ndarray) -> np.ndarray:
+    """(S,) the largest statistic over lags of every batch member (NaN where no lag has one)."""
+    filled = np.where(np.isnan(stat), -np.inf, stat)
+    best = filled.max(axis=0)
+    return np.where(np.isinf(best), np.nan, best)
+
+
+def in_sample(y, batch, Cy, lags, sign) -> dict:
+    """Partial r of the real driver at its best lag given the competitors, and the surrogate p
+    of the best-lag directed partial r (every surrogate's lag chosen the same way)."""
+    r, used = partial_r_lags(y, batch, Cy, lags)
+    stat = directed(r, sign)
+    if np.all(np.isnan(stat[:, 0])):
+        return {"partial_r": np.nan, "partial_lag": np.nan, "partial_n": int(used.max()),
+                "p_partial_surrogate": np.nan}
+    i = int(np.nanargmax(stat[:, 0]))
+    return {"partial_r": float(r[i, 0]), "partial_lag": int(lags[i]), "partial_n": int(used[i]),
+            "p_partial_surrogate": surrogate_p(_best_over_lags(stat))}
+
+
+def out_of_sample(table, rid, batch, Cy, lags, screen) -> dict:
+    """Skill the driver adds given the competitors in the nested rolling origin, its Clark-West
+    p and the surrogate p of the added skill (NaN with too few forecasts)."""
+    y = table[rid].to_numpy(float)
+    ylag = shift_rows(y, 1)
+    X = np.stack([shift_rows(batch, int(k)) for k in lags], axis=1)  # (S, L, n_years)
+    ok = ~(np.isnan(y) | np.isnan(ylag) | np.isnan(X[0]).any(axis=0) | np.isnan(Cy).any(axis=1))
+    rows = np.flatnonzero(ok)
+    initial, _ = backtest_windows(len(rows), screen.get("validation", {}))
+    out = {"oos_n": max(0, len(rows) - initial), "added_skill": np.nan, "p_clark_west": np.nan,
+           "p_added_surrogate": np.nan}
+    if len(rows) - initial < MIN_FORECASTS:
+        return out
+    nr = nested_rolling_origin(y[rows], ylag[rows], table.index.to_numpy()[rows], Cy[rows],
+                               np.nan_to_num(X[:, :, rows]), lags, initial)
+    added = nr.added_skill
+    out.update(added_skill=float(added[0]), p_clark_west=nr.clark_west().p_value,
+               p_added_surrogate=surrogate_p(added))
+    return out
+
+
+def conditional_pair(table: pd.DataFrame, rid: str, driver: dict, lags: list[int], driver_lag: int,
+                     competitors: dict[str, int], screen: dict) -> dict:
+    """One driver given one or more competitors (id -> its lag with the response): the row of
+    ``conditional.csv`` (without ``keeps_support``). The driver is regressed on the competitors
+    as they are paired with the response at the driver's screened lag ``driver_lag``."""
+    did = driver["id"]
+    ids = sorted(competitors)
+    Cy = np.column_stack([shift_rows(table[c].to_numpy(float), competitors[c]) for c in ids])
+    Cx = np.column_stack([shift_rows(table[c].to_numpy(float), competitors[c] - driver_lag) for c in ids])
+    rng = pair_rng(screen["seed"], rid, did, "+".join(ids))
+    batch = residual_surrogates(table[did].to_numpy(float), Cx, int(screen["surrogates"]), rng,
+                                screen["surrogate_method"], screen.get("surrogate_keep_trend", True))
+    y = table[rid].to_numpy(float)
+    row = {"response": rid, "driver": did, "competitor": "+".join(ids), "driver_lag": int(driver_lag),
+           "competitor_lag": ";".join(str(competitors[c]) for c in ids)}
+    row.update(in_sample(y, batch, Cy, np.asarray(lags), driver.get("expected_sign", "any")))
+    row.update(out_of_sample(table, rid, batch, Cy, np.asarray(lags), screen))
+    missing = np.isnan(row["p_partial_surrogate"]) and np.isnan(row["added_skill"])
+    row["status"] = "insufficient: too few years shared with the competitor" if missing else "ok"
+    return row
+
+
+def conditional_table(ev: pd.DataFrame, table: pd.DataFrame, drivers: list[dict], lags: dict[str, list[int]],
+                      screen: dict) -> pd.DataFrame:
+    """Every driver graded strong or moderate given every other driver of its response graded
+    weak or better, one at a time (``CONDITIONAL_COLUMNS``); ``lags``: driver id -> lags tried."""
+    config = {d["id"]: d for d in drivers}
+    rows = []
+    for rid, grp in ev.groupby("response", sort=True):
+        rivals = grp[grp["grade"].isin(RIVAL_GRADES) & grp["lag"].notna()]
+        for d in grp.loc[grp["grade"].isin(TESTED_GRADES) & grp["lag"].notna()].to_dict("records"):
+            for c, lc in zip(rivals["driver"], rivals["lag"]):
+                if c == d["driver"]:
+                    continue
+                rows.append(conditional_pair(table, rid, config[d["driver"]], lags[d["driver"]], int(d["lag"]),
+                                             {c: int(lc)}, screen))
+    out = pd.DataFrame(rows, columns=CONDITIONAL_COLUMNS)
+    out["keeps_support"] = [keeps_support(r, screen["alpha"]) for r in out.to_dict("records")]
+    return out
+
+
+def keeps_support(row: dict, alpha: float) -> bool:
+    """Support kept given a competitor: added skill > 0 with surrogate p <= ADDED_P, and partial r
+    with surrogate p <= alpha. A part that could not be computed (NaN) is not held against the
+    driver; with neither part computed the support is kept (nothing tells against it)."""
+    added, p_add, p_part = (row.get(k, np.nan) for k in ("added_skill", "p_added_surrogate", "p_partial_surrogate"))
+    oos_ok = np.isnan(added) or (added > 0 and p_add <= ADDED_P)
+    part_ok = np.isnan(p_part) or p_part <= alpha
+    return bool(oos_ok and part_ok)
+
+
+def strongest_rival(rows: pd.DataFrame) -> dict | None:
+    """The competitor that takes away most of a driver's out-of-sample skill: least added skill
+    (missing last), ties and missing skill decided by the larger partial-r surrogate p."""
+    if rows.empty:
+        return None
+    order = rows.assign(_a=rows["added_skill"].fillna(np.inf), _p=-rows["p_partial_surrogate"].fillna(-1.0))
+    return order.sort_values(["_a", "_p"], kind="mergesort").iloc[0].to_dict()
+
+
+def cap_by_rivals(ev: pd.DataFrame, cond: pd.DataFrame) -> pd.DataFrame:
+    """Grades that survive the strongest rival: a strong or moderate driver that does not keep
+    its support given its strongest rival becomes weak, gains the flag ``explained-by-rival``,
+    and its ``rival`` and ``rival_added_skill`` are recorded (empty / NaN otherwise)."""
+    ev = ev.copy()
+    ev["rival"], ev["rival_added_skill"] = "", np.nan
+    for (rid, did), rows in cond.groupby(["response", "driver"], sort=False):
+        top = strongest_rival(rows)
+        hit = (ev["response"] == rid) & (ev["driver"] == did) & ev["grade"].isin(TESTED_GRADES)
+        if top is None or top["keeps_support"] or not hit.any():
+            continue
+        ev.loc[hit, "grade"] = "weak"
+        ev.loc[hit, "rival"] = top["competitor"]
+        ev.loc[hit, "rival_added_skill"] = top["added_skill"]
+        ev.loc[hit, "flags"] = [";".join([f for f in str(v or "").split(";") if f] + ["explained-by-rival"])
+                                for v in ev.loc[hit, "flags"].fillna("")]
+    return ev
