@@ -27,7 +27,10 @@ def _run_stages(cfg, out):
     """align -> screen (every response) -> evidence, called directly (no Snakemake)."""
     study = load_study(cfg)
     work = out / "work"
-    stages.run_align(cfg, work / "annual.csv", work / "notes.csv")
+    condition = [out / "condition.csv", out / "condition_sensitivity.csv", work / "condition_fish.csv",
+                 work / "condition_fit.json"]
+    stages.run_condition(cfg, *condition)  # the demo has a condition section
+    stages.run_align(cfg, work / "annual.csv", work / "notes.csv", condition[:1])
     for rid in study.response_ids:
         stages.run_screen(cfg, work / "annual.csv", slug(rid), work / "responses" / slug(rid))
     stages.run_evidence(cfg, work / "annual.csv", work, out / "screen.csv", out / "evidence.csv")
@@ -64,7 +67,7 @@ def test_failure_in_one_hypothesis_is_contained(tmp_path, monkeypatch, new_study
     _run_stages(cfg, tmp_path / "o")
     ev = pd.read_csv(tmp_path / "o" / "evidence.csv")
     bad = ev[ev.driver == "zooplankton_index"]
-    assert len(bad) == 3 and (bad.status == "failed: Singular matrix").all()
+    assert len(bad) == 5 and (bad.status == "failed: Singular matrix").all()  # every response of the demo
     assert (bad.grade == "insufficient-data").all() and (bad["flags"] == "failed").all()
     good = ev[ev.driver != "zooplankton_index"]
     assert (good.status == "ok").all() and good.oos_skill.notna().all()
