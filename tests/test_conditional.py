@@ -257,3 +257,22 @@ def test_collinearity_at_the_lags_paired_with_the_response():
     assert abs(same_year) < 0.7 < abs(at_lags)
     ev = pd.DataFrame({"response": "R", "driver": ["true", "ahead"], "lag": [0, 1]})
     assert collinear_partners(ev, table) == ["ahead", "true"]
+
+
+def test_demo_decoys_fall_to_their_rival(demo_run):
+    """The demo's truth (TRUTH.md, invented): bottom oxygen is a noisy echo of temperature for M
+    age 2, the shrimp index an echo of forage fish for M ages 3-4 and 5+. Given their rivals the
+    decoys are neither strong nor moderate and, where the rival check capped them, name the
+    rival; the true drivers keep strong or moderate; conditional.csv lies beside evidence.csv."""
+    _, out = demo_run
+    ev = pd.read_csv(out / "evidence.csv", keep_default_na=False).set_index(["response", "driver"])
+    for key in (("m:age2", "bottom_oxygen"), ("m:age3-4", "shrimp_index"), ("m:age5plus", "shrimp_index")):
+        row = ev.loc[key]
+        assert row["grade"] not in vocabulary.SUPPORTED, (key, row["grade"])
+        if "explained-by-rival" in row["flags"]:
+            assert row["rival"] in ("bottom_temp", "forage_biomass"), (key, row["rival"])
+    for key in (("m:age2", "bottom_temp"), ("m:age3-4", "forage_biomass"), ("m:age5plus", "forage_biomass")):
+        assert ev.loc[key, "grade"] in vocabulary.SUPPORTED, (key, ev.loc[key, "grade"])
+        assert ev.loc[key, "rival"] == ""
+    cond = pd.read_csv(out / "conditional.csv")
+    assert list(cond.columns) == CONDITIONAL_COLUMNS

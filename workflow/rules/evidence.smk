@@ -13,6 +13,7 @@ rule evidence:
         notes=f"{OUT}/{{study}}/work/notes.csv",
         screen=f"{OUT}/{{study}}/screen.csv",
         evidence=f"{OUT}/{{study}}/evidence.csv",
+        conditional=f"{OUT}/{{study}}/conditional.csv",
     log:
         f"{OUT}/{{study}}/logs/evidence.log",
     conda:
