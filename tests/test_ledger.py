@@ -30,6 +30,7 @@ from lagsieve.ledger import update as ledger_update
 from lagsieve.ledger.fingerprint import fingerprints
 from lagsieve.ledger.forecast import next_year_forecast
 from lagsieve.ledger.store import connect, open_readonly, resolve_ledger_path
+from lagsieve.ledger.revisions import tolerance_of
 from lagsieve.ledger.study_data import StudyData
 from lagsieve.ledger.track import data_changes, since_previous_run, track_record
 from lagsieve.ledger.update import grade_rows, update_ledger, write_run
@@ -162,8 +163,9 @@ def q(db, sql, args=()):
 
 
 def forecastable(ev: pd.DataFrame) -> set[tuple[str, str]]:
-    """strong or moderate hypotheses whose driver is needed no later than the last year (lag >= 1)."""
-    g = ev[ev["grade"].isin(["strong", "moderate"]) & (ev["lag"] >= 1)]
+    """Hypotheses of every grade whose driver is needed no later than the last year (lag >= 1)
+    and that have a candidate baseline."""
+    g = ev[(ev["lag"] >= 1) & ev["oos_baseline"].notna()]
     return set(zip(g["response"], g["driver"]))
 
 
@@ -317,7 +319,7 @@ def _record(db, table: pd.DataFrame, key: str, now: str):
            "config_sha256": "-", "created_utc": now, "screen_json": "{}"}
     con = connect(db)
     try:
-        return write_run(con, run, fingerprints(_tidy(table)), grades, {}, [f], data), f
+        return write_run(con, run, fingerprints(_tidy(table)), grades, {}, [f], data, tolerance_of({})), f
     finally:
         con.close()
 
@@ -428,7 +430,9 @@ def test_restated_value_supersedes_instead_of_scoring(history):
     assert uses and others, "the demo should give forecasts with and without the restated response"
     for f in uses:
         assert f["status"] == "superseded" and f["scored"] is None and f["superseded_run"] == 3
-        assert f["superseded_reason"] == f"training data changed: {series} {year} restated"
+        assert f["superseded_reason"].startswith(
+            f"training data restated beyond the tolerance: {series} {year} restated by +")
+        assert f["superseded_reason"].endswith("(+25%, 2.9 se), tolerance 0.5 se")  # M has se in the demo
     for f in others:
         assert f["status"] == "scored" and f["scored"] is not None
         assert q(d.db, "SELECT observed FROM scores WHERE forecast_id = ?", (f["forecast_id"],))[0]["observed"] == \
@@ -530,7 +534,7 @@ def test_since_previous_run_lists_data_grades_and_outcomes(history):
     assert "<h2>Since the previous run</h2>" in html
     assert "run 3 recorded" in html and "compared with run 2" in html
     assert "<td>m:age3-4</td><td>2024</td><td></td><td>2010</td>" in html
-    assert "training data changed: m:age3-4 2010 restated" in html
+    assert "training data restated beyond the tolerance: m:age3-4 2010 restated by +" in html
     assert "does not match" not in html
     stale = ledger_section_html(d.db, STUDY, history["r2022"]["evidence"])
     assert "does not match the grades of this report" in stale
@@ -629,7 +633,7 @@ def test_the_forecast_is_built_on_the_candidates_baseline_not_the_hardest():
     table = _synthetic()
     data = StudyData(table=table, raw=table, transforms={})
     made, notes = ledger_update.forecasts_of(grades, data)
-    assert len(made) == 1 and notes == {}
+    assert len(made) == 1 and notes == {("r", "a"): "no forecast: no selected lag or candidate baseline"}
     want, _ = next_year_forecast(table, table, {}, "r", "d", 1, "climatology")
     hardest, _ = next_year_forecast(table, table, {}, "r", "d", 1, "trend")
     assert made[0].baseline == "climatology" and made[0].forecast == want.forecast != hardest.forecast
@@ -673,12 +677,18 @@ def test_a_schema_1_ledger_is_upgraded_on_open(tmp_path):
     assert dump(db) == dump(OLD_LEDGER)
     assert (track_before["made"].iloc[0], track_before["scored"].iloc[0]) == (2, 1)
     connect(db).close()
-    assert q(db, "SELECT value FROM meta WHERE key = 'schema_version'")[0]["value"] == "2"
+    assert q(db, "SELECT value FROM meta WHERE key = 'schema_version'")[0]["value"] == "3"
+    assert q(db, "PRAGMA user_version")[0]["user_version"] == 3
     cols = _columns(db, "grades")
     assert "baseline" in cols and "hardest" not in cols and cols.index("baseline") == 6
     after = _rows(db)
-    before["meta"] = [("schema_version", "2")]
-    assert after == before  # every row kept as it was; only the column's name and the version changed
+    before["meta"] = [("schema_version", "3")]
+    # schema 3 adds columns at the end (se, ledger_json, settings_sha256) and two empty tables
+    before["series_years"] = [r + (None,) for r in before["series_years"]]
+    before["runs"] = [r + ("{}",) for r in before["runs"]]
+    before["forecasts"] = [r + (None,) for r in before["forecasts"]]
+    before["revisions"] = before["rescores"] = []
+    assert after == before  # every row kept as it was
     assert q(db, "SELECT DISTINCT baseline FROM grades") == [{"baseline": "trend"}]
     con = open_readonly(db)
     pd.testing.assert_frame_equal(track_record(con, "syn"), track_before)
@@ -692,7 +702,7 @@ def test_a_schema_1_ledger_is_upgraded_on_open(tmp_path):
     assert (s3["run_id"], s3["new"], s3["scored"], s3["superseded"]) == (3, 1, 1, 0)
     assert q(db, "SELECT baseline FROM grades WHERE run_id = 3") == [{"baseline": "trend"}]
     connect(db).close()  # opening a current ledger changes nothing
-    assert q(db, "SELECT value FROM meta WHERE key = 'schema_version'")[0]["value"] == "2"
+    assert q(db, "SELECT value FROM meta WHERE key = 'schema_version'")[0]["value"] == "3"
 
 
 def test_a_failed_upgrade_leaves_the_old_ledger_as_it_was(tmp_path, monkeypatch):
@@ -718,3 +728,144 @@ def test_a_ledger_from_a_newer_lagsieve_is_one_clear_error(tmp_path):
         connect(db)
     line = str(exc.value)
     assert "\n" not in line and str(db) in line and "schema version 9" in line and "update lagsieve" in line
+
+
+# ---------------------------------------------------------------- restatements (issue 17, item 1)
+def _tidy_se(table: pd.DataFrame, se_share: float | None) -> pd.DataFrame:
+    """The tidy table with an se of ``se_share`` x |value| for the response r (None: no se)."""
+    t = _tidy(table)
+    t["se"] = np.where(t["series"] == "r", se_share * t["value"].abs(), np.nan) if se_share else np.nan
+    return t
+
+
+def _run(db, table: pd.DataFrame, key: str, se_share: float | None, tol=None):
+    """One run of the synthetic study of :func:`_record`, with se and a chosen tolerance."""
+    data = StudyData(table=table, raw=table, transforms={})
+    f, _ = data.forecast("r", "d", 1, "trend")
+    f.grade = "strong"
+    grades = grade_rows(pd.DataFrame([{"response": "r", "driver": "d", "grade": "strong", "model": "linear",
+                                       "lag": 1, "oos_baseline": "trend"}]))
+    run = {"study": "syn", "run_key": key, "data_sha256": key, "inputs_sha256": "{}", "tool_version": "test",
+           "config_sha256": "-", "created_utc": key, "screen_json": "{}"}
+    con = connect(db)
+    try:
+        return write_run(con, run, fingerprints(_tidy_se(table, se_share)), grades, {}, [f], data,
+                         tol or tolerance_of({})), f
+    finally:
+        con.close()
+
+
+def _next_delivery(table: pd.DataFrame, factor: float, obs: float) -> pd.DataFrame:
+    """Every earlier response value restated by ``factor``, and the next year delivered."""
+    T = int(table.index.max())
+    later = table.reindex(list(table.index) + [T + 1])
+    later["r"] = later["r"] * factor
+    later.loc[T + 1, ["r", "d"]] = [obs, 0.2]
+    return later
+
+
+@pytest.mark.parametrize("se_share", [None, 0.05])
+def test_a_small_restatement_of_every_value_is_recorded_and_the_forecast_scored(tmp_path, se_share):
+    """Done when (issue 17): two deliveries with a 0.5 % restatement of every earlier response
+    value in between give a scored forecast and recorded revisions, nothing superseded. With
+    se = 5 % of the value the change is 0.1 se (< 0.5 se); without se it is 0.5 % (< 2 %)."""
+    db = tmp_path / "l.sqlite"
+    table = _synthetic()
+    _, f = _run(db, table, "k1", se_share)
+    later = _next_delivery(table, 1.005, obs=f.forecast + 0.05)
+    s2, _ = _run(db, later, "k2", se_share)
+    assert (s2["scored"], s2["superseded"], s2["revised"]) == (1, 0, len(table))
+    sc = q(db, "SELECT * FROM scores")[0]
+    assert sc["observed"] == pytest.approx(f.forecast + 0.05) and sc["error"] == pytest.approx(0.05)
+    rev = pd.DataFrame(q(db, "SELECT * FROM revisions ORDER BY year"))
+    assert set(rev["series"]) == {"r"} and (rev["run_id"] == 2).all() and (rev["previous_run"] == 1).all()
+    np.testing.assert_allclose(rev["new_value"], table["r"].to_numpy() * 1.005, rtol=1e-15)
+    np.testing.assert_allclose(rev["abs_change"], table["r"].to_numpy() * 0.005, rtol=1e-9)
+    np.testing.assert_allclose(rev["rel_change"], 0.005 * np.sign(table["r"].to_numpy()), rtol=1e-9)
+    if se_share:  # se of the old value: 0.05 |old|, the change 0.005 |old|: 0.1 se
+        np.testing.assert_allclose(rev["se_units"], 0.1, rtol=1e-9)
+    else:
+        assert rev["se_units"].isna().all()
+    # the revisions are shown by `since_previous_run` and the report's section
+    html = ledger_section_html(db, "syn", None)
+    assert "Values restated since the previous run" in html and "+0.5%" in html
+
+
+@pytest.mark.parametrize("se_share, factor, words", [
+    (None, 1.03, "(+3%), tolerance 2%"), (0.05, 1.03, "(+3%, 0.6 se), tolerance 0.5 se")])
+def test_a_restatement_beyond_the_tolerance_supersedes_with_the_reason(tmp_path, se_share, factor, words):
+    db = tmp_path / "l.sqlite"
+    table = _synthetic()
+    _run(db, table, "k1", se_share)
+    later = table.copy()
+    later.loc[2005, "r"] *= factor
+    later = _next_delivery(later, 1.0, obs=1.0)
+    s2, _ = _run(db, later, "k2", se_share)
+    assert (s2["scored"], s2["superseded"]) == (0, 1)
+    why = q(db, "SELECT superseded_reason FROM forecasts WHERE forecast_id = 1")[0]["superseded_reason"]
+    assert why.startswith("training data restated beyond the tolerance: r 2005 restated by +") and why.endswith(words)
+    # a looser tolerance from the config keeps it open: it is scored
+    db2 = tmp_path / "l2.sqlite"
+    loose = tolerance_of({"ledger": {"restatement_tolerance": {"relative": 0.05, "se": 1.0}}})
+    _run(db2, table, "k1", se_share, loose)
+    s2, _ = _run(db2, later, "k2", se_share, loose)
+    assert (s2["scored"], s2["superseded"], s2["revised"]) == (1, 0, 1)
+
+
+def test_a_restated_target_year_is_scored_again_and_the_first_score_kept(tmp_path):
+    db = tmp_path / "l.sqlite"
+    table = _synthetic()
+    _, f = _run(db, table, "k1", None)
+    later = _next_delivery(table, 1.0, obs=f.upper + 0.1)  # first release: outside the interval
+    _run(db, later, "k2", None)
+    again = later.copy()
+    again.loc[f.target_year, "r"] = f.forecast  # the next assessment restates it onto the forecast
+    s3, _ = _run(db, again, "k3", None)
+    assert s3["revised"] == 1 and s3["scored"] == 0
+    sc = q(db, "SELECT * FROM scores WHERE forecast_id = 1")[0]
+    assert (sc["observed"], sc["inside"], sc["run_id"]) == (pytest.approx(f.upper + 0.1), 0, 2)
+    re = q(db, "SELECT * FROM rescores WHERE forecast_id = 1")
+    assert len(re) == 1 and re[0]["run_id"] == 3 and re[0]["inside"] == 1 and re[0]["error"] == pytest.approx(0)
+    s4, _ = _run(db, again.assign(d=again["d"]), "k4", None)  # nothing restated: no new rescore
+    assert len(q(db, "SELECT * FROM rescores")) == 1
+
+
+def test_a_schema_2_ledger_is_upgraded_and_survives_restatements(tmp_path, monkeypatch):
+    """A ledger written by the schema-2 code path (the schema-1 file upgraded with the migrations
+    of schema 2 only) opens under schema 3, keeps every row, and the next delivery with a 0.5 %
+    restatement scores its open forecast."""
+    db = tmp_path / "v2.sqlite"
+    shutil.copy(OLD_LEDGER, db)
+    with monkeypatch.context() as mp:
+        mp.setattr(ledger_store, "SCHEMA_VERSION", "2")
+        mp.setattr(ledger_store, "MIGRATIONS", {"1": ledger_store.MIGRATIONS["1"]})
+        connect(db).close()
+    assert q(db, "SELECT value FROM meta")[0]["value"] == "2" and "se" not in _columns(db, "series_years")
+    v2 = _rows(db)
+    connect(db).close()
+    assert q(db, "SELECT value FROM meta")[0]["value"] == "3" and "se" in _columns(db, "series_years")
+    v3 = _rows(db)
+    assert v3["scores"] == v2["scores"] and v3["grades"] == v2["grades"]
+    assert [r[:-1] for r in v3["forecasts"]] == v2["forecasts"]
+    open_f = q(db, "SELECT * FROM forecasts WHERE status = 'open'")
+    assert len(open_f) == 1 and open_f[0]["target_year"] == 2021 and open_f[0]["settings_sha256"] is None
+    table = _synthetic()
+    later = table.reindex(list(table.index) + [2020])
+    later.loc[2020, ["r", "d"]] = [q(db, "SELECT observed FROM scores")[0]["observed"], 0.0]
+    later["r"] *= 1.005
+    later = _next_delivery(later, 1.0, obs=1.2)
+    s3, _ = _run(db, later, "k3", None)
+    assert (s3["scored"], s3["superseded"]) == (1, 0) and s3["revised"] == 31
+
+
+def test_ledger_tolerance_out_of_range_is_one_line_naming_the_key(tmp_path):
+    cfg = yaml.safe_load(demo_config_text("data"))
+    cfg["ledger"] = {"restatement_tolerance": {"relative": 1.5}}
+    p = tmp_path / "c.yaml"
+    p.write_text(yaml.safe_dump(cfg))
+    with pytest.raises(InputErrors) as exc:
+        load_study(p)
+    line = str(exc.value)
+    assert "\n" not in line and "ledger.restatement_tolerance.relative" in line and "maximum of 1" in line
+    assert tolerance_of(cfg | {"ledger": {}}) == tolerance_of({})  # defaults from the schema
+    assert (tolerance_of({}).se, tolerance_of({}).relative) == (0.5, 0.02)

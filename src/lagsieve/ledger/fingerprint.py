@@ -30,13 +30,15 @@ def value_text(v: float) -> str:
 
 
 def fingerprints(annual: pd.DataFrame) -> pd.DataFrame:
-    """Per series and year: the annual value (before transforms) and a hash of it.
+    """Per series and year: the annual value (before transforms), its standard error (nan when
+    the input has none) and a hash of the value (the se does not enter it).
 
-    ``annual`` is the tidy output of the `align` stage (columns series, year, value).
+    ``annual`` is the tidy output of the `align` stage (columns series, year, value[, se]).
     """
-    fp = annual[["series", "year", "value"]].dropna(subset=["value"]).copy()
+    fp = annual.reindex(columns=["series", "year", "value", "se"]).dropna(subset=["value"]).copy()
     fp["year"] = fp["year"].astype(int)
     fp["value"] = fp["value"].astype(float)
+    fp["se"] = fp["se"].astype(float)
     fp["value_sha"] = [sha256_text(f"{s}|{y}|{value_text(v)}")[:VALUE_SHA_CHARS]
                        for s, y, v in zip(fp["series"], fp["year"], fp["value"])]
     return fp.sort_values(["series", "year"]).reset_index(drop=True)

@@ -21,10 +21,10 @@ from scipy import stats as _st
 INV_SQRT_PI = 1.0 / np.sqrt(np.pi)
 
 
-def interval_score(lower, upper, observed, level: float) -> np.ndarray:
+def interval_score(lower, upper, observed, level) -> np.ndarray:
     """Interval score of the central ``level`` interval [lower, upper] at ``observed``."""
     lower, upper, y = (np.asarray(a, float) for a in (lower, upper, observed))
-    alpha = 1.0 - float(level)
+    alpha = 1.0 - np.asarray(level, float)
     return (upper - lower) + (2.0 / alpha) * (np.maximum(lower - y, 0.0) + np.maximum(y - upper, 0.0))
 
 
@@ -35,9 +35,9 @@ def crps_normal(mu, sigma, observed) -> np.ndarray:
     return sigma * (z * (2.0 * _st.norm.cdf(z) - 1.0) + 2.0 * _st.norm.pdf(z) - INV_SQRT_PI)
 
 
-def gaussian_sd(lower, upper, level: float) -> np.ndarray:
+def gaussian_sd(lower, upper, level) -> np.ndarray:
     """The sd of the normal whose central ``level`` interval is [lower, upper]."""
-    return (np.asarray(upper, float) - np.asarray(lower, float)) / (2.0 * _st.norm.ppf(0.5 + float(level) / 2.0))
+    return (np.asarray(upper, float) - np.asarray(lower, float)) / (2.0 * _st.norm.ppf(0.5 + np.asarray(level, float) / 2.0))
 
 
 def ar1_coefficient(resid, years) -> float:

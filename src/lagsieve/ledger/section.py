@@ -7,6 +7,7 @@ paragraphs and tables whose cells are plain text). The report renders it with a 
 """
 from __future__ import annotations
 
+import json
 import sqlite3
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -22,11 +23,18 @@ from lagsieve.ledger.update import grade_rows
 
 MISSING, UNREADABLE, NO_RUN, READ = "missing", "unreadable", "no-run", "read"
 
-FOOTNOTE = ("Each forecast is made with the candidate model (the hardest baseline plus the driver at its "
-            "selected lag) fitted on every observed year, with an {level}% prediction interval from its "
-            "training residuals. Skill is 1 - SSE(candidate) / SSE(baseline) over the scored years, against "
-            "the baseline forecasts made at the same time. A forecast whose training data were restated later "
-            "is superseded and never scored.")
+FOOTNOTE = ("Every hypothesis that can forecast (a selected lag of at least one year) forecasts the next year "
+            "with its candidate model (the baseline it used most often plus the driver at its selected lag) "
+            "fitted on every observed year, with an {level}% prediction interval from its training residuals "
+            "(the parameter part widened by the factor (1 + rho) / (1 - rho) of their lag-1 autocorrelation rho). "
+            "A forecast is scored against the first value published for its year; later restatements of that "
+            "value are scored too, as secondary information, and never replace the first score. Besides the "
+            "absolute error, the proper scores of Gneiting & Raftery (2007): the CRPS of the Gaussian forecast "
+            "(the normal with the forecast's interval) and the interval score of the {level}% interval (lower "
+            "is better for both). Skill is 1 - SSE(candidate) / SSE(baseline) over the scored years, against "
+            "the baseline forecasts made at the same time. A forecast whose training values were restated by "
+            "more than the tolerance ({tolerance}) is superseded and never scored; smaller restatements are "
+            "listed as revisions.")
 
 
 @dataclass
@@ -116,6 +124,26 @@ def _data_blocks(s: SinceLastRun) -> list[Block]:
          for x in ch])]
 
 
+def _percent(v) -> str:
+    return "" if pd.isna(v) else f"{100 * v:+.2g}%"
+
+
+def _revision_blocks(s: SinceLastRun) -> list[Block]:
+    """Per series, the values restated since the previous run and the largest change."""
+    r = s.revisions
+    if s.previous is None or r.empty:
+        return []
+    rows = []
+    for name, g in r.groupby("series", sort=True):
+        big = g.loc[g["abs_change"].abs().idxmax()]
+        rows.append([name, year_spans(g["year"].astype(int).tolist()), len(g),
+                     _percent(g["rel_change"].abs().median()),
+                     f"{int(big['year'])}: {number(big['old_value'])} to {number(big['new_value'])} "
+                     f"({_percent(big['rel_change'])})", number(g["se_units"].max(), "{:.2g}")])
+    return [_heading("Values restated since the previous run"), _table(
+        ["series", "years restated", "values", "median change", "largest change", "largest in se"], rows)]
+
+
 def _grade_blocks(s: SinceLastRun) -> list[Block]:
     if s.previous is None:
         return []
@@ -130,11 +158,12 @@ def _grade_blocks(s: SinceLastRun) -> list[Block]:
 def _scored_blocks(s: SinceLastRun) -> list[Block]:
     out = [_heading("Forecasts scored at this run")]
     if len(s.scored):
-        out.append(_table(["response", "driver", "year", "forecast", "interval", "observed", "outcome",
-                           "hardest baseline", "baseline forecast"],
-                          [[f.response, f.driver, int(f.target_year), number(f.forecast),
+        out.append(_table(["response", "driver", "grade", "year", "forecast", "interval", "observed", "outcome",
+                           "CRPS", "interval score", "own baseline", "baseline forecast"],
+                          [[f.response, f.driver, f.grade, int(f.target_year), number(f.forecast),
                             f"{number(f.lower)} to {number(f.upper)}", number(f.observed),
-                            "inside" if f.inside else "outside", f.baseline, number(getattr(f, f"fc_{f.baseline}"))]
+                            "inside" if f.inside else "outside", number(f.crps), number(f.interval_score),
+                            f.baseline, number(getattr(f, f"fc_{f.baseline}"))]
                            for f in s.scored.itertuples()]))
     else:
         out.append(_text("None: no forecast year has arrived since the previous run."))
@@ -171,11 +200,26 @@ def _track_blocks(s: SinceLastRun) -> list[Block]:
     if not len(s.track):
         return [_heading("Track record"), _text("No forecast has been made yet.")]
     return [_heading("Track record"), _table(
-        ["response", "driver", "made", "open", "scored", "superseded", "inside interval", "MAE",
-         "skill vs hardest", "closer than hardest", "latest"],
+        ["response", "driver", "made", "open", "scored", "superseded", "inside interval", "MAE", "CRPS",
+         "interval score", "MAE vs latest release", "skill vs own baseline", "closer than own baseline", "latest"],
         [[t.response, t.driver, t.made, t.open, t.scored, t.superseded, f"{t.inside}/{t.scored}" if t.scored else "",
-          number(t.mae), number(t.skill_hardest, "{:+.2f}"), f"{t.beat_hardest}/{t.scored}" if t.scored else "",
+          number(t.mae), number(t.crps), number(t.interval_score), number(t.mae_latest) if t.rescored else "",
+          number(t.skill_hardest, "{:+.2f}"), f"{t.beat_hardest}/{t.scored}" if t.scored else "",
           t.last] for t in s.track.itertuples()])]
+
+
+def _by_grade_blocks(s: SinceLastRun) -> list[Block]:
+    """The scores by the grade each forecast had when made, once a forecast has been scored."""
+    g = s.by_grade
+    if g.empty or not g["scored"].sum():
+        return []
+    return [_heading("Scores by grade when the forecast was made"),
+            _text("The tool's own prospective test of its grades: forecasts of hypotheses graded strong should "
+                  "score better, year after year, than those of the other grades (lower MAE, CRPS and interval "
+                  "score; coverage near the nominal level)."),
+            _table(["grade", "made", "scored", "coverage", "MAE", "CRPS", "interval score", "skill vs own baseline"],
+                   [[r.grade, r.made, r.scored, _percent(r.coverage).lstrip("+"), number(r.mae), number(r.crps),
+                     number(r.interval_score), number(r.skill_own_baseline, "{:+.2f}")] for r in g.itertuples()])]
 
 
 def ledger_section(ledger_path: str | Path, study, evidence_df: pd.DataFrame | None = None) -> LedgerSection:
@@ -195,6 +239,16 @@ def ledger_section(ledger_path: str | Path, study, evidence_df: pd.DataFrame | N
         return LedgerSection(UNREADABLE, str(path), sid, error=str(exc))
     if s.run is None:
         return LedgerSection(NO_RUN, str(path), sid)
-    blocks = _data_blocks(s) + _grade_blocks(s) + _scored_blocks(s) + _made_blocks(s) + _track_blocks(s)
+    blocks = (_data_blocks(s) + _revision_blocks(s) + _grade_blocks(s) + _scored_blocks(s) + _made_blocks(s)
+              + _by_grade_blocks(s) + _track_blocks(s))
     return LedgerSection(READ, str(path), sid, lead=_lead(path, s), mismatch=_mismatch(evidence_df, latest),
-                         blocks=blocks, footnote=FOOTNOTE.format(level=int(LEVEL * 100)))
+                         blocks=blocks, footnote=FOOTNOTE.format(level=int(LEVEL * 100),
+                                                                 tolerance=_tolerance_words(s.run)))
+
+
+def _tolerance_words(run: dict) -> str:
+    """The restatement tolerance the latest run used, in words."""
+    tol = json.loads(run.get("ledger_json") or "{}").get("restatement_tolerance")
+    if not tol:
+        return "a ledger written before tolerances: any restatement"
+    return f"{tol['se']:g} standard errors, or {100 * tol['relative']:g}% of the value where it has no standard error"

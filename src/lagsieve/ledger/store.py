@@ -28,7 +28,18 @@ Tables (SQLite, one file, several studies may share it)
                       hashes, tool version, status (open, scored, superseded)
                       UNIQUE(study, response, driver, target_year, training_sha256)
 ``baseline_forecasts`` forecast_id, baseline, forecast and interval made at the same time
-``scores``            forecast_id (unique), run_id, observed, error, inside
+``scores``            forecast_id (unique), run_id, observed, error, inside: the primary score,
+                      against the first value published for the target year; never changed
+``rescores``          forecast_id, run_id, observed, error, inside: the same forecast scored again
+                      at a later run that restated its target year (secondary information)
+``revisions``         per run: every earlier value that changed since the study's previous run
+                      (series, year, old and new value, absolute and relative change, se and
+                      the change in se units where the value has an se)
+
+Since schema 3: ``series_years.se`` (the value's standard error), ``runs.ledger_json`` (the
+restatement tolerance of the run), ``forecasts.settings_sha256`` (the training hash without its
+cells: model and transforms). The schema version is kept in ``meta`` and mirrored in ``PRAGMA
+user_version``; a ledger of a version this tool does not know (a newer lagsieve) is refused.
 """
 from __future__ import annotations
 
@@ -49,11 +60,38 @@ from lagsieve.io.lock import unusable_folder
 from lagsieve.stats.backtest import BASELINES
 
 DEFAULT_NAME = "ledger.sqlite"
-SCHEMA_VERSION = "2"
+SCHEMA_VERSION = "3"
+REVISIONS_TABLE = """CREATE TABLE IF NOT EXISTS revisions (
+    run_id      INTEGER NOT NULL REFERENCES runs(run_id),
+    previous_run INTEGER NOT NULL REFERENCES runs(run_id),
+    series      TEXT NOT NULL,
+    year        INTEGER NOT NULL,
+    old_value   REAL NOT NULL,
+    new_value   REAL NOT NULL,
+    abs_change  REAL NOT NULL,
+    rel_change  REAL,
+    se          REAL,
+    se_units    REAL,
+    PRIMARY KEY (run_id, series, year)
+)"""
+RESCORES_TABLE = """CREATE TABLE IF NOT EXISTS rescores (
+    forecast_id INTEGER NOT NULL REFERENCES forecasts(forecast_id),
+    run_id      INTEGER NOT NULL REFERENCES runs(run_id),
+    observed    REAL NOT NULL,
+    error       REAL NOT NULL,
+    inside      INTEGER NOT NULL CHECK (inside IN (0, 1)),
+    PRIMARY KEY (forecast_id, run_id)
+)"""
 # version -> (next version, its statements); applied in order by :func:`ensure_schema`
 MIGRATIONS: dict[str, tuple[str, tuple[str, ...]]] = {
     # 1 -> 2: grades.hardest held the baseline the candidate used most often, not the hardest one
     "1": ("2", ("ALTER TABLE grades RENAME COLUMN hardest TO baseline",)),
+    # 2 -> 3: restatements survive (revisions, se of every value, the tolerance of each run, the
+    # settings a forecast was made with) and restated target years are scored again (rescores)
+    "2": ("3", ("ALTER TABLE series_years ADD COLUMN se REAL",
+                "ALTER TABLE runs ADD COLUMN ledger_json TEXT NOT NULL DEFAULT '{}'",
+                "ALTER TABLE forecasts ADD COLUMN settings_sha256 TEXT",
+                REVISIONS_TABLE, RESCORES_TABLE)),
 }
 
 SCHEMA = """
@@ -73,7 +111,8 @@ CREATE TABLE IF NOT EXISTS runs (
     screen_json   TEXT NOT NULL,
     n_new         INTEGER NOT NULL DEFAULT 0,
     n_scored      INTEGER NOT NULL DEFAULT 0,
-    n_superseded  INTEGER NOT NULL DEFAULT 0
+    n_superseded  INTEGER NOT NULL DEFAULT 0,
+    ledger_json   TEXT NOT NULL DEFAULT '{}'
 );
 CREATE INDEX IF NOT EXISTS runs_study ON runs(study, run_id);
 CREATE TABLE IF NOT EXISTS series_years (
@@ -82,6 +121,7 @@ CREATE TABLE IF NOT EXISTS series_years (
     year      INTEGER NOT NULL,
     value     REAL NOT NULL,
     value_sha TEXT NOT NULL,
+    se        REAL,
     PRIMARY KEY (run_id, series, year)
 );
 CREATE TABLE IF NOT EXISTS grades (
@@ -129,6 +169,7 @@ CREATE TABLE IF NOT EXISTS forecasts (
     status            TEXT NOT NULL DEFAULT 'open' CHECK (status IN ('open', 'scored', 'superseded')),
     superseded_run    INTEGER REFERENCES runs(run_id),
     superseded_reason TEXT,
+    settings_sha256   TEXT,
     UNIQUE (study, response, driver, target_year, training_sha256)
 );
 CREATE TABLE IF NOT EXISTS baseline_forecasts (
@@ -146,7 +187,7 @@ CREATE TABLE IF NOT EXISTS scores (
     error       REAL NOT NULL,
     inside      INTEGER NOT NULL CHECK (inside IN (0, 1))
 );
-"""
+""" + REVISIONS_TABLE + ";\n" + RESCORES_TABLE + ";\n"
 
 
 # ---------------------------------------------------------------- paths
@@ -196,6 +237,7 @@ def _upgrade(con: sqlite3.Connection, version: str) -> None:
         for stmt in statements:
             con.execute(stmt)
         con.execute("UPDATE meta SET value = ? WHERE key = 'schema_version'", (version,))
+        con.execute(f"PRAGMA user_version = {int(version)}")
 
 
 def ensure_schema(con: sqlite3.Connection) -> None:
@@ -210,6 +252,7 @@ def ensure_schema(con: sqlite3.Connection) -> None:
             if stmt.strip():
                 con.execute(stmt)
         con.execute("INSERT INTO meta(key, value) VALUES ('schema_version', ?)", (SCHEMA_VERSION,))
+        con.execute(f"PRAGMA user_version = {int(SCHEMA_VERSION)}")
 
 
 def connect(path: str | Path) -> sqlite3.Connection:

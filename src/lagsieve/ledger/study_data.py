@@ -42,6 +42,11 @@ class StudyData:
         return next_year_forecast(self.table, self.raw, self.transforms, response, driver, lag, baseline,
                                   level, self.se, self.raw_se, model)
 
+    def settings_sha(self, response: str, driver: str, lag: int, baseline: str) -> str:
+        """The training hash without its cells: model, transforms and whether se weight the fit."""
+        return training_hash(self.raw, self.transforms, response, driver, lag, baseline, [],
+                             self.raw_se if self.se is not None else None)
+
     def training_sha(self, response: str, driver: str, lag: int, baseline: str, origin_year: int) -> str:
         """The training hash a forecast made at ``origin_year`` would have on these data."""
         years, *_ = training_years(self.table, response, driver, lag, origin_year)

@@ -1,20 +1,30 @@
-"""Reading the ledger back: the track record of every hypothesis, and what changed since the
-previous run (data, grades and why they changed, forecasts scored, superseded and made)."""
+"""Reading the ledger back: the track record of every hypothesis (with the proper scores of
+:mod:`lagsieve.ledger.scores`), the same scores by the grade each forecast had when it was made,
+the values restated at a run, and what changed since the previous run (data, grades and why
+they changed, forecasts scored, superseded and made). The readers work on every schema version
+(a table a version lacks reads as empty)."""
 from __future__ import annotations
 
 import json
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
+import numpy as np
 import pandas as pd
 
+from lagsieve.ledger.scores import crps_normal, gaussian_sd, interval_score
 from lagsieve.ledger.store import forecasts_frame, query_frame, runs_frame
 from lagsieve.stats.backtest import BASELINES
 
 TRACK_COLUMNS = ["response", "driver", "made", "open", "scored", "superseded", "inside", "coverage", "mae",
+                 "crps", "interval_score", "rescored", "mae_latest",
                  "skill_hardest", "beat_hardest"] + [f"skill_{b}" for b in BASELINES] + ["last"]
+GRADE_GROUPS = ("strong", "moderate", "other grades")  # how the scores are compared by grade
+BY_GRADE_COLUMNS = ["grade", "made", "scored", "coverage", "mae", "crps", "interval_score", "skill_own_baseline"]
+REVISION_COLUMNS = ["series", "year", "old_value", "new_value", "abs_change", "rel_change", "se", "se_units"]
 GRADE_CHANGE_COLUMNS = ["response", "driver", "before", "after", "reason"]
 SKILL_CUTS = (0.05, 0.10, 0.20)  # the surrogate p of skill: the grade rules' cuts, most telling first
+SUPPORTED = ("strong", "moderate")  # the grades whose missing forecast the report explains
 NOTABLE_MOVE = 0.05  # a statistic that moved this much is named even without crossing a threshold
 
 
@@ -34,13 +44,53 @@ def _latest_words(last: pd.Series) -> str:
     return words
 
 
+def _mean(v: pd.Series) -> float:
+    return float(v.mean()) if len(v) else float("nan")
+
+
+def with_scores(f: pd.DataFrame) -> pd.DataFrame:
+    """The forecasts with their proper scores against the first published value (nan until
+    scored): ``crps`` of the Gaussian forecast (the normal with the forecast's interval,
+    :func:`lagsieve.ledger.scores.gaussian_sd`) and ``interval_score`` of its interval."""
+    f = f.copy()
+    sd = gaussian_sd(f["lower"], f["upper"], f["level"].to_numpy(float))
+    f["crps"] = crps_normal(f["forecast"], sd, f["observed"].astype(float))
+    f["interval_score"] = interval_score(f["lower"], f["upper"], f["observed"].astype(float),
+                                         f["level"].to_numpy(float))
+    return f
+
+
+def _latest_observed(con, study: str) -> pd.Series:
+    """forecast_id -> the target year's value at its latest restatement (rescores; schema >= 3)."""
+    if con.execute("SELECT 1 FROM sqlite_master WHERE type='table' AND name='rescores'").fetchone() is None:
+        return pd.Series(dtype=float)
+    r = query_frame(con, "SELECT r.forecast_id, r.observed FROM rescores r JOIN forecasts f USING (forecast_id) "
+                         "WHERE f.study = ? ORDER BY r.run_id", (study,))
+    return r.groupby("forecast_id")["observed"].last() if len(r) else pd.Series(dtype=float)
+
+
+def scored_frame(con, study: str) -> pd.DataFrame:
+    """:func:`lagsieve.ledger.store.forecasts_frame` with the proper scores (:func:`with_scores`),
+    ``rescored`` (whether a later run restated the target year) and ``error_latest`` (the error
+    against the latest restatement, else against the first published value)."""
+    f = forecasts_frame(con, study)
+    if f.empty:
+        return f
+    f = with_scores(f)
+    latest = f["forecast_id"].map(_latest_observed(con, study)).astype(float)
+    f["rescored"] = latest.notna()
+    f["error_latest"] = np.where(latest.notna(), latest, f["observed"].astype(float)) - f["forecast"]
+    return f
+
+
 def _track_row(response: str, driver: str, g: pd.DataFrame) -> dict:
     sc = g[g["status"] == "scored"]
     row = {"response": response, "driver": driver, "made": len(g), "open": int((g["status"] == "open").sum()),
            "scored": len(sc), "superseded": int((g["status"] == "superseded").sum()),
            "inside": int(sc["inside"].sum()) if len(sc) else 0,
-           "coverage": float(sc["inside"].mean()) if len(sc) else float("nan"),
-           "mae": float(sc["error"].abs().mean()) if len(sc) else float("nan"),
+           "coverage": _mean(sc["inside"]), "mae": _mean(sc["error"].abs()),
+           "crps": _mean(sc["crps"]), "interval_score": _mean(sc["interval_score"]),
+           "rescored": int(sc["rescored"].sum()), "mae_latest": _mean(sc["error_latest"].abs()),
            "skill_hardest": _skill(sc["error"], sc["err_baseline"]),
            "beat_hardest": int((sc["error"] ** 2 < sc["err_baseline"] ** 2).sum()),
            "last": _latest_words(g.iloc[-1])}
@@ -56,11 +106,41 @@ def track_record(con, study: str) -> pd.DataFrame:
     ``beat_hardest`` (names kept for the report) are against the baseline the candidate was built
     on (the forecast's ``baseline``): its skill, and the forecasts with the smaller squared error.
     Superseded forecasts are counted but never scored."""
-    f = forecasts_frame(con, study)
+    f = scored_frame(con, study)
     if f.empty:
         return pd.DataFrame(columns=TRACK_COLUMNS)
     rows = [_track_row(r, d, g) for (r, d), g in f.groupby(["response", "driver"], sort=True)]
     return pd.DataFrame(rows, columns=TRACK_COLUMNS)
+
+
+def scores_by_grade(con, study: str) -> pd.DataFrame:
+    """The scores of every scored forecast grouped by the grade its hypothesis had when the
+    forecast was made (strong, moderate, every other grade): the ledger's prospective test of the
+    grades. Per group: forecasts made and scored, coverage, mean absolute error, mean CRPS,
+    mean interval score and the skill 1 - SSE / SSE(own baseline)."""
+    f = scored_frame(con, study)
+    if f.empty:
+        return pd.DataFrame(columns=BY_GRADE_COLUMNS)
+    group = f["grade"].where(f["grade"].isin(GRADE_GROUPS[:2]), GRADE_GROUPS[2])
+    rows = []
+    for name in GRADE_GROUPS:
+        g = f[group == name]
+        sc = g[g["status"] == "scored"]
+        if g.empty:
+            continue
+        rows.append({"grade": name, "made": len(g), "scored": len(sc), "coverage": _mean(sc["inside"]),
+                     "mae": _mean(sc["error"].abs()), "crps": _mean(sc["crps"]),
+                     "interval_score": _mean(sc["interval_score"]),
+                     "skill_own_baseline": _skill(sc["error"], sc["err_baseline"])})
+    return pd.DataFrame(rows, columns=BY_GRADE_COLUMNS)
+
+
+def revisions_at(con, run_id: int) -> pd.DataFrame:
+    """The values restated at run ``run_id`` against the study's previous run (schema >= 3)."""
+    if con.execute("SELECT 1 FROM sqlite_master WHERE type='table' AND name='revisions'").fetchone() is None:
+        return pd.DataFrame(columns=REVISION_COLUMNS)
+    return query_frame(con, f"SELECT {', '.join(REVISION_COLUMNS)} FROM revisions WHERE run_id = ? "
+                            "ORDER BY series, year", (run_id,))
 
 
 # ---------------------------------------------------------------- data changes
@@ -185,6 +265,8 @@ class SinceLastRun:
     notes: pd.DataFrame  # strong/moderate hypotheses without a forecast, and why
     track: pd.DataFrame
     n_runs: int = 0
+    revisions: pd.DataFrame = field(default_factory=lambda: pd.DataFrame(columns=REVISION_COLUMNS))
+    by_grade: pd.DataFrame = field(default_factory=lambda: pd.DataFrame(columns=BY_GRADE_COLUMNS))
 
 
 def _grades(con, run_id: int) -> pd.DataFrame:
@@ -204,12 +286,14 @@ def since_previous_run(con, study: str, run_id: int | None = None) -> SinceLastR
     prev_run = earlier.iloc[-1].to_dict() if len(earlier) else None
     prev_id = int(prev_run["run_id"]) if prev_run else None
     g_cur = _grades(con, run_id)
-    f = forecasts_frame(con, study)
+    f = scored_frame(con, study)
     if f.empty:
         f = pd.DataFrame(columns=["response", "driver", "run_id", "scored_run", "superseded_run", "status"])
     scored, superseded = f[f["scored_run"] == run_id], f[f["superseded_run"] == run_id]
     changes = (grade_changes(_grades(con, prev_id), g_cur, json.loads(cur_run["screen_json"]), scored, superseded)
                if prev_id is not None else pd.DataFrame(columns=GRADE_CHANGE_COLUMNS))
-    notes = g_cur[(g_cur["note"] != "")][["response", "driver", "grade", "note"]] if len(g_cur) else empty
+    graded = g_cur[(g_cur["note"] != "") & g_cur["grade"].isin(SUPPORTED)] if len(g_cur) else empty
+    notes = graded[["response", "driver", "grade", "note"]] if len(graded) else empty
     return SinceLastRun(cur_run, prev_run, data_changes(con, run_id, prev_id), changes, scored, superseded,
-                        f[f["run_id"] == run_id], notes, track_record(con, study), len(runs))
+                        f[f["run_id"] == run_id], notes, track_record(con, study), len(runs),
+                        revisions_at(con, run_id), scores_by_grade(con, study))

@@ -1,16 +1,28 @@
 """Stage `ledger`: record this run's forecasts, score the earlier forecasts whose year has
-arrived, and supersede those whose training data were restated.
+arrived, record the values restated since the previous run, and supersede the forecasts whose
+training data were restated beyond the tolerance.
 
-At every run, for each hypothesis graded ``strong`` or ``moderate`` (``GRADED``), the
-candidate model forecasts the first year not yet observed (:mod:`lagsieve.ledger.forecast`).
-On a later run in which that year has arrived, each open forecast is scored: error = observed
-- forecast, whether the observation fell inside the interval, and (in the track record) the
-squared error of the candidate against each baseline's forecast made at the same time. A
-forecast whose training data were restated since (any value it was made from changed, was
-removed or was filled in) is marked ``superseded`` with the restated years as the reason, and
-is never scored. A run whose data fingerprint and evidence grades equal those of the latest
-recorded run adds nothing. Everything is computed first; the database is then written in one
-transaction (:func:`lagsieve.ledger.store.transaction`).
+At every run, every hypothesis that can forecast (a selected lag, lag >= 1 or its driver
+already observed in the target year, and a candidate baseline) forecasts the first year not
+yet observed (:mod:`lagsieve.ledger.forecast`), whatever its grade; the grade it had is kept
+with the forecast, so that the track record can compare grades prospectively. On a later run
+in which that year has arrived, each open forecast is scored against that first published
+value (table ``scores``: error, inside the interval; the proper scores are computed from
+them, :mod:`lagsieve.ledger.scores`); the primary score never changes. Later runs that
+restate the target year score the forecast again (table ``rescores``), as secondary
+information.
+
+Restatements (:mod:`lagsieve.ledger.revisions`): every earlier value that changed since the
+study's previous run is written to table ``revisions``. An open forecast whose training data
+changed stays open when every restated training value moved within
+``ledger.restatement_tolerance``; it is superseded (never scored) when one moved beyond it
+(the reason names the series, year, size of the change and the tolerance), when a training
+year was filled in or removed, or when the model settings changed (transforms, weights). A
+newer forecast of the same hypothesis and year replaces an open older one (one forecast per
+hypothesis and year is scored: the latest made before the year arrived). A run whose data
+fingerprint and evidence grades equal those of the latest recorded run adds nothing.
+Everything is computed first; the database is then written in one transaction
+(:func:`lagsieve.ledger.store.transaction`).
 """
 from __future__ import annotations
 
@@ -28,10 +40,11 @@ from lagsieve.io.files import sha256_file, sha256_text, write_json
 from lagsieve.io.provenance import tool_version
 from lagsieve.ledger.fingerprint import digest_frame, fingerprints
 from lagsieve.ledger.forecast import NextYearForecast
+from lagsieve.ledger.revisions import Tolerance, beyond, beyond_words, cell_changes, tolerance_of
 from lagsieve.ledger.store import connect, resolve_ledger_path, transaction
 from lagsieve.ledger.study_data import StudyData
 
-GRADED = ("strong", "moderate")
+GRADED = ("strong", "moderate")  # the supported grades; hypotheses of every grade are forecast
 SCREEN_KEYS = ("alpha", "fdr", "min_overlap", "surrogates", "seed", "weights")  # recorded with every run
 # the run key hashes the grade rows under their schema-1 column names, so that a ledger
 # upgraded from schema 1 recognises a rerun on unchanged data and evidence
@@ -87,12 +100,10 @@ def input_hashes(study: Study) -> dict[str, str]:
 
 # ---------------------------------------------------------------- one update
 def forecasts_of(grades: pd.DataFrame, data: StudyData) -> tuple[list[NextYearForecast], dict]:
-    """The next-year forecasts of the graded hypotheses, and why the others got none
-    ((response, driver) -> words)."""
+    """The next-year forecasts of every hypothesis that can forecast (whatever its grade), and
+    why the others got none ((response, driver) -> words)."""
     made, notes = [], {}
     for g in grades.to_dict("records"):
-        if g["grade"] not in GRADED:
-            continue
         key, model = (g["response"], g["driver"]), g["model"] or "linear"
         if g["lag"] is None or not g["baseline"]:
             notes[key] = "no forecast: no selected lag or candidate baseline"
@@ -108,7 +119,9 @@ def forecasts_of(grades: pd.DataFrame, data: StudyData) -> tuple[list[NextYearFo
 
 def _run_row(study: Study, key: str, data_sha: str, now: str | None) -> dict:
     """The row of table ``runs`` for this run (its counts are filled in by :func:`write_run`)."""
+    tol = tolerance_of(study.raw)
     return {"study": study.id, "run_key": key, "data_sha256": data_sha,
+            "ledger_json": json.dumps({"restatement_tolerance": {"se": tol.se, "relative": tol.relative}}),
             "inputs_sha256": json.dumps(input_hashes(study), sort_keys=True), "tool_version": tool_version(),
             "config_sha256": sha256_file(study.path),
             "created_utc": now or time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
@@ -125,7 +138,8 @@ def update_ledger(config_path: str | Path, annual_csv: str | Path, evidence_csv:
     ``ledger_path`` overrides the config. Everything is computed first; the database is then
     written in one transaction. Returns the summary, also written to ``summary_path`` as JSON
     after the transaction has committed: study, status (``recorded`` or ``unchanged``), run_id,
-    the numbers of forecasts new, scored and superseded, and the ledger's path.
+    the numbers of forecasts new, scored and superseded, of values restated since the previous
+    run (``revised``), and the ledger's path.
     """
     study = load_study(config_path)
     data = StudyData.load(study, annual_csv)
@@ -137,7 +151,7 @@ def update_ledger(config_path: str | Path, annual_csv: str | Path, evidence_csv:
     path = Path(ledger_path) if ledger_path else resolve_ledger_path(study, study_dir)
     con = connect(path)
     try:
-        summary = write_run(con, run, fp, grades, notes, made, data)
+        summary = write_run(con, run, fp, grades, notes, made, data, tolerance_of(study.raw))
     finally:
         con.close()
     summary["ledger"] = str(path)
@@ -150,13 +164,14 @@ def update_ledger(config_path: str | Path, annual_csv: str | Path, evidence_csv:
 def _insert_run(con, run: dict, fp: pd.DataFrame, grades: pd.DataFrame, notes: dict) -> int:
     """Insert the run, its data fingerprint and its grades; returns the new run_id."""
     cols = ["study", "run_key", "created_utc", "tool_version", "config_sha256", "inputs_sha256", "data_sha256",
-            "screen_json"]
+            "screen_json", "ledger_json"]
     cur = con.execute(f"INSERT INTO runs({', '.join(cols)}) VALUES ({', '.join('?' * len(cols))})",
-                      [run[c] for c in cols])
+                      [run.get(c, "{}") for c in cols])
     run_id = int(cur.lastrowid)
-    con.executemany("INSERT INTO series_years(run_id, series, year, value, value_sha) VALUES (?,?,?,?,?)",
-                    [(run_id, s, int(y), float(v), h) for s, y, v, h in
-                     zip(fp["series"], fp["year"], fp["value"], fp["value_sha"])])
+    se = fp["se"] if "se" in fp else pd.Series(np.nan, index=fp.index)
+    con.executemany("INSERT INTO series_years(run_id, series, year, value, value_sha, se) VALUES (?,?,?,?,?,?)",
+                    [(run_id, s, int(y), float(v), h, None if pd.isna(e) else float(e)) for s, y, v, h, e in
+                     zip(fp["series"], fp["year"], fp["value"], fp["value_sha"], se)])
     con.executemany(
         "INSERT INTO grades(run_id, response, driver, grade, model, lag, baseline, q_value, p_surrogate, oos_skill,"
         " oos_p_surrogate, retest_skill, flags, last_year, note) VALUES (?,?,?,?,?,?,?,?,?,?,?,?,?,?,?)",
@@ -167,26 +182,50 @@ def _insert_run(con, run: dict, fp: pd.DataFrame, grades: pd.DataFrame, notes: d
 
 
 def write_run(con: sqlite3.Connection, run: dict, fp: pd.DataFrame, grades: pd.DataFrame, notes: dict,
-              made: list[NextYearForecast], data: StudyData) -> dict:
+              made: list[NextYearForecast], data: StudyData, tol: Tolerance) -> dict:
     """Write one run in one transaction; nothing when its run_key equals the latest run's.
-    ``con`` comes from :func:`lagsieve.ledger.store.connect` (its schema is current)."""
+    ``con`` comes from :func:`lagsieve.ledger.store.connect` (its schema is current); ``tol``
+    is the study's restatement tolerance."""
     study = run["study"]
     with transaction(con):
         last = con.execute("SELECT run_id, run_key FROM runs WHERE study = ? ORDER BY run_id DESC LIMIT 1",
                            (study,)).fetchone()
         if last is not None and last["run_key"] == run["run_key"]:
             return {"study": study, "status": "unchanged", "run_id": int(last["run_id"]),
-                    "new": 0, "scored": 0, "superseded": 0}
+                    "new": 0, "scored": 0, "superseded": 0, "revised": 0}
         run_id = _insert_run(con, run, fp, grades, notes)
-        new_fp = dict(zip(zip(fp["series"], fp["year"].astype(int)), fp["value_sha"]))
-        n_sup = _supersede_open(con, study, run_id, new_fp, data)
+        n_rev = _insert_revisions(con, run_id, None if last is None else int(last["run_id"]), fp)
+        n_sup = _supersede_open(con, study, run_id, fp, data, tol)
         n_scored = _score_open(con, study, run_id, data.table)
-        n_new = _insert_forecasts(con, study, run_id, made, run["inputs_sha256"], run["tool_version"],
-                                  data.transforms)
+        _rescore(con, study, run_id, data.table)
+        n_new, n_replaced = _insert_forecasts(con, study, run_id, made, run["inputs_sha256"], run["tool_version"],
+                                              data)
+        n_sup += n_replaced
         con.execute("UPDATE runs SET n_new = ?, n_scored = ?, n_superseded = ? WHERE run_id = ?",
                     (n_new, n_scored, n_sup, run_id))
     return {"study": study, "status": "recorded", "run_id": run_id, "new": n_new, "scored": n_scored,
-            "superseded": n_sup}
+            "superseded": n_sup, "revised": n_rev}
+
+
+def _stored_cells(con, run_id: int) -> pd.DataFrame:
+    """A recorded run's values: series, year, value, se."""
+    rows = con.execute("SELECT series, year, value, se FROM series_years WHERE run_id = ?", (run_id,)).fetchall()
+    return pd.DataFrame([tuple(r) for r in rows], columns=["series", "year", "value", "se"]).astype(
+        {"value": float, "se": float})
+
+
+def _insert_revisions(con, run_id: int, prev_id: int | None, fp: pd.DataFrame) -> int:
+    """Write every value restated since the study's previous run (table ``revisions``)."""
+    if prev_id is None:
+        return 0
+    ch = cell_changes(_stored_cells(con, prev_id), fp)
+    nan_none = lambda v: None if pd.isna(v) else float(v)  # noqa: E731
+    con.executemany("INSERT INTO revisions(run_id, previous_run, series, year, old_value, new_value, abs_change,"
+                    " rel_change, se, se_units) VALUES (?,?,?,?,?,?,?,?,?,?)",
+                    [(run_id, prev_id, c.series, int(c.year), float(c.old_value), float(c.new_value),
+                      float(c.abs_change), nan_none(c.rel_change), nan_none(c.se), nan_none(c.se_units))
+                     for c in ch.itertuples()])
+    return len(ch)
 
 
 def _open_forecasts(con, study: str) -> list[sqlite3.Row]:
@@ -196,20 +235,44 @@ def _open_forecasts(con, study: str) -> list[sqlite3.Row]:
 
 def _diff_cells(old: dict[tuple[str, int], str], new: dict[tuple[str, int], str], series: str,
                 last_year: int) -> list[str]:
-    """Words for the cells of ``series`` up to ``last_year`` that differ between two fingerprints."""
+    """Words for the cells of ``series`` up to ``last_year`` filled in or removed between two
+    fingerprints (restated cells are measured by :func:`_restated_beyond`)."""
     yrs = sorted({y for s, y in list(old) + list(new) if s == series and y <= last_year})
-    out = []
-    for y in yrs:
-        a, b = old.get((series, y)), new.get((series, y))
-        if a == b:
-            continue
-        what = "restated" if a and b else "filled in" if b else "removed"
-        out.append(f"{series} {y} {what}")
-    return out
+    return [f"{series} {y} {'filled in' if new.get((series, y)) else 'removed'}" for y in yrs
+            if (old.get((series, y)) is None) != (new.get((series, y)) is None)]
 
 
-def _supersede_open(con, study: str, run_id: int, new_fp: dict, data: StudyData) -> int:
-    """Mark superseded every open forecast whose training data changed since it was made."""
+def _training_cells(cells: pd.DataFrame, f) -> pd.DataFrame:
+    """The cells a forecast's training data can hold: its response up to the origin year, its
+    driver up to the driver year."""
+    return cells[((cells["series"] == f["response"]) & (cells["year"] <= f["origin_year"]))
+                 | ((cells["series"] == f["driver"]) & (cells["year"] <= f["driver_year"]))]
+
+
+def _why_superseded(con, f, fp: pd.DataFrame, data: StudyData, tol: Tolerance) -> str | None:
+    """Why an open forecast whose training hash changed is superseded, or None when every
+    change of its training values is a restatement within the tolerance."""
+    old = _training_cells(_stored_cells(con, f["run_id"]), f)
+    new = _training_cells(fp, f)
+    key = lambda df: dict(zip(zip(df["series"], df["year"].astype(int)), df["value"].astype(str)))  # noqa: E731
+    a, b = key(old), key(new)
+    gaps = _diff_cells(a, b, f["response"], f["origin_year"]) + _diff_cells(a, b, f["driver"], f["driver_year"])
+    if gaps:
+        return "training data changed: " + "; ".join(gaps)
+    settings = data.settings_sha(f["response"], f["driver"], f["lag"], f["baseline"])
+    changes = cell_changes(old, new)
+    if f["settings_sha256"] is not None and settings != f["settings_sha256"]:
+        return "model settings changed (transform or weights of the fit)"
+    if changes.empty:
+        return None if f["settings_sha256"] is not None else "training data changed: transform, weights or model settings"
+    if beyond(changes, tol).any():
+        return "training data restated beyond the tolerance: " + beyond_words(changes, tol)
+    return None
+
+
+def _supersede_open(con, study: str, run_id: int, fp: pd.DataFrame, data: StudyData, tol: Tolerance) -> int:
+    """Mark superseded every open forecast whose training data changed beyond the tolerance
+    since it was made (:func:`_why_superseded`); the others stay open and are scored."""
     n = 0
     for f in _open_forecasts(con, study):
         if f["response"] not in data.table.columns or f["driver"] not in data.table.columns:
@@ -217,12 +280,9 @@ def _supersede_open(con, study: str, run_id: int, new_fp: dict, data: StudyData)
         sha = data.training_sha(f["response"], f["driver"], f["lag"], f["baseline"], f["origin_year"])
         if sha == f["training_sha256"]:
             continue
-        old = {(r["series"], int(r["year"])): r["value_sha"] for r in con.execute(
-            "SELECT series, year, value_sha FROM series_years WHERE run_id = ? AND series IN (?, ?)",
-            (f["run_id"], f["response"], f["driver"]))}
-        why = (_diff_cells(old, new_fp, f["response"], f["origin_year"])
-               + _diff_cells(old, new_fp, f["driver"], f["driver_year"]))
-        reason = "training data changed: " + ("; ".join(why) if why else "transform, weights or model settings")
+        reason = _why_superseded(con, f, fp, data, tol)
+        if reason is None:
+            continue
         con.execute("UPDATE forecasts SET status = 'superseded', superseded_run = ?, superseded_reason = ? "
                     "WHERE forecast_id = ?", (run_id, reason, f["forecast_id"]))
         n += 1
@@ -247,23 +307,58 @@ def _score_open(con, study: str, run_id: int, table: pd.DataFrame) -> int:
     return n
 
 
-def _insert_forecasts(con, study: str, run_id: int, made: list[NextYearForecast], inputs_json: str,
-                      version: str, transforms: dict[str, str]) -> int:
-    """Insert this run's forecasts; one already made from the same training data is kept as it was."""
+def _rescore(con, study: str, run_id: int, table: pd.DataFrame) -> int:
+    """Score again every scored forecast whose target year this run restates (table
+    ``rescores``; the primary score stays as it was)."""
+    rows = con.execute(
+        "SELECT f.forecast_id, f.response, f.target_year, f.forecast, f.lower, f.upper, "
+        "COALESCE((SELECT r.observed FROM rescores r WHERE r.forecast_id = f.forecast_id "
+        "ORDER BY r.run_id DESC LIMIT 1), s.observed) AS latest "
+        "FROM forecasts f JOIN scores s USING (forecast_id) WHERE f.study = ? AND s.run_id < ?",
+        (study, run_id)).fetchall()
     n = 0
+    for f in rows:
+        obs = table[f["response"]].get(f["target_year"], np.nan) if f["response"] in table.columns else np.nan
+        if pd.isna(obs) or float(obs) == f["latest"]:
+            continue
+        obs = float(obs)
+        con.execute("INSERT INTO rescores(forecast_id, run_id, observed, error, inside) VALUES (?,?,?,?,?)",
+                    (f["forecast_id"], run_id, obs, obs - f["forecast"], int(f["lower"] <= obs <= f["upper"])))
+        n += 1
+    return n
+
+
+def _replace_older(con, run_id: int, fid: int, f: NextYearForecast, study: str) -> int:
+    """Supersede the open forecasts of the same hypothesis and year made before ``fid``."""
+    cur = con.execute(
+        "UPDATE forecasts SET status = 'superseded', superseded_run = ?, superseded_reason = ? "
+        "WHERE study = ? AND response = ? AND driver = ? AND target_year = ? AND status = 'open' AND forecast_id < ?",
+        (run_id, f"replaced by the forecast of the same year made at run {run_id}", study, f.response, f.driver,
+         f.target_year, fid))
+    return int(cur.rowcount)
+
+
+def _insert_forecasts(con, study: str, run_id: int, made: list[NextYearForecast], inputs_json: str,
+                      version: str, data: StudyData) -> tuple[int, int]:
+    """Insert this run's forecasts (one already made from the same training data is kept as it
+    was) and supersede the older open forecasts they replace; returns (new, replaced)."""
+    n = replaced = 0
     for f in made:
         cur = con.execute(
             "INSERT OR IGNORE INTO forecasts(run_id, study, response, driver, grade, screen_model, lag, baseline, scale,"
             " origin_year, target_year, driver_year, driver_value, forecast, lower, upper, level, n_train, resid_sd,"
-            " training_sha256, inputs_sha256, tool_version) VALUES (?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?)",
+            " training_sha256, inputs_sha256, tool_version, settings_sha256)"
+            " VALUES (?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?)",
             (run_id, study, f.response, f.driver, f.grade, f.screen_model, f.lag, f.baseline,
-             transforms.get(f.response, "none"),
+             data.transforms.get(f.response, "none"),
              f.origin_year, f.target_year, f.driver_year, f.driver_value, f.forecast, f.lower, f.upper, f.level,
-             f.n_train, f.resid_sd, f.training_sha256, inputs_json, version))
+             f.n_train, f.resid_sd, f.training_sha256, inputs_json, version,
+             data.settings_sha(f.response, f.driver, f.lag, f.baseline)))
         if cur.rowcount != 1:
             continue
         fid = int(cur.lastrowid)
         con.executemany("INSERT INTO baseline_forecasts(forecast_id, baseline, forecast, lower, upper) VALUES (?,?,?,?,?)",
                         [(fid, b, *v) for b, v in f.baselines.items()])
+        replaced += _replace_older(con, run_id, fid, f, study)
         n += 1
-    return n
+    return n, replaced
