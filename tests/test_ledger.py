@@ -32,7 +32,7 @@ from lagsieve.ledger.forecast import next_year_forecast
 from lagsieve.ledger.store import connect, open_readonly, resolve_ledger_path
 from lagsieve.ledger.revisions import tolerance_of
 from lagsieve.ledger.study_data import StudyData
-from lagsieve.ledger.track import data_changes, since_previous_run, track_record
+from lagsieve.ledger.track import data_changes, scores_by_grade, since_previous_run, track_record
 from lagsieve.ledger.update import grade_rows, update_ledger, write_run
 from lagsieve.ledger.section import Block, LedgerSection
 from lagsieve.report.render import ledger_section_html, render_ledger_section
@@ -560,14 +560,25 @@ def test_cli_prints_the_track_record(history, capsys):
     con = open_readonly(d.db)
     tr = track_record(con, STUDY)
     con.close()
-    assert len(out) == 2 + len(tr)
+    con = open_readonly(d.db)
+    by_grade = scores_by_grade(con, STUDY)
+    n_rev = len(q(d.db, "SELECT DISTINCT series FROM revisions WHERE run_id = 3"))
+    con.close()
+    # header, track, by-grade heading + header + groups, revisions heading + one line per series
+    assert len(out) == 2 + len(tr) + 2 + len(by_grade) + 1 + n_rev
     for t in tr.itertuples():
         line = next(x for x in out if f"{t.response} <- {t.driver} " in x)
         assert line.split()[3:7] == [str(t.made), str(t.open), str(t.scored), str(t.superseded)]
         # skill against the baseline each forecast was built on
-        assert line.split()[9] == (f"{t.skill_hardest:+.2f}" if t.scored else "-")
-    assert out[1].split() == ["hypothesis", "made", "open", "scored", "superseded", "inside", "mae",
-                              "skill_own_baseline"] + [f"skill_{b}" for b in BASELINES] + ["last"]
+        assert line.split()[11] == (f"{t.skill_hardest:+.2f}" if t.scored else "-")
+    assert out[1].split() == ["hypothesis", "made", "open", "scored", "superseded", "inside", "mae", "crps",
+                              "interval_score", "skill_own_baseline"] + [f"skill_{b}" for b in BASELINES] + ["last"]
+    at = out.index("scores by the grade each forecast had when made:")
+    assert out[at + 1].split()[:3] == ["grade", "made", "scored"]
+    assert [x.split()[0] for x in out[at + 2: at + 2 + len(by_grade)]] == \
+        [g.replace(" ", "-") for g in by_grade["grade"]]
+    assert out[at + 2 + len(by_grade)] == "values restated at the latest run (1):"
+    assert out[-1].startswith("  m:age3-4: 1 value restated, median change 25%, largest 25% (2.9 se)")
     # the default results folder is results/ beside the config, as for `lagsieve run`
     assert main(["ledger", str(d.config)]) == 0
 
@@ -869,3 +880,36 @@ def test_ledger_tolerance_out_of_range_is_one_line_naming_the_key(tmp_path):
     assert "\n" not in line and "ledger.restatement_tolerance.relative" in line and "maximum of 1" in line
     assert tolerance_of(cfg | {"ledger": {}}) == tolerance_of({})  # defaults from the schema
     assert (tolerance_of({}).se, tolerance_of({}).relative) == (0.5, 0.02)
+
+
+def test_scores_by_grade_are_the_proper_scores_of_the_forecasts_of_each_grade(history):
+    """Recompute the by-grade table from the ledger's rows: the Gaussian forecast's sd from the
+    interval (scipy.stats.norm.ppf), the CRPS by quadrature of its definition (scipy.integrate),
+    the interval score by its formula (Gneiting & Raftery 2007, eq. 43)."""
+    from scipy import integrate  # only here: the quadrature reference of this one test
+    d = history["d"]
+    rows = pd.DataFrame(q(d.db, "SELECT f.grade, f.forecast, f.lower, f.upper, f.level, s.observed, s.error, "
+                                "s.inside FROM forecasts f JOIN scores s USING (forecast_id)"))
+    assert len(rows) and set(rows["grade"]) - {"strong", "moderate"}, "forecasts of other grades are scored too"
+    sd = (rows["upper"] - rows["lower"]) / (2 * stats.norm.ppf(0.9))
+
+    def crps(mu, s, y):
+        F = stats.norm(mu, s).cdf
+        return (integrate.quad(lambda x: F(x) ** 2, -np.inf, y)[0]
+                + integrate.quad(lambda x: (1 - F(x)) ** 2, y, np.inf)[0])
+
+    rows["crps"] = [crps(m, s_, y) for m, s_, y in zip(rows["forecast"], sd, rows["observed"])]
+    rows["is"] = (rows["upper"] - rows["lower"]) + 10 * ((rows["lower"] - rows["observed"]).clip(lower=0)
+                                                         + (rows["observed"] - rows["upper"]).clip(lower=0))
+    rows["group"] = rows["grade"].where(rows["grade"].isin(["strong", "moderate"]), "other grades")
+    con = open_readonly(d.db)
+    got = scores_by_grade(con, STUDY).set_index("grade")
+    con.close()
+    for name, g in rows.groupby("group"):
+        assert got.loc[name, "scored"] == len(g)
+        assert got.loc[name, "mae"] == pytest.approx(g["error"].abs().mean(), rel=1e-12)
+        assert got.loc[name, "coverage"] == pytest.approx(g["inside"].mean(), rel=1e-12)
+        assert got.loc[name, "crps"] == pytest.approx(g["crps"].mean(), rel=1e-6)
+        assert got.loc[name, "interval_score"] == pytest.approx(g["is"].mean(), rel=1e-12)
+    html = ledger_section_html(d.db, STUDY, history["r2024"]["evidence"])
+    assert "Scores by grade when the forecast was made" in html and "<td>other grades</td>" in html
