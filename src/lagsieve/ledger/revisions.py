@@ -39,7 +39,8 @@ class Tolerance:
 def tolerance_of(raw: dict) -> Tolerance:
     """``ledger.restatement_tolerance`` of a raw config (:attr:`Study.raw`), the schema's
     defaults filled in."""
-    tol = fill_defaults(raw)["ledger"]["restatement_tolerance"]
+    given = dict(raw.get("ledger") or {})  # an absent section gets its keys' defaults too
+    tol = fill_defaults({**raw, "ledger": given})["ledger"]["restatement_tolerance"]
     return Tolerance(se=float(tol["se"]), relative=float(tol["relative"]))
 
 
