@@ -276,3 +276,32 @@ def test_demo_decoys_fall_to_their_rival(demo_run):
         assert ev.loc[key, "rival"] == ""
     cond = pd.read_csv(out / "conditional.csv")
     assert list(cond.columns) == CONDITIONAL_COLUMNS
+
+
+def test_controls_enter_every_test():
+    """A control series is held fixed in every conditional test: a driver that only echoes the
+    control is capped with the control named, even without any rival driver; the true driver,
+    which the control does not explain, keeps its grade. Each row's partial r is checked
+    against the residual-on-residual OLS on both conditioning series (statsmodels)."""
+    table = _decoy_world(seed=23).rename(columns={"same": "ctrl"})
+    ev = pd.DataFrame({"response": "R", "driver": ["true"], "grade": "strong", "lag": [0], "flags": ""})
+    drivers = [{"id": "true", "expected_sign": "positive"}]
+    cond = conditional_table(ev, table, drivers, {"true": [0, 1, 2]}, SCREEN, controls={"ctrl": 0})
+    assert cond["competitor"].tolist() == ["ctrl"] and bool(cond["keeps_support"].iloc[0])
+    # now the echo is the driver and the true driver the control
+    ev2 = pd.DataFrame({"response": "R", "driver": ["ctrl", "ahead"], "grade": ["strong", "weak"], "lag": [0, 1],
+                        "flags": ""})
+    drivers2 = [{"id": "ctrl", "expected_sign": "positive"}, {"id": "ahead", "expected_sign": "positive"}]
+    cond2 = conditional_table(ev2, table, drivers2, {"ctrl": [0, 1, 2], "ahead": [0, 1, 2]}, SCREEN,
+                              controls={"true": 0})
+    assert cond2["competitor"].tolist() == ["ahead+true"]
+    out = cap_by_rivals(ev2, cond2)
+    assert out.loc[out.driver == "ctrl", "grade"].iloc[0] == "weak"
+    row = cond2.iloc[0]
+    k = int(row["partial_lag"])
+    Z = np.column_stack([table["ahead"].shift(1), table["true"]])
+    x, y = table["ctrl"].shift(k).to_numpy(), table["R"].to_numpy()
+    ok = ~(np.isnan(x) | np.isnan(y) | np.isnan(Z).any(axis=1))
+    Zc = sm.add_constant(Z[ok])
+    ref = np.corrcoef(sm.OLS(x[ok], Zc).fit().resid, sm.OLS(y[ok], Zc).fit().resid)[0, 1]
+    assert row["partial_r"] == pytest.approx(ref, rel=1e-10)

@@ -106,19 +106,23 @@ def conditional_pair(table: pd.DataFrame, rid: str, driver: dict, lags: list[int
 
 
 def conditional_table(ev: pd.DataFrame, table: pd.DataFrame, drivers: list[dict], lags: dict[str, list[int]],
-                      screen: dict) -> pd.DataFrame:
+                      screen: dict, controls: dict[str, int] | None = None) -> pd.DataFrame:
     """Every driver graded strong or moderate given every other driver of its response graded
-    weak or better, one at a time (``CONDITIONAL_COLUMNS``); ``lags``: driver id -> lags tried."""
+    weak or better, one at a time (``CONDITIONAL_COLUMNS``); ``lags``: driver id -> lags tried.
+
+    ``controls`` (series id -> lag with the response; columns of ``table``) are accounted for
+    in every test: each competitor enters together with them, and a driver without a rival is
+    tested given the controls alone (the ``competitor`` column joins the ids with ``+``)."""
     config = {d["id"]: d for d in drivers}
+    controls = dict(controls or {})
     rows = []
     for rid, grp in ev.groupby("response", sort=True):
         rivals = grp[grp["grade"].isin(RIVAL_GRADES) & grp["lag"].notna()]
         for d in grp.loc[grp["grade"].isin(TESTED_GRADES) & grp["lag"].notna()].to_dict("records"):
-            for c, lc in zip(rivals["driver"], rivals["lag"]):
-                if c == d["driver"]:
-                    continue
+            sets = [{c: int(lc), **controls} for c, lc in zip(rivals["driver"], rivals["lag"]) if c != d["driver"]]
+            for given in sets or ([controls] if controls else []):
                 rows.append(conditional_pair(table, rid, config[d["driver"]], lags[d["driver"]], int(d["lag"]),
-                                             {c: int(lc)}, screen))
+                                             given, screen))
     out = pd.DataFrame(rows, columns=CONDITIONAL_COLUMNS)
     out["keeps_support"] = [keeps_support(r, screen["alpha"]) for r in out.to_dict("records")]
     return out
