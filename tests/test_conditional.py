@@ -24,7 +24,7 @@ from scipy import stats as sps
 
 from helpers import ar1
 from lagsieve.evidence import vocabulary
-from lagsieve.evidence.grading import collinear_partners, driver_correlations
+from lagsieve.evidence.grading import collinear_partners, driver_correlations, summary_sentence
 from lagsieve.evidence.rivals import (
     CONDITIONAL_COLUMNS,
     cap_by_rivals,
@@ -305,3 +305,12 @@ def test_controls_enter_every_test():
     Zc = sm.add_constant(Z[ok])
     ref = np.corrcoef(sm.OLS(x[ok], Zc).fit().resid, sm.OLS(y[ok], Zc).fit().resid)[0, 1]
     assert row["partial_r"] == pytest.approx(ref, rel=1e-10)
+
+
+def test_summary_names_the_rival_of_a_capped_driver():
+    """The one-sentence summary says which driver explains the same signal, with the skill added
+    given it; a driver without a rival says nothing of one (the vocabulary's rule)."""
+    row = {"grade": "weak", "lag": 0, "r": 0.5, "oos_skill": 0.2, "oos_n": 20, "q_value": 0.01,
+           "rival": "bottom_temp", "rival_added_skill": -0.153}
+    assert "capped at weak: bottom_temp explains the same signal (skill added given it -0.15)" in summary_sentence(row)
+    assert "capped" not in summary_sentence(dict(row, rival="", rival_added_skill=np.nan))
