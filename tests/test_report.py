@@ -63,6 +63,8 @@ def demo_report(tmp_path_factory):
     src = REPO / "config" / "config.yaml"
     raw = yaml.safe_load(src.read_text(encoding="utf-8"))
     raw["inputs"] = [str((src.parent / p).resolve()) for p in raw["inputs"]]
+    if raw.get("condition"):
+        raw["condition"]["samples"] = [str((src.parent / p).resolve()) for p in raw["condition"]["samples"]]
     raw["screen"]["surrogates"] = 99
     raw.setdefault("report", {})["top"] = 2
     cfg = write_config(base / "config.yaml", raw)
