@@ -8,6 +8,7 @@ the installation to see the one-line message for a missing internal file.
 """
 from __future__ import annotations
 
+import ast
 import os
 import re
 import shutil
@@ -42,8 +43,11 @@ def _imports_in(folders) -> set[str]:
     names = set()
     for folder in folders:
         for py in folder.rglob("*.py"):
-            text = py.read_text(encoding="utf-8")
-            names |= set(re.findall(r"^\s*(?:import|from)\s+([A-Za-z_]\w*)", text, flags=re.M))
+            for node in ast.walk(ast.parse(py.read_text(encoding="utf-8"))):  # real imports, never prose
+                if isinstance(node, ast.Import):
+                    names |= {a.name.split(".")[0] for a in node.names}
+                elif isinstance(node, ast.ImportFrom) and node.level == 0 and node.module:
+                    names.add(node.module.split(".")[0])
     return names
 
 

@@ -7,8 +7,8 @@ hauls per survey and 18 fish per haul. The log weight of a fish is the length-we
 a haul effect, a season effect (lowest in spring), a year effect of its age group and its own
 noise (:func:`lagsieve.condition.simulate.simulate_fish`). The year effect of the two older
 groups follows the forage fish biomass of the year before, linearly in log biomass; the
-youngest group's follows nothing but noise. The draws come from their own generator, derived
-from the demo's seed, so the other demo files do not change with these parameters.
+youngest group's follows nothing but noise. The draws come from their own generator (derived
+from the demo's seed), so the other demo files do not change with these parameters.
 """
 from __future__ import annotations
 
