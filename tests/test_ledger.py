@@ -913,3 +913,13 @@ def test_scores_by_grade_are_the_proper_scores_of_the_forecasts_of_each_grade(hi
         assert got.loc[name, "interval_score"] == pytest.approx(g["is"].mean(), rel=1e-12)
     html = ledger_section_html(d.db, STUDY, history["r2024"]["evidence"])
     assert "Scores by grade when the forecast was made" in html and "<td>other grades</td>" in html
+
+
+def test_lagsieve_ledger_with_a_wrong_tolerance_is_one_line_and_exit_2(tmp_path, capsys):
+    cfg = yaml.safe_load(demo_config_text("data"))
+    cfg["ledger"] = {"restatement_tolerance": {"se": -0.5}}
+    p = tmp_path / "config.yaml"
+    p.write_text(yaml.safe_dump(cfg))
+    assert main(["ledger", str(p), "--out", str(tmp_path / "results")]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "ledger.restatement_tolerance.se" in err[0] and "minimum of 0" in err[0]

@@ -1,7 +1,7 @@
 """The forecast ledger's file: SQLite schema, opening (with the upgrade of older ledgers),
 write transactions, and reading tables back as data frames.
 
-Every year the ledger writes down what the supported hypotheses predict for the next year
+Every year the ledger writes down what every hypothesis that can forecast predicts for the next year
 (:mod:`lagsieve.ledger.forecast`) and scores those predictions when the year arrives
 (:mod:`lagsieve.ledger.update`); :mod:`lagsieve.ledger.track` reads the record back.
 
