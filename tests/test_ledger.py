@@ -735,8 +735,10 @@ def test_a_ledger_from_a_newer_lagsieve_is_one_clear_error(tmp_path):
     con.execute("UPDATE meta SET value = '9' WHERE key = 'schema_version'")
     con.commit()
     con.close()
+    raw = db.read_bytes()
     with pytest.raises(InputErrors) as exc:
         connect(db)
+    assert db.read_bytes() == raw  # never overwritten
     line = str(exc.value)
     assert "\n" not in line and str(db) in line and "schema version 9" in line and "update lagsieve" in line
 
