@@ -44,7 +44,6 @@ from lagsieve.ledger.revisions import Tolerance, beyond, beyond_words, cell_chan
 from lagsieve.ledger.store import connect, resolve_ledger_path, transaction
 from lagsieve.ledger.study_data import StudyData
 
-GRADED = ("strong", "moderate")  # the supported grades; hypotheses of every grade are forecast
 SCREEN_KEYS = ("alpha", "fdr", "min_overlap", "surrogates", "seed", "weights")  # recorded with every run
 # the run key hashes the grade rows under their schema-1 column names, so that a ledger
 # upgraded from schema 1 recognises a rerun on unchanged data and evidence
