@@ -33,6 +33,13 @@ planted, harder cases (rho = 0.5 and 0.7, planted lag 1 only)
   planted_trend_drv the driver is a linear rise of 2 noise sd + AR(1) noise (phi 0.5),
                     standardised; y_t = b x_{t-k} + e_t (a real effect carried by a trend)
 
+decoys (``--decoys``: worlds of three drivers, graded with the rival check as the pipeline does)
+  the true driver x (AR(1), phi 0.5; or, "trending", plus a rise of 2 noise sd) acts at lag 1
+  with rho = 0.7; a same-year decoy d0_t = c x_t + sqrt(1 - c^2) u_t and a shifted decoy
+  d1_t = c x_{t-1} + sqrt(1 - c^2) v_t (which at lag 0 echoes x at lag 1), c = 0.5, 0.8;
+  u, v white; n = 40. Reported: P(strong or moderate) of each driver, and how often a decoy
+  is capped with the true driver named as its rival.
+
 Every driver is screened with expected_sign 'any' (no sign stated beforehand), so nothing
 is gained from a known direction.
 
@@ -75,7 +82,8 @@ import pandas as pd
 from statsmodels.stats.proportion import proportion_confint
 
 from lagsieve.io.config import SCREEN_DEFAULTS
-from lagsieve.evidence.grading import build_evidence
+from lagsieve.evidence.grading import build_evidence, finish_evidence, grade_hypotheses
+from lagsieve.evidence.rivals import cap_by_rivals, conditional_table
 from lagsieve.screen.hypothesis import screen_hypothesis
 
 LAGS = [0, 1, 2]
@@ -194,6 +202,62 @@ def run_world(task: tuple) -> dict:
                    status=f"error: {type(exc).__name__}: {exc}")
     out["seconds"] = time.perf_counter() - t0
     return out
+
+
+DECOY_CS = (0.5, 0.8)
+DECOY_IDS = ("drv", "echo_same", "echo_shift")
+
+
+def simulate_decoys(n: int, rng: np.random.Generator, c: float, trending: bool):
+    """(table with the response and three drivers) of one decoy world (see the module docstring)."""
+    m = n + LEAD
+    x = ar1(rng, m, DRIVER_PHI)
+    if trending:
+        x = _standardised(x + TREND_RISE * np.arange(m) / (m - 1))
+    b = 0.7 / np.sqrt(1.0 - 0.49)
+    y = np.full(m, np.nan)
+    y[1:] = b * x[:-1] + rng.normal(size=m - 1)
+    y[:LEAD] = np.nan
+    k = np.sqrt(1.0 - c * c)
+    same = c * x + k * rng.normal(size=m)
+    shift = np.r_[rng.normal(), c * x[:-1] + k * rng.normal(size=m - 1)]
+    years = pd.Index(np.arange(1970, 1970 + m), name="year")
+    return pd.DataFrame({"resp": y, "drv": x, "echo_same": same, "echo_shift": shift}, index=years)
+
+
+def run_decoy_world(task: tuple) -> dict:
+    """Screen the three drivers of one decoy world, grade them with the rival check."""
+    cell_id, rep, seed, c, trending, n, surrogates = task
+    data_seed, surr_seed = np.random.SeedSequence([seed, 1000 + cell_id, rep]).generate_state(2)
+    table = simulate_decoys(n, np.random.default_rng(data_seed), c, trending)
+    scr = screen_settings(["linear"], surrogates)
+    scr["seed"] = int(surr_seed)
+    drivers = [{"id": d, "expected_sign": "any"} for d in DECOY_IDS]
+    out = {"cell": cell_id, "rep": rep}
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        hyps = [screen_hypothesis(table, {"id": "resp"}, d, LAGS, scr)[1] for d in drivers]
+        graded = grade_hypotheses(pd.DataFrame(hyps), table, scr)
+        cond = conditional_table(graded, table, drivers, {d: LAGS for d in DECOY_IDS}, scr)
+        ev = finish_evidence(cap_by_rivals(graded, cond), table, scr).set_index("driver")
+    for d in DECOY_IDS:
+        out[f"grade_{d}"] = ev.loc[d, "grade"]
+        out[f"rival_{d}"] = str(ev.loc[d].get("rival", "") or "")
+    return out
+
+
+def summarise_decoys(tasks: list[tuple], results: pd.DataFrame) -> list[str]:
+    """Markdown rows: per cell, P(strong or moderate) of each driver and P(capped by drv)."""
+    rows = ["| world | c | n | worlds | true driver | same-year decoy | shifted decoy | decoy capped, rival named |",
+            "| --- | ---: | ---: | ---: | --- | --- | --- | --- |"]
+    for cell_id, c, trending, n in sorted({(t[0], t[3], t[4], t[5]) for t in tasks}):
+        r = results[results["cell"] == cell_id]
+        m = len(r)
+        sm = {d: rate(int(r[f"grade_{d}"].isin(["strong", "moderate"]).sum()), m) for d in DECOY_IDS}
+        capped = int(sum((r[f"rival_{d}"] == "drv").sum() for d in DECOY_IDS[1:]))
+        rows.append(f"| {'trending' if trending else 'stationary'} | {c:.1f} | {n} | {m} | {fmt(*sm['drv'])} | "
+                    f"{fmt(*sm['echo_same'])} | {fmt(*sm['echo_shift'])} | {fmt(*rate(capped, 2 * m))} |")
+    return rows
 
 
 def _init_worker():
@@ -360,10 +424,14 @@ def main(argv=None) -> int:
     ap.add_argument("--processes", type=int, default=2)
     ap.add_argument("--n", default=None, help="only these record lengths, e.g. '40' or '25,60' (default all)")
     ap.add_argument("--out", default=None,
-                    help="output stem (default bench/out/calibration, or calibration_linear_gam with gam; "
-                         "bench/out/ is not tracked)")
+                    help="output stem (default bench/out/calibration, or calibration_linear_gam with gam, or "
+                         "calibration_decoys with --decoys; bench/out/ is not tracked)")
+    ap.add_argument("--decoys", action="store_true",
+                    help="only the decoy worlds (three drivers each, graded with the rival check), n = 40")
     args = ap.parse_args(argv)
     reps = 40 if args.quick else args.reps
+    if args.decoys:
+        return main_decoys(args, reps)
     models = [m.strip() for m in args.models.split(",") if m.strip()]
     if not set(models) <= {"linear", "gam"} or "linear" not in models:
         ap.error("--models must be 'linear' or 'linear,gam'")
@@ -408,6 +476,39 @@ def main(argv=None) -> int:
     res.to_csv(stem.parent / (stem.name + "_worlds.csv"), index=False, float_format="%.6g")
     print(md)
     print(f"wrote {stem.with_suffix('.md')}, {stem.with_suffix('.csv')} and {stem.name}_worlds.csv")
+    return 0
+
+
+def _pool_map(fn, tasks: list, processes: int) -> list:
+    t0, out = time.time(), []
+    if processes <= 1:
+        _init_worker()
+        return [fn(t) for t in tasks]
+    with mp.get_context("fork").Pool(processes, initializer=_init_worker) as pool:
+        for i, r in enumerate(pool.imap_unordered(fn, tasks, chunksize=2)):
+            out.append(r)
+            if (i + 1) % 100 == 0:
+                print(f"  {i + 1}/{len(tasks)} worlds, {time.time() - t0:.0f} s", file=sys.stderr, flush=True)
+    return out
+
+
+def main_decoys(args, reps: int) -> int:
+    """The decoy worlds: echoes of the true driver must not be carried forward (issue 16)."""
+    stem = Path(args.out) if args.out else Path(__file__).resolve().parent / "out" / "calibration_decoys"
+    stem.parent.mkdir(parents=True, exist_ok=True)
+    cl = [(c, trending) for trending in (False, True) for c in DECOY_CS]
+    tasks = [(i, rep, args.seed, c, trending, 40, args.surrogates) for i, (c, trending) in enumerate(cl)
+             for rep in range(reps)]
+    t0 = time.time()
+    res = pd.DataFrame(_pool_map(run_decoy_world, tasks, args.processes)).sort_values(["cell", "rep"])
+    wall = time.time() - t0
+    md = "\n".join([f"## lagsieve calibration: decoys that echo the true driver, {reps} worlds per cell", "",
+                     f"linear; lags {LAGS}; {args.surrogates} surrogates; rival check as in the pipeline; seed "
+                     f"{args.seed}. Cells are P(strong or moderate) with {CI}. Wall time {wall:.0f} s on "
+                     f"{args.processes} processes.", "", *summarise_decoys(tasks, res), ""])
+    stem.with_suffix(".md").write_text(md, encoding="utf-8")
+    res.to_csv(stem.parent / (stem.name + "_worlds.csv"), index=False)
+    print(md)
     return 0
 
 
