@@ -22,6 +22,7 @@ from lagsieve.condition.series import input_frame, read_condition
 from lagsieve.condition.settings import ConditionSettings, check_condition, series_ids
 from lagsieve.errors import InputErrors, InputProblem, report_problems, suggest
 from lagsieve.evidence.grading import finish_evidence, grade_hypotheses
+from lagsieve.evidence.models import model_table
 from lagsieve.evidence.rivals import cap_by_rivals, conditional_table
 from lagsieve.io.config import Study, load_study
 from lagsieve.io.names import slug
@@ -435,7 +436,8 @@ def response_dirs(work: str | Path, study: Study) -> dict[str, Path]:
 # ---------------------------------------------------------------- evidence
 def run_evidence(config_path, annual_csv, work_dir, out_screen, out_evidence) -> None:
     """Stage `evidence`: study-wide q-values, flags, grades (strong and moderate capped when the
-    strongest rival explains the same signal) and ranks; ``conditional.csv`` beside evidence.csv."""
+    strongest rival explains the same signal) and ranks; ``conditional.csv`` and ``models.csv``
+    (the multi-driver model sets) beside evidence.csv."""
     study = load_study(config_path)
     table = load_table(study, annual_csv)
     dirs = response_dirs(work_dir, study)
@@ -448,6 +450,7 @@ def run_evidence(config_path, annual_csv, work_dir, out_screen, out_evidence) ->
     write_csv(ordered(scr, SCREEN_COLUMNS), out_screen)
     write_csv(ordered(ev, EVIDENCE_COLUMNS), out_evidence)
     write_csv(cond, Path(out_evidence).with_name("conditional.csv"))  # beside evidence.csv
+    write_csv(model_table(ev, table, study.screen), Path(out_evidence).with_name("models.csv"))
 
 
 # ---------------------------------------------------------------- report

@@ -14,6 +14,7 @@ rule evidence:
         screen=f"{OUT}/{{study}}/screen.csv",
         evidence=f"{OUT}/{{study}}/evidence.csv",
         conditional=f"{OUT}/{{study}}/conditional.csv",
+        models=f"{OUT}/{{study}}/models.csv",
     log:
         f"{OUT}/{{study}}/logs/evidence.log",
     conda:
