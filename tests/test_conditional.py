@@ -294,7 +294,9 @@ def test_controls_enter_every_test():
     drivers2 = [{"id": "ctrl", "expected_sign": "positive"}, {"id": "ahead", "expected_sign": "positive"}]
     cond2 = conditional_table(ev2, table, drivers2, {"ctrl": [0, 1, 2], "ahead": [0, 1, 2]}, SCREEN,
                               controls={"true": 0})
-    assert cond2["competitor"].tolist() == ["ahead+true"]
+    # ctrl given ahead (and the control), and the reverse test of the weak rival: ahead given ctrl
+    assert cond2["competitor"].tolist() == ["ahead+true", "ctrl+true"]
+    assert cond2["driver"].tolist() == ["ctrl", "ahead"]
     out = cap_by_rivals(ev2, cond2)
     assert out.loc[out.driver == "ctrl", "grade"].iloc[0] == "weak"
     row = cond2.iloc[0]
@@ -314,3 +316,22 @@ def test_summary_names_the_rival_of_a_capped_driver():
            "rival": "bottom_temp", "rival_added_skill": -0.153}
     assert "capped at weak: bottom_temp explains the same signal (skill added given it -0.15)" in summary_sentence(row)
     assert "capped" not in summary_sentence(dict(row, rival="", rival_added_skill=np.nan))
+
+
+def test_a_pair_that_cannot_be_told_apart_keeps_the_stronger_alone():
+    """Neither of a and b keeps its support given the other (each tested given the other): the one
+    with the larger |r| alone keeps its grade, the other is capped and names it. If the rival
+    survives the driver, the driver is capped whatever its |r| (the rival explains its signal)."""
+    ev = pd.DataFrame({"response": "R", "driver": ["a", "b"], "grade": ["strong", "weak"], "r": [-0.62, 0.55],
+                       "flags": ""})
+    lost = dict(added_skill=-0.02, keeps_support=False)
+    cond = pd.DataFrame([_cond(driver="a", competitor="b", **lost), _cond(driver="b", competitor="a", **lost)])
+    out = cap_by_rivals(ev, cond)
+    assert dict(zip(out.driver, out.grade)) == {"a": "strong", "b": "weak"}
+    assert dict(zip(out.driver, out.rival)) == {"a": "", "b": ""}  # b was weak alone: nothing to cap
+    out = cap_by_rivals(ev.assign(r=[0.5, 0.55]), cond)  # b is stronger alone: a is capped and names b
+    assert dict(zip(out.driver, out.grade)) == {"a": "weak", "b": "weak"} and out.rival.tolist() == ["b", ""]
+    kept = cond.copy()
+    kept.loc[kept.driver == "b", ["added_skill", "keeps_support"]] = [0.1, True]  # b survives a
+    out = cap_by_rivals(ev, kept)
+    assert out.grade.tolist() == ["weak", "weak"] and out.rival.tolist() == ["b", ""]
