@@ -513,6 +513,7 @@ def run_report(config_path, annual_csv, notes_csv, work_dir, screen_csv, evidenc
     from lagsieve.report.html import build_report  # matplotlib: see above
     from lagsieve.report.pdf import write_report_pdf  # matplotlib: see above
     from lagsieve.report.condition import read_outputs  # matplotlib (figures): see above
+    from lagsieve.report.rivals import read_outputs as read_rivals  # matplotlib (figures): see above
 
     t0 = time.time() if started is None else started
     study = load_study(config_path)
@@ -530,7 +531,7 @@ def run_report(config_path, annual_csv, notes_csv, work_dir, screen_csv, evidenc
         since = ledger_section(resolve_ledger_path(study, Path(out_report).parent), study, evidence)
         html, figs = build_report(study, table, screen, evidence, forecasts, nulls, notes, prov, figures_dir,
                                   annual=annual, renderer=renderer, since=since,
-                                  condition=read_outputs(condition))
+                                  condition=read_outputs(condition), rivals=read_rivals(evidence_csv))
         write_text(html, out_report)
         renderer.write_svgs()  # the SVG copies are written by the workers while the PDF is made
         if pdf_wanted(study):

@@ -28,6 +28,8 @@ def lead_words(lag) -> str:
 # ----------------------------------------------------------------------------- plain words
 def _weak_reason(row: dict, flags: list[str]) -> str:
     sk = row.get("oos_skill")
+    if "explained-by-rival" in flags and text(row.get("rival")):
+        return f"weak: {text(row.get('rival'))} explains the same signal"
     if "failed-retest" in flags:
         return "weak: no skill when re-tested on the latest years"
     if not is_missing(sk) and float(sk) <= 0:
@@ -90,6 +92,7 @@ class Context:
     units: dict = field(default_factory=dict)
     invented: bool = False
     condition: dict | None = None   # the condition stage's outputs (report.condition.read_outputs)
+    rivals: dict | None = None      # conditional.csv and models.csv (report.rivals.read_outputs)
 
     @classmethod
     def of(cls, study, table, screen, evidence, forecasts, nulls, notes, provenance,

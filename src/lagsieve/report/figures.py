@@ -538,10 +538,32 @@ def condition_sensitivity(groups: list[str], thresholds: list[float], years, sha
     return fig
 
 
+def variance_fractions(fractions: list[float], labels: list[str], response: str, invented: bool = False):
+    """Variance partition of two drivers as horizontal bars: the part of the response's variance
+    unique to each driver, the part they share, and the part neither explains (adjusted R^2
+    fractions; a negative shared fraction is drawn as it is, left of zero)."""
+    names = [f"unique to {mpl_text(_short(labels[0], 30))}", "shared", f"unique to {mpl_text(_short(labels[1], 30))}",
+             "unexplained"]
+    colours = [DRIVER_COLOUR, SMOOTH_COLOUR, RESPONSE_COLOUR, "#b9bec2"]
+    v = np.asarray(fractions, float)
+    fig, ax = plt.subplots(figsize=PANEL_SIZE, layout="constrained")
+    pos = np.arange(len(v))[::-1]
+    ax.barh(pos, np.nan_to_num(v), color=colours, height=0.6)
+    for y, x in zip(pos, v):
+        if np.isfinite(x):
+            ax.text(max(x, 0) + 0.01, y, f"{x:.0%}", va="center", fontsize=7.5)
+    ax.set_yticks(pos, names)
+    ax.axvline(0, color=INK, linewidth=0.8)
+    ax.set_xlim(min(0.0, float(np.nanmin(v)) - 0.05) if np.isfinite(v).any() else 0.0, 1.1)
+    ax.set_xlabel(f"share of the variance of {mpl_text(_short(response, 40))} (adjusted R\u00b2)")
+    _mark_invented(fig, invented)
+    return fig
+
+
 BUILDERS = {f.__name__: f for f in (coverage, driver_correlation, evidence_grid, overlay, scatter,
                                     lag_profile, forecasts, null_distributions, gam_effect,
                                     condition_fit, condition_indices, condition_design,
-                                    condition_sensitivity)}
+                                    condition_sensitivity, variance_fractions)}
 
 
 # ----------------------------------------------------------------------------- rendering

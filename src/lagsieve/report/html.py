@@ -22,6 +22,7 @@ import pandas as pd
 from lagsieve.ledger.section import LedgerSection
 from lagsieve.report import figures as fg
 from lagsieve.report import condition as cond
+from lagsieve.report import rivals as rv
 from lagsieve.report import sections
 from lagsieve.report.context import Context
 from lagsieve.report.exports import write_tables
@@ -36,7 +37,8 @@ def render_page(ctx: Context, figs: dict, plan, since: LedgerSection | None = No
                   figs=figs, shortened=plan.shortened, summary=sections.summary(ctx), table=sections.evidence_table(ctx),
                   hypotheses=sections.hypotheses(ctx, plan.panels), data=sections.data(ctx), since=since,
                   methods=sections.methods(ctx, plan.tables), provenance=sections.provenance(ctx),
-                  condition=cond.section(ctx.condition)) + "\n"
+                  condition=cond.section(ctx.condition),
+                  rivals=rv.section(ctx.rivals, ctx.study.response_ids, ctx.label)) + "\n"
 
 
 def _clear(figures_dir: Path) -> None:
@@ -48,7 +50,7 @@ def _clear(figures_dir: Path) -> None:
 def build_report(study, table, screen, evidence, forecasts, nulls, notes, provenance, figures_dir,
                  annual: pd.DataFrame | None = None, workers: int = 1,
                  renderer: fg.FigureRenderer | None = None, since: LedgerSection | None = None,
-                 condition: dict | None = None) -> tuple[str, dict]:
+                 condition: dict | None = None, rivals: dict | None = None) -> tuple[str, dict]:
     """Render the report HTML; write its figures (PNG 300 dpi and SVG) and tables (CSV) under
     ``figures_dir``. Returns (html, figures) where figures maps name -> (base64 PNG, size).
 
@@ -57,13 +59,16 @@ def build_report(study, table, screen, evidence, forecasts, nulls, notes, proven
     written before this returns, using ``workers`` processes. ``since``: the ledger's section
     "Since the previous run" (:func:`lagsieve.ledger.section.ledger_section`), placed after the
     data section; None leaves it out. ``condition``: the condition stage's outputs
-    (:func:`lagsieve.report.condition.read_outputs`), shown in a section of their own."""
+    (:func:`lagsieve.report.condition.read_outputs`), shown in a section of their own. ``rivals``:
+    conditional.csv and models.csv (:func:`lagsieve.report.rivals.read_outputs`), the competing
+    explanations after the leading hypotheses."""
     figures_dir = Path(figures_dir)
     _clear(figures_dir)
     ctx = Context.of(study, table, screen, evidence, forecasts, nulls, notes, provenance, annual=annual)
-    ctx.condition = condition
+    ctx.condition, ctx.rivals = condition, rivals
     plan = plan_figures(ctx)
     plan.jobs += cond.plan_condition(condition, ctx.invented, int(study.screen["seed"]))
+    plan.jobs += rv.plan_rivals(rivals, ctx.label, ctx.invented)
     figs = fg.render_jobs(plan.jobs, figures_dir, workers=workers) if renderer is None else renderer.draw(plan.jobs)
     write_tables(ctx, plan, figures_dir)
     provenance.setdefault("finished", time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()))

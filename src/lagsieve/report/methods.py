@@ -56,6 +56,20 @@ REF = {
                   "J. Pharmacokinet. Biopharm. 15:657-680.",
     "fisher": "Fisher, R.A. (1921) On the \"probable error\" of a coefficient of correlation deduced from a "
               "small sample. Metron 1:3-32.",
+    "freedman": "Freedman, D. & Lane, D. (1983) A nonstochastic interpretation of reported significance levels. "
+                "J. Bus. Econ. Stat. 1:292-298.",
+    "anderson": "Anderson, M.J. & Legendre, P. (1999) An empirical comparison of permutation methods for tests of "
+                "partial regression coefficients in a linear model. J. Stat. Comput. Simul. 62:271-303.",
+    "beach": "Beach, C.M. & MacKinnon, J.G. (1978) A maximum likelihood procedure for regression with "
+             "autocorrelated errors. Econometrica 46:51-58.",
+    "hurvich": "Hurvich, C.M. & Tsai, C.-L. (1989) Regression and time series model selection in small samples. "
+               "Biometrika 76:297-307.",
+    "burnham": "Burnham, K.P. & Anderson, D.R. (2002) Model Selection and Multimodel Inference, 2nd ed. "
+               "Springer, New York.",
+    "borcard": "Borcard, D., Legendre, P. & Drapeau, P. (1992) Partialling out the spatial component of ecological "
+               "variation. Ecology 73:1045-1055.",
+    "peresneto": "Peres-Neto, P.R., Legendre, P., Dray, S. & Borcard, D. (2006) Variation partitioning of species "
+                 "data matrices: estimation and comparison of fractions. Ecology 87:2614-2625.",
     "wood": "Wood, S.N. (2017) Generalized Additive Models: An Introduction with R, 2nd ed. "
             "Chapman & Hall/CRC, Boca Raton.",
 }
@@ -99,7 +113,7 @@ def methods_facts(ctx: Context) -> dict:
             "surrogate_method": sc.get("surrogate_method", "phase"), "surrogates": int(sc["surrogates"]),
             "keep_trend": bool(sc.get("surrogate_keep_trend", True)), "n_hypotheses": len(ctx.evidence),
             "fdr": sc["fdr"], "alpha": sc["alpha"], "inverse_variance": sc.get("weights") == "inverse-variance",
-            "seed": sc["seed"], "condition": _condition_facts(ctx)}
+            "seed": sc["seed"], "condition": _condition_facts(ctx), "rivals": ctx.rivals is not None}
 
 
 def _condition_facts(ctx: Context) -> dict | None:
@@ -120,6 +134,9 @@ def cited(facts: dict) -> list[str]:
         refs += ["eilers", "craven", "kimgu", "wood", "westfall"]
     refs += ["ebisuzaki", "theiler"] if facts["surrogate_method"] == "phase" else ["buhlmann"]
     refs += ["tashman", "bergmeir", "clarkwest", "dm", "hln", "bh", "dormann"]
+    if facts.get("rivals"):
+        refs += ["freedman", "anderson", "clarkwest", "beach", "hurvich", "burnham", "borcard",
+                 "peresneto"]
     return refs + (["lecren", "huber", "froese", "kish", "raowu"] if facts.get("condition") else [])
 
 
