@@ -59,6 +59,9 @@ def test_two_drivers_that_each_survive_the_other_are_named_together():
     words = rv.mutual(cond, label)
     assert len(words) == 1 and "each keep their support given the other" in words[0]
     assert "bottom oxygen <O2>" in words[0] and "spring temperature" in words[0]
+    cond["keeps_support"] = False
+    assert rv.mutual(cond, label) == ["bottom oxygen <O2> and spring temperature carry the same signal: "
+                                      "neither adds enough given the other"]
 
 
 def test_matrix_full_and_in_summary_form():

@@ -87,11 +87,17 @@ def sentence(row: dict, label) -> str:
 
 
 def mutual(cond: pd.DataFrame, label) -> list[str]:
-    """Sentences for pairs of drivers that each keep their support given the other."""
-    kept = {(r["driver"], r["competitor"]) for r in cond.to_dict("records")
-            if r.get("keeps_support") in (True, "True", "true", 1)}
-    return [f"{label(a)} and {label(b)} each keep their support given the other: the data do not choose between "
-            f"them, and both keep their grades" for a, b in sorted(kept) if a < b and (b, a) in kept]
+    """Sentences for pairs of drivers tested both ways: each keeps its support given the other,
+    or neither does (they carry the same signal)."""
+    done = {(r["driver"], r["competitor"]): r.get("keeps_support") in (True, "True", "true", 1)
+            for r in cond.to_dict("records")}
+    out = []
+    for (a, b), kept in sorted(done.items()):
+        if a < b and (b, a) in done and kept == done[(b, a)]:
+            out.append(f"{label(a)} and {label(b)} each keep their support given the other: the data do not choose "
+                       f"between them, and both keep their grades" if kept else
+                       f"{label(a)} and {label(b)} carry the same signal: neither adds enough given the other")
+    return out
 
 
 def matrix(cond: pd.DataFrame, label) -> dict:
