@@ -501,7 +501,8 @@ def run_report(config_path, annual_csv, notes_csv, work_dir, screen_csv, evidenc
                out_pdf=None, threads: int | None = None, condition=None) -> None:
     """Stage `report`: figures and tables under ``figures_dir``, the self-contained HTML
     report, its PDF copy (``out_pdf``, default ``report.pdf`` beside the report, unless the
-    config sets ``report.pdf: false``) and provenance.json.
+    config sets ``report.pdf: false``), the editable annex ``report.docx`` beside it (unless
+    ``report.docx: false``) and provenance.json.
 
     ``threads``: worker processes for drawing the figures (default: up to 4 CPUs).
     ``condition``: the condition stage's outputs (paths), shown in a section of their own.
@@ -527,10 +528,14 @@ def run_report(config_path, annual_csv, notes_csv, work_dir, screen_csv, evidenc
     prov = _report_provenance(study, annual_csv, dirs, t0)
     workers = threads if threads else min(4, os.cpu_count() or 1)
     pdf_path = Path(out_pdf) if out_pdf else Path(out_report).with_name("report.pdf")
+    docx_path = Path(out_report).with_name("report.docx")
+    if docx_path.is_file():  # written again below when wanted; a copy left by an earlier run would be stale
+        docx_path.unlink()
     with FigureRenderer(figures_dir, workers) as renderer:
         since = ledger_section(resolve_ledger_path(study, Path(out_report).parent), study, evidence)
         html, figs = build_report(study, table, screen, evidence, forecasts, nulls, notes, prov, figures_dir,
                                   annual=annual, renderer=renderer, since=since,
+                                  docx_path=docx_path if study.report["docx"] else None,
                                   condition=read_outputs(condition), rivals=read_rivals(evidence_csv))
         write_text(html, out_report)
         renderer.write_svgs()  # the SVG copies are written by the workers while the PDF is made

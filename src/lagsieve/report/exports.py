@@ -1,4 +1,4 @@
-"""The tables written beside the figures (CSV): evidence, summary, evidence map, coverage,
+"""The tables written beside the figures (CSV): evidence, the annex summary, evidence map, coverage,
 driver correlations, lag profiles and the figure manifest."""
 from __future__ import annotations
 
@@ -6,10 +6,9 @@ from pathlib import Path
 
 import pandas as pd
 
-from lagsieve.evidence.vocabulary import SUPPORTED
 from lagsieve.io.files import write_csv
-from lagsieve.report.context import Context, set_aside_reason, summary_line
-from lagsieve.formats import text
+from lagsieve.report.annex import annex_frame
+from lagsieve.report.context import Context
 from lagsieve.report.plan import Plan
 
 FIGURE_WORDS = {
@@ -28,22 +27,9 @@ LAG_TABLE_COLUMNS = ("response", "driver", "lag", "model", "n", "r", "n_eff", "r
                      "r_detrended", "p_surrogate_lag")
 
 
-def summary_rows(ctx: Context) -> pd.DataFrame:
-    """The summary of the page as a table: per hypothesis, supported or set aside, and why."""
-    rows = []
-    for row in ctx.evidence.sort_values(["response", "rank"]).to_dict("records"):
-        supported = row.get("grade") in SUPPORTED
-        rows.append({"response": row["response"], "rank": row.get("rank"), "driver": row["driver"],
-                     "driver_label": ctx.label(row["driver"]), "lag": row.get("lag"), "grade": row.get("grade"),
-                     "status": "supported" if supported else "set aside",
-                     "words": summary_line(row) if supported else set_aside_reason(row),
-                     "flags": text(row.get("flags"))})
-    return pd.DataFrame(rows)
-
-
 def write_tables(ctx: Context, plan: Plan, figures_dir: Path) -> None:
     write_csv(ctx.evidence, figures_dir / "evidence_table.csv")
-    write_csv(summary_rows(ctx), figures_dir / "summary.csv")
+    write_csv(annex_frame(ctx), figures_dir / "summary.csv")  # the annex summary (report.annex)
     if "evidence_map" in plan.tables:
         write_csv(plan.tables["evidence_map"].reset_index(), figures_dir / "evidence_map.csv")
     for name in ("coverage", "driver_correlations"):

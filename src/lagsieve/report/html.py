@@ -1,7 +1,8 @@
 """The evidence report: one self-contained HTML file per study (figures embedded as data URIs,
 inline CSS and script, nothing fetched), figure and table exports, and a PDF copy (pdf.py).
 
-Layout of the page, top to bottom (templates/page.html): heading and cautions; summary in plain
+Layout of the page, top to bottom (templates/page.html): heading and cautions; the annex
+summary in management units (annex.py); summary in plain
 words per response; the study-wide evidence map; the ranked evidence table (sortable,
 filterable) with the grade and flag legends; panels for the leading hypotheses of each
 response; data coverage and driver collinearity; the forecast ledger's "Since the previous
@@ -14,12 +15,14 @@ in escaping could not run a script or fetch anything.
 """
 from __future__ import annotations
 
+import logging
 import time
 from pathlib import Path
 
 import pandas as pd
 
 from lagsieve.ledger.section import LedgerSection
+from lagsieve.report import annex
 from lagsieve.report import figures as fg
 from lagsieve.report import condition as cond
 from lagsieve.report import rivals as rv
@@ -37,8 +40,21 @@ def render_page(ctx: Context, figs: dict, plan, since: LedgerSection | None = No
                   figs=figs, shortened=plan.shortened, summary=sections.summary(ctx), table=sections.evidence_table(ctx),
                   hypotheses=sections.hypotheses(ctx, plan.panels), data=sections.data(ctx), since=since,
                   methods=sections.methods(ctx, plan.tables), provenance=sections.provenance(ctx),
-                  condition=cond.section(ctx.condition),
+                  condition=cond.section(ctx.condition), annex=annex.section(ctx),
                   rivals=rv.section(ctx.rivals, ctx.study.response_ids, ctx.label)) + "\n"
+
+
+def write_document(ctx: Context, figs: dict, path: Path) -> bool:
+    """``report.docx`` (report.document); without python-docx, one line in the log and False."""
+    try:
+        # imported here: a missing python-docx (an optional library) costs the document only, not the report
+        from lagsieve.report.document import write_docx
+    except ImportError:
+        logging.getLogger(__name__).warning("report.docx not written: python-docx is not installed "
+                                            "(pip install python-docx)")
+        return False
+    write_docx(ctx, figs, path)
+    return True
 
 
 def _clear(figures_dir: Path) -> None:
@@ -50,7 +66,7 @@ def _clear(figures_dir: Path) -> None:
 def build_report(study, table, screen, evidence, forecasts, nulls, notes, provenance, figures_dir,
                  annual: pd.DataFrame | None = None, workers: int = 1,
                  renderer: fg.FigureRenderer | None = None, since: LedgerSection | None = None,
-                 condition: dict | None = None, rivals: dict | None = None) -> tuple[str, dict]:
+                 docx_path: Path | None = None, condition: dict | None = None, rivals: dict | None = None) -> tuple[str, dict]:
     """Render the report HTML; write its figures (PNG 300 dpi and SVG) and tables (CSV) under
     ``figures_dir``. Returns (html, figures) where figures maps name -> (base64 PNG, size).
 
@@ -71,5 +87,7 @@ def build_report(study, table, screen, evidence, forecasts, nulls, notes, proven
     plan.jobs += rv.plan_rivals(rivals, ctx.label, ctx.invented)
     figs = fg.render_jobs(plan.jobs, figures_dir, workers=workers) if renderer is None else renderer.draw(plan.jobs)
     write_tables(ctx, plan, figures_dir)
+    if docx_path is not None:
+        write_document(ctx, figs, docx_path)
     provenance.setdefault("finished", time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()))
     return render_page(ctx, figs, plan, since), figs

@@ -38,7 +38,10 @@ def _write_weasyprint(html_text: str, path: str | Path) -> None:
     for name in ("weasyprint", "weasyprint.progress", "fontTools", "fontTools.subset"):
         logging.getLogger(name).setLevel(logging.ERROR)
     with atomic_path(path) as tmp:
-        weasyprint.HTML(string=html_text, base_url=str(Path(path).parent)).write_pdf(str(tmp))
+        # pdf_tags: a tagged PDF (structure tree, reading order, alt texts) where the installed
+        # WeasyPrint offers it (an option of recent versions; older ones write an untagged PDF)
+        tags = {"pdf_tags": True} if "pdf_tags" in getattr(weasyprint, "DEFAULT_OPTIONS", {}) else {}
+        weasyprint.HTML(string=html_text, base_url=str(Path(path).parent)).write_pdf(str(tmp), **tags)
 
 
 def write_pdf(html_text: str, path: str | Path, *, study_id: str, title: str, summary: list[str],

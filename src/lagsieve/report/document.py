@@ -1,0 +1,129 @@
+"""The editable annex document, ``report.docx`` (python-docx): the study's heading and
+provenance line, the cautions, the annex summary tables (report.annex), the grade rules, the
+methods text with its references and the key figures with captions. Headings use the word
+processor's own styles (Title, Heading 1, Heading 2), so its navigation pane and table of
+contents find them; tables use the built-in "Table Grid" style.
+"""
+from __future__ import annotations
+
+import base64
+import io
+from pathlib import Path
+
+from docx import Document
+from docx.enum.section import WD_ORIENT
+from docx.shared import Cm, Pt
+
+from lagsieve.io.files import atomic_path
+from lagsieve.io.names import pair_slug
+from lagsieve.report import annex
+from lagsieve.report.context import Context
+from lagsieve.report.exports import FIGURE_WORDS
+from lagsieve.report.methods import methods_paragraphs, reference_list
+from lagsieve.report.sections import CAUTIONS
+
+FIGURE_WIDTH = Cm(24)  # landscape A4 less its margins
+
+
+def key_figures(figs: dict, ctx: Context) -> list[tuple[str, str]]:
+    """(figure name, caption) of the figures the document carries: the evidence map, then the
+    forecasts of the best-ranked hypothesis of each response."""
+    out = [("evidence_map", "Evidence map: " + FIGURE_WORDS["evidence_grid"] + ".")] if "evidence_map" in figs else []
+    for rid in ctx.study.response_ids:
+        sub = ctx.evidence[(ctx.evidence["response"] == rid) & ctx.evidence["lag"].notna()].sort_values("rank")
+        for row in sub.head(1).to_dict("records"):
+            name = f"{pair_slug(rid, row['driver'])}__forecasts"
+            if name in figs:
+                out.append((name, f"{ctx.label(rid)} and {ctx.label(row['driver'])}: "
+                                  f"{FIGURE_WORDS['forecasts']}."))
+    return out
+
+
+def _landscape(doc) -> None:
+    sec = doc.sections[0]
+    sec.orientation = WD_ORIENT.LANDSCAPE
+    sec.page_width, sec.page_height = Cm(29.7), Cm(21.0)
+    for side in ("left_margin", "right_margin", "top_margin", "bottom_margin"):
+        setattr(sec, side, Cm(1.5))
+    doc.styles["Normal"].font.size = Pt(9)
+
+
+def _heading_part(doc, ctx: Context) -> None:
+    st, prov = ctx.study, ctx.provenance
+    doc.add_heading(f"Driver screening: {st.raw.get('title') or st.id}", level=0)
+    doc.add_paragraph(f"Study {st.id} · lagsieve {prov.get('tool_version', '')} · report made "
+                      f"{prov.get('finished', prov.get('started', ''))} · config SHA-256 "
+                      f"{prov.get('config_sha256', '')} · seed {prov.get('seed', '')}")
+    if ctx.invented:
+        doc.add_paragraph().add_run("Invented data: every number in this study was made up to demonstrate "
+                                    "the tool; nothing here should be cited as a finding.").bold = True
+    doc.add_heading("Read with care", level=1)
+    for head, words in CAUTIONS:
+        p = doc.add_paragraph(style="List Bullet")
+        p.add_run(head + " ").bold = True
+        p.add_run(words)
+
+
+def _summary_part(doc, section: dict) -> None:
+    doc.add_heading("Annex summary", level=1)
+    doc.add_paragraph("For each response, every driver screened: the evidence in words (how sure the screening "
+                      "is of an association, not how large it is), the effect with its 95% interval in the "
+                      "response's units for the stated change of the driver or, for a driver not carried forward, "
+                      "the largest effect the data still allow, the forecast skill on years not used to fit, "
+                      "cautions, and a rival driver that explains the same signal.")
+    for resp in section["responses"]:
+        doc.add_heading(resp["label"] + (f" ({resp['unit']})" if resp["unit"] else ""), level=2)
+        table = doc.add_table(rows=1, cols=len(section["header"]), style="Table Grid")
+        for cell, name in zip(table.rows[0].cells, section["header"]):
+            cell.text = ""
+            cell.paragraphs[0].add_run(name).bold = True
+        for r in resp["rows"]:
+            values = annex.cells(r)
+            values[3] = f"{values[3]}. {r['statement']}"
+            for cell, value in zip(table.add_row().cells, values):
+                cell.text = value
+    for line in section["cautions"]:
+        doc.add_paragraph(line, style="List Bullet")
+
+
+def _rules_part(doc, section: dict) -> None:
+    doc.add_heading("Grade rules", level=1)
+    for code, words, rule in section["grade_rules"]:
+        p = doc.add_paragraph()
+        p.add_run(f"{words} ({code}): ").bold = True
+        p.add_run(rule)
+
+
+def _methods_part(doc, ctx: Context) -> None:
+    paragraphs, refs = methods_paragraphs(ctx)
+    doc.add_heading("Methods", level=1)
+    for text in paragraphs:
+        doc.add_paragraph(text)
+    doc.add_heading("References", level=2)
+    for ref in reference_list(refs):
+        doc.add_paragraph(ref)
+
+
+def _figures_part(doc, ctx: Context, figs: dict) -> None:
+    chosen = key_figures(figs, ctx)
+    if not chosen:
+        return
+    doc.add_heading("Key figures", level=1)
+    for k, (name, caption) in enumerate(chosen, start=1):
+        doc.add_picture(io.BytesIO(base64.b64decode(figs[name][0])), width=FIGURE_WIDTH)
+        doc.add_paragraph(f"Figure {k}. {caption}", style="Caption")
+
+
+def write_docx(ctx: Context, figs: dict, path: str | Path) -> None:
+    """Write ``report.docx`` for a report's context and its drawn figures (name -> (base64 PNG, size))."""
+    doc = Document()
+    _landscape(doc)
+    doc.core_properties.title = f"Driver screening: {ctx.study.raw.get('title') or ctx.study.id}"
+    _heading_part(doc, ctx)
+    section = annex.section(ctx)
+    _summary_part(doc, section)
+    _rules_part(doc, section)
+    _methods_part(doc, ctx)
+    _figures_part(doc, ctx, figs)
+    with atomic_path(path) as tmp:
+        doc.save(str(tmp))
