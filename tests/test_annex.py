@@ -170,3 +170,25 @@ def test_pdf_has_page_numbers_header_tags_and_no_heading_only_page(annex_run):
         body = [line for line in text.splitlines() if line.strip() and f"page {k} of" not in line
                 and "tiny_escape" not in line]
         assert len(body) > 1, f"page {k} holds only {body}"
+
+
+# ----------------------------------------------------------------------------- the methods text (fast)
+def test_methods_text_uses_labels_and_carries_the_grade_rules(tmp_path):
+    from lagsieve.evidence.vocabulary import GRADE_RULES
+    from lagsieve.report.context import Context
+    from lagsieve.report.methods import REF, methods_paragraphs, reference_list
+
+    from helpers import HOSTILE
+
+    study = load_study(tiny_config(tmp_path))
+    empty = pd.DataFrame()
+    ctx = Context.of(study, pd.DataFrame({"x": [1.0, 2.0]}, index=[1990, 2020]), empty, empty, empty, empty,
+                     empty, {})
+    paragraphs, refs = methods_paragraphs(ctx)
+    text = " ".join(paragraphs)
+    assert f"natural log for {HOSTILE}" in text and "forage_biomass" not in text  # the label, not the id
+    for rule in GRADE_RULES.values():
+        assert rule in text
+    # splines are screened in this study: the min-p combination and its reference travel with the text
+    assert "min-p rule (Westfall & Young 1993)" in text and REF["westfall"] in reference_list(refs)
+    assert "at every origin the baseline, the lag, the form (line or spline) and its smoothing" in text

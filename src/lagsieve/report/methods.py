@@ -1,9 +1,11 @@
-"""The methods text of a run: the facts it states (:func:`methods_facts`, plain data), the
+"""The methods text of a run: the facts it states (:func:`methods_facts`, plain data; series
+by their labels, the grade rules in full), the
 paragraphs rendered from ``templates/methods.txt`` and the references they cite."""
 from __future__ import annotations
 
 import pandas as pd
 
+from lagsieve.evidence.vocabulary import GRADE_RULES
 from lagsieve.report.context import Context
 from lagsieve.report.render import render_text
 
@@ -82,14 +84,14 @@ def _series_facts(ctx: Context) -> dict:
     for s in series:
         t = s.get("transform", "none")
         if t != "none":
-            transforms.setdefault(t, []).append(s["id"])
+            transforms.setdefault(t, []).append(ctx.label(s["id"]))
     return {"n_responses": len(st.responses), "n_drivers": len(st.drivers),
             "first_year": int(ctx.table.index.min()), "last_year": int(ctx.table.index.max()),
             "transforms": transforms,
-            "aggregates": [{"id": s["id"], "how": s["aggregate"].get("how", "mean"), "months": s["aggregate"]["months"]}
-                           for s in series if s.get("aggregate")],
-            "filled": [s["id"] for s in series if s.get("fill") == "linear"],
-            "own_lags": [{"id": d["id"], "lags": d["lags"]} for d in st.drivers if d.get("lags")]}
+            "aggregates": [{"label": ctx.label(s["id"]), "how": s["aggregate"].get("how", "mean"),
+                            "months": s["aggregate"]["months"]} for s in series if s.get("aggregate")],
+            "filled": [ctx.label(s["id"]) for s in series if s.get("fill") == "linear"],
+            "own_lags": [{"label": ctx.label(d["id"]), "lags": d["lags"]} for d in st.drivers if d.get("lags")]}
 
 
 def _validation_facts(ctx: Context) -> dict:
@@ -113,7 +115,7 @@ def methods_facts(ctx: Context) -> dict:
             "surrogate_method": sc.get("surrogate_method", "phase"), "surrogates": int(sc["surrogates"]),
             "keep_trend": bool(sc.get("surrogate_keep_trend", True)), "n_hypotheses": len(ctx.evidence),
             "fdr": sc["fdr"], "alpha": sc["alpha"], "inverse_variance": sc.get("weights") == "inverse-variance",
-            "seed": sc["seed"], "condition": _condition_facts(ctx), "rivals": ctx.rivals is not None}
+            "seed": sc["seed"], "condition": _condition_facts(ctx), "grade_rules": list(GRADE_RULES.items()), "rivals": ctx.rivals is not None}
 
 
 def _condition_facts(ctx: Context) -> dict | None:
