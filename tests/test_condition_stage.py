@@ -81,14 +81,16 @@ def test_condition_stage_writes_its_table_and_the_series_enter_the_annual_table(
 
 def test_plan_knows_which_responses_read_the_condition_table(new_study):
     planned = pipeline.plan_studies({"studies": [str(new_study)]})["caldrin_shelf_demo"]
-    assert planned.condition_responses == {"below--old", "below--young"}
+    assert planned.condition_responses == {"below--old", "kn--old", "kn--young"}
     assert [p.endswith("fish_samples.csv") for p in planned.sample_paths] == [True]
 
 
 def test_a_study_without_condition_plans_as_before(new_study):
     raw = yaml.safe_load(new_study.read_text(encoding="utf-8"))
     del raw["condition"]
-    raw["responses"] = [r for r in raw["responses"] if not r["id"].startswith("below:")]
+    raw["responses"] = [r for r in raw["responses"] if not r["id"].startswith(("below:", "kn:"))]
+    for d in raw["drivers"]:
+        d.pop("expected_sign_by_response", None)
     write_config(new_study, raw)
     planned = pipeline.plan_studies({"studies": [str(new_study)]})["caldrin_shelf_demo"]
     assert planned.condition is None and not planned.condition_responses and not planned.sample_paths
@@ -96,13 +98,17 @@ def test_a_study_without_condition_plans_as_before(new_study):
 
 @pytest.mark.slow
 def test_demo_condition_recovers_the_planted_prey_effect(demo_run):
-    """TRUTH.md: the share of old fish in poor condition follows forage biomass one year
-    earlier; the youngest group's follows nothing."""
+    """TRUTH.md: the share of old fish in poor condition and their relative condition follow
+    forage biomass one year earlier (the share falls, Kn rises with more prey: the config states
+    the sign per response); the youngest group's condition follows nothing."""
     assert PREY_BETA["old"] > 0 and PREY_BETA["young"] == 0
     _, res = demo_run
-    ev = pd.read_csv(res / "evidence.csv")
-    old = ev[(ev.response == "below:old") & (ev.driver == "forage_biomass")].iloc[0]
+    ev = pd.read_csv(res / "evidence.csv").set_index(["response", "driver"])
+    old = ev.loc[("below:old", "forage_biomass")]
     assert old["grade"] in ("strong", "moderate") and int(old["lag"]) == 1 and old["r"] < 0
-    young = ev[(ev.response == "below:young") & (ev.driver == "forage_biomass")].iloc[0]
-    assert young["grade"] not in ("strong", "moderate")
+    kn_old = ev.loc[("kn:old", "forage_biomass")]
+    assert kn_old["expected_sign"] == "positive" and kn_old["r"] > 0
+    assert kn_old["grade"] in ("strong", "moderate") and int(kn_old["lag"]) == 1
+    young = ev.xs("kn:young", level="response")
+    assert not young["grade"].isin(["strong", "moderate"]).any(), young["grade"]
     assert (res / "condition.csv").is_file() and (res / "condition_sensitivity.csv").is_file()

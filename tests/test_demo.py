@@ -79,7 +79,7 @@ def test_config_agrees_with_the_world():
     cfg = yaml.safe_load(demo_config_text("data"))
     assert cfg["invented"] is True and "invented" in cfg["title"]
     assert cfg["screen"]["seed"] == world.DEFAULT_SEED
-    assert [r["id"] for r in cfg["responses"]] == list(world.RESPONSE_IDS) + ["below:old", "below:young"]
+    assert [r["id"] for r in cfg["responses"]] == list(world.RESPONSE_IDS) + ["below:old", "kn:old", "kn:young"]
     by_id = {d["id"]: d for d in cfg["drivers"]}
     assert set(by_id) == set(world.DRIVER_IDS)
     for d_id, category, sign, transform, _file, label, unit in world.DRIVERS:
@@ -183,4 +183,4 @@ def test_truth_markdown_states_the_truth(data):
     assert r["detrended_r"] > 0.8 and f"{r['detrended_r']:+.2f} (0)" in text
     der = data.parameters["derived"]
     assert f"mean(spring_temp) = {der['spring_temperature_mean']:.4f} deg C" in text
-    assert "it should rank below `forage_biomass`.\n" in text and text.endswith("for `below:young`, no driver.\n")
+    assert "it should rank below `forage_biomass`.\n" in text and "for `kn:young` (ages 1-2), no driver." in text

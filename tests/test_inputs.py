@@ -1158,3 +1158,26 @@ def test_sha256_of_text_and_file(tmp_path):
     write_text("abc", path)
     assert sha256_file(path) == abc and sha256_file(path, chunk=1) == abc
     assert [p.name for p in tmp_path.iterdir()] == ["abc.txt"]  # no temporary file left
+
+
+def test_expected_sign_by_response_sets_the_sign_for_named_responses(tmp_path):
+    """Prey lowers M but raises condition: a driver's sign may differ by response. An id that is
+    not a response is one line naming the key (common practice: cross-references checked)."""
+    (tmp_path / "d.csv").write_text("year,m,k,x\n2000,1,2,3\n")
+    cfg = tmp_path / "c.yaml"
+    cfg.write_text("study: s1\ninputs: [d.csv]\nresponses: [{id: m}, {id: k}]\n"
+                   "drivers: [{id: x, expected_sign: negative, expected_sign_by_response: {k: positive}}]\n")
+    study = load_study(cfg)
+    assert [d["expected_sign"] for d in study.drivers_for("m")] == ["negative"]
+    assert [d["expected_sign"] for d in study.drivers_for("k")] == ["positive"]
+    cfg.write_text("study: s1\ninputs: [d.csv]\nresponses: [{id: m}, {id: k}]\n"
+                   "drivers: [{id: x, expected_sign_by_response: {kk: positive, m: upward}}]\n")
+    with pytest.raises(InputErrors) as info:
+        load_study(cfg)
+    lines = str(info.value).splitlines()
+    assert len(lines) == 1 and "drivers.0.expected_sign_by_response.m" in lines[0] and "positive" in lines[0]
+    cfg.write_text("study: s1\ninputs: [d.csv]\nresponses: [{id: m}, {id: k}]\n"
+                   "drivers: [{id: x, expected_sign_by_response: {kk: positive}}]\n")
+    with pytest.raises(InputErrors) as info:
+        load_study(cfg)
+    assert "key 'drivers.0.expected_sign_by_response'" in str(info.value) and "did you mean 'k'?" in str(info.value)

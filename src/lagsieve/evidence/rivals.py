@@ -33,6 +33,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from lagsieve.io.config import signed_for
 from lagsieve.prep.checks import MIN_FORECASTS
 from lagsieve.screen.hypothesis import backtest_windows, directed, driver_rng, surrogate_p
 from lagsieve.stats.conditional import nested_rolling_origin, partial_r_lags, residual_surrogates, shift_rows
@@ -129,7 +130,7 @@ def conditional_table(ev: pd.DataFrame, table: pd.DataFrame, drivers: list[dict]
     rows = []
     for rid, grp in ev.groupby("response", sort=True):
         for did, dlag, given in _pairs(grp, controls):
-            rows.append(conditional_pair(table, rid, config[did], lags[did], dlag, given, screen))
+            rows.append(conditional_pair(table, rid, signed_for(config[did], rid), lags[did], dlag, given, screen))
     out = pd.DataFrame(rows, columns=CONDITIONAL_COLUMNS)
     out["keeps_support"] = [keeps_support(r, screen["alpha"]) for r in out.to_dict("records")]
     return out

@@ -66,10 +66,20 @@ class Study:
         return {s["id"]: s.get("transform", "none") for s in self.responses + self.drivers}
 
     def drivers_for(self, response_id: str) -> list[dict]:
-        return [d for d in self.drivers if not d.get("responses") or response_id in d["responses"]]
+        """The drivers paired with a response, each with the sign expected for that response."""
+        return [signed_for(d, response_id) for d in self.drivers
+                if not d.get("responses") or response_id in d["responses"]]
 
     def lags_for(self, driver: dict) -> list[int]:
         return sorted(driver.get("lags") or self.screen["lags"])
+
+
+def signed_for(driver: dict, response_id: str) -> dict:
+    """The driver's entry with ``expected_sign`` as stated for ``response_id``: its
+    ``expected_sign_by_response`` entry where there is one (prey lowers M but raises condition),
+    else its ``expected_sign``."""
+    by = driver.get("expected_sign_by_response") or {}
+    return dict(driver, expected_sign=by[response_id]) if response_id in by else driver
 
 
 @functools.lru_cache(maxsize=1)
@@ -245,12 +255,13 @@ def _build(path: Path, raw: dict) -> Study:
     responses, drivers = full["responses"], full["drivers"]
     resp_ids = {r["id"] for r in responses}
     for i, d in enumerate(drivers):
-        for rid in d.get("responses", []) or []:
-            if rid not in resp_ids:
-                problems.append(InputProblem(
-                    what=f"names response '{rid}', which is not in responses",
-                    fix=f"use an id listed under responses ({suggest(rid, resp_ids, 'responses')})",
-                    file=shown, key=f"drivers.{i}.responses", series=d["id"]))
+        for key in ("responses", "expected_sign_by_response"):
+            for rid in d.get(key, []) or []:
+                if rid not in resp_ids:
+                    problems.append(InputProblem(
+                        what=f"names response '{rid}', which is not in responses",
+                        fix=f"use an id listed under responses ({suggest(rid, resp_ids, 'responses')})",
+                        file=shown, key=f"drivers.{i}.{key}", series=d["id"]))
     if problems:
         raise InputErrors(problems)
     ledger = (raw.get("ledger") or {}).get("path")
