@@ -1073,7 +1073,7 @@ def test_screen_defaults_come_from_the_schema():
         "fdr": 0.10, "alpha": 0.05, "weights": "none", "gam_trend": True, "validation": {},
     }
     assert screen_defaults() == SCREEN_DEFAULTS and screen_defaults() is not SCREEN_DEFAULTS
-    assert report_defaults() == {"top": 3, "pdf": True}
+    assert report_defaults() == {"top": 3, "pdf": True, "docx": True}
 
 
 def test_fill_defaults_keeps_given_values_and_the_original():
