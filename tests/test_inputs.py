@@ -1085,7 +1085,7 @@ def test_fill_defaults_keeps_given_values_and_the_original():
     assert raw == before  # not modified
     assert full["screen"] == dict(SCREEN_DEFAULTS, seed=7, lags=[2])
     assert list(full["screen"]) == list(SCREEN_DEFAULTS)  # schema order, as the report shows it
-    assert full["report"] == {"top": 3, "pdf": True}
+    assert full["report"] == {"top": 3, "pdf": True, "docx": True}
     assert full["responses"] == [{"kind": "other", "transform": "none", "id": "m", "unit": "1/yr"}]
     assert full["drivers"][0] == {"category": "other", "expected_sign": "any", "transform": "none",
                                   "id": "x", "aggregate": {"how": "mean", "months": [1, 2]},
