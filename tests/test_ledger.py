@@ -73,6 +73,8 @@ class Deliveries:
         cfg.pop("condition", None)
         cfg["responses"] = [r for r in cfg["responses"] if not r["id"].startswith(CONDITION_SERIES)]
         cfg["drivers"] = [d for d in cfg["drivers"] if not d["id"].startswith(CONDITION_SERIES)]
+        for d in cfg["drivers"]:  # signs stated for the condition series that left the study
+            d.pop("expected_sign_by_response", None)
         self.config = root / "config.yaml"
         self.config.write_text(yaml.safe_dump(cfg, sort_keys=False))
         self.out = root / "results" / STUDY

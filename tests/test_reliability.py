@@ -67,7 +67,7 @@ def test_failure_in_one_hypothesis_is_contained(tmp_path, monkeypatch, new_study
     _run_stages(cfg, tmp_path / "o")
     ev = pd.read_csv(tmp_path / "o" / "evidence.csv")
     bad = ev[ev.driver == "zooplankton_index"]
-    assert len(bad) == 5 and (bad.status == "failed: Singular matrix").all()  # every response of the demo
+    assert len(bad) == 6 and (bad.status == "failed: Singular matrix").all()  # every response of the demo
     assert (bad.grade == "insufficient-data").all() and (bad["flags"] == "failed").all()
     good = ev[ev.driver != "zooplankton_index"]
     assert (good.status == "ok").all() and good.oos_skill.notna().all()
