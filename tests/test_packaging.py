@@ -28,7 +28,7 @@ PYPROJECT = tomllib.loads((REPO / "pyproject.toml").read_text(encoding="utf-8"))
 SRC = REPO / "src" / "lagsieve"
 WORKFLOW = REPO / "workflow"
 # distribution name -> import name, where they differ
-IMPORT_NAME = {"pyyaml": "yaml", "pillow": "PIL", "scikit-learn": "sklearn"}
+IMPORT_NAME = {"pyyaml": "yaml", "pillow": "PIL", "scikit-learn": "sklearn", "python-docx": "docx"}
 # dependencies used without an import statement: distribution -> text in src/ that uses it
 USED_WITHOUT_IMPORT = {"snakemake": '"-m", "snakemake"',  # the CLI starts `python -m snakemake`
                        "pyarrow": "pd.read_parquet("}      # pandas' parquet engine
