@@ -72,6 +72,10 @@ REF = {
                "variation. Ecology 73:1045-1055.",
     "peresneto": "Peres-Neto, P.R., Legendre, P., Dray, S. & Borcard, D. (2006) Variation partitioning of species "
                  "data matrices: estimation and comparison of fractions. Ecology 87:2614-2625.",
+    "bartlett": "Bartlett, M.S. (1946) On the theoretical specification and sampling properties of "
+                "autocorrelated time-series. J. R. Stat. Soc. Suppl. 8:27-41.",
+    "gneiting": "Gneiting, T. & Raftery, A.E. (2007) Strictly proper scoring rules, prediction, and "
+                "estimation. J. Am. Stat. Assoc. 102:359-378.",
     "wood": "Wood, S.N. (2017) Generalized Additive Models: An Introduction with R, 2nd ed. "
             "Chapman & Hall/CRC, Boca Raton.",
 }
@@ -115,7 +119,8 @@ def methods_facts(ctx: Context) -> dict:
             "surrogate_method": sc.get("surrogate_method", "phase"), "surrogates": int(sc["surrogates"]),
             "keep_trend": bool(sc.get("surrogate_keep_trend", True)), "n_hypotheses": len(ctx.evidence),
             "fdr": sc["fdr"], "alpha": sc["alpha"], "inverse_variance": sc.get("weights") == "inverse-variance",
-            "seed": sc["seed"], "condition": _condition_facts(ctx), "grade_rules": list(GRADE_RULES.items()), "rivals": ctx.rivals is not None}
+            "seed": sc["seed"], "condition": _condition_facts(ctx), "grade_rules": list(GRADE_RULES.items()),
+            "rivals": ctx.rivals is not None}
 
 
 def _condition_facts(ctx: Context) -> dict | None:
@@ -139,7 +144,8 @@ def cited(facts: dict) -> list[str]:
     if facts.get("rivals"):
         refs += ["freedman", "anderson", "clarkwest", "beach", "hurvich", "burnham", "borcard",
                  "peresneto"]
-    return refs + (["lecren", "huber", "froese", "kish", "raowu"] if facts.get("condition") else [])
+    refs += (["lecren", "huber", "froese", "kish", "raowu"] if facts.get("condition") else [])
+    return refs + ["bartlett", "gneiting"]  # the forecast ledger's paragraph
 
 
 def methods_paragraphs(ctx: Context) -> tuple[list[str], list[str]]:
