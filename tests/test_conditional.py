@@ -335,3 +335,22 @@ def test_a_pair_that_cannot_be_told_apart_keeps_the_stronger_alone():
     kept.loc[kept.driver == "b", ["added_skill", "keeps_support"]] = [0.1, True]  # b survives a
     out = cap_by_rivals(ev, kept)
     assert out.grade.tolist() == ["weak", "weak"] and out.rival.tolist() == ["b", ""]
+
+
+def test_a_rival_that_explains_the_driver_caps_it_even_when_a_stronger_one_ties():
+    """The demo's case (share of old fish in poor condition): the shrimp index loses its support
+    given bottom temperature (least added skill) and given forage biomass. Temperature does not
+    survive shrimp either and is weaker alone, so that pair alone would leave shrimp's grade;
+    but forage biomass keeps its support given shrimp: forage explains shrimp's signal."""
+    ev = pd.DataFrame({"response": "R", "driver": ["forage", "shrimp", "temp"], "grade": ["strong", "moderate", "weak"],
+                       "r": [-0.89, -0.50, 0.30], "flags": ""})
+    cond = pd.DataFrame([
+        _cond(driver="forage", competitor="shrimp", added_skill=0.55),
+        _cond(driver="shrimp", competitor="forage", added_skill=-0.15, keeps_support=False),
+        _cond(driver="shrimp", competitor="temp", added_skill=-0.24, keeps_support=False),
+        _cond(driver="temp", competitor="shrimp", added_skill=-0.75, keeps_support=False),
+    ])
+    out = cap_by_rivals(ev, cond)
+    assert dict(zip(out.driver, out.grade)) == {"forage": "strong", "shrimp": "weak", "temp": "weak"}
+    assert out.loc[out.driver == "shrimp", "rival"].iloc[0] == "forage"
+    assert out.loc[out.driver == "shrimp", "rival_added_skill"].iloc[0] == pytest.approx(-0.15)

@@ -13,20 +13,20 @@ The strongest rival of a driver is the competitor given which the driver adds le
 sample skill (:func:`strongest_rival`). A driver keeps its support given a competitor
 (:func:`keeps_support`) when it still adds skill (> 0) with surrogate p of the added skill <=
 0.10, and its partial correlation has surrogate p <= alpha. A strong or moderate driver that
-does not keep its support given its strongest rival is capped at weak, flagged
-``explained-by-rival``, and the rival is named in the ``rival`` column (:func:`cap_by_rivals`),
-unless the pair cannot be told apart: each rival graded only weak is also tested given the
-driver, and when neither keeps its support given the other, the one with the larger |r| alone
-(in sample, over all its years: steadier than the skill of some 25 forecasts) keeps its grade
-and the other is capped and names it. Two drivers that each keep their support given the other
-both keep their grades.
+loses its support given a rival that wins is capped at weak, flagged ``explained-by-rival``,
+and the rival is named in the ``rival`` column (:func:`cap_by_rivals`). Each rival graded only
+weak is also tested given the driver; a rival given which the driver loses wins if it keeps its
+own support given the driver, or if neither survives the other and the rival has the larger |r|
+alone (in sample, over all its years: steadier than the skill of some 25 forecasts). Rivals are
+weighed strongest first and the first that wins is named. Two drivers that each keep their
+support given the other both keep their grades.
 
 Why the reverse test, measured with ``bench/calibration.py --decoys`` (n = 40, a true driver at
-r = 0.7 and two echoes of it at c = 0.8, 100 worlds per cell): capping on the driver's own test
-alone set aside 40% of true drivers (P(strong or moderate) 0.60) while keeping decoys at
-0.02-0.04; with the reverse test and the |r| tie-break the true driver keeps 0.84-0.92 and the
-decoys reach 0.06-0.09 (0.00-0.03 at c = 0.5). Deciding the tie by the skill alone instead gave
-0.78-0.80 and 0.09-0.14.
+r = 0.7 and two echoes of it at c = 0.8, 100 worlds per cell): capping on the driver's test given
+its strongest rival alone set aside 40% of true drivers (P(strong or moderate) 0.60) while keeping
+decoys at 0.02-0.04; weighing the rivals strongest first with the reverse test and the |r|
+tie-break, the true driver keeps 0.84-0.91 and the decoys reach 0.01-0.08 (0.00-0.02 at c = 0.5).
+Deciding the tie by the skill alone instead gave 0.78-0.80 and 0.09-0.14.
 """
 from __future__ import annotations
 
@@ -172,23 +172,34 @@ def strongest_rival(rows: pd.DataFrame) -> dict | None:
     return order.sort_values(["_a", "_p"], kind="mergesort").iloc[0].to_dict()
 
 
+def _winning_rival(rows: pd.DataFrame, support: dict, strength: dict, rid: str, did: str) -> dict | None:
+    """The rival that explains a driver's signal, strongest first (least added skill): one given
+    which the driver loses its support and that keeps its own support given the driver (or has
+    no reverse test), or that loses too but has the larger |r| alone; None if no rival wins."""
+    lost = rows[~rows["keeps_support"].astype(bool)]
+    while not lost.empty:
+        top = strongest_rival(lost)
+        back = support.get((rid, top["competitor"], did))
+        if back is not False or strength.get((rid, did), np.nan) < strength.get((rid, top["competitor"]), np.nan):
+            return top
+        lost = lost[lost["competitor"] != top["competitor"]]  # a pair neither survives: the stronger alone stays
+    return None
+
+
 def cap_by_rivals(ev: pd.DataFrame, cond: pd.DataFrame) -> pd.DataFrame:
-    """Grades that survive the strongest rival: a strong or moderate driver that does not keep
-    its support given its strongest rival becomes weak, gains the flag ``explained-by-rival``,
-    and its ``rival`` and ``rival_added_skill`` are recorded (empty / NaN otherwise)."""
+    """Grades that survive their rivals: a strong or moderate driver that a rival explains
+    (:func:`_winning_rival`) becomes weak, gains the flag ``explained-by-rival``, and its
+    ``rival`` and ``rival_added_skill`` are recorded (empty / NaN otherwise)."""
     ev = ev.copy()
     ev["rival"], ev["rival_added_skill"] = "", np.nan
     alone = ev["r"].abs() if "r" in ev else pd.Series(np.nan, index=ev.index)
-    skill = dict(zip(zip(ev["response"], ev["driver"]), alone))
+    strength = dict(zip(zip(ev["response"], ev["driver"]), alone))
     support = dict(zip(zip(cond["response"], cond["driver"], cond["competitor"]), cond["keeps_support"]))
     for (rid, did), rows in cond.groupby(["response", "driver"], sort=False):
-        top = strongest_rival(rows)
         hit = (ev["response"] == rid) & (ev["driver"] == did) & ev["grade"].isin(TESTED_GRADES)
-        if top is None or top["keeps_support"] or not hit.any():
+        top = _winning_rival(rows, support, strength, rid, did) if hit.any() else None
+        if top is None:
             continue
-        if support.get((rid, top["competitor"], did)) is False and \
-                skill.get((rid, did), np.nan) >= skill.get((rid, top["competitor"]), np.nan):
-            continue  # neither survives the other: the one with the larger |r| alone keeps its grade
         ev.loc[hit, "grade"] = "weak"
         ev.loc[hit, "rival"] = top["competitor"]
         ev.loc[hit, "rival_added_skill"] = top["added_skill"]

@@ -21,8 +21,9 @@ GRADE_RULES = {
                 "and moderate also require support kept given the strongest rival (the other driver of the "
                 "response graded weak or better given which this one adds least forecast skill): added skill "
                 "> 0 with surrogate p <= 0.10 and partial correlation with surrogate p <= alpha, both against "
-                "residual surrogates; a driver that loses it is weak and flagged explained-by-rival, unless the "
-                "rival also loses its support given this driver and this driver has the larger |r| alone.",
+                "residual surrogates; a driver that loses it given a rival that keeps its own support given this "
+                "driver (or that neither survives, with the larger |r| alone) is weak and flagged "
+                "explained-by-rival.",
     "weak": "some support (autocorrelation-adjusted p <= alpha, surrogate p <= 0.10, or positive skill "
             "with surrogate p of skill <= 0.20) but short of moderate, and none of the reasons below.",
     "no-forecast-skill": "in-sample evidence survives surrogates (surrogate p <= alpha), but out-of-sample "
