@@ -84,8 +84,8 @@ def statement(row: dict, rival_label: str) -> str:
     if g in SUPPORTED:
         words = f"{EVIDENCE_WORDS[g].capitalize()} of an association: {GRADE_WORDS[g]}."
     else:
-        words = f"Not carried forward: {set_aside_reason(row)}."
-    if rival_label:
+        words = f"Not carried forward: {set_aside_reason(row, lambda _: rival_label)}."
+    if rival_label and "explained-by-rival" not in text(row.get("flags")):  # else the reason names it already
         words += f" {rival_label} explains the same signal."
     return words
 

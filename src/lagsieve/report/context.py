@@ -26,10 +26,10 @@ def lead_words(lag) -> str:
 
 
 # ----------------------------------------------------------------------------- plain words
-def _weak_reason(row: dict, flags: list[str]) -> str:
+def _weak_reason(row: dict, flags: list[str], label=str) -> str:
     sk = row.get("oos_skill")
     if "explained-by-rival" in flags and text(row.get("rival")):
-        return f"weak: {text(row.get('rival'))} explains the same signal"
+        return f"weak: {label(text(row.get('rival')))} explains the same signal"
     if "failed-retest" in flags:
         return "weak: no skill when re-tested on the latest years"
     if not is_missing(sk) and float(sk) <= 0:
@@ -50,8 +50,9 @@ def not_computed_reason(row: dict, min_overlap: int = 0) -> str:
     return said[len(prefix):] if said.startswith(prefix) else insufficient_reason(row, min_overlap)
 
 
-def set_aside_reason(row: dict) -> str:
-    """A few words on why a hypothesis is not carried forward."""
+def set_aside_reason(row: dict, label=str) -> str:
+    """A few words on why a hypothesis is not carried forward; ``label`` names a series from its
+    id (a rival that explains the same signal is named)."""
     g, flags = text(row.get("grade")), flag_list(row.get("flags"))
     if g in SET_ASIDE:
         return GRADE_WORDS[g]
@@ -63,7 +64,7 @@ def set_aside_reason(row: dict) -> str:
             words += "; sign opposite to the one stated beforehand"
         return words
     if g == "weak":
-        return _weak_reason(row, flags)
+        return _weak_reason(row, flags, label)
     return GRADE_WORDS.get(g, g)
 
 

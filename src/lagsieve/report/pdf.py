@@ -121,7 +121,7 @@ def pdf_summary_lines(study, evidence: pd.DataFrame) -> list[str]:
         sub = evidence[evidence["response"] == rid].sort_values("rank")
         out.append(f"{labels.get(rid, rid)} ({rid})")
         for row in sub.to_dict("records"):
-            words = summary_line(row) if row.get("grade") in SUPPORTED else "set aside: " + set_aside_reason(row)
+            words = summary_line(row) if row.get("grade") in SUPPORTED else "set aside: " + set_aside_reason(row, lambda i: labels.get(i, i))
             out.append(f"    {labels.get(row['driver'], row['driver'])}, {words}")
     return out
 

@@ -81,7 +81,7 @@ def _with_condition(nav: list) -> list:
 def _aside_groups(ctx: Context, aside: pd.DataFrame) -> list[tuple[str, list[dict]]]:
     groups: dict[str, list[dict]] = {}
     for row in aside.to_dict("records"):
-        groups.setdefault(set_aside_reason(row), []).append(
+        groups.setdefault(set_aside_reason(row, ctx.label), []).append(
             {"summary": summary_line(row), "driver": ctx.label(row["driver"]), "lead": lead_words(row.get("lag"))})
     return [(reason[:1].upper() + reason[1:], who) for reason, who in groups.items()]
 
