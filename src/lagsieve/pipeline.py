@@ -458,6 +458,11 @@ def _iso(t: float) -> str:
     return time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime(t))
 
 
+def docx_wanted(study: Study) -> bool:
+    """``report.docx`` of the config (default true, from the schema)."""
+    return bool(study.report.get("docx", True))
+
+
 def pdf_wanted(study: Study) -> bool:
     """``report.pdf`` of the config; when the key is absent, a PDF is made."""
     value = (study.raw.get("report") or {}).get("pdf")

@@ -1,8 +1,10 @@
 # The report job: first the forecast ledger's update (stage `ledger`), then the report stage:
 # self-contained HTML, figures and tables (figures/), provenance and, unless the study config
 # sets `report.pdf: false`, a PDF copy (report.pdf beside the HTML).
-# report.pdf is a declared output when every study of the run wants it; in a run that mixes
-# studies with and without it, the PDFs are still written but not tracked by Snakemake.
+# report.pdf (and the editable report.docx) is a declared output when every study of the run
+# wants it; in a run that mixes studies with and without it, the files are still written but
+# not tracked by Snakemake.
+from lagsieve.pipeline import docx_wanted as _docx_wanted
 from lagsieve.pipeline import pdf_wanted as _pdf_wanted
 
 REPORT_INPUT = dict(
@@ -49,12 +51,14 @@ if STUDIES and all(_pdf_wanted(p.study) for p in STUDIES.values()):
         category="Report",
         labels={"study": "{study}", "file": "report (PDF)"},
     )
+if STUDIES and all(_docx_wanted(p.study) for p in STUDIES.values()):
+    REPORT_OUTPUT["docx"] = f"{OUT}/{{study}}/report.docx"
 
 
 rule report:
-    """Forecast ledger (record next-year forecasts of strong and moderate hypotheses, score and
-    supersede earlier ones), then the self-contained HTML report, its figures and tables, the
-    PDF copy and provenance."""
+    """Forecast ledger (record the next-year forecast of every hypothesis that can forecast,
+    score and supersede earlier ones), then the self-contained HTML report, its figures and
+    tables, the PDF copy, the editable annex document and provenance."""
     input:
         **REPORT_INPUT,
     output:
