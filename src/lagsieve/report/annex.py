@@ -124,13 +124,29 @@ def cells(r: dict) -> list[str]:
     return [driver, r["lead"], signs, r["evidence"], effect, r["skill_words"], r["caution_words"], r["rival_label"]]
 
 
+#: The grades the annex tables show a row for; every other driver is named on one line per
+#: reason under its response's table, so the summary stays short (summary.csv keeps every row).
+TABLE_GRADES = ("strong", "moderate", "weak")
+
+
+def _others(rows: list[dict]) -> list[tuple[str, list[str]]]:
+    """The drivers not in the table, grouped by the evidence words of their grade."""
+    groups: dict[str, list[str]] = {}
+    for r in rows:
+        groups.setdefault(r["evidence"], []).append(r["driver_label"])
+    return list(groups.items())
+
+
 def section(ctx: Context) -> dict:
-    """The data of ``templates/annex.html`` and of the document's summary."""
+    """The data of ``templates/annex.html`` and of the document's summary: per response the
+    drivers graded weak or better in a table, the others named on one line per reason."""
     frame = annex_frame(ctx)
     responses = []
     for rid in ctx.study.response_ids:
         rows = frame[frame["response"] == rid].to_dict("records") if len(frame) else []
         unit = ctx.units.get(rid, "")
-        responses.append({"id": rid, "label": ctx.label(rid), "unit": unit, "rows": rows})
+        responses.append({"id": rid, "label": ctx.label(rid), "unit": unit,
+                          "rows": [r for r in rows if r["grade"] in TABLE_GRADES],
+                          "others": _others([r for r in rows if r["grade"] not in TABLE_GRADES])})
     return {"responses": responses, "header": HEADER, "cautions": ANNEX_CAUTIONS,
             "grade_rules": [(g, EVIDENCE_WORDS[g], GRADE_RULES[g]) for g in GRADE_RULES]}

@@ -66,24 +66,36 @@ def _heading_part(doc, ctx: Context) -> None:
 
 def _summary_part(doc, section: dict) -> None:
     doc.add_heading("Annex summary", level=1)
-    doc.add_paragraph("For each response, every driver screened: the evidence in words (how sure the screening "
-                      "is of an association, not how large it is), the effect with its 95% interval in the "
+    doc.add_paragraph("For each response, the drivers with at least weak evidence: the evidence in words (how "
+                      "sure the screening is of an association, not how large it is; drivers with less than weak "
+                      "evidence are named under each table), the effect with its 95% interval in the "
                       "response's units for the stated change of the driver or, for a driver not carried forward, "
                       "the largest effect the data still allow, the forecast skill on years not used to fit, "
                       "cautions, and a rival driver that explains the same signal.")
     for resp in section["responses"]:
         doc.add_heading(resp["label"] + (f" ({resp['unit']})" if resp["unit"] else ""), level=2)
-        table = doc.add_table(rows=1, cols=len(section["header"]), style="Table Grid")
-        for cell, name in zip(table.rows[0].cells, section["header"]):
-            cell.text = ""
-            cell.paragraphs[0].add_run(name).bold = True
-        for r in resp["rows"]:
-            values = annex.cells(r)
-            values[3] = f"{values[3]}. {r['statement']}"
-            for cell, value in zip(table.add_row().cells, values):
-                cell.text = value
+        _summary_table(doc, section, resp)
+        if resp["others"]:
+            doc.add_paragraph("Not carried forward: " + "; ".join(f"{words}: {', '.join(names)}"
+                                                                   for words, names in resp["others"]) + ".")
     for line in section["cautions"]:
         doc.add_paragraph(line, style="List Bullet")
+
+
+def _summary_table(doc, section: dict, resp: dict) -> None:
+    """The annex table of one response (drivers graded weak or better), or a line saying none is."""
+    if not resp["rows"]:
+        doc.add_paragraph("No driver reaches weak evidence or better.")
+        return
+    table = doc.add_table(rows=1, cols=len(section["header"]), style="Table Grid")
+    for cell, name in zip(table.rows[0].cells, section["header"]):
+        cell.text = ""
+        cell.paragraphs[0].add_run(name).bold = True
+    for r in resp["rows"]:
+        values = annex.cells(r)
+        values[3] = f"{values[3]}. {r['statement']}"
+        for cell, value in zip(table.add_row().cells, values):
+            cell.text = value
 
 
 def _rules_part(doc, section: dict) -> None:
