@@ -55,7 +55,12 @@ class Workflow:
         cfg = yaml.safe_load(demo_config_text("data"))
         cfg["screen"].update(surrogates=19, models=["linear"])
         cfg["report"] = {"top": 1, "pdf": False}
+        # the M responses only: the condition stage (per-fish samples) has tests of its own
+        cfg.pop("condition", None)
+        cfg["responses"] = [r for r in cfg["responses"] if r["id"].startswith("m:")]
         cfg["drivers"] = [d for d in cfg["drivers"] if d["id"] in ("forage_biomass", "bottom_temp", "shrimp_index")]
+        for d in cfg["drivers"]:
+            d.pop("expected_sign_by_response", None)
         cfg["inputs"].append("data/local.csv")
         cfg["drivers"].append({"id": "local_index", "category": "other", "responses": ["m:age2"], "lags": [1]})
         self.config = root / "config.yaml"
