@@ -45,6 +45,9 @@ def test_skill_in_words_follows_the_skill_definition():
         "squared forecast error 69% lower than a trend-only forecast"
     assert skill_words({"oos_skill": -0.1, "oos_hardest": "climatology"}) == "no better than a mean-only forecast"
     assert skill_words({"oos_skill": float("nan")}) == "not tested"
+    # a positive skill that rounds to 0% is not called "0% lower"
+    assert skill_words({"oos_skill": 0.003, "oos_hardest": "trend"}) == \
+        "squared forecast error less than 1% lower than a trend-only forecast"
 
 
 def test_set_aside_effect_is_the_largest_allowed():

@@ -212,7 +212,8 @@ def _skill_words(row: dict) -> str:
     sk, n_oos = _get(row, "oos_skill"), int(_get(row, "oos_n", 0))
     hardest = row.get("oos_hardest") or "hardest"
     if sk > 0:
-        return f"squared forecast error {100 * sk:.0f}% below that of the {hardest} baseline over {n_oos} forecasts"
+        pct = f"{100 * sk:.0f}%" if sk >= 0.005 else "less than 1%"
+        return f"squared forecast error {pct} below that of the {hardest} baseline over {n_oos} forecasts"
     return f"no skill over the {hardest} baseline over {n_oos} forecasts"
 
 

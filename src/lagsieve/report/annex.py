@@ -62,7 +62,8 @@ def skill_words(row: dict) -> str:
     against = BASELINE_WORDS.get(base, base or "the baseline")
     if float(sk) <= 0:
         return f"no better than {against} forecast"
-    return f"squared forecast error {100 * float(sk):.0f}% lower than {against} forecast"
+    pct = f"{100 * float(sk):.0f}%" if float(sk) >= 0.005 else "less than 1%"
+    return f"squared forecast error {pct} lower than {against} forecast"
 
 
 def effect_words(row: dict) -> tuple[str, str]:
