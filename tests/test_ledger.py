@@ -43,6 +43,7 @@ from lagsieve.cli import main
 from lagsieve.io.config import load_study
 from lagsieve.io.names import slug
 from lagsieve.demo import demo_config_text, write_demo
+from lagsieve.prep.align import process_variance
 
 STUDY = "caldrin_shelf_demo"
 FILES = ("mortality_by_age.csv", "surveys_annual.csv", "indices_long.csv", "bottom_temperature_monthly.csv")
@@ -231,7 +232,10 @@ def test_weighted_forecast_matches_statsmodels_wls():
     se = pd.DataFrame({"r": np.linspace(0.1, 0.4, len(table)), "d": np.nan}, index=table.index)
     f, _ = next_year_forecast(table, table, {}, "r", "d", 1, "climatology", se=se, raw_se=se)
     rows = table.index.to_numpy()[1:]
-    w = 1 / se["r"].loc[rows].to_numpy() ** 2
+    # weights 1 / (process variance + se^2), the process variance by the method of moments on
+    # the training years (prep.align.process_variance, itself checked in tests/test_weights.py)
+    tau2 = process_variance(table["r"].loc[rows].to_numpy(), se["r"].loc[rows].to_numpy())
+    w = 1 / (tau2 + se["r"].loc[rows].to_numpy() ** 2)
     w = w / w.mean()
     X = np.column_stack([np.ones(len(rows)), table["d"].shift(1).loc[rows].to_numpy()])
     fit = sm.WLS(table["r"].loc[rows].to_numpy(), X, weights=w).fit()

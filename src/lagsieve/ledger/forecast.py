@@ -189,10 +189,11 @@ def _origin(table: pd.DataFrame, response: str, driver: str, lag: int) -> tuple[
 
 def training_set(table: pd.DataFrame, response: str, driver: str, lag: int, origin_year: int,
                  se: pd.DataFrame | None = None) -> TrainingSet:
-    """The training set of a forecast made at ``origin_year`` (weighted by 1/se^2 with ``se``)."""
+    """The training set of a forecast made at ``origin_year`` (weighted by 1/(process variance +
+    se^2) with ``se``, the process variance from the training years)."""
     years, y, ylag, rows = training_years(table, response, driver, lag, origin_year)
     x = table[driver].shift(lag).to_numpy(dtype=float)[rows]
-    wts = None if se is None else inverse_variance_weights(se[response].to_numpy(dtype=float)[rows])
+    wts = None if se is None else inverse_variance_weights(se[response].to_numpy(dtype=float)[rows], y=y)
     return TrainingSet(years, y, ylag, x, wts, float(table[response].loc[origin_year]), origin_year + 1)
 
 

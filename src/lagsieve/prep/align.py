@@ -55,13 +55,35 @@ def se_table(annual: pd.DataFrame, transforms: dict[str, str]) -> pd.DataFrame:
     return wide
 
 
-def inverse_variance_weights(se: np.ndarray, n_ref: int | None = None) -> np.ndarray:
-    """Weights 1 / se^2 scaled to mean 1 over the first ``n_ref`` values (default: all).
+def process_variance(y: np.ndarray, se: np.ndarray, n_ref: int | None = None) -> float:
+    """Year-to-year (process) variance of a response beyond its observation error, by the
+    method of moments on the first ``n_ref`` values (default: all): the variance of y around a
+    least-squares line in the year (n - 2 degrees of freedom) minus the mean of se^2, floored at
+    0. The same moment idea as the between-study variance of random-effects meta-analysis
+    (DerSimonian & Laird 1986, Control. Clin. Trials 7:177-188), here unweighted and around a
+    trend; the first training window alone, so that no later year enters an earlier forecast."""
+    n = len(y) if n_ref is None else int(n_ref)
+    yr, sr = np.asarray(y, float)[:n], np.asarray(se, float)[:n]
+    ok = np.isfinite(yr) & np.isfinite(sr)
+    if ok.sum() < 4:
+        return 0.0
+    t = np.flatnonzero(ok).astype(float)
+    resid = yr[ok] - np.polyval(np.polyfit(t, yr[ok], 1), t)
+    return float(max(0.0, resid @ resid / (ok.sum() - 2) - np.mean(sr[ok] ** 2)))
+
+
+def inverse_variance_weights(se: np.ndarray, n_ref: int | None = None, y: np.ndarray | None = None) -> np.ndarray:
+    """Weights 1 / (process variance + se^2) scaled to mean 1 over the first ``n_ref`` values
+    (default: all). With ``y`` the process variance is estimated (:func:`process_variance`);
+    without it the weights are 1 / se^2 alone, which gives precise years far too much weight
+    whenever the year-to-year variation is larger than the observation error.
 
     The scale does not change a weighted least-squares fit, but it does change a penalised
     one at a given smoothing parameter; scaling on the first training window keeps later
     years' standard errors out of earlier forecasts."""
-    w = 1.0 / np.asarray(se, float) ** 2
+    se = np.asarray(se, float)
+    tau2 = 0.0 if y is None else process_variance(y, se, n_ref)
+    w = 1.0 / (tau2 + se**2)
     return w / np.mean(w[: n_ref or len(w)])
 
 

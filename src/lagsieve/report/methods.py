@@ -76,6 +76,8 @@ REF = {
                 "autocorrelated time-series. J. R. Stat. Soc. Suppl. 8:27-41.",
     "gneiting": "Gneiting, T. & Raftery, A.E. (2007) Strictly proper scoring rules, prediction, and "
                 "estimation. J. Am. Stat. Assoc. 102:359-378.",
+    "dersimonian": "DerSimonian, R. & Laird, N. (1986) Meta-analysis in clinical trials. Control. Clin. Trials "
+                   "7:177-188.",
     "wood": "Wood, S.N. (2017) Generalized Additive Models: An Introduction with R, 2nd ed. "
             "Chapman & Hall/CRC, Boca Raton.",
 }
@@ -145,6 +147,7 @@ def cited(facts: dict) -> list[str]:
         refs += ["freedman", "anderson", "clarkwest", "beach", "hurvich", "burnham", "borcard",
                  "peresneto"]
     refs += (["lecren", "huber", "froese", "kish", "raowu"] if facts.get("condition") else [])
+    refs += ["dersimonian"] if facts.get("inverse_variance") else []
     return refs + ["bartlett", "gneiting"]  # the forecast ledger's paragraph
 
 

@@ -333,7 +333,7 @@ def _out_of_sample(hyp: dict, table, rid, did, lags, batch, screen, response_se)
     models = tuple(m for m in ("linear", "gam") if m in screen["models"])
     w = None
     if screen.get("weights") == "inverse-variance" and response_se is not None:
-        w = inverse_variance_weights(response_se[ff.rows], n_ref=initial)
+        w = inverse_variance_weights(response_se[ff.rows], n_ref=initial, y=ff.y)
     ro = rolling_origin(ff.y, ff.ylag, ff.years, X, np.asarray(lags), initial, models=models, weights=w)
     hyp.update(_backtest_summary(ro))
     ms = ro.min_skill
