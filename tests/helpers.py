@@ -4,15 +4,19 @@ Nothing here edits sys.path or sets PYTHONPATH: the package is installed (``pip 
 """
 from __future__ import annotations
 
+import contextlib
+import io
 import os
 import subprocess
 import sys
+import traceback
 from concurrent.futures import ProcessPoolExecutor
 from pathlib import Path
 
 import numpy as np
 import yaml
 
+from lagsieve import cli
 from lagsieve import pipeline as stages
 from lagsieve.io.config import load_study
 from lagsieve.io.names import slug
@@ -25,14 +29,47 @@ DOLLAR_LABEL = 'Cost of $5 & "quoted" <b>bold</b>'
 
 
 # ----------------------------------------------------------------------------- the command line
-def lagsieve(*args, cwd=None, check=False) -> subprocess.CompletedProcess:
-    """Run the command line in a subprocess (``python -m lagsieve``, as a user would)."""
-    env = dict(os.environ, MPLBACKEND="Agg")
-    proc = subprocess.run([sys.executable, "-m", "lagsieve", *map(str, args)], cwd=cwd, env=env,
-                          capture_output=True, text=True)
+def lagsieve(*args, cwd=None, check=False, subprocess_only=False) -> subprocess.CompletedProcess:
+    """Run the command line and capture what it prints and its exit status.
+
+    ``run`` (which starts Snakemake, whose output goes to the process's own streams) and any call
+    with ``subprocess_only`` run ``python -m lagsieve`` in a subprocess, as a user would; the other
+    commands (init, check, ledger, --help, --version) run ``lagsieve.cli.main`` in this process,
+    which gives the same stdout, stderr and status without a Python start and the package's
+    imports for every call (about 1.2 s each). tests/test_cli.py's test of ``python -m lagsieve``
+    and the installed-wheel test in tests/test_packaging.py run the real entry points in
+    subprocesses."""
+    argv = [str(a) for a in args]
+    if argv[:1] != ["run"] and not subprocess_only:
+        proc = _in_process(argv, cwd)
+    else:
+        env = dict(os.environ, MPLBACKEND="Agg")
+        proc = subprocess.run([sys.executable, "-m", "lagsieve", *argv], cwd=cwd, env=env,
+                              capture_output=True, text=True)
     if check and proc.returncode != 0:
         raise AssertionError(proc.stdout + proc.stderr)
     return proc
+
+
+def _in_process(argv: list[str], cwd) -> subprocess.CompletedProcess:
+    """``lagsieve.cli.main(argv)`` in this process, from ``cwd``, with stdout and stderr captured;
+    an exception that escapes is printed as a traceback on stderr with status 1, as Python would."""
+    out, err, here = io.StringIO(), io.StringIO(), os.getcwd()
+    try:
+        if cwd is not None:
+            os.chdir(cwd)
+        with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
+            try:
+                status = cli.main(argv)
+            except SystemExit as exc:  # argparse's --help, --version and usage errors
+                status = exc.code if isinstance(exc.code, int) else (0 if exc.code is None else 1)
+            except Exception:  # noqa: BLE001 - what a user would see
+                traceback.print_exc()
+                status = 1
+    finally:
+        os.chdir(here)
+    return subprocess.CompletedProcess([sys.executable, "-m", "lagsieve", *argv], status, out.getvalue(),
+                                       err.getvalue())
 
 
 def init_study(folder: Path, **screen) -> Path:
