@@ -314,20 +314,26 @@ def _tidy(table: pd.DataFrame) -> pd.DataFrame:
     return t[["series", "year", "value"]]
 
 
-def _record(db, table: pd.DataFrame, key: str, now: str):
-    """One run of a synthetic study (response r, driver d, strong at lag 1) written to ``db``."""
+def _write_synthetic(db, table: pd.DataFrame, key: str, now: str, tidy: pd.DataFrame, tol):
+    """One run of a synthetic study (response r, driver d, strong at lag 1) written to ``db``,
+    with ``tidy`` as the run's data fingerprints and ``tol`` as the restatement tolerance."""
     data = StudyData(table=table, raw=table, transforms={})
     f, _ = data.forecast("r", "d", 1, "trend")
     f.grade = "strong"
     grades = grade_rows(pd.DataFrame([{"response": "r", "driver": "d", "grade": "strong", "model": "linear",
-                                              "lag": 1, "oos_baseline": "trend"}]))
+                                       "lag": 1, "oos_baseline": "trend"}]))
     run = {"study": "syn", "run_key": key, "data_sha256": key, "inputs_sha256": "{}", "tool_version": "test",
            "config_sha256": "-", "created_utc": now, "screen_json": "{}"}
     con = connect(db)
     try:
-        return write_run(con, run, fingerprints(_tidy(table)), grades, {}, [f], data, tolerance_of({})), f
+        return write_run(con, run, fingerprints(tidy), grades, {}, [f], data, tol), f
     finally:
         con.close()
+
+
+def _record(db, table: pd.DataFrame, key: str, now: str):
+    """One run of the synthetic study written to ``db`` (no se, the default tolerance)."""
+    return _write_synthetic(db, table, key, now, _tidy(table), tolerance_of({}))
 
 
 @pytest.mark.parametrize("where, inside", [("above", 0), ("middle", 1), ("below", 0)])
@@ -759,19 +765,7 @@ def _tidy_se(table: pd.DataFrame, se_share: float | None) -> pd.DataFrame:
 
 def _run(db, table: pd.DataFrame, key: str, se_share: float | None, tol=None):
     """One run of the synthetic study of :func:`_record`, with se and a chosen tolerance."""
-    data = StudyData(table=table, raw=table, transforms={})
-    f, _ = data.forecast("r", "d", 1, "trend")
-    f.grade = "strong"
-    grades = grade_rows(pd.DataFrame([{"response": "r", "driver": "d", "grade": "strong", "model": "linear",
-                                       "lag": 1, "oos_baseline": "trend"}]))
-    run = {"study": "syn", "run_key": key, "data_sha256": key, "inputs_sha256": "{}", "tool_version": "test",
-           "config_sha256": "-", "created_utc": key, "screen_json": "{}"}
-    con = connect(db)
-    try:
-        return write_run(con, run, fingerprints(_tidy_se(table, se_share)), grades, {}, [f], data,
-                         tol or tolerance_of({})), f
-    finally:
-        con.close()
+    return _write_synthetic(db, table, key, key, _tidy_se(table, se_share), tol or tolerance_of({}))
 
 
 def _next_delivery(table: pd.DataFrame, factor: float, obs: float) -> pd.DataFrame:

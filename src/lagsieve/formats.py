@@ -65,3 +65,9 @@ def lag_range(lags) -> str:
     if len(lags) > 2 and lags == list(range(lags[0], lags[-1] + 1)):
         return f"{lags[0]}\u2013{lags[-1]}"
     return ", ".join(map(str, lags))
+
+
+def skill_percent(skill: float) -> str:
+    """A positive forecast skill (1 - MSE ratio) as the percentage by which the squared error is
+    lower: '69%'; below 0.5%, 'less than 1%' (never '0%' for a skill above 0)."""
+    return f"{100 * skill:.0f}%" if skill >= 0.005 else "less than 1%"

@@ -11,6 +11,7 @@ import pandas as pd
 
 from lagsieve.evidence.effects import add_effects, allowed_phrase, effect_phrase
 from lagsieve.evidence.vocabulary import COLLINEAR_R, DRIVER_TREND_R2, GRADE_ORDER, SHORT_OVERLAP_YEARS, SUPPORTED
+from lagsieve.formats import skill_percent
 from lagsieve.stats.backtest import BASELINES
 from lagsieve.stats.multiplicity import bh_qvalues
 
@@ -25,7 +26,7 @@ TREND_BASELINES = tuple(b for b in BASELINES if b.startswith("trend"))  # the ba
 
 def driver_correlations(table: pd.DataFrame, drivers: list[str], min_years: int = 10) -> pd.DataFrame:
     """Pairwise-complete Pearson r between drivers (transformed, same year); NaN below min_years."""
-    return table[drivers].corr(method="pearson", min_periods=min_years)
+    return lagged_driver_correlations(table, dict.fromkeys(drivers, 0), min_years)
 
 
 def lagged_driver_correlations(table: pd.DataFrame, lags: dict[str, int], min_years: int = 10) -> pd.DataFrame:
@@ -212,8 +213,7 @@ def _skill_words(row: dict) -> str:
     sk, n_oos = _get(row, "oos_skill"), int(_get(row, "oos_n", 0))
     hardest = row.get("oos_hardest") or "hardest"
     if sk > 0:
-        pct = f"{100 * sk:.0f}%" if sk >= 0.005 else "less than 1%"
-        return f"squared forecast error {pct} below that of the {hardest} baseline over {n_oos} forecasts"
+        return f"squared forecast error {skill_percent(sk)} below that of the {hardest} baseline over {n_oos} forecasts"
     return f"no skill over the {hardest} baseline over {n_oos} forecasts"
 
 

@@ -14,7 +14,7 @@ import pandas as pd
 
 from lagsieve.evidence.effects import _fmt, effect_cell
 from lagsieve.evidence.vocabulary import GRADE_RULES, GRADE_WORDS, SUPPORTED
-from lagsieve.formats import is_missing, number, text
+from lagsieve.formats import is_missing, number, skill_percent, text
 from lagsieve.report.context import Context, flag_list, lead_words, set_aside_reason
 
 #: The grade as evidence in words (the grade codes themselves stay in the evidence table).
@@ -62,8 +62,7 @@ def skill_words(row: dict) -> str:
     against = BASELINE_WORDS.get(base, base or "the baseline")
     if float(sk) <= 0:
         return f"no better than {against} forecast"
-    pct = f"{100 * float(sk):.0f}%" if float(sk) >= 0.005 else "less than 1%"
-    return f"squared forecast error {pct} lower than {against} forecast"
+    return f"squared forecast error {skill_percent(float(sk))} lower than {against} forecast"
 
 
 def effect_words(row: dict) -> tuple[str, str]:
