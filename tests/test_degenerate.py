@@ -289,7 +289,7 @@ def test_check_refuses_a_response_without_enough_overlap(tmp_path):
     with pytest.raises(InputErrors) as err:
         stages.check_study(cfg)
     (line,) = str(err.value).splitlines()
-    assert line == (f"{cfg}: key 'responses.0': series 'm:age2': shares fewer than screen.min_overlap = 15 years "
+    assert line == (f"{cfg}: responses[1] (id 'm:age2'): shares fewer than screen.min_overlap = 15 years "
                     "with every one of its drivers at every lag (most: 10 with 'forage_biomass' at lag 0), so "
                     "nothing can be screened for it; extend the series, lower screen.min_overlap, or remove "
                     "the response")
@@ -299,7 +299,7 @@ def test_check_refuses_a_response_without_drivers(tmp_path):
     cfg = tiny_config(tmp_path, drivers=[{"id": "forage_biomass", "transform": "log", "responses": ["m:age5plus"]}])
     proc = lagsieve("check", cfg)
     assert proc.returncode == 2, proc.stdout + proc.stderr
-    assert proc.stderr.strip() == (f"{cfg}: key 'responses.0': series 'm:age2': no driver is screened against "
+    assert proc.stderr.strip() == (f"{cfg}: responses[1] (id 'm:age2'): no driver is screened against "
                                    "this response (every driver's responses list leaves it out); add the "
                                    "response to a driver's responses, or remove the response")
     assert "Traceback" not in proc.stderr

@@ -1128,7 +1128,7 @@ def test_unknown_config_key_suggests_the_nearest(tmp_path):
                    "drivers: [{id: x, responses: [mm]}]\n")
     with pytest.raises(InputErrors) as info:
         load_study(cfg)
-    assert "key 'drivers.0.responses'" in str(info.value)
+    assert "drivers[1] (id 'x').responses: names response 'mm'" in str(info.value)
     assert "did you mean 'm'?" in str(info.value)
 
 
@@ -1175,9 +1175,9 @@ def test_expected_sign_by_response_sets_the_sign_for_named_responses(tmp_path):
     with pytest.raises(InputErrors) as info:
         load_study(cfg)
     lines = str(info.value).splitlines()
-    assert len(lines) == 1 and "drivers.0.expected_sign_by_response.m" in lines[0] and "positive" in lines[0]
+    assert len(lines) == 1 and "drivers[1] (id 'x').expected_sign_by_response.m:" in lines[0] and "positive" in lines[0]
     cfg.write_text("study: s1\ninputs: [d.csv]\nresponses: [{id: m}, {id: k}]\n"
                    "drivers: [{id: x, expected_sign_by_response: {kk: positive}}]\n")
     with pytest.raises(InputErrors) as info:
         load_study(cfg)
-    assert "key 'drivers.0.expected_sign_by_response'" in str(info.value) and "did you mean 'k'?" in str(info.value)
+    assert "drivers[1] (id 'x').expected_sign_by_response: names response 'kk'" in str(info.value) and "did you mean 'k'?" in str(info.value)

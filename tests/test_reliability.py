@@ -127,7 +127,7 @@ def test_unsafe_series_id_refused(tmp_path, new_study):
     data["drivers"][0]["id"] = "$(touch pwned)"
     cfg.write_text(yaml.safe_dump(data))
     proc = lagsieve("check", cfg)
-    assert proc.returncode == 2 and "drivers.0.id" in proc.stderr
+    assert proc.returncode == 2 and "drivers[1] (id '$(touch pwned)').id" in proc.stderr
     assert not (tmp_path / "s" / "pwned").exists()
 
 

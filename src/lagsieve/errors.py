@@ -28,8 +28,9 @@ class InputProblem:
         if self.file is not None:
             where.append(self.file if self.row is None else f"{self.file}:{self.row}")
         if self.key is not None:
-            where.append(f"key '{self.key}'")
-        if self.series is not None:
+            # a position in a list reads `drivers[2] (id 'x').category`, itself quoting the id
+            where.append(self.key if "[" in self.key else f"key '{self.key}'")
+        if self.series is not None and f"(id '{self.series}')" not in (self.key or ""):
             where.append(f"series '{self.series}'")
         prefix = ": ".join(where)
         text = f"{self.what}; {self.fix}"
@@ -37,6 +38,13 @@ class InputProblem:
 
     def __str__(self) -> str:
         return self.line()
+
+
+def item_key(role: str, index: int, sid: str | None = None, *rest: str) -> str:
+    """Where an entry of a config list is: one-based and named by its id where it has one,
+    ``item_key("drivers", 8, "seabirds", "category")`` -> ``drivers[9] (id 'seabirds').category``."""
+    text = f"{role}[{index + 1}]" + (f" (id '{sid}')" if sid is not None else "")
+    return text + "".join(f".{r}" for r in rest)
 
 
 @dataclass

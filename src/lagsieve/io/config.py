@@ -16,7 +16,7 @@ from typing import Any
 import jsonschema
 import yaml
 
-from lagsieve.errors import InputErrors, InputProblem, closest, show, suggest
+from lagsieve.errors import InputErrors, InputProblem, closest, item_key, show, suggest
 from lagsieve.io.names import name_key, periodic
 from lagsieve.io.yamlfile import read_yaml
 
@@ -165,13 +165,24 @@ def report_defaults() -> dict[str, Any]:
 SCREEN_DEFAULTS: dict[str, Any] = screen_defaults()
 
 
-def _key_path(err: jsonschema.ValidationError) -> str:
-    parts = [str(p) for p in err.absolute_path]
-    return ".".join(parts) if parts else "(top level)"
+def _key_path(err: jsonschema.ValidationError, raw: Any = None) -> str:
+    """The key of a schema error, list positions one-based and named by the entry's id:
+    ``drivers[2] (id 'shrimp_index').category`` (common practice of config checkers)."""
+    text, node = "", raw
+    for part in err.absolute_path:
+        if isinstance(part, int):
+            item = node[part] if isinstance(node, list) and part < len(node) else None
+            sid = item.get("id") if isinstance(item, dict) and isinstance(item.get("id"), str) else None
+            text = item_key(text, part, sid)
+        else:
+            text = f"{text}.{part}" if text else str(part)
+            item = node.get(part) if isinstance(node, dict) else None
+        node = item
+    return text or "(top level)"
 
 
-def _schema_problem(err: jsonschema.ValidationError, file: str) -> InputProblem:
-    key = _key_path(err)
+def _schema_problem(err: jsonschema.ValidationError, file: str, raw: Any = None) -> InputProblem:
+    key = _key_path(err, raw)
     v = err.validator
     if v == "additionalProperties":
         allowed = sorted(err.schema.get("properties", {}))
@@ -211,7 +222,7 @@ def load_study(path: str | Path) -> Study:
     if not isinstance(raw, dict):
         raise InputErrors([InputProblem(what="config is empty or not a mapping of keys", fix="start from the config that `lagsieve init` writes", file=shown)])
     errs = sorted(_validator().iter_errors(raw), key=lambda e: list(map(str, e.absolute_path)))
-    problems = [_schema_problem(e, shown) for e in errs]
+    problems = [_schema_problem(e, shown, raw) for e in errs]
     if problems:
         raise InputErrors(problems)
     return _build(path, whole_numbers(raw))
@@ -248,7 +259,7 @@ def _build(path: Path, raw: dict) -> Study:
         for i, s in enumerate(raw[role]):
             sid = s["id"]
             if sid in ids:
-                problems.append(InputProblem(what=f"listed twice (in {ids[sid]} and {role})", fix="give each series one entry", file=shown, key=f"{role}.{i}.id", series=sid))
+                problems.append(InputProblem(what=f"listed twice (in {ids[sid]} and {role})", fix="give each series one entry", file=shown, key=item_key(role, i, sid), series=sid))
             ids[sid] = role
     problems += _name_clashes(list(ids), raw["study"], shown)
     full = fill_defaults(raw)
@@ -261,7 +272,7 @@ def _build(path: Path, raw: dict) -> Study:
                     problems.append(InputProblem(
                         what=f"names response '{rid}', which is not in responses",
                         fix=f"use an id listed under responses ({suggest(rid, resp_ids, 'responses')})",
-                        file=shown, key=f"drivers.{i}.{key}", series=d["id"]))
+                        file=shown, key=item_key("drivers", i, d["id"], key), series=d["id"]))
     if problems:
         raise InputErrors(problems)
     ledger = (raw.get("ledger") or {}).get("path")

@@ -7,7 +7,7 @@ from typing import Mapping
 import numpy as np
 import pandas as pd
 
-from lagsieve.errors import InputProblem, InputWarning, show
+from lagsieve.errors import InputProblem, InputWarning, item_key, show
 from lagsieve.formats import short_number
 from lagsieve.io.config import Study
 from lagsieve.prep.align import annual_table, forecast_frame, shift_batch
@@ -150,7 +150,7 @@ def unscreenable_responses(study: Study, annual: pd.DataFrame) -> list[InputProb
         found = _unscreenable(table, r["id"], drivers, need)
         if found:
             problems.append(InputProblem(what=found[0], fix=found[1], file=str(study.path),
-                                         key=f"responses.{i}", series=r["id"]))
+                                         key=item_key("responses", i, r["id"]), series=r["id"]))
     return problems
 
 
