@@ -38,7 +38,7 @@ def strong_row(**kw):
         "p_naive": 0.0001, "p_adjusted": 0.001, "p_detrended": 0.001, "n_eff": 35.0,
         "p_surrogate": 0.001, "p_surrogate_lag": 0.001, "q_value": 0.01,
         "loo_max_change": 0.05, "loo_sign_flip": False,
-        "r_first_half": 0.5, "r_second_half": 0.6, "window_sign_flip": False,
+        "break_p": 0.5,
         "retest_skill": 0.3, "collinear_with": "",
         "oos_skill": 0.3, "oos_skill_climatology": 0.5, "oos_skill_persistence": 0.4, "oos_skill_trend": 0.3,
         "oos_skill_trend_ar1": 0.35, "p_differenced": 0.002, "trend_p_response": 0.01, "trend_p_driver": 0.01,
@@ -128,9 +128,12 @@ def test_flag_influential_year():
 
 
 def test_flag_unstable():
-    assert "unstable" in _flags(r_first_half=-0.1, r_second_half=0.6)
-    assert "unstable" in _flags(window_sign_flip=True)
-    assert "unstable" not in _flags(r_first_half=np.nan, r_second_half=-0.6)
+    # the break test's surrogate p at alpha (tests/test_breaks.py checks the test itself)
+    assert "unstable" in _flags(break_p=0.05)
+    assert "unstable" not in _flags(break_p=0.051)
+    assert "unstable" not in _flags(break_p=np.nan)  # not tested: too few years or graded below weak
+    # the old split-half rule is gone: halves of opposite sign alone raise nothing
+    assert "unstable" not in _flags(r_first_half=-0.1, r_second_half=0.6, window_sign_flip=True)
 
 
 def test_flag_failed_retest():
@@ -160,7 +163,7 @@ def test_flag_failed_status_only():
 
 def test_every_flag_code_is_documented():
     row = strong_row(n_eff=5, p_surrogate_lag=0.01, p_surrogate=0.2, n=20, driver_trend_r2=0.9,
-                     loo_max_change=0.5, window_sign_flip=True, retest_skill=-1, q_value=0.01,
+                     loo_max_change=0.5, break_p=0.01, retest_skill=-1, q_value=0.01,
                      collinear_with="b", r=-0.6)
     others = {"failed", "trend-shared", "no-forecast-skill"}  # the reasons are exclusive: one per row
     f = set(flags_for(row, ALPHA, FDR))

@@ -107,6 +107,13 @@ def reason_flags(row: dict, alpha: float) -> list[str]:
     return f
 
 
+def unstable(row: dict, alpha: float) -> bool:
+    """The ``unstable`` rule: the sup-F test of a change in slope at an unknown year
+    (:mod:`lagsieve.evidence.stability`) has surrogate p <= alpha. A hypothesis not tested
+    (graded below weak, or too few years: ``break_p`` missing) is not flagged."""
+    return _at_most(_get(row, "break_p"), alpha)
+
+
 def flags_for(row: dict, alpha: float, fdr: float) -> list[str]:
     """The flag codes of one hypothesis row (see ``FLAGS``)."""
     status = str(row.get("status", "ok"))
@@ -122,8 +129,7 @@ def flags_for(row: dict, alpha: float, fdr: float) -> list[str]:
         f.append("short-overlap")
     if _get(row, "loo_max_change") > 0.2 or _yes(row, "loo_sign_flip"):
         f.append("influential-year")
-    h1, h2 = _get(row, "r_first_half"), _get(row, "r_second_half")
-    if (not np.isnan(h1) and not np.isnan(h2) and np.sign(h1) != np.sign(h2)) or _yes(row, "window_sign_flip"):
+    if unstable(row, alpha):
         f.append("unstable")
     significant = p_s <= alpha or _get(row, "q_value") <= fdr
     if significant and _get(row, "retest_skill") <= 0:

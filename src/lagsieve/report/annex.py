@@ -35,7 +35,7 @@ FLAG_WORDS = {
     "autocorrelation-only": "no stronger than autocorrelated noise", "no-forecast-skill": "no forecast skill",
     "autocorrelated": "strongly autocorrelated", "lag-selected": "significant only at the chosen lead",
     "short-overlap": "short overlap (< 25 years)", "influential-year": "one year changes r much",
-    "unstable": "sign differs between periods", "failed-retest": "no skill on the latest years",
+    "unstable": "slope changed at some year", "failed-retest": "no skill on the latest years",
     "collinear": "moves with another driver", "sign-unexpected": "sign opposite to the one expected",
     "explained-by-rival": "explained by a rival driver", "failed": "computation failed",
 }

@@ -1,0 +1,253 @@
+"""Relationships that change: a test for a change in regression coefficients at an unknown
+year, the most likely year with its interval, and moving-window correlations with a
+surrogate band.
+
+Every statistic works on a batch: the regressors carry the batch (surrogates) on the first
+axis, so the real driver and all of its surrogates are tested in one array operation.
+
+The model of a break at candidate index ``tau`` (the first observation of the new regime,
+d_t = 1 for t >= tau) is the partial structural change regression
+
+    y_t = X_t' beta + d_t X_t[changing]' delta + e_t
+
+whose ``tested`` columns are the coefficients tested for a change, and whose ``nuisance``
+columns may change at the same year under the null and the alternative alike. The F
+statistic at tau compares the fit with and without the tested shifts; the sup-F (sup-Wald
+with a homoscedastic variance) is its largest value over candidates trimmed by 15% at
+each end (Andrews 1993).
+
+References
+----------
+Andrews, D.W.K. (1993) Tests for parameter instability and structural change with unknown
+    change point. Econometrica 61:821-856.
+Bai, J. (1997) Estimation of a change point in multiple regression models. Rev. Econ.
+    Stat. 79:551-563.
+Yao, Y.-C. (1987) Approximating the distribution of the maximum likelihood estimate of the
+    change-point in a sequence of independent random variables. Ann. Stat. 15:1321-1328.
+Litzow, M.A. et al. (2018) Proc. R. Soc. B 285 (from memory: moving-window correlations to
+    show environment-biology relationships that strengthen, fade or reverse over decades).
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import optimize
+from scipy.stats import norm
+
+from lagsieve.stats.correlation import windowed_r
+
+TRIM = 0.15  # share of the record kept out of each end (Andrews 1993's usual 15%)
+WINDOW_YEARS = 15  # moving-window length: common practice for annual ecological series
+BAND_LEVEL = 0.95  # pointwise surrogate band of the moving-window correlation
+
+
+@dataclass(frozen=True)
+class SupF:
+    """F statistics of a break at every candidate index, for every batch member.
+
+    ``f`` (S, C) the F statistic at each candidate; ``candidates`` (C,) the candidate
+    indices (first observation of the new regime); ``stat`` (S,) the sup-F; ``at`` (S,) the
+    index where it is reached; ``df`` the numerator and denominator degrees of freedom."""
+
+    f: np.ndarray
+    candidates: np.ndarray
+    stat: np.ndarray
+    at: np.ndarray
+    df: tuple[int, int]
+
+
+def candidate_indices(n: int, n_changing: int, trim: float = TRIM) -> np.ndarray:
+    """Indices tau of the first observation of a new regime, each segment at least
+    ceil(trim n) observations long and longer than the number of changing coefficients."""
+    h = max(int(np.ceil(trim * n - 1e-9)), n_changing + 1)
+    return np.arange(h, n - h + 1)
+
+
+def _cross_products(X: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, ...]:
+    """Whole-record and after-each-index sums of X_t X_t' and X_t y_t: (S, p, p), (S, n, p, p),
+    (S, p), (S, n, p); the 'after' sums at index tau run over t >= tau."""
+    M = X[..., :, None] * X[..., None, :]
+    v = X * y[..., None]
+    post_M = np.flip(np.cumsum(np.flip(M, -3), -3), -3)
+    post_v = np.flip(np.cumsum(np.flip(v, -2), -2), -2)
+    return M.sum(-3), post_M, v.sum(-2), post_v
+
+
+def _rss(G, Gp, g, gp, yy, cols) -> np.ndarray:
+    """Residual sums of squares of y on [X, d X[:, cols]] at every candidate: (S, C)."""
+    S, C, p = Gp.shape[0], Gp.shape[1], G.shape[-1]
+    k = p + len(cols)
+    A = np.empty((S, C, k, k))
+    A[..., :p, :p] = G[:, None]
+    A[..., :p, p:] = Gp[..., :, cols]
+    A[..., p:, :p] = Gp[..., cols, :]
+    A[..., p:, p:] = Gp[..., cols, :][..., :, cols]
+    b = np.concatenate([np.broadcast_to(g[:, None], (S, C, p)), gp[..., cols]], axis=-1)
+    coef = np.linalg.solve(A, b[..., None])[..., 0]
+    return yy[:, None] - np.einsum("sck,sck->sc", coef, b)
+
+
+def sup_f(y: np.ndarray, X: np.ndarray, tested: list[int], nuisance: list[int] = (),
+          trim: float = TRIM) -> SupF:
+    """Sup-F test of a change in the coefficients of ``X`` columns ``tested`` at an unknown
+    index, with the ``nuisance`` columns free to change at the same index (Andrews 1993).
+
+    ``y`` (n,) or (S, n); ``X`` (n, p) or (S, n, p), the batch first. At each candidate tau:
+    F = ((RSS_r - RSS_u) / q) / (RSS_u / (n - k_u)), the restricted model lets the nuisance
+    coefficients change at tau, the unrestricted model the nuisance and tested ones
+    (q = len(tested), k_u = p + q + len(nuisance)). Put the regressors on a common scale
+    first (F does not depend on it) so that the normal equations are well conditioned."""
+    X = np.asarray(X, float)
+    y = np.asarray(y, float)
+    if X.ndim == 2:
+        X = X[None]
+    S, n, p = max(X.shape[0], y.shape[0] if y.ndim == 2 else 1), X.shape[1], X.shape[2]
+    X, y = np.broadcast_to(X, (S, n, p)), np.broadcast_to(y, (S, n))
+    nuisance, tested = list(nuisance), list(tested)
+    cand = candidate_indices(n, len(tested) + len(nuisance), trim)
+    G, post_M, g, post_v = _cross_products(X, y)
+    Gp, gp = post_M[:, cand], post_v[:, cand]
+    yy = np.einsum("sn,sn->s", y, y)
+    rss_u = _rss(G, Gp, g, gp, yy, sorted(nuisance + tested))
+    rss_r = _rss(G, Gp, g, gp, yy, sorted(nuisance))
+    df_den = n - p - len(tested) - len(nuisance)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        f = ((rss_r - rss_u) / len(tested)) / (rss_u / df_den)
+    f = np.where(np.isfinite(f), np.maximum(f, 0.0), np.nan)
+    filled = np.where(np.isnan(f), -np.inf, f)
+    at = cand[np.argmax(filled, axis=1)]
+    stat = np.where(np.all(np.isnan(f), axis=1), np.nan, filled.max(axis=1))
+    return SupF(f=f, candidates=cand, stat=stat, at=at, df=(len(tested), df_den))
+
+
+def slope_break_sup_f(x: np.ndarray, y: np.ndarray, trim: float = TRIM) -> SupF:
+    """Sup-F of a change in the slope of y = a + b x + e, the intercept free to change at the
+    same year. ``x`` (S, n): the real driver and its surrogates (or (n,)); ``y`` (n,).
+
+    Why the intercept may change too: a regime shift usually moves the response's level as
+    well. With the intercept held fixed, a level shift alone (unrelated to the driver) would
+    load on d_t x_t whenever x is not centred on zero in the new regime and be read as a
+    change of slope; testing both together would call a level shift alone an unstable
+    relationship. Letting the intercept change under both hypotheses tests the slope only."""
+    x = np.atleast_2d(np.asarray(x, float))
+    y = np.asarray(y, float)
+    xs = (x - x.mean(-1, keepdims=True)) / np.where(x.std(-1) > 0, x.std(-1), 1.0)[:, None]
+    ys = (y - y.mean()) / (y.std() if y.std() > 0 else 1.0)
+    X = np.stack([np.ones_like(xs), xs], axis=-1)
+    return sup_f(ys, X, tested=[1], nuisance=[0], trim=trim)
+
+
+# ----------------------------------------------------------------------------- break date
+
+
+def argmax_cdf(x: np.ndarray) -> np.ndarray:
+    """CDF of the argmax of W(s) - |s|/2 over the real line, W a two-sided Brownian motion
+    (Yao 1987; Bai 1997, the limit of the scaled break-date error):
+    G(x) = 1 + sqrt(x / (2 pi)) exp(-x/8) - (x + 5)/2 Phi(-sqrt(x)/2) + 3/2 e^x Phi(-3 sqrt(x)/2)
+    for x > 0, and G(x) = 1 - G(-x) for x < 0."""
+    x = np.asarray(x, float)
+    a = np.abs(x)
+    r = np.sqrt(a)
+    # e^a Phi(-3 r / 2) through the log of Phi, which stays finite for large a
+    tail = np.exp(a + norm.logcdf(-1.5 * r))
+    g = 1.0 + np.sqrt(a / (2 * np.pi)) * np.exp(-a / 8.0) - 0.5 * (a + 5.0) * norm.cdf(-0.5 * r) + 1.5 * tail
+    return np.where(x >= 0, g, 1.0 - g)
+
+
+def argmax_quantile(level: float) -> float:
+    """The ``level`` quantile of the argmax of W(s) - |s|/2 (about 11.0 at 0.975, Bai 1997,
+    from memory)."""
+    return float(optimize.brentq(lambda v: argmax_cdf(v) - level, 0.0, 500.0))
+
+
+@dataclass(frozen=True)
+class BreakFit:
+    """The regression on each side of a break at index ``at`` (first index of the new regime):
+    intercept and slope before and after, their standard errors from the pooled residual
+    variance, and Bai's (1997) interval for the index (``low``, ``high``, inclusive)."""
+
+    at: int
+    intercept_before: float
+    slope_before: float
+    slope_before_se: float
+    intercept_after: float
+    slope_after: float
+    slope_after_se: float
+    sigma2: float
+    low: int
+    high: int
+
+
+def _side(x: np.ndarray, y: np.ndarray) -> tuple[float, float, float, float]:
+    """OLS of y on (1, x) on one side: intercept, slope, RSS, centred sum of squares of x."""
+    xc = x - x.mean()
+    sxx = float(xc @ xc)
+    b = float(xc @ (y - y.mean())) / sxx if sxx > 0 else np.nan
+    a = float(y.mean() - b * x.mean())
+    e = y - a - b * x
+    return a, b, float(e @ e), sxx
+
+
+def break_fit(x: np.ndarray, y: np.ndarray, at: int, level: float = 0.95) -> BreakFit:
+    """Intercepts and slopes of y = a + b x + e before and after index ``at`` (OLS on each
+    side, standard errors from the pooled variance RSS / (n - 4)), and the (``level``)
+    interval for the break index of Bai (1997) with homoscedastic errors and the same
+    regressor moments on both sides: at -/+ (floor(c / L) + 1), L = delta' Q delta / sigma^2,
+    delta the shift of (intercept, slope), Q the mean of z_t z_t' (z = (1, x)), c the
+    (1 + level)/2 quantile of argmax W(s) - |s|/2; clipped to the record."""
+    x, y = np.asarray(x, float), np.asarray(y, float)
+    n = len(y)
+    a1, b1, rss1, sxx1 = _side(x[:at], y[:at])
+    a2, b2, rss2, sxx2 = _side(x[at:], y[at:])
+    sigma2 = (rss1 + rss2) / (n - 4)
+    delta = np.array([a2 - a1, b2 - b1])
+    Z = np.column_stack([np.ones(n), x])
+    L = float(delta @ (Z.T @ Z / n) @ delta) / sigma2 if sigma2 > 0 else np.inf
+    c = argmax_quantile(0.5 + level / 2.0)
+    half = int(np.floor(c / L)) + 1 if L > 0 else n
+    return BreakFit(at=at, intercept_before=a1, slope_before=b1, slope_before_se=float(np.sqrt(sigma2 / sxx1)),
+                    intercept_after=a2, slope_after=b2, slope_after_se=float(np.sqrt(sigma2 / sxx2)),
+                    sigma2=float(sigma2), low=max(0, at - half), high=min(n - 1, at + half))
+
+
+def mean_shift_interval(y: np.ndarray, at: int, level: float = 0.95) -> tuple[int, int]:
+    """Bai's (1997) interval for the index of a shift in the mean alone (Q = 1):
+    at -/+ (floor(c sigma^2 / delta^2) + 1)."""
+    y = np.asarray(y, float)
+    d = y[at:].mean() - y[:at].mean()
+    resid = np.r_[y[:at] - y[:at].mean(), y[at:] - y[at:].mean()]
+    sigma2 = float(resid @ resid) / (len(y) - 2)
+    half = int(np.floor(argmax_quantile(0.5 + level / 2.0) * sigma2 / (d * d))) + 1
+    return max(0, at - half), min(len(y) - 1, at + half)
+
+
+# ----------------------------------------------------------------------------- moving windows
+
+
+@dataclass(frozen=True)
+class WindowBand:
+    """Moving-window correlations of the real driver (``r``, one per window of ``width``
+    consecutive observations starting at ``start``) and the pointwise surrogate band
+    (``low``, ``high``: the (1 -/+ level)/2 quantiles of the surrogates' r in that window)."""
+
+    start: np.ndarray
+    width: int
+    r: np.ndarray
+    low: np.ndarray
+    high: np.ndarray
+
+
+def window_band(x: np.ndarray, y: np.ndarray, width: int = WINDOW_YEARS, level: float = BAND_LEVEL) -> WindowBand:
+    """Pearson r of y with x[0] in every window of ``width`` consecutive observations, and the
+    band the surrogates x[1:] reach in the same windows (Litzow et al. 2018 read moving-window
+    correlations against such a reference, from memory; the surrogate band is our choice).
+    ``x`` (1 + B, n), ``y`` (n,)."""
+    x = np.atleast_2d(np.asarray(x, float))
+    r = windowed_r(x, np.broadcast_to(np.asarray(y, float), x.shape), width)  # (S, W)
+    W = r.shape[-1]
+    if x.shape[0] > 1 and W:
+        low, high = np.nanquantile(r[1:], [(1 - level) / 2, (1 + level) / 2], axis=0)
+    else:
+        low = high = np.full(W, np.nan)
+    return WindowBand(start=np.arange(W), width=width, r=r[0], low=low, high=high)
