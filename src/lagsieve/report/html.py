@@ -27,6 +27,7 @@ from lagsieve.report import figures as fg
 from lagsieve.report import condition as cond
 from lagsieve.report import rivals as rv
 from lagsieve.report import sections
+from lagsieve.report import statespace as ssp
 from lagsieve.report.context import Context
 from lagsieve.report.exports import write_tables
 from lagsieve.report.plan import plan_figures
@@ -41,7 +42,8 @@ def render_page(ctx: Context, figs: dict, plan, since: LedgerSection | None = No
                   hypotheses=sections.hypotheses(ctx, plan.panels), data=sections.data(ctx), since=since,
                   methods=sections.methods(ctx, plan.tables), provenance=sections.provenance(ctx),
                   condition=cond.section(ctx.condition), annex=annex.section(ctx),
-                  rivals=rv.section(ctx.rivals, ctx.study.response_ids, ctx.label)) + "\n"
+                  rivals=rv.section(ctx.rivals, ctx.study.response_ids, ctx.label),
+                  statespace=ssp.section(ctx.evidence, ctx.label)) + "\n"
 
 
 def write_document(ctx: Context, figs: dict, path: Path) -> bool:
