@@ -172,9 +172,11 @@ def test_short_overlap_skipped_with_note():
     assert win.empty and row["flags"] == "autocorrelated"
 
 
-def test_only_weak_or_better_tested():
+def test_only_weak_or_better_and_no_forecast_skill_tested():
     ev, win = stability.add_stability(_ev("none"), _table(40, switch=True), SCREEN)
     assert np.isnan(ev.iloc[0]["break_p"]) and win.empty and pd.isna(ev.iloc[0]["break_note"])
+    ev, win = stability.add_stability(_ev("no-forecast-skill"), _table(40, switch=True), SCREEN)
+    assert ev.iloc[0]["break_p"] <= 0.01 and len(win)
 
 
 def test_flags_for_reads_break_p():

@@ -110,7 +110,8 @@ def reason_flags(row: dict, alpha: float) -> list[str]:
 def unstable(row: dict, alpha: float) -> bool:
     """The ``unstable`` rule: the sup-F test of a change in slope at an unknown year
     (:mod:`lagsieve.evidence.stability`) has surrogate p <= alpha. A hypothesis not tested
-    (graded below weak, or too few years: ``break_p`` missing) is not flagged."""
+    (a grade outside ``stability.TESTED_GRADES``, or too few years: ``break_p`` missing) is not
+    flagged."""
     return _at_most(_get(row, "break_p"), alpha)
 
 

@@ -1,5 +1,6 @@
 """Does a relationship hold over the whole record? The break test and moving-window
-correlations of every hypothesis graded weak or better, at its selected lag.
+correlations of every hypothesis graded weak or better (or set aside for no forecast skill,
+which a link that switched off earns), at its selected lag.
 
 For each such hypothesis (``TESTED_GRADES``) with at least ``BREAK_MIN_YEARS`` overlapping
 years: the sup-F test of a change in the slope of y_t = a + b x_{t-k} + e_t at an unknown year,
@@ -31,7 +32,10 @@ from lagsieve.prep.align import shift_batch
 from lagsieve.screen.hypothesis import driver_batch, surrogate_p
 from lagsieve.stats.breaks import WINDOW_YEARS, break_fit, slope_break_sup_f, window_band
 
-TESTED_GRADES = ("strong", "moderate", "weak")  # the grades whose relationship is tested for a change
+#: The grades whose relationship is tested for a change: weak or better, and no-forecast-skill,
+#: the grade a link that switched off after the first training window earns (supported in
+#: sample, no skill on the later years): the break test says when it stopped.
+TESTED_GRADES = ("strong", "moderate", "weak", "no-forecast-skill")
 BREAK_MIN_YEARS = 20  # fewer overlapping years: the test is skipped with a note (issue 21)
 
 STABILITY_COLUMNS = ["break_p", "break_f", "break_year", "break_year_low", "break_year_high", "slope_before",
@@ -89,7 +93,7 @@ def _with_flag(flags: str, add: bool) -> str:
 
 
 def add_stability(ev: pd.DataFrame, table: pd.DataFrame, screen: dict) -> tuple[pd.DataFrame, pd.DataFrame]:
-    """Evidence with ``STABILITY_COLUMNS`` for every hypothesis graded weak or better (the
+    """Evidence with ``STABILITY_COLUMNS`` for every hypothesis of ``TESTED_GRADES`` (the
     others get empty entries) and the ``unstable`` flag where the break test finds a change;
     and the moving-window table (``WINDOW_COLUMNS``) of the tested hypotheses."""
     ev = ev.copy()
@@ -105,6 +109,7 @@ def add_stability(ev: pd.DataFrame, table: pd.DataFrame, screen: dict) -> tuple[
     found = pd.DataFrame(entries, index=ev.index, columns=STABILITY_COLUMNS)
     for col in STABILITY_COLUMNS:
         ev[col] = found[col]
+    ev["break_note"] = found["break_note"].astype(object)  # text, also when every entry is empty
     ev["flags"] = [_with_flag(f, unstable(r, screen["alpha"])) for f, r in zip(ev["flags"], ev.to_dict("records"))]
     win = pd.concat(windows, ignore_index=True) if windows else pd.DataFrame(columns=WINDOW_COLUMNS)
     return ev, win

@@ -61,7 +61,7 @@ FLAGS = {
     "influential-year": "Dropping a single year changes r by more than 0.2 or flips its sign.",
     "unstable": "The slope at the chosen lag changes at some year: the sup-F test of a change in slope at "
                 "an unknown year (Andrews 1993; the intercept free to change too) has surrogate p <= alpha "
-                "(tested for grades weak and above with 20 or more overlapping years).",
+                "(tested for grades weak and above and no-forecast-skill, with 20 or more overlapping years).",
     "failed-retest": "Significant in sample, but no skill (<= 0) when re-tested on the latest years.",
     "collinear": "Correlated with another driver at |r| > 0.7 (Dormann et al. 2013): the evidence cannot "
                  "separate the two.",

@@ -78,6 +78,12 @@ REF = {
                 "estimation. J. Am. Stat. Assoc. 102:359-378.",
     "dersimonian": "DerSimonian, R. & Laird, N. (1986) Meta-analysis in clinical trials. Control. Clin. Trials "
                    "7:177-188.",
+    "andrews": "Andrews, D.W.K. (1993) Tests for parameter instability and structural change with unknown "
+               "change point. Econometrica 61:821-856.",
+    "bai": "Bai, J. (1997) Estimation of a change point in multiple regression models. Rev. Econ. Stat. "
+           "79:551-563.",
+    "litzow": "Litzow, M.A. et al. (2018) Proc. R. Soc. B 285 (moving-window correlations of non-stationary "
+              "environment-biology relationships; cited from memory).",
     "wood": "Wood, S.N. (2017) Generalized Additive Models: An Introduction with R, 2nd ed. "
             "Chapman & Hall/CRC, Boca Raton.",
 }
@@ -122,7 +128,16 @@ def methods_facts(ctx: Context) -> dict:
             "keep_trend": bool(sc.get("surrogate_keep_trend", True)), "n_hypotheses": len(ctx.evidence),
             "fdr": sc["fdr"], "alpha": sc["alpha"], "inverse_variance": sc.get("weights") == "inverse-variance",
             "seed": sc["seed"], "condition": _condition_facts(ctx), "grade_rules": list(GRADE_RULES.items()),
-            "rivals": ctx.rivals is not None}
+            "rivals": ctx.rivals is not None, "breaks": _break_facts(ctx)}
+
+
+def _break_facts(ctx: Context) -> dict | None:
+    """What the methods text says of the break test (None when no hypothesis was tested)."""
+    ev = ctx.evidence
+    if "break_p" not in ev or not ev["break_p"].notna().any():
+        return None
+    flagged = int((ev["break_p"] <= ctx.study.screen["alpha"]).sum())
+    return {"tested": int(ev["break_p"].notna().sum()), "flagged": flagged}
 
 
 def _condition_facts(ctx: Context) -> dict | None:
@@ -146,6 +161,7 @@ def cited(facts: dict) -> list[str]:
     if facts.get("rivals"):
         refs += ["freedman", "anderson", "clarkwest", "beach", "hurvich", "burnham", "borcard",
                  "peresneto"]
+    refs += ["andrews", "bai", "litzow"] if facts.get("breaks") else []
     refs += (["lecren", "huber", "froese", "kish", "raowu"] if facts.get("condition") else [])
     refs += ["dersimonian"] if facts.get("inverse_variance") else []
     return refs + ["bartlett", "gneiting"]  # the forecast ledger's paragraph
