@@ -1070,7 +1070,7 @@ def test_screen_defaults_come_from_the_schema():
     assert SCREEN_DEFAULTS == {
         "lags": [0, 1, 2, 3], "models": ["linear"], "min_overlap": 15, "seed": 1,
         "surrogates": 999, "surrogate_method": "phase", "surrogate_keep_trend": True,
-        "fdr": 0.10, "alpha": 0.05, "weights": "none", "gam_trend": True, "validation": {},
+        "fdr": 0.10, "alpha": 0.05, "weights": "none", "gam_trend": True, "state_space": False, "validation": {},
     }
     assert screen_defaults() == SCREEN_DEFAULTS and screen_defaults() is not SCREEN_DEFAULTS
     assert report_defaults() == {"top": 3, "pdf": True, "docx": True}
