@@ -4,8 +4,8 @@
 # report.pdf (and the editable report.docx) is a declared output when every study of the run
 # wants it; in a run that mixes studies with and without it, the files are still written but
 # not tracked by Snakemake.
-from lagsieve.pipeline import docx_wanted as _docx_wanted
-from lagsieve.pipeline import pdf_wanted as _pdf_wanted
+from lagsieve.stages.plan import docx_wanted as _docx_wanted
+from lagsieve.stages.plan import pdf_wanted as _pdf_wanted
 
 REPORT_INPUT = dict(
     config=cfg,

@@ -1,5 +1,6 @@
-# Thin wrapper: stage `condition` (see lagsieve.pipeline.run_condition).
-from lagsieve.pipeline import logged, run_condition
+# Thin wrapper: stage `condition` (see lagsieve.stages.condition.run_condition).
+from lagsieve.stages.common import logged
+from lagsieve.stages.condition import run_condition
 
 with logged(snakemake):
     run_condition(snakemake.params.config, snakemake.output.table, snakemake.output.sensitivity,

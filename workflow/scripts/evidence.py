@@ -1,7 +1,8 @@
-# Thin wrapper: stages `align` and `evidence` (see lagsieve.pipeline.run_align, run_evidence).
+# Thin wrapper: stages `align` and `evidence` (see lagsieve.stages.evidence.run_align, run_evidence).
 from pathlib import Path
 
-from lagsieve.pipeline import logged, run_align, run_evidence
+from lagsieve.stages.common import logged
+from lagsieve.stages.evidence import run_align, run_evidence
 
 with logged(snakemake):
     run_align(snakemake.input.config, snakemake.output.annual, snakemake.output.notes,

@@ -1,9 +1,10 @@
-# Thin wrapper: stages `ledger` and `report` (see lagsieve.ledger.store.update_ledger,
-# lagsieve.pipeline.run_report). The ledger is updated first: the report shows its changes.
+# Thin wrapper: stages `ledger` and `report` (see lagsieve.ledger.update.update_ledger,
+# lagsieve.stages.report.run_report). The ledger is updated first: the report shows its changes.
 from pathlib import Path
 
-from lagsieve.ledger import update_ledger
-from lagsieve.pipeline import logged, run_report
+from lagsieve.ledger.update import update_ledger
+from lagsieve.stages.common import logged
+from lagsieve.stages.report import run_report
 
 with logged(snakemake):
     update_ledger(snakemake.input.config, snakemake.input.annual, snakemake.input.evidence,

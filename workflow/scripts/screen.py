@@ -1,7 +1,8 @@
-# Thin wrapper: stage `screen` for one response (see lagsieve.pipeline.run_screen).
+# Thin wrapper: stage `screen` for one response (see lagsieve.stages.screen.run_screen).
 from pathlib import Path
 
-from lagsieve.pipeline import logged, run_screen
+from lagsieve.stages.common import logged
+from lagsieve.stages.screen import run_screen
 
 with logged(snakemake):
     run_screen(snakemake.input.config, None, snakemake.wildcards.response,

@@ -1,0 +1,107 @@
+"""What the stages share: the job log, the output contracts (column orders), the paths of a
+study's per-response outputs and the reading of tables written by an earlier stage."""
+from __future__ import annotations
+
+import contextlib
+import logging
+import os
+import sys
+import time
+import traceback
+import warnings
+from contextlib import contextmanager
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from lagsieve.errors import InputErrors, InputProblem
+from lagsieve.io.config import Study
+from lagsieve.io.names import slug
+from lagsieve.prep.align import annual_table
+
+SCREEN_COLUMNS = ["response", "driver", "lag", "model", "n", "first_year", "last_year", "r", "p_naive",
+                  "n_eff", "p_adjusted", "r_detrended", "p_detrended", "r_diff", "p_differenced",
+                  "trend_p_response", "trend_p_driver", "driver_trend_r2", "slope", "slope_se",
+                  "p_surrogate_lag", "edf", "deviance_explained", "p_smooth", "shape", "status"]
+EVIDENCE_COLUMNS = ["response", "driver", "category", "expected_sign", "lag", "model", "n", "first_year",
+                    "last_year", "r", "p_naive", "n_eff", "p_adjusted", "r_detrended", "p_detrended", "r_diff",
+                    "p_differenced", "trend_p_response", "trend_p_driver", "driver_trend_r2",
+                    "slope", "slope_se", "slope_ci_low", "slope_ci_high", "r_ci_low", "r_ci_high",
+                    "effect", "effect_ci_low", "effect_ci_high", "effect_basis", "effect_unit",
+                    "effect_largest_allowed",
+                    "p_surrogate", "p_surrogate_lag", "q_value", "oos_skill",
+                    "oos_skill_climatology", "oos_skill_persistence", "oos_skill_trend", "oos_skill_trend_ar1",
+                    "oos_n", "oos_p", "oos_test",
+                    "oos_p_surrogate", "oos_hardest", "oos_lag", "oos_lag_share", "retest_skill", "retest_years",
+                    "retest_model", "gam_gain", "edf", "shape", "grade", "flags", "rank", "collinear_with",
+                    "rival", "rival_added_skill", "summary", "status"]
+
+
+@contextmanager
+def logged(smk):
+    """Send a Snakemake job's warnings and errors to its ``log:`` file (when it has one), and
+    end the log with the job's own elapsed time and CPU time (``lagsieve: stage took ...``),
+    which ``bench/demo.py`` reads: Snakemake's log stamps whole seconds only."""
+    logs = list(getattr(smk, "log", []) or [])
+    if not logs:
+        yield
+        return
+    Path(logs[0]).parent.mkdir(parents=True, exist_ok=True)
+    wall, cpu = time.perf_counter(), os.times()
+    with open(logs[0], "w", encoding="utf-8") as fh, contextlib.redirect_stderr(fh):
+        logging.basicConfig(stream=fh, level=logging.INFO, force=True)
+        warnings.simplefilter("default")
+        try:
+            yield
+        except BaseException:
+            traceback.print_exc(file=fh)
+            fh.flush()
+            sys.__stderr__.write(f"lagsieve: job failed; see {logs[0]}\n")
+            raise
+        fh.write(stage_timing(wall, cpu) + "\n")
+
+
+def stage_timing(wall0: float, cpu0: os.times_result) -> str:
+    """The log's last line: wall seconds since ``wall0`` (``time.perf_counter``), CPU seconds
+    (user + system) of this process and of its ended worker processes since ``cpu0``
+    (``os.times``)."""
+    now = os.times()
+    own = now.user + now.system - cpu0.user - cpu0.system
+    workers = now.children_user + now.children_system - cpu0.children_user - cpu0.children_system
+    return (f"lagsieve: stage took {time.perf_counter() - wall0:.3f} s wall, "
+            f"{max(own, 0.0):.3f} s CPU, {max(workers, 0.0):.3f} s CPU in workers")
+
+
+def ordered(df: pd.DataFrame, columns: list[str]) -> pd.DataFrame:
+    """Contract columns first (created empty when their stage has not produced them)."""
+    out = df.copy()
+    for c in columns:
+        if c not in out.columns:
+            out[c] = np.nan
+    return out[columns + [c for c in out.columns if c not in columns]]
+
+
+def raise_any(problems: list[InputProblem]) -> None:
+    """Raise :class:`InputErrors` when there is any problem."""
+    if problems:
+        raise InputErrors(problems)
+
+
+def response_dirs(work: str | Path, study: Study) -> dict[str, Path]:
+    """Where the screen writes each response's tables."""
+    return {rid: Path(work) / "responses" / slug(rid) for rid in study.response_ids}
+
+
+def load_table(study: Study, annual_csv: str | Path) -> pd.DataFrame:
+    """The wide, transformed annual table of a study from the `align` output."""
+    annual = pd.read_csv(annual_csv)
+    return annual_table(annual, study.transforms())
+
+
+def condition_table(condition) -> pd.DataFrame | None:
+    """condition.csv as a frame; ``condition`` is its path, or a list of none or one path (as the
+    workflow gives an optional input)."""
+    if isinstance(condition, (list, tuple)):  # a Snakemake input list is a list
+        condition = next(iter(condition), None)
+    return None if condition is None else pd.read_csv(condition, keep_default_na=False, na_values=[""])

@@ -1,0 +1,49 @@
+"""Stages `align` (the study's inputs on one annual axis, :func:`run_align`) and `evidence`
+(study-wide q-values, flags, grades, ranks, rivals and model sets, :func:`run_evidence`),
+which share one job."""
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from lagsieve.evidence.grading import finish_evidence, grade_hypotheses
+from lagsieve.evidence.models import model_table
+from lagsieve.evidence.rivals import cap_by_rivals, conditional_table
+from lagsieve.io.config import load_study
+from lagsieve.io.files import write_csv
+from lagsieve.stages.check import check_study
+from lagsieve.stages.common import EVIDENCE_COLUMNS, SCREEN_COLUMNS, load_table, ordered, response_dirs
+
+
+def run_align(config_path: str | Path, out_annual: str | Path, out_notes: str | Path, condition=None) -> None:
+    """Stage `align`: write the tidy annual table and the list of dropped or filled years
+    (``condition``: the study's condition.csv, or a list of none or one path)."""
+    study, annual, notes, warnings = check_study(config_path, condition)
+    role = {i: "response" for i in study.response_ids} | {i: "driver" for i in study.driver_ids}
+    annual = annual.assign(role=annual["series"].map(role)).sort_values(["series", "year"])
+    notes_df = pd.DataFrame(notes, columns=["series", "year", "action", "reason"])
+    warn_df = pd.DataFrame({"series": [w.series for w in warnings], "year": np.nan,
+                            "action": "warning", "reason": [w.what for w in warnings]})
+    write_csv(pd.concat([notes_df, warn_df], ignore_index=True), out_notes)
+    write_csv(annual, out_annual)
+
+
+def run_evidence(config_path, annual_csv, work_dir, out_screen, out_evidence) -> None:
+    """Stage `evidence`: study-wide q-values, flags, grades (strong and moderate capped when the
+    strongest rival explains the same signal) and ranks; ``conditional.csv`` and ``models.csv``
+    (the multi-driver model sets) beside evidence.csv."""
+    study = load_study(config_path)
+    table = load_table(study, annual_csv)
+    dirs = response_dirs(work_dir, study)
+    hyps = pd.concat([pd.read_csv(d / "hypotheses.csv") for d in dirs.values()], ignore_index=True)
+    scr = pd.concat([pd.read_csv(d / "screen.csv") for d in dirs.values()], ignore_index=True)
+    graded = grade_hypotheses(hyps, table, study.screen)
+    lags = {d["id"]: study.lags_for(d) for d in study.drivers}
+    cond = conditional_table(graded, table, study.drivers, lags, study.screen)
+    ev = finish_evidence(cap_by_rivals(graded, cond), table, study.screen, study.responses + study.drivers)
+    write_csv(ordered(scr, SCREEN_COLUMNS), out_screen)
+    write_csv(ordered(ev, EVIDENCE_COLUMNS), out_evidence)
+    write_csv(cond, Path(out_evidence).with_name("conditional.csv"))  # beside evidence.csv
+    write_csv(model_table(ev, table, study.screen), Path(out_evidence).with_name("models.csv"))

@@ -1,0 +1,105 @@
+"""Stage `report` (:func:`run_report`): figures, tables, the self-contained HTML report, its
+PDF copy, the editable annex document and provenance. The report modules (matplotlib, the
+figure code) are imported by this module only."""
+from __future__ import annotations
+
+import importlib.metadata as md
+import os
+import time
+from pathlib import Path
+
+import pandas as pd
+
+from lagsieve.io.config import Study, load_study
+from lagsieve.io.files import sha256_file, write_json, write_text
+from lagsieve.io.provenance import package_versions, tool_version
+from lagsieve.ledger.section import ledger_section
+from lagsieve.ledger.store import resolve_ledger_path
+from lagsieve.ledger.update import input_hashes
+from lagsieve.report.condition import read_outputs
+from lagsieve.report.figures import FigureRenderer
+from lagsieve.report.html import build_report
+from lagsieve.report.pdf import write_report_pdf
+from lagsieve.report.rivals import read_outputs as read_rivals
+from lagsieve.stages.common import load_table, response_dirs
+from lagsieve.stages.plan import pdf_wanted
+
+
+def _iso(t: float) -> str:
+    return time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime(t))
+
+
+def _response_tables(dirs: dict, name: str) -> pd.DataFrame:
+    """One of the screen's per-response tables (forecasts.csv, nulls.csv), all responses stacked."""
+    parts = [pd.read_csv(d / name) for d in dirs.values() if (d / name).is_file() and (d / name).stat().st_size > 1]
+    return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(
+        columns=["response", "driver", "year", "test", "value", "observed"])
+
+
+def _report_provenance(study: Study, annual_csv, dirs: dict, t0: float) -> dict:
+    """What provenance.json records before the report is drawn: config, inputs, versions, times."""
+    inputs = input_hashes(study)
+    screened = [(d / "screen.csv").stat().st_mtime for d in dirs.values() if (d / "screen.csv").is_file()]
+    prov = {
+        "study": study.id,
+        "config_path": str(study.path),
+        "config_sha256": sha256_file(study.path),
+        "config": study.raw,
+        "inputs_sha256": inputs,
+        "seed": study.screen["seed"],
+        "tool_version": tool_version(),
+        "versions": package_versions(),
+        "inputs_prepared": _iso(Path(annual_csv).stat().st_mtime),
+        "screened": _iso(max(screened)) if screened else None,
+        "started": _iso(t0),
+    }
+    for name in ("pillow", "weasyprint"):  # the report's own libraries
+        try:
+            prov["versions"].setdefault(name, md.version(name))
+        except md.PackageNotFoundError:
+            prov["versions"].setdefault(name, "not installed")
+    return prov
+
+
+def run_report(config_path, annual_csv, notes_csv, work_dir, screen_csv, evidence_csv,
+               out_report, out_provenance, figures_dir, started: float | None = None,
+               out_pdf=None, threads: int | None = None, condition=None) -> None:
+    """Stage `report`: figures and tables under ``figures_dir``, the self-contained HTML
+    report, its PDF copy (``out_pdf``, default ``report.pdf`` beside the report, unless the
+    config sets ``report.pdf: false``), the editable annex ``report.docx`` beside it (unless
+    ``report.docx: false``) and provenance.json.
+
+    ``threads``: worker processes for drawing the figures (default: up to 4 CPUs).
+    ``condition``: the condition stage's outputs (paths), shown in a section of their own.
+    """
+    t0 = time.time() if started is None else started
+    study = load_study(config_path)
+    table = load_table(study, annual_csv)
+    annual = pd.read_csv(annual_csv)
+    dirs = response_dirs(work_dir, study)
+    forecasts, nulls = _response_tables(dirs, "forecasts.csv"), _response_tables(dirs, "nulls.csv")
+    evidence = pd.read_csv(evidence_csv, keep_default_na=True)
+    screen = pd.read_csv(screen_csv)
+    notes = pd.read_csv(notes_csv)
+    prov = _report_provenance(study, annual_csv, dirs, t0)
+    workers = threads if threads else min(4, os.cpu_count() or 1)
+    pdf_path = Path(out_pdf) if out_pdf else Path(out_report).with_name("report.pdf")
+    docx_path = Path(out_report).with_name("report.docx")
+    if docx_path.is_file():  # written again below when wanted; a copy left by an earlier run would be stale
+        docx_path.unlink()
+    with FigureRenderer(figures_dir, workers) as renderer:
+        since = ledger_section(resolve_ledger_path(study, Path(out_report).parent), study, evidence)
+        html, figs = build_report(study, table, screen, evidence, forecasts, nulls, notes, prov, figures_dir,
+                                  annual=annual, renderer=renderer, since=since,
+                                  docx_path=docx_path if study.report["docx"] else None,
+                                  condition=read_outputs(condition), rivals=read_rivals(evidence_csv))
+        write_text(html, out_report)
+        renderer.write_svgs()  # the SVG copies are written by the workers while the PDF is made
+        if pdf_wanted(study):
+            prov["pdf"] = write_report_pdf(html, pdf_path, study, evidence, figs)
+        else:
+            prov["pdf"] = None
+            if out_pdf is None and pdf_path.is_file():  # a copy left by an earlier run would be stale
+                pdf_path.unlink()
+    prov["report_finished"] = _iso(time.time())
+    write_json(prov, out_provenance)
