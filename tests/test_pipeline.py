@@ -108,3 +108,20 @@ def test_report_basics(demo_run):
     assert "http://" not in html and "https://" not in html.replace("https://json-schema", "")
     for code in FLAGS:
         assert code in html
+
+
+def test_demo_state_space_refit(demo_run):
+    """The demo sets screen.state_space: true and its responses carry se: every hypothesis graded
+    weak or better is refitted, the others are not; forage fish keeps its negative slope on M of
+    ages 3-4 and 5+ (TRUTH.md) once M's observation error is known (measured z about -3 and -6)."""
+    _, out = demo_run
+    ev = pd.read_csv(out / "evidence.csv", keep_default_na=False, na_values=[""]).set_index(["response", "driver"])
+    fitted = ev["grade"].isin(["strong", "moderate", "weak"])
+    assert ev.loc[fitted, "ss_status"].str.startswith("ok").all()
+    assert ev.loc[~fitted, "ss_status"].isna().all() and ev.loc[~fitted, "ss_slope"].isna().all()
+    assert ev.loc[fitted, "ss_obs_share"].between(0, 1).all() and ev.loc[fitted, "ss_phi"].abs().lt(1).all()
+    for resp in ("m:age3-4", "m:age5plus"):
+        row = ev.loc[(resp, "forage_biomass")]
+        assert row["ss_slope"] / row["ss_slope_se"] < -2
+    html = (out / "report.html").read_text()
+    assert 'id="statespace"' in html and "observation error" in html.lower()

@@ -12,7 +12,8 @@ from lagsieve.formats import short_number
 from lagsieve.io.config import Study
 from lagsieve.prep.align import annual_table, forecast_frame, shift_batch
 
-__all__ = ["MIN_FORECASTS", "backtest_warnings", "check_positive", "series_warnings", "unscreenable_responses"]
+__all__ = ["MIN_FORECASTS", "backtest_warnings", "check_positive", "series_warnings", "state_space_warnings",
+           "unscreenable_responses"]
 
 MIN_FORECASTS = 5  # fewest out-of-sample forecasts a backtest is judged on (the screen's rule)
 
@@ -171,3 +172,21 @@ def backtest_warnings(study: Study, annual: pd.DataFrame) -> list[InputWarning]:
                               f"years to forecast for every hypothesis (at most {max(most, 0)}), so none can be "
                               "graded above insufficient-data; a smaller first training window gives forecasts",
                          file=str(study.path))]
+
+
+def state_space_warnings(study: Study, annual: pd.DataFrame, unknown: set[str] = frozenset()) -> list[InputWarning]:
+    """With ``screen.state_space`` on, a warning for every response without a positive se in
+    any year: its hypotheses are not refitted with known observation error (``unknown``:
+    series whose values are not computed yet, left out)."""
+    if not study.screen.get("state_space"):
+        return []
+    out = []
+    for rid in study.response_ids:
+        rows = annual[annual["series"] == rid]
+        if rid in unknown or not len(rows) or ("se" in rows and (rows["se"] > 0).any()):
+            continue
+        file = str(rows["file"].iat[0]) if "file" in rows and rows["file"].notna().any() else None
+        out.append(InputWarning(what="screen.state_space is true but this response has no se or cv, so its "
+                                     "drivers are not refitted with known observation error; add an se or cv "
+                                     "column to refit them", file=file, series=rid))
+    return out

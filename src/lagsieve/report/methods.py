@@ -78,6 +78,10 @@ REF = {
                 "estimation. J. Am. Stat. Assoc. 102:359-378.",
     "dersimonian": "DerSimonian, R. & Laird, N. (1986) Meta-analysis in clinical trials. Control. Clin. Trials "
                    "7:177-188.",
+    "durbin": "Durbin, J. & Koopman, S.J. (2012) Time Series Analysis by State Space Methods, 2nd ed. "
+              "Oxford University Press, Oxford.",
+    "seabold": "Seabold, S. & Perktold, J. (2010) Statsmodels: econometric and statistical modeling with Python. "
+               "Proceedings of the 9th Python in Science Conference, 92-96.",
     "andrews": "Andrews, D.W.K. (1993) Tests for parameter instability and structural change with unknown "
                "change point. Econometrica 61:821-856.",
     "bai": "Bai, J. (1997) Estimation of a change point in multiple regression models. Rev. Econ. Stat. "
@@ -128,7 +132,20 @@ def methods_facts(ctx: Context) -> dict:
             "keep_trend": bool(sc.get("surrogate_keep_trend", True)), "n_hypotheses": len(ctx.evidence),
             "fdr": sc["fdr"], "alpha": sc["alpha"], "inverse_variance": sc.get("weights") == "inverse-variance",
             "seed": sc["seed"], "condition": _condition_facts(ctx), "grade_rules": list(GRADE_RULES.items()),
-            "rivals": ctx.rivals is not None, "breaks": _break_facts(ctx)}
+            "rivals": ctx.rivals is not None, "breaks": _break_facts(ctx), "state_space": _state_space_facts(ctx)}
+
+
+def _state_space_facts(ctx: Context) -> dict | None:
+    """What the methods text says of the state-space refits (None when the run made none)."""
+    ev = ctx.evidence
+    if "ss_status" not in ev:
+        return None
+    status = ev["ss_status"].astype(object).fillna("").astype(str)
+    skipped = ev.loc[status.str.startswith("skipped: the response has no se"), "response"]
+    fitted = int(status.str.startswith("ok").sum())
+    if not fitted and not len(skipped):
+        return None
+    return {"fitted": fitted, "no_se": [ctx.label(r) for r in dict.fromkeys(skipped)]}
 
 
 def _break_facts(ctx: Context) -> dict | None:
@@ -162,6 +179,7 @@ def cited(facts: dict) -> list[str]:
         refs += ["freedman", "anderson", "clarkwest", "beach", "hurvich", "burnham", "borcard",
                  "peresneto"]
     refs += ["andrews", "bai", "litzow"] if facts.get("breaks") else []
+    refs += ["durbin", "seabold"] if facts.get("state_space") else []
     refs += (["lecren", "huber", "froese", "kish", "raowu"] if facts.get("condition") else [])
     refs += ["dersimonian"] if facts.get("inverse_variance") else []
     return refs + ["bartlett", "gneiting"]  # the forecast ledger's paragraph

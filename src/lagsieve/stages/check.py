@@ -17,7 +17,8 @@ from lagsieve.io.readers import read_inputs
 from lagsieve.io.tables import UnusedSeries, empty_frame
 from lagsieve.prep.annual import to_annual
 from lagsieve.prep.budget import budget_problems
-from lagsieve.prep.checks import backtest_warnings, check_positive, series_warnings, unscreenable_responses
+from lagsieve.prep.checks import (backtest_warnings, check_positive, series_warnings, state_space_warnings,
+                                  unscreenable_responses)
 from lagsieve.stages.common import condition_table, raise_any
 
 
@@ -52,6 +53,7 @@ def check_study(config_path: str | Path, condition: str | Path | list | None = N
     units = {s["id"]: s["unit"] for s in study.responses + study.drivers if s.get("unit")}
     warnings = warnings + list(series_warnings(annual, study.screen["min_overlap"], units))
     warnings += backtest_warnings(study, annual)
+    warnings += state_space_warnings(study, annual, cond_ids if table is None else set())
     return study, annual, notes, warnings
 
 

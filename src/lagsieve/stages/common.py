@@ -35,7 +35,9 @@ EVIDENCE_COLUMNS = ["response", "driver", "category", "expected_sign", "lag", "m
                     "oos_n", "oos_p", "oos_test",
                     "oos_p_surrogate", "oos_hardest", "oos_lag", "oos_lag_share", "retest_skill", "retest_years",
                     "retest_model", "gam_gain", "edf", "shape", "grade", "flags", "rank", "collinear_with",
-                    "rival", "rival_added_skill", "summary", "status"]
+                    "rival", "rival_added_skill",
+                    "ss_slope", "ss_slope_se", "ss_phi", "ss_process_var", "ss_obs_share", "ss_n", "ss_status",
+                    "summary", "status"]
 
 
 @contextmanager

@@ -11,8 +11,10 @@ import pandas as pd
 from lagsieve.evidence.grading import finish_evidence, grade_hypotheses
 from lagsieve.evidence.models import model_table
 from lagsieve.evidence.rivals import cap_by_rivals, conditional_table
+from lagsieve.evidence.statespace import add_state_space
 from lagsieve.io.config import load_study
 from lagsieve.io.files import write_csv
+from lagsieve.prep.align import se_table
 from lagsieve.stages.check import check_study
 from lagsieve.stages.common import EVIDENCE_COLUMNS, SCREEN_COLUMNS, load_table, ordered, response_dirs
 
@@ -33,7 +35,8 @@ def run_align(config_path: str | Path, out_annual: str | Path, out_notes: str | 
 def run_evidence(config_path, annual_csv, work_dir, out_screen, out_evidence) -> None:
     """Stage `evidence`: study-wide q-values, flags, grades (strong and moderate capped when the
     strongest rival explains the same signal) and ranks; ``conditional.csv`` and ``models.csv``
-    (the multi-driver model sets) beside evidence.csv."""
+    (the multi-driver model sets) beside evidence.csv; with ``screen.state_space`` the supported
+    hypotheses refitted with the response's se as known observation error (``ss_*`` columns)."""
     study = load_study(config_path)
     table = load_table(study, annual_csv)
     dirs = response_dirs(work_dir, study)
@@ -43,6 +46,7 @@ def run_evidence(config_path, annual_csv, work_dir, out_screen, out_evidence) ->
     lags = {d["id"]: study.lags_for(d) for d in study.drivers}
     cond = conditional_table(graded, table, study.drivers, lags, study.screen)
     ev = finish_evidence(cap_by_rivals(graded, cond), table, study.screen, study.responses + study.drivers)
+    ev = add_state_space(ev, table, se_table(pd.read_csv(annual_csv), study.transforms()), study.screen)
     write_csv(ordered(scr, SCREEN_COLUMNS), out_screen)
     write_csv(ordered(ev, EVIDENCE_COLUMNS), out_evidence)
     write_csv(cond, Path(out_evidence).with_name("conditional.csv"))  # beside evidence.csv
