@@ -108,6 +108,37 @@ def test_killed_run_resumes(tmp_path, new_study, rerun):
     assert not (out / LOCK_NAME).exists() and not list((out / ".snakemake" / "locks").glob("*"))
 
 
+@pytest.mark.slow
+def test_ctrl_c_stops_every_job_with_one_line(tmp_path, new_study):
+    """Ctrl-C (SIGINT to the terminal's process group: the tool, Snakemake and its jobs) while
+    a screen job runs: every process stops, the terminal gets one line after the interrupt and
+    no traceback, status 130 (128 + SIGINT, the shell's convention); the lock is released and
+    the same command then finishes the study (common practice of command-line tools)."""
+    cfg = set_screen(new_study, surrogates=99)
+    out = new_study.parent / "results"
+    proc = subprocess.Popen([sys.executable, "-m", "lagsieve", "run", str(new_study.parent), "--cores", "1"],
+                            env=dict(os.environ, MPLBACKEND="Agg"), stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE, text=True, start_new_session=True,
+                            preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_DFL))
+    logs = out / "caldrin_shelf_demo" / "logs" / "screen"
+    deadline = time.time() + 180
+    while not list(logs.glob("*.log")) and time.time() < deadline:
+        time.sleep(0.1)
+    time.sleep(0.5)  # the job's script is under way
+    os.killpg(proc.pid, signal.SIGINT)
+    stdout, stderr = proc.communicate(timeout=120)
+    assert proc.returncode == 130
+    assert stderr.rstrip().splitlines()[-1] == "interrupted; run the same command again to continue where it stopped"
+    assert "Traceback" not in stderr + stdout and "KeyboardInterrupt" not in stderr + stdout
+    assert not (out / LOCK_NAME).exists()
+    with pytest.raises(ProcessLookupError):
+        os.killpg(proc.pid, 0)  # no process of the run is left
+    assert not (out / "caldrin_shelf_demo" / "evidence.csv").exists()
+    resumed = lagsieve("run", cfg, "--cores", "2")
+    assert resumed.returncode == 0, resumed.stderr[-2000:]
+    assert (out / "caldrin_shelf_demo" / "report.html").stat().st_size > 0
+
+
 @pytest.mark.parametrize("key, value, needle", [
     ("study", "../../x", "key 'study'"),
     ("study", "a;rm -rf b", "key 'study'"),

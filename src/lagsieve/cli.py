@@ -22,9 +22,11 @@ import argparse
 import errno
 import os
 import shlex
+import signal
 import subprocess
 import sys
 import tempfile
+import threading
 from pathlib import Path
 
 from jinja2 import TemplateNotFound
@@ -35,6 +37,9 @@ from lagsieve.errors import InputErrors, report_problems
 from lagsieve.io.lock import RESULTS_FIX, check_folder, claim_results, make_folder
 
 EXIT_USER = 2
+EXIT_INTERRUPTED = 130  # 128 + SIGINT, the shell's convention
+INTERRUPTED = "interrupted; run the same command again to continue where it stopped"
+CONFIG_NAME = "config.yaml"  # what `lagsieve init` writes, and what a study folder given alone must hold
 REINSTALL = "python -m pip install --force-reinstall lagsieve"
 DRY_RUN = {"-n", "--dry-run", "--dryrun"}  # Snakemake's options for a dry run
 
@@ -42,6 +47,13 @@ DRY_RUN = {"-n", "--dry-run", "--dryrun"}  # Snakemake's options for a dry run
 def _err(msg: str) -> int:
     print(msg, file=sys.stderr)
     return EXIT_USER
+
+
+def config_path(given: str) -> str:
+    """The config file a command works on: ``given`` itself, or, for a study folder,
+    the ``config.yaml`` inside it (a folder without one is left for the check to refuse)."""
+    folder = Path(given)
+    return str(folder / CONFIG_NAME) if folder.is_dir() and (folder / CONFIG_NAME).is_file() else given
 
 
 def cmd_init(args) -> int:
@@ -135,18 +147,65 @@ def _snakemake_locked(out: Path) -> bool:
     return locks.is_dir() and any(locks.iterdir())
 
 
+class _Relay:
+    """The workflow engine's output passed on line by line, until Ctrl-C: from then on the
+    engine's messages about the jobs it stops (and their tracebacks) are dropped, so that the
+    user reads one line (:data:`INTERRUPTED`); the jobs' logs keep the details."""
+
+    def __init__(self, proc: subprocess.Popen):
+        self.quiet = threading.Event()
+        self.threads = [threading.Thread(target=self._copy, args=(src, dst), daemon=True)
+                        for src, dst in ((proc.stdout, sys.stdout), (proc.stderr, sys.stderr))]
+        for th in self.threads:
+            th.start()
+        if threading.current_thread() is threading.main_thread():
+            signal.signal(signal.SIGINT, self._interrupted)
+
+    def _interrupted(self, signum, frame):
+        # at once: Popen.wait would pass on the engine's lines for a quarter second more
+        self.quiet.set()
+        signal.signal(signal.SIGINT, signal.default_int_handler)
+        raise KeyboardInterrupt
+
+    def _copy(self, src, dst) -> None:
+        for line in src:
+            if not self.quiet.is_set():
+                dst.write(line)
+                dst.flush()
+
+    def join(self) -> None:
+        for th in self.threads:
+            th.join()
+
+
 def _wait(proc: subprocess.Popen, lock) -> int:
     """Wait for the workflow engine (its pid joins the lock's record); on Ctrl-C, which reaches
-    it too, wait while it stops its jobs, so that the lock is released after it."""
+    it and its jobs too (one process group), wait while it stops them, so that the lock is
+    released after it, then raise KeyboardInterrupt for :func:`main`'s one line."""
+    relay = _Relay(proc)
     try:
         lock.record_child(proc.pid)
     except OSError:
         pass  # the lock still names this process, which lives as long as the engine runs
     try:
-        return proc.wait()
+        code = proc.wait()
     except KeyboardInterrupt:
-        proc.wait()
-        return 130
+        relay.quiet.set()
+        _wait_quietly(proc)
+        raise
+    relay.join()
+    return code
+
+
+def _wait_quietly(proc: subprocess.Popen) -> None:
+    """Wait for the engine to stop its jobs; further Ctrl-C presses do not cut the wait short
+    (the engine received them and is stopping)."""
+    while True:
+        try:
+            proc.wait()
+            return
+        except KeyboardInterrupt:
+            continue
 
 
 def _run_workflow(args, extra: list[str], study, cfg: Path, out: Path, lock) -> int:
@@ -169,11 +228,14 @@ def _run_workflow(args, extra: list[str], study, cfg: Path, out: Path, lock) -> 
         cmd = [sys.executable, "-m", "snakemake", "--snakefile", str(snakefile), "--configfile", str(run_config),
                "--directory", str(out), "--cores", str(args.cores), *extra]
         env = dict(os.environ)
+        env.setdefault("PYTHONUNBUFFERED", "1")  # its lines reach the relay (a pipe) as they are written
         if args.resume or lock.took_over is not None or _snakemake_locked(out):
             # a killed run leaves Snakemake's lock behind; this run holds the folder, so it is stale
             subprocess.run(cmd + ["--unlock"], env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
         cmd.append("--rerun-incomplete")  # and the jobs it left half done are done again
-        returncode = _wait(subprocess.Popen(cmd, env=env), lock)
+        proc = subprocess.Popen(cmd, env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+                                errors="replace")
+        returncode = _wait(proc, lock)
     if returncode == 0 and not dry:
         print(f"results in {out / study.id}")
     return returncode
@@ -188,27 +250,52 @@ def cmd_ledger(args) -> int:
         return report_problems(exc)
 
 
+CONFIG_HELP = ("the study's config file, or the study folder holding config.yaml (as `lagsieve init` "
+               "writes it)")
+EXAMPLES = {
+    None: ["lagsieve init mystudy", "lagsieve run mystudy --cores 2"],
+    "init": ["lagsieve init mystudy", "lagsieve init ~/studies/shelf2025"],
+    "check": ["lagsieve check mystudy", "lagsieve check mystudy/config.yaml"],
+    "run": ["lagsieve run mystudy", "lagsieve run mystudy/config.yaml --cores 1 --out /scratch/results",
+            "lagsieve run mystudy -n    (a dry run: list the jobs, run none)"],
+    "ledger": ["lagsieve ledger mystudy", "lagsieve ledger mystudy/config.yaml --out /scratch/results"],
+}
+
+
+def _epilog(command: str | None) -> str:
+    return "examples:\n" + "\n".join(f"  {e}" for e in EXAMPLES[command])
+
+
+def _sub(sub, name: str, text: str) -> argparse.ArgumentParser:
+    return sub.add_parser(name, help=text, description=text, epilog=_epilog(name),
+                          formatter_class=argparse.RawDescriptionHelpFormatter)
+
+
 def build_parser() -> argparse.ArgumentParser:
+    cores = max(1, os.cpu_count() or 1)
     p = argparse.ArgumentParser(prog="lagsieve", description="Screen candidate drivers of natural mortality "
-                                "or condition honestly: lagged and nonlinear, out of sample, against surrogates.")
+                                "or condition honestly: lagged and nonlinear, out of sample, against surrogates.",
+                                epilog=_epilog(None), formatter_class=argparse.RawDescriptionHelpFormatter)
     p.add_argument("--version", action="version", version=f"lagsieve {lagsieve.__version__}")
-    sub = p.add_subparsers(dest="command", required=True)
-    text = ("write a new study folder with a commented config and the invented demo data (never overwrites "
-            "a file: refuses, naming them, if any of its files exists)")
-    s = sub.add_parser("init", help=text, description=text)
+    sub = p.add_subparsers(dest="command", required=True, metavar="{init,check,run,ledger}",
+                           help="the command (lagsieve COMMAND --help explains each)")
+    s = _sub(sub, "init", "write a new study folder with a commented config and the invented demo data "
+                          "(never overwrites a file: refuses, naming them, if any of its files exists)")
     s.add_argument("dir", help="the study folder: new, or one without config.yaml and data/ files of the same names")
-    s = sub.add_parser("check", help="validate a study config and every input file")
-    s.add_argument("config")
-    s = sub.add_parser("run", help="run the screening workflow for a study (extra options go to Snakemake)")
-    s.add_argument("config")
-    s.add_argument("--cores", type=int, default=max(1, os.cpu_count() or 1), help="cores to use (1 or more)")
+    s = _sub(sub, "check", "validate a study config and every input file, listing every problem found")
+    s.add_argument("config", help=CONFIG_HELP)
+    s = _sub(sub, "run", "check, then run the screening workflow for a study (options the tool does not know "
+                         "go to Snakemake)")
+    s.add_argument("config", help=CONFIG_HELP)
+    s.add_argument("--cores", type=int, default=cores,
+                   help=f"cores to use, 1 or more (default: all {cores} cores of this machine)")
     s.add_argument("--out", help="results folder (default: results/ beside the config); one run at a time "
                    "writes there: a second is refused while the first lives")
     s.add_argument("--resume", action="store_true",
                    help="not needed any more: a plain rerun after an interrupted run continues it (it clears "
                         "the dead run's locks and redoes its incomplete jobs); refused while that run lives")
-    s = sub.add_parser("ledger", help="print the forecast track record of a study")
-    s.add_argument("config")
+    s = _sub(sub, "ledger", "print the forecast track record of a study")
+    s.add_argument("config", help=CONFIG_HELP)
     s.add_argument("--out", help="results folder (default: results/ beside the config)")
     return p
 
@@ -219,8 +306,13 @@ def main(argv: list[str] | None = None) -> int:
     args, extra = parser.parse_known_args(argv)
     if extra and args.command != "run":
         parser.error(f"unrecognised arguments: {' '.join(extra)}")
+    if hasattr(args, "config"):
+        args.config = config_path(args.config)
     try:
         return _dispatch(args, extra)
+    except KeyboardInterrupt:
+        print(INTERRUPTED, file=sys.stderr)
+        return EXIT_INTERRUPTED
     except (FileNotFoundError, ModuleNotFoundError, TemplateNotFound) as exc:
         what = missing_internal(exc)
         if what is None:  # not a file of the package: a real fault, with its traceback

@@ -214,8 +214,9 @@ def load_study(path: str | Path) -> Study:
     path = Path(path)
     shown = str(path)
     if path.exists() and not path.is_file():
-        kind = "a folder" if path.is_dir() else "not a regular file (a pipe or a device)"
-        raise InputErrors([InputProblem(what=f"the config path is {kind}", fix="give the path of the study's config file (a .yaml file)", file=shown)])
+        kind = "a folder without config.yaml" if path.is_dir() else "not a regular file (a pipe or a device)"
+        raise InputErrors([InputProblem(what=f"the config path is {kind}", fix="give the study folder that holds "
+                                        "config.yaml, or the path of the study's config file (a .yaml file)", file=shown)])
     if not path.is_file():
         raise InputErrors([InputProblem(what="config file not found", fix="give the path to an existing study config (lagsieve init DIR writes one)", file=shown)])
     raw = read_yaml(path, shown)
