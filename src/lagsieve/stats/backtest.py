@@ -46,7 +46,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy import stats as _st
 
-from lagsieve.stats.linalg import expanding_cross
+from lagsieve.stats.linalg import expanding_added
 from lagsieve.stats.splines import (
     GCV_GAMMA,
     bspline_basis,
@@ -97,35 +97,6 @@ def _first_window_level(y: np.ndarray, w: np.ndarray | None, n_start: int) -> fl
     """(Weighted) mean of the first ``n_start`` rows: training rows of every window."""
     w = np.ones(len(y)) if w is None else np.asarray(w, float)
     return float(np.sum(w[:n_start] * y[:n_start]) / np.sum(w[:n_start]))
-
-
-def _expanding_solve(W: np.ndarray, y: np.ndarray, origins: np.ndarray, w: np.ndarray | None = None):
-    """(Weighted) least squares on rows [0, i) for every origin i, batched over leading axes.
-
-    W: (..., T, p) design whose column 0 is the intercept, y: (T,) response, w: (T,) optional
-    weights. Returns beta (..., n_origins, p) and the training (weighted) residual sum of
-    squares (..., n_origins).
-
-    The response is centred on the mean of the rows before the first origin (training rows
-    of every window) and that mean is added back to the intercept, which is exact with an
-    intercept in the design; it keeps the tiny ridge (1e-10 tr(A) / p, against exact rank
-    deficiency) from moving forecasts in proportion to the response's level.
-    """
-    p = W.shape[-1]
-    if not np.all(W[..., 0] == 1.0):
-        raise ValueError("column 0 of the design must be the intercept")
-    level = _first_window_level(y, w, int(origins[0]))
-    w = np.ones(len(y)) if w is None else np.asarray(w, float)
-    yc = y - level
-    Ww = W * w[:, None]
-    A = expanding_cross(Ww, W, origins)  # (..., O, p, p)
-    b = expanding_cross(Ww, yc[:, None], origins)[..., 0]  # (..., O, p)
-    yty = np.cumsum(w * yc * yc)
-    ridge = 1e-10 * np.trace(A, axis1=-2, axis2=-1)[..., None, None] * np.eye(p) / p
-    beta = np.linalg.solve(A + ridge, b[..., None])[..., 0]
-    rss = yty[origins - 1] - (beta * b).sum(-1)
-    beta[..., 0] += level
-    return beta, rss
 
 
 @dataclass
@@ -285,15 +256,15 @@ class _BaselineFits:
 
 
 def _baseline_fits(b: str, y, yl, yr, Xs, lags, origins, weights) -> _BaselineFits:
-    """Fits of baseline ``b`` and of ``b`` + driver for every driver of the batch and lag."""
+    """Fits of baseline ``b`` and of ``b`` + driver for every driver of the batch and lag: the
+    baseline's normal equations are shared by the batch, the driver is an added column
+    (:func:`lagsieve.stats.linalg.expanding_added`)."""
     initial = int(origins[0])
     S, L, _ = Xs.shape
     Z = baseline_design(b, yl, yr)  # (T, p)
-    beta0, rss0 = _expanding_solve(Z, y, origins, weights)
-    base_fc = (Z[origins] * beta0).sum(-1)
-    W = np.concatenate([np.broadcast_to(Z, (S, L) + Z.shape), Xs[..., None]], axis=-1)  # (S, L, T, p+1)
-    beta, rss = _expanding_solve(W, y, origins, weights)  # (S, L, O, p+1), (S, L, O)
-    fc = (W[:, :, origins, :] * beta).sum(-1)  # (S, L, O)
+    fit = expanding_added(Z, Xs[..., None], y, origins, weights)  # (S, L, O)
+    base_fc, rss0 = fit.shared.forecast, fit.shared.rss
+    rss, fc = fit.rss, fit.forecast
     pick = np.argmin(rss, axis=1)  # (S, O)
     model_fc = np.take_along_axis(fc, pick[:, None, :], axis=1)[:, 0, :]
     mse_base = np.mean((y[origins] - base_fc) ** 2)

@@ -19,7 +19,8 @@ the smaller model (baseline + competitors) by least GCV, and the driver's lag by
 training RSS of the larger model on that same baseline, so the two models are nested at
 every origin and the Clark & West (2007) test applies. Everything is batched over the
 driver axis (the real driver first, then the residual surrogates) and over lags and origins
-with the expanding-window solver of the backtest.
+with the expanding-window solver of the backtest (the baseline and competitors shared by the
+batch, the driver an added column: :func:`lagsieve.stats.linalg.expanding_added`).
 
 References
 ----------
@@ -39,12 +40,12 @@ import numpy as np
 
 from lagsieve.stats.backtest import (
     BASELINES,
-    _expanding_solve,
     _scale_from_start,
     baseline_design,
     clark_west,
     skill_score,
 )
+from lagsieve.stats.linalg import expanding_added
 from lagsieve.stats.splines import GCV_GAMMA
 from lagsieve.stats.surrogates import make_surrogates
 
@@ -182,16 +183,13 @@ def nested_rolling_origin(y: np.ndarray, ylag: np.ndarray, year: np.ndarray, C: 
     S, L, _ = Xs.shape
     n_tr = origins.astype(float)
     gcv, fc_r, fc_f, lag_f = [], [], [], []
-    for b in BASELINES:  # four baselines, each one batched solve over drivers, lags and origins
+    for b in BASELINES:  # four baselines: the design shared by the batch, the driver an added column
         Z = np.column_stack([baseline_design(b, yl, yr), Cs])
-        beta0, rss0 = _expanding_solve(Z, y, origins, weights)
-        fc_r.append((Z[origins] * beta0).sum(-1))
-        gcv.append(n_tr * rss0 / np.maximum(n_tr - GCV_GAMMA * Z.shape[1], 1e-9) ** 2)
-        W = np.concatenate([np.broadcast_to(Z, (S, L) + Z.shape), Xs[..., None]], axis=-1)
-        beta, rss = _expanding_solve(W, y, origins, weights)  # (S, L, O, p+1), (S, L, O)
-        fc = (W[:, :, origins, :] * beta).sum(-1)
-        pick = np.argmin(rss, axis=1)  # (S, O)
-        fc_f.append(np.take_along_axis(fc, pick[:, None, :], axis=1)[:, 0, :])
+        fit = expanding_added(Z, Xs[..., None], y, origins, weights)  # (S, L, O)
+        fc_r.append(fit.shared.forecast)
+        gcv.append(n_tr * fit.shared.rss / np.maximum(n_tr - GCV_GAMMA * Z.shape[1], 1e-9) ** 2)
+        pick = np.argmin(fit.rss, axis=1)  # (S, O)
+        fc_f.append(np.take_along_axis(fit.forecast, pick[:, None, :], axis=1)[:, 0, :])
         lag_f.append(np.asarray(lags)[pick])
     bi = np.argmin(np.stack(gcv), axis=0)  # (O,) baseline of least training GCV
     cols = np.arange(len(origins))

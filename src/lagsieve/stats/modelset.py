@@ -48,7 +48,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.optimize import minimize_scalar
 
-from lagsieve.stats.backtest import BASELINES, _expanding_solve, _scale_from_start, baseline_design, skill_score
+from lagsieve.stats.backtest import BASELINES, _scale_from_start, baseline_design, skill_score
+from lagsieve.stats.linalg import expanding_added
 from lagsieve.stats.splines import GCV_GAMMA
 
 PHI_BOUND = 0.995  # |phi| searched inside (-PHI_BOUND, PHI_BOUND): the stationary AR(1)
@@ -174,14 +175,12 @@ def model_skill(y: np.ndarray, ylag: np.ndarray, year: np.ndarray, X: np.ndarray
     yl, yr = (_scale_from_start(np.asarray(a, float), initial) for a in (ylag, year))
     n_tr = origins.astype(float)
     gcv, fc, base_mse = [], [], []
-    for b in BASELINES:  # four baselines, each one batched solve over models and origins
+    for b in BASELINES:  # four baselines: shared by the models, each model's columns added
         Z = baseline_design(b, yl, yr)
-        beta0, _ = _expanding_solve(Z, y, origins)
-        base_mse.append(np.mean((y[origins] - (Z[origins] * beta0).sum(-1)) ** 2))
-        W = np.concatenate([np.broadcast_to(Z, (M,) + Z.shape), Xs], axis=-1)  # (M, T, p + k)
-        beta, rss = _expanding_solve(W, y, origins)
-        fc.append((W[:, origins, :] * beta).sum(-1))
-        gcv.append(n_tr * rss / np.maximum(n_tr - GCV_GAMMA * W.shape[-1], 1e-9) ** 2)
+        fit = expanding_added(Z, Xs, y, origins)  # (M, O)
+        base_mse.append(np.mean((y[origins] - fit.shared.forecast) ** 2))
+        fc.append(fit.forecast)
+        gcv.append(n_tr * fit.rss / np.maximum(n_tr - GCV_GAMMA * (Z.shape[1] + Xs.shape[-1]), 1e-9) ** 2)
     pick = np.argmin(np.stack(gcv), axis=0)  # (M, O)
     chosen = np.take_along_axis(np.stack(fc), pick[None], axis=0)[0]
     mse = np.mean((y[origins][None, :] - chosen) ** 2, axis=-1)

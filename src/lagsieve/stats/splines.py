@@ -128,25 +128,47 @@ def bspline_basis(x, n_basis: int, degree: int = 3, lo=None, hi=None) -> np.ndar
     # polynomial piece used: segment floor(u), with the right end belonging to the last
     # inner segment, so values and one-sided derivatives at lo/hi come from inside.
     seg = np.minimum(np.floor(u_in).astype(int), n_seg - 1)
-    # knots t_j = j - degree (in spacing units), j = 0 .. K + degree
-    n_knots = n_basis + degree + 1
-    t = np.arange(n_knots, dtype=float) - degree
-    # degree-0 basis on the K + degree knot intervals: indicator of interval seg+degree
-    basis = (np.arange(n_knots - 1) == (seg + degree)[..., None]).astype(float)
-    uu = u_in[..., None]
-    deriv = None
+    # only the degree + 1 B-splines of the segment are non-zero: evaluate them there (on unit
+    # knots they depend on the position inside the segment alone) and place them in the row
+    vals, slope = _segment_bsplines(u_in - seg, degree)
+    if degree > 0:  # linear extrapolation along the tangent at the nearer end (zero inside)
+        step = np.where(finite, u, 0.0) - u_in
+        vals = [v + d * step for v, d in zip(vals, slope)]
+    out = np.zeros(x.shape + (n_basis,))
+    flat = out.reshape(-1, n_basis)
+    rows = np.arange(flat.shape[0])
+    first = seg.reshape(-1)
+    for i, v in enumerate(vals):
+        flat[rows, first + i] = v.reshape(-1)
+    out[~finite] = np.nan
+    return out
+
+
+def _segment_bsplines(t: np.ndarray, degree: int) -> tuple[list, list]:
+    """The degree + 1 B-splines that are non-zero on a segment, at position ``t`` in [0, 1]
+    inside it (unit knot spacing), and their derivatives: lists of arrays shaped like ``t``,
+    entry i belonging to the segment's i-th basis function.
+
+    Cox-de Boor recursion restricted to the segment (de Boor 1978, "A Practical Guide to
+    Splines"): on unit-spaced knots ``N_k[i] = (t + k - i) / k N_{k-1}[i-1] + (i + 1 - t) / k
+    N_{k-1}[i]``, and the derivative of a degree-d B-spline is the difference of two of degree
+    d - 1: ``N_d'[i] = N_{d-1}[i-1] - N_{d-1}[i]``.
+    """
+    prev = [np.ones_like(t)]
+    slope = [np.zeros_like(t)]
     for k in range(1, degree + 1):
         if k == degree:
-            # derivative of a degree-k B-spline on unit-spaced knots: B_{j,k-1} - B_{j+1,k-1}
-            deriv = basis[..., :-1] - basis[..., 1:]
-        n_fun = n_knots - 1 - k
-        left = (uu - t[:n_fun]) / k * basis[..., :n_fun]
-        right = (t[k + 1 : k + 1 + n_fun] - uu) / k * basis[..., 1 : n_fun + 1]
-        basis = left + right
-    if deriv is not None:
-        # linear extrapolation along the tangent at the nearer end (zero inside)
-        basis = basis + deriv * (np.where(finite, u, 0.0) - u_in)[..., None]
-    return np.where(finite[..., None], basis, np.nan)
+            slope = [(prev[i - 1] if i else 0.0) - (prev[i] if i < k else 0.0) for i in range(k + 1)]
+        cur = []
+        for i in range(k + 1):
+            term = 0.0
+            if i:
+                term = (t + (k - i)) * prev[i - 1]
+            if i < k:
+                term = term + ((i + 1) - t) * prev[i]
+            cur.append(term / k)
+        prev = cur
+    return prev, slope
 
 
 def difference_penalty(n_basis: int, order: int = 2) -> np.ndarray:
@@ -802,10 +824,12 @@ def expanding_penalised(
     Sherman-Morrison update of (A + lambda P)^-1 (Sherman & Morrison 1950; the penalised
     form of the recursive least-squares identities in Young 2011, Recursive Estimation and
     Time-Series Analysis, ch. 3 — chapter from memory), which gives the same coefficients as
-    a fresh solve at a fraction of the cost. The GCV score between tuning origins uses the
-    edf of the latest tuning origin (an approximation that only affects model choice, never
-    look-ahead). Every system carries a ridge of 1e-11 tr(A) / q, with A of the first
-    window, against exact rank deficiency.
+    a fresh solve at a fraction of the cost. The penalised objective J = RSS + lambda b'Pb
+    is carried by the same recursion (a row with prior residual e adds w e^2 / (1 + w x'Hx)),
+    so every window's RSS comes without its residuals. The GCV score between tuning origins
+    uses the edf of the latest tuning origin (an approximation that only affects model
+    choice, never look-ahead). Every system carries a ridge of 1e-11 tr(A) / q, with A of the
+    first window, against exact rank deficiency.
 
     ``weights`` (T,) make every fit weighted least squares (RSS and GCV weighted too).
 
@@ -820,16 +844,24 @@ def expanding_penalised(
     w = np.ones(len(y)) if weights is None else np.asarray(weights, float)
     tune = np.arange(0, len(origins), max(1, int(retune_every)))
     o_t = origins[tune]
-    form = _subspace_form(*_tuning_equations(W, y, w, o_t), P)
-    s, rss_t, edf_t = form.grid(lam)
+    At, bt, yt, ridge = _tuning_equations(W, y, w, o_t)
+    form = _subspace_form(At, bt, yt, P)
+    rss_t, edf_t = form.grid(lam)
     nt = o_t.astype(float)
     best = _best_on_grid(_gcv_score(nt[:, None], rss_t, edf_t, gamma, floor=1e-9))  # (..., R)
-    edf_b = np.take_along_axis(edf_t, best[..., None], axis=-1)[..., 0]
-    h_inv, beta = form.solution(lam[best], np.take_along_axis(s, best[..., None, None], axis=-2)[..., 0, :])
-    fc, beta_o = _carry_forward(W, y, w, origins, tune, h_inv, beta)
+
+    def at_best(a):
+        return np.take_along_axis(a, best[..., None], axis=-1)[..., 0]
+
+    lam_b = lam[best]
+    h_inv, beta = form.solution(lam_b)
+    # training RSS at the tuning origins (the grid's RSS counts the ridge's share too)
+    rss_b = at_best(rss_t) - ridge[..., None] * np.sum(beta * beta, axis=-1)
     held = np.repeat(np.arange(len(tune)), np.diff(np.r_[tune, len(origins)]))  # origin -> tuning index
-    edf_o = edf_b[..., held]
-    return fc, _window_gcv(W, y, w, origins, beta_o, edf_o, gamma), edf_o
+    fc, rss_o = _carry_forward(W, y, w, origins, tune, h_inv, beta, rss_b, lam_b[..., None, None] * P
+                               + ridge[..., None, None, None] * np.eye(W.shape[-1]))
+    edf_o = at_best(edf_t)[..., held]
+    return fc, _gcv_score(origins.astype(float), np.maximum(rss_o, 0.0), edf_o, gamma, floor=1e-9), edf_o
 
 
 def penalised_window_fit(
@@ -852,11 +884,11 @@ def penalised_window_fit(
     W = np.asarray(W, float)
     y = np.asarray(y, float)
     w = np.ones(len(y)) if weights is None else np.asarray(weights, float)
-    form = _subspace_form(*_tuning_equations(W, y, w, np.array([int(n_train)])), P)
-    s, rss, edf = form.grid(lam)  # (..., 1, L, r), (..., 1, L), (..., 1, L)
+    form = _subspace_form(*_tuning_equations(W, y, w, np.array([int(n_train)]))[:3], P)
+    rss, edf = form.grid(lam)  # (..., 1, L), (..., 1, L)
     gcv = _gcv_score(float(n_train), rss, edf, gamma, floor=1e-9)
     best = _best_on_grid(gcv)  # (..., 1)
-    _, beta = form.solution(lam[best], np.take_along_axis(s, best[..., None, None], axis=-2)[..., 0, :])
+    _, beta = form.solution(lam[best], inverse=False)
 
     def at_best(a):
         return np.take_along_axis(a, best[..., None], axis=-1)[..., 0, 0]
@@ -866,7 +898,8 @@ def penalised_window_fit(
 
 def _tuning_equations(W: np.ndarray, y: np.ndarray, w: np.ndarray, o_t: np.ndarray):
     """Normal equations (A + ridge, b, y'Wy) of the tuning windows [0, o) for every o in
-    ``o_t``, accumulated block by block: (..., R, q, q), (..., R, q), (R,)."""
+    ``o_t``, accumulated block by block: (..., R, q, q), (..., R, q), (R,); and the ridge
+    (...,): 1e-11 tr(A) / q with A of the first window."""
     q = W.shape[-1]
     Ww = W * w[:, None]
     A_parts, b_parts, lo = [], [], 0
@@ -874,14 +907,15 @@ def _tuning_equations(W: np.ndarray, y: np.ndarray, w: np.ndarray, o_t: np.ndarr
     b_run = np.zeros(W.shape[:-2] + (q,))
     for o in o_t:
         A_run = A_run + np.swapaxes(Ww[..., lo:o, :], -1, -2) @ W[..., lo:o, :]
-        b_run = b_run + np.einsum("...tq,t->...q", Ww[..., lo:o, :], y[lo:o])
+        b_run = b_run + (y[lo:o] @ Ww[..., lo:o, :])
         A_parts.append(A_run)
         b_parts.append(b_run)
         lo = o
     At, bt = np.stack(A_parts, axis=-3), np.stack(b_parts, axis=-2)
     yt = np.cumsum(w * y * y)[o_t - 1]
     ridge = 1e-11 * np.trace(At[..., 0, :, :], axis1=-2, axis2=-1) / q  # (...,)
-    return At + ridge[..., None, None, None] * np.eye(q), bt, yt
+    At[..., range(q), range(q)] += ridge[..., None, None]
+    return At, bt, yt, ridge
 
 
 @dataclass(frozen=True)
@@ -910,22 +944,29 @@ class _SubspaceForm:
     n_null: int         # q - r, the unpenalised dimensions
 
     def grid(self, lam: np.ndarray):
-        """(s, RSS, edf) for every grid value: (..., R, L, r), (..., R, L), (..., R, L)."""
-        mu, theta = self.mu, self.theta[..., None, :]
-        shift = lam[:, None] - mu[..., None, None]  # (..., R, L, 1)
-        s = _dr_factors(lam, mu, self.theta)
-        ee = (self.hb * self.hb)[..., None, :]
-        rss = np.maximum(self.rss_mu[..., None]
-                         + np.sum(ee * s * s * (shift**2 * theta - mu[..., None, None]), axis=-1), 0.0)
-        edf = self.n_null + (s * (1.0 - mu[..., None, None] * theta)).sum(-1)
-        return s, rss, edf
+        """(RSS, edf) for every grid value: (..., R, L), (..., R, L).
 
-    def solution(self, lam_b: np.ndarray, s_b: np.ndarray):
-        """((A + lambda P)^-1, coefficients) at the chosen lambda (..., R) with factors s_b."""
-        f = (lam_b - self.mu)[..., None] * s_b  # (..., R, r)
-        h_inv = self.c_inv - self.H @ (f[..., :, None] * np.swapaxes(self.H, -1, -2))
-        beta = self.cib - np.einsum("...qr,...r->...q", self.H, f * self.hb)
-        return h_inv, beta
+        The grid is the second-to-last axis of every temporary (..., R, L, r), and the sums
+        over the r eigen-directions are matrix-vector products."""
+        shift = lam[:, None] - self.mu[..., None, None]  # (..., R, L, 1)
+        s = shift * self.theta[..., None, :]
+        s += 1.0
+        np.reciprocal(s, out=s)  # the factors 1 / (1 + (lambda - mu) theta)
+        mt = self.mu[..., None] * self.theta  # (..., R, r)
+        edf = self.n_null + (s @ (1.0 - mt)[..., None])[..., 0]
+        ee = self.hb * self.hb
+        s *= s
+        both = s @ np.stack([ee * self.theta, ee * self.mu[..., None]], axis=-1)  # (..., R, L, 2)
+        rss = self.rss_mu[..., None] + shift[..., 0] ** 2 * both[..., 0] - both[..., 1]
+        return np.maximum(rss, 0.0), edf
+
+    def solution(self, lam_b: np.ndarray, inverse: bool = True):
+        """((A + lambda P)^-1 or None, coefficients) at the chosen lambda (..., R)."""
+        f = (lam_b - self.mu)[..., None] * _dr_factors(lam_b[..., None], self.mu, self.theta)[..., 0, :]
+        beta = self.cib - (self.H @ (f * self.hb)[..., None])[..., 0]
+        if not inverse:
+            return None, beta
+        return self.c_inv - (self.H * f[..., None, :]) @ np.swapaxes(self.H, -1, -2), beta
 
 
 def _subspace_form(At: np.ndarray, bt: np.ndarray, yt: np.ndarray, P: np.ndarray) -> _SubspaceForm:
@@ -942,42 +983,46 @@ def _subspace_form(At: np.ndarray, bt: np.ndarray, yt: np.ndarray, P: np.ndarray
     theta = np.clip(theta, 0.0, 1.0 / mu[..., None])
     H = np.swapaxes(RC, -1, -2) @ V  # (..., R, q, r)
     Cib = (Ci @ bt[..., None])[..., 0]
-    return _SubspaceForm(mu=mu, c_inv=Ci, H=H, theta=theta, hb=np.einsum("...qr,...q->...r", H, bt),
-                         cib=Cib, rss_mu=yt - np.einsum("...q,...q->...", bt, Cib),
+    return _SubspaceForm(mu=mu, c_inv=Ci, H=H, theta=theta, hb=(bt[..., None, :] @ H)[..., 0, :],
+                         cib=Cib, rss_mu=yt - np.sum(bt * Cib, axis=-1),
                          n_null=P.shape[-1] - R.shape[0])
 
 
-def _carry_forward(W, y, w, origins, tune, h_inv, beta):
-    """Forecasts (..., O) and coefficients (..., O, q) at every origin: the fit of each tuning
+def _carry_forward(W, y, w, origins, tune, h_inv, beta, rss, Q):
+    """Forecasts (..., O) and training RSS (..., O) at every origin: the fit of each tuning
     origin, carried forward within its block one training row at a time by the
-    Sherman-Morrison update of (A + lambda P)^-1 at the held lambda."""
-    n_o, q = len(origins), W.shape[-1]
+    Sherman-Morrison update of H = (A + Q)^-1 at the held penalty Q = lambda P + ridge
+    (..., R, q, q).
+
+    Adding row x with prior residual e moves the coefficients by d = k e, k = w H x / den,
+    den = 1 + w x'Hx. The RSS of the old rows at the new coefficients changes by
+    d'(A d) - 2 d'Q b, since the old rows' gradient is Q b by the normal equations, and
+    A d = (H^-1 - Q) d = (w e / den) x - Q d; the new row adds w (y - x'b_new)^2. Every term is
+    an increment, so no cancellation against the whole penalty builds up."""
+    n_o = len(origins)
     fc = np.empty(W.shape[:-2] + (n_o,))
-    beta_o = np.empty(W.shape[:-2] + (n_o, q))
+    rss_o = np.empty(W.shape[:-2] + (n_o,))
     for m in range(int(np.diff(np.r_[tune, n_o]).max())):  # steps within the longest block
         idx = tune + m
         live = idx < np.r_[tune[1:], n_o]  # blocks that still have origin idx
         if m:  # add training row origins[idx - 1] to every live block
             rows = origins[idx[live] - 1]
             x = W[..., rows, :]  # (..., R_live, q)
-            Hl, bl = h_inv[..., live, :, :], beta[..., live, :]
+            Hl, bl, Ql = h_inv[..., live, :, :], beta[..., live, :], Q[..., live, :, :]
             u = (Hl @ x[..., None])[..., 0]
             wr = w[rows]
-            den = 1.0 + wr * np.einsum("...q,...q->...", x, u)
-            e = y[rows] - np.einsum("...q,...q->...", x, bl)
+            den = 1.0 + wr * np.sum(x * u, axis=-1)
+            e = y[rows] - np.sum(x * bl, axis=-1)
             k = (wr / den)[..., None] * u
-            beta[..., live, :] = bl + k * e[..., None]
+            d = k * e[..., None]
+            Qd = (Ql @ d[..., None])[..., 0]
+            Qb = (Ql @ bl[..., None])[..., 0]
+            old = np.sum(d * ((wr * e / den)[..., None] * x - Qd - 2.0 * Qb), axis=-1)
+            bn = bl + d
+            rss[..., live] += old + wr * (y[rows] - np.sum(x * bn, axis=-1)) ** 2
+            beta[..., live, :] = bn
             h_inv[..., live, :, :] = Hl - k[..., :, None] * u[..., None, :]
         at = idx[live]
-        beta_o[..., at, :] = beta[..., live, :]
-        fc[..., at] = np.einsum("...q,...q->...", W[..., origins[at], :], beta[..., live, :])
-    return fc, beta_o
-
-
-def _window_gcv(W, y, w, origins, beta_o, edf_o, gamma):
-    """GCV of every window from its own weighted residuals (training rows only)."""
-    T_max = int(origins[-1])
-    fit = np.einsum("...tq,...oq->...ot", W[..., :T_max, :], beta_o)  # (..., O, T_max)
-    train = np.arange(T_max)[None, :] < origins[:, None]  # (O, T_max)
-    rss = np.einsum("...ot,t,ot->...o", (y[:T_max] - fit) ** 2, w[:T_max], train.astype(float))
-    return _gcv_score(origins.astype(float), rss, edf_o, gamma, floor=1e-9)
+        rss_o[..., at] = rss[..., live]
+        fc[..., at] = np.sum(W[..., origins[at], :] * beta[..., live, :], axis=-1)
+    return fc, rss_o

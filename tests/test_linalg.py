@@ -1,0 +1,98 @@
+"""Tests for lagsieve.stats.linalg: the expanding-window normal equations shared by the backtest,
+the conditional tests and the model sets.
+
+Outside source beside each check: every window's fit is recomputed with statsmodels
+(``statsmodels.api.WLS`` on the training rows: coefficients, ssr and the forecast of the next
+row). The partitioned normal equations (Seber & Lee 2003, section 3.7, from memory) must give the
+same least-squares fit as the whole system; the degenerate case is common practice (an added
+column with no variation of its own beyond the shared design must leave a finite fit).
+"""
+from __future__ import annotations
+
+import numpy as np
+import pytest
+import statsmodels.api as sm
+
+from lagsieve.stats import linalg
+
+
+def _design(rng, T):
+    year = np.arange(T, dtype=float)
+    ylag = rng.normal(size=T)
+    return np.column_stack([np.ones(T), ylag, (year - year.mean()) / year.std()])
+
+
+def _wls_window(y, W, w, o):
+    """statsmodels.api.WLS on rows [0, o): (ssr, forecast of row o)."""
+    res = sm.WLS(y[:o], W[:o], weights=w[:o]).fit()
+    return float(res.ssr), float(W[o] @ res.params)
+
+
+@pytest.mark.parametrize("k", [1, 2])
+def test_added_columns_equal_statsmodels_wls_at_every_window(k):
+    """expanding_added (shared baseline + k columns of each member, weighted) against one
+    statsmodels WLS fit per member and window: ssr and forecast to 1e-8 relative."""
+    rng = np.random.default_rng(3)
+    T, initial = 36, 14
+    Z = _design(rng, T)
+    X = rng.normal(size=(3, 2, T, k)) + np.linspace(0, 1, T)[:, None]  # (S, L, T, k)
+    y = 10.0 + Z[:, 1] * 0.4 + X[0, 0, :, 0] * 0.7 + rng.normal(0, 0.5, T)
+    w = rng.uniform(0.5, 2.0, T)
+    origins = np.arange(initial, T)
+    fit = linalg.expanding_added(Z, X, y, origins, weights=w)
+    assert fit.rss.shape == fit.forecast.shape == (3, 2, len(origins))
+    for s in range(3):
+        for li in range(2):
+            W = np.column_stack([Z, X[s, li]])
+            for i, o in enumerate(origins):
+                ssr, fc = _wls_window(y, W, w, o)
+                assert fit.rss[s, li, i] == pytest.approx(ssr, rel=1e-8)
+                assert fit.forecast[s, li, i] == pytest.approx(fc, rel=1e-8)
+    for i, o in enumerate(origins):  # the shared design alone
+        ssr, fc = _wls_window(y, Z, w, o)
+        assert fit.shared.rss[i] == pytest.approx(ssr, rel=1e-8)
+        assert fit.shared.forecast[i] == pytest.approx(fc, rel=1e-8)
+
+
+def test_no_added_columns_is_the_shared_fit():
+    """k = 0: every member's fit is the shared design's (statsmodels OLS)."""
+    rng = np.random.default_rng(4)
+    T = 30
+    Z = _design(rng, T)
+    y = rng.normal(size=T)
+    fit = linalg.expanding_added(Z, np.zeros((5, T, 0)), y, np.arange(12, T))
+    for i, o in enumerate(range(12, T)):
+        res = sm.OLS(y[:o], Z[:o]).fit()
+        assert np.allclose(fit.rss[:, i], res.ssr, rtol=1e-10)
+        assert np.allclose(fit.forecast[:, i], Z[o] @ res.params, rtol=1e-10)
+
+
+def test_added_column_without_variation_of_its_own_stays_finite():
+    """A member whose column is constant in the first windows (collinear with the intercept):
+    finite fits, and from the window where it varies on, statsmodels' fit (common practice)."""
+    rng = np.random.default_rng(5)
+    T, initial = 30, 12
+    Z = _design(rng, T)
+    x = rng.normal(size=T)
+    x[:15] = 2.0
+    y = rng.normal(size=T) + 0.5 * x
+    origins = np.arange(initial, T)
+    fit = linalg.expanding_added(Z, x[None, :, None], y, origins)
+    assert np.all(np.isfinite(fit.rss)) and np.all(np.isfinite(fit.forecast))
+    W = np.column_stack([Z, x])
+    for i, o in enumerate(origins):
+        if o > 17:
+            ssr, fc = _wls_window(y, W, np.ones(T), o)
+            assert fit.forecast[0, i] == pytest.approx(fc, rel=1e-6)
+
+
+def test_window_cross_equals_sums_over_each_window():
+    """window_cross against the plain sum of outer products over each window (the definition)."""
+    rng = np.random.default_rng(6)
+    A, B = rng.normal(size=(4, 20, 3)), rng.normal(size=(4, 20, 2))
+    w = rng.uniform(size=20)
+    origins = np.array([5, 9, 19])
+    out = linalg.window_cross(A, B, linalg.window_mask(origins, 20, w))
+    for j, o in enumerate(origins):
+        ref = np.einsum("mt,mtp,mtq->mpq", np.broadcast_to(w[:o], (4, o)), A[:, :o], B[:, :o])
+        np.testing.assert_allclose(out[:, j], ref, rtol=1e-12)
