@@ -218,7 +218,8 @@ def test_report_block_shows_fits_and_skipped_responses():
     block = section(out, labels.get)
     assert [(r["response"], r["driver"], r["lag"]) for r in block["rows"]] == [("M <age 2>", "Prey & co", 1)]
     row = block["rows"][0]
-    assert row["state_space"] == f"{out.iloc[0]['ss_slope']:+.3g} ± {out.iloc[0]['ss_slope_se']:.2g}"
+    assert row["state_space"] == f"{out.iloc[0]['ss_slope']:+.3f} ± {out.iloc[0]['ss_slope_se']:.3f}"  # se 0.01-0.1
+    assert row["screen"] == "+0.210 ± 0.020"  # the same decimals, two significant digits of the se
     assert row["obs_share"] == f"{out.iloc[0]['ss_obs_share']:.0%}" and row["n"] == 39
     assert block["skipped"] == [{"response": "Other", "reason": "skipped: the response has no se or cv"}]
     html = render("statespace.html", statespace=block)

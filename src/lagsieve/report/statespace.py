@@ -5,13 +5,20 @@ that is observation error; the skipped responses named once. Plain data for
 ``templates/statespace.html``."""
 from __future__ import annotations
 
+import numpy as np
 import pandas as pd
 
 from lagsieve.formats import is_missing, number
 
 
 def _slope(value, se) -> str:
-    return "" if is_missing(value) else f"{number(value, '{:+.3g}')} ± {number(se, '{:.2g}')}"
+    """A slope and its standard error to the same decimals, two significant digits of the se."""
+    if is_missing(value):
+        return ""
+    if is_missing(se) or not float(se) > 0:
+        return number(value, "{:+.3g}")
+    d = int(np.clip(1 - np.floor(np.log10(float(se))), 0, 8))
+    return f"{number(value, f'{{:+.{d}f}}')} ± {number(se, f'{{:.{d}f}}')}"
 
 
 def section(evidence: pd.DataFrame, label) -> dict | None:
