@@ -43,14 +43,14 @@ EVIDENCE_COLUMNS = ["response", "driver", "category", "expected_sign", "lag", "m
 @contextmanager
 def logged(smk):
     """Send a Snakemake job's warnings and errors to its ``log:`` file (when it has one), and
-    end the log with the job's own elapsed time and CPU time (``lagsieve: stage took ...``),
-    which ``bench/demo.py`` reads: Snakemake's log stamps whole seconds only."""
+    end the log with the job's own timing (:func:`stage_timing`), which ``bench/demo.py``
+    reads: Snakemake's log stamps whole seconds only."""
     logs = list(getattr(smk, "log", []) or [])
     if not logs:
         yield
         return
     Path(logs[0]).parent.mkdir(parents=True, exist_ok=True)
-    wall, cpu = time.perf_counter(), os.times()
+    start = (time.time(), time.perf_counter(), os.times())
     with open(logs[0], "w", encoding="utf-8") as fh, contextlib.redirect_stderr(fh):
         logging.basicConfig(stream=fh, level=logging.INFO, force=True)
         warnings.simplefilter("default")
@@ -61,18 +61,33 @@ def logged(smk):
             fh.flush()
             sys.__stderr__.write(f"lagsieve: job failed; see {logs[0]}\n")
             raise
-        fh.write(stage_timing(wall, cpu) + "\n")
+        fh.write(stage_timing(*start) + "\n")
 
 
-def stage_timing(wall0: float, cpu0: os.times_result) -> str:
-    """The log's last line: wall seconds since ``wall0`` (``time.perf_counter``), CPU seconds
-    (user + system) of this process and of its ended worker processes since ``cpu0``
-    (``os.times``)."""
-    now = os.times()
+def process_age() -> float | None:
+    """Seconds since this process started (Linux: ``/proc/self/stat`` against the boot clock,
+    to 10 ms), None where that cannot be read."""
+    try:
+        with open("/proc/self/stat", encoding="ascii") as fh:
+            ticks = int(fh.read().rsplit(")", 1)[1].split()[19])  # field 22, starttime
+        return time.clock_gettime(time.CLOCK_BOOTTIME) - ticks / os.sysconf("SC_CLK_TCK")
+    except (OSError, ValueError, IndexError, AttributeError):
+        return None
+
+
+def stage_timing(epoch0: float, wall0: float, cpu0: os.times_result) -> str:
+    """The log's last line: the stage's start and end (epoch seconds), its wall seconds, the
+    CPU seconds (user + system) of this process and of its ended worker processes since the
+    start (``time.time``, ``time.perf_counter``, ``os.times`` taken then), and how long the
+    process ran before the stage began (Python's start, Snakemake's preamble, the imports)."""
+    now, wall = os.times(), time.perf_counter() - wall0
     own = now.user + now.system - cpu0.user - cpu0.system
     workers = now.children_user + now.children_system - cpu0.children_user - cpu0.children_system
-    return (f"lagsieve: stage took {time.perf_counter() - wall0:.3f} s wall, "
-            f"{max(own, 0.0):.3f} s CPU, {max(workers, 0.0):.3f} s CPU in workers")
+    age = process_age()
+    before = "unknown" if age is None else f"{max(age - wall, 0.0):.3f} s"
+    return (f"lagsieve: stage took {wall:.3f} s wall, {max(own, 0.0):.3f} s CPU, "
+            f"{max(workers, 0.0):.3f} s CPU in workers; from {epoch0:.3f} to {epoch0 + wall:.3f} (epoch s); "
+            f"process start-up before it {before} ({cpu0.user + cpu0.system:.3f} s CPU)")
 
 
 def ordered(df: pd.DataFrame, columns: list[str]) -> pd.DataFrame:
