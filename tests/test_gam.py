@@ -222,6 +222,39 @@ def test_gcv_grid_equals_dense_craven_wahba_when_the_design_is_ill_conditioned()
     assert max(conds) > 1e8  # the case is as hard as it claims
 
 
+@pytest.mark.parametrize("with_trend", [False, True])
+def test_smooth_gain_equals_dense_gcv_choice_with_trend_and_weights(with_trend):
+    """smooth_gain (the statistics-only batch fit of the screen's surrogates) against dense
+    solves at every grid value (numpy.linalg.solve of the unconstrained penalised system, GCV
+    by Craven & Wahba 1979 with gamma 1.4, hat-matrix trace): the same lambda, its edf and RSS,
+    and the null model's RSS by ordinary least squares (numpy.linalg.lstsq), on drivers that
+    leave B-splines nearly without data, with weights."""
+    x = _clustered_drivers(9, m=20)
+    n = x.shape[1]
+    rng = np.random.default_rng(10)
+    y = 10.0 + np.sin(x[0]) + rng.normal(0.0, 0.3, n)
+    w = rng.uniform(0.5, 2.0, n)
+    t = np.arange(n, dtype=float) if with_trend else None
+    k = 10
+    grid = gam.DEFAULT_LAM_GRID[::3]
+    res = gam.smooth_gain(x, y, trend=t, weights=w, n_basis=k, lam_grid=grid)
+    tc = None if t is None else (t - t.mean()) / t.std()
+    for j in range(x.shape[0]):
+        dense = []
+        for lam in grid:
+            f, tr = _dense_reference(x[j], y, lam, k, trend=tc, w=w)
+            rss = np.sum(w * (y - f) ** 2)
+            dense.append((n * rss / (n - 1.4 * tr) ** 2, rss, tr))
+        best = int(np.argmin([d[0] for d in dense]))
+        assert res.lam[j] == grid[best]
+        assert res.rss[j] == pytest.approx(dense[best][1], rel=1e-8)
+        assert res.edf[j] == pytest.approx(dense[best][2], rel=1e-8)
+        Z = np.ones((n, 1)) if t is None else np.column_stack([np.ones(n), t])
+        sw = np.sqrt(w)
+        coef = np.linalg.lstsq(Z * sw[:, None], y * sw, rcond=None)[0]
+        assert res.rss_null[j] == pytest.approx(np.sum(w * (y - Z @ coef) ** 2), rel=1e-10)
+
+
 @pytest.mark.parametrize("retune", [1, 3, 100])
 def test_expanding_fits_equal_dense_solves_and_gcv_when_ill_conditioned(retune):
     """expanding_penalised (tuning every ``retune`` origins: every origin, every 3rd, only the

@@ -27,7 +27,7 @@ from lagsieve.stats.backtest import (
     rolling_origin,
 )
 from lagsieve.stats.shapes import shape_word
-from lagsieve.stats.splines import fit_pspline, partial_effect, smooth_p_value
+from lagsieve.stats.splines import fit_pspline, partial_effect, smooth_gain, smooth_p_value
 from lagsieve.stats.surrogates import make_surrogates
 
 MIN_YEARS = 6  # overlapping years a lag needs to be screened
@@ -263,7 +263,7 @@ def gam_screen_row(x: np.ndarray, y: np.ndarray, years: np.ndarray, screen: dict
     """In-sample penalised-spline statistics at one lag for the real driver (x[0]) and the
     deviance explained of every surrogate (x[1:]), smoothing chosen by GCV for each."""
     trend = years.astype(float) if screen.get("gam_trend") else None
-    fit = fit_pspline(x, y, trend=trend)
+    batch = smooth_gain(x, y, trend=trend)  # statistics only: every surrogate's gain
     real = fit_pspline(x[0], y, trend=trend)
     grid = np.linspace(np.min(x[0]), np.max(x[0]), 60)
     pe = partial_effect(real, grid)
@@ -272,8 +272,7 @@ def gam_screen_row(x: np.ndarray, y: np.ndarray, years: np.ndarray, screen: dict
            "p_smooth": float(smooth_p_value(real)),
            "shape": shape_word(grid, pe.curve, pe.se, scale=scale), "status": "ok"}
     # share of the residual variation of the null model (a, or a + b year) explained by f
-    gain = 1.0 - fit.rss / fit.rss_null
-    return row, np.asarray(gain, float)
+    return row, np.asarray(batch.gain, float)
 
 
 def _in_sample_evidence(hyp: dict, scan: _LagScan, screen_rows: pd.DataFrame, lags, use_gam: bool) -> np.ndarray:

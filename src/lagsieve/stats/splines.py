@@ -57,6 +57,7 @@ __all__ = [
     "penalised_window_fit",
     "penalty_block",
     "predict_pspline",
+    "smooth_gain",
     "smooth_p_value",
 ]
 
@@ -338,6 +339,66 @@ def fit_pspline(
 
 
 @dataclass(frozen=True)
+class SmoothGain:
+    """Result of :func:`smooth_gain`: the statistics of a batch of spline fits, no coefficients."""
+
+    rss: np.ndarray       # (S,) weighted RSS at the GCV-best lambda
+    rss_null: np.ndarray  # (S,) RSS of y = a [+ b * trend] (no smooth)
+    lam: np.ndarray       # (S,) smoothing parameter chosen
+    edf: np.ndarray       # (S,) trace of the hat matrix at lam
+
+    @property
+    def gain(self) -> np.ndarray:
+        """(S,) share of the null model's residual variation explained by the smooth."""
+        return 1.0 - self.rss / self.rss_null
+
+
+def smooth_gain(x, y, *, trend=None, weights=None, mask=None, n_basis: int | None = None, lam_grid=None,
+                degree: int = 3, penalty_order: int = 2, gamma: float = GCV_GAMMA) -> SmoothGain:
+    """The model of :func:`fit_pspline` for a batch whose coefficients are not needed (the
+    surrogates of a screen): RSS at the GCV-best lambda, the null model's RSS, lambda and edf.
+
+    Same rows, knots, basis size, grid and GCV (Craven & Wahba 1979, gamma 1.4) as
+    :func:`fit_pspline`, fitted in the unconstrained form ``[trend, B]`` with the penalty
+    ``D'D`` shared by the batch: the B-splines sum to one and the penalty is blind to a constant,
+    so the fitted values (hence RSS, edf and GCV) equal those of the constrained fit, and the
+    penalised subspace's Demmler-Reinsch form of :func:`expanding_penalised` serves every
+    lambda (an r x r eigen-problem, r = n_basis - 2). The response is centred on its weighted
+    mean (exact: constants lie in the basis' span and the penalty's null space). Fitted values
+    differ from :func:`fit_pspline`'s by the ridges' size (about 1e-12 relative).
+    """
+    rows = _usable_rows(x, y, trend, weights, mask)
+    n_basis = int(n_basis or default_n_basis(int(rows.n_used.min()) if rows.m else rows.n))
+    n_fixed = 1 if rows.trend is None else 2
+    _check_size(rows, n_fixed + n_basis - 1, n_basis)
+    lo = np.where(rows.active, rows.x, np.inf).min(axis=1)
+    hi = np.where(rows.active, rows.x, -np.inf).max(axis=1)
+    W = bspline_basis(np.where(rows.ok_x, rows.x, lo[:, None]), n_basis, degree, lo, hi)  # (m, n, K)
+    if rows.trend is not None:
+        W = np.concatenate([_centred_trend(rows)[0][..., None], W], axis=-1)
+    W = np.where(rows.active[..., None], W, 0.0)
+    P = penalty_block(difference_penalty(n_basis, penalty_order), n_fixed - 1)
+    sw = rows.w.sum(axis=1)
+    yc = rows.y0 - (np.einsum("mn,mn->m", rows.w, rows.y0) / sw)[:, None] * rows.active
+    Ww = W * rows.w[..., None]
+    A = np.swapaxes(Ww, 1, 2) @ W
+    A[:, range(A.shape[-1]), range(A.shape[-1])] += (_RIDGE * np.trace(A, axis1=1, axis2=2) / A.shape[-1])[:, None]
+    form = _subspace_form(A[:, None], (yc[:, None, :] @ Ww), np.einsum("mn,mn->m", rows.w, yc * yc)[:, None], P)
+    grid = _check_grid(DEFAULT_LAM_GRID if lam_grid is None else lam_grid)
+    rss_g, edf_g = form.grid(grid)  # (m, 1, L)
+    gcv = _gcv_score(rows.n_used[:, None, None], rss_g, edf_g, gamma)
+    if rows.m and np.any(~np.isfinite(gcv).any(axis=-1)):
+        raise ValueError("GCV is undefined for every lam (n_used <= gamma * edf)")
+    best = _best_on_grid(gcv)  # (m, 1)
+    _, beta = form.solution(grid[best], inverse=False)
+    resid = yc - (W @ beta[:, 0, :, None])[..., 0]
+    rss_null, _ = _null_model(rows, None if rows.trend is None else W[..., 0])
+    return SmoothGain(rss=np.einsum("mn,mn->m", rows.w, resid * resid).reshape(rows.batch_shape),
+                      rss_null=rss_null.reshape(rows.batch_shape), lam=grid[best[:, 0]].reshape(rows.batch_shape),
+                      edf=np.take_along_axis(edf_g[:, 0], best, axis=-1)[:, 0].reshape(rows.batch_shape))
+
+
+@dataclass(frozen=True)
 class _Rows:
     """The rows of a batched fit, flattened to ``(m, n)`` (``m`` = batch members)."""
 
@@ -548,15 +609,15 @@ def _gcv_choice(form: _ShiftedForm, rows: _Rows, grid: np.ndarray, gamma: float)
     return grid[_best_on_grid(gcv_all)], gcv_all
 
 
-def _null_model(rows: _Rows, design: _Design) -> tuple[np.ndarray, np.ndarray]:
-    """(rss_null, tss): RSS of ``y = a [+ b * trend]`` and of ``y = a`` over the used rows."""
+def _null_model(rows: _Rows, tcol: np.ndarray | None) -> tuple[np.ndarray, np.ndarray]:
+    """(rss_null, tss): RSS of ``y = a [+ b * trend]`` and of ``y = a`` over the used rows;
+    ``tcol`` (m, n) is the centred trend column (None without trend)."""
     wa, ya = rows.w, rows.y0
     sw = wa.sum(axis=1)
     ybar = np.einsum("mn,mn->m", wa, ya) / sw
     tss = np.einsum("mn,mn->m", wa, (ya - ybar[:, None]) ** 2)
-    if rows.trend is None:
+    if tcol is None:
         return tss, tss
-    tcol = design.xmat[:, :, 1]
     stt = np.einsum("mn,mn->m", wa, tcol * tcol)        # trend column has w-mean 0
     sty = np.einsum("mn,mn->m", wa, tcol * (ya - ybar[:, None]))
     rss_null = tss - np.where(stt > 0, sty**2 / np.where(stt > 0, stt, 1.0), 0.0)
@@ -576,7 +637,7 @@ def _final_fit(rows: _Rows, design: _Design, form: _ShiftedForm, lam_used: np.nd
     dof = rows.n_used - edf
     sigma2 = np.where(dof > 0, rss / np.where(dof > 0, dof, 1.0), np.nan)
     vb = np.einsum("mpj,mj,mqj->mpq", form.back, d, form.back) * sigma2[:, None, None]
-    rss_null, tss = _null_model(rows, design)
+    rss_null, tss = _null_model(rows, None if rows.trend is None else design.xmat[:, :, 1])
     trend_slope = None if rows.trend is None else coef[:, 1] / design.t_scale
 
     def shape(a, extra=()):
