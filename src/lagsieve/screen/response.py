@@ -2,10 +2,12 @@
 see :mod:`lagsieve.screen.hypothesis`), optionally in several processes."""
 from __future__ import annotations
 
+import logging
 import multiprocessing as mp
 import sys
+import time
 import traceback
-from concurrent.futures import ProcessPoolExecutor
+from concurrent.futures import ProcessPoolExecutor, as_completed
 from dataclasses import dataclass
 
 import numpy as np
@@ -13,6 +15,8 @@ import pandas as pd
 from threadpoolctl import threadpool_limits
 
 from lagsieve.screen.hypothesis import screen_hypothesis
+
+log = logging.getLogger(__name__)
 
 
 @dataclass
@@ -61,7 +65,7 @@ def _screen_one_packed(args):
         return _screen_one(*args)
 
 
-def _run_parallel(tasks: list[tuple], table: pd.DataFrame, workers: int) -> list:
+def _run_parallel(tasks: list[tuple], table: pd.DataFrame, workers: int, progress) -> list:
     """``_screen_one`` over ``tasks`` in ``workers`` processes; results in the order of tasks.
 
     Longest first (years observed x lags, a proxy of the work), so that the last task to
@@ -69,12 +73,25 @@ def _run_parallel(tasks: list[tuple], table: pd.DataFrame, workers: int) -> list
     """
     cost = [int(table[t[2]["id"]].notna().sum()) * len(t[3]) for t in tasks]
     order = sorted(range(len(tasks)), key=lambda i: -cost[i])
-    with ProcessPoolExecutor(max_workers=min(workers, len(tasks)), mp_context=mp.get_context("fork")) as ex:
-        done = list(ex.map(_screen_one_packed, [tasks[i] for i in order]))
     results = [None] * len(tasks)
-    for i, r in zip(order, done):
-        results[i] = r
+    with ProcessPoolExecutor(max_workers=min(workers, len(tasks)), mp_context=mp.get_context("fork")) as ex:
+        futures = {ex.submit(_screen_one_packed, tasks[i]): i for i in order}
+        for fut in as_completed(futures):
+            results[futures[fut]] = fut.result()
+            progress(tasks[futures[fut]][2]["id"])
     return results
+
+
+class _Progress:
+    """One log line per screened driver: response, driver k of n, elapsed seconds."""
+
+    def __init__(self, response_id: str, n: int):
+        self.response_id, self.n, self.k, self.t0 = response_id, n, 0, time.perf_counter()
+
+    def __call__(self, driver_id: str) -> None:
+        self.k += 1
+        log.info("screen %s: driver %d of %d (%s) done, %.1f s", self.response_id, self.k, self.n, driver_id,
+                 time.perf_counter() - self.t0)
 
 
 def _concat(frames: list[pd.DataFrame], columns: list[str] | None = None) -> pd.DataFrame:
@@ -95,10 +112,14 @@ def screen_response(table: pd.DataFrame, study, response_id: str, se_table: pd.D
     response = next(r for r in study.responses if r["id"] == response_id)
     se = None if se_table is None or response_id not in se_table else se_table[response_id].to_numpy(float)
     tasks = [(table, response, d, study.lags_for(d), study.screen, se) for d in study.drivers_for(response_id)]
+    progress = _Progress(response_id, len(tasks))
     if workers > 1 and len(tasks) > 1:
-        results = _run_parallel(tasks, table, workers)
+        results = _run_parallel(tasks, table, workers, progress)
     else:
-        results = [_screen_one(*t) for t in tasks]
+        results = []
+        for t in tasks:
+            results.append(_screen_one(*t))
+            progress(t[2]["id"])
     return ResponseScreen(
         screen=_concat([r[0] for r in results]),
         hypotheses=pd.DataFrame([r[1] for r in results]),
