@@ -3,8 +3,9 @@
 Every figure builder is a plain function of arrays and strings that returns a Figure. The
 report describes each figure as a :class:`FigureJob` (builder name + arguments) and
 :func:`render_jobs` draws them, in worker processes when more than one is allowed. Each
-figure is written as PNG (300 dpi) and SVG under ``figures/``; the report embeds a smaller
-PNG copy as a data URI.
+figure is written as PNG (``PNG_DPI``) and SVG under ``figures/`` by the process that draws it,
+with its content key beside it, so an unchanged figure is reused on a rerun; the report embeds
+the PNG as a data URI.
 
 Colours are a palette of our own: grades run from deep blue (most support) through pale
 blue to grey, with orange reserved for "shared trend only". The blue-orange contrast and the
@@ -14,10 +15,13 @@ carries a text label, so no reading depends on colour alone.
 from __future__ import annotations
 
 import base64
-import io
+import functools
+import hashlib
+import inspect
+import json
 import multiprocessing as mp
 import os
-import pickle
+import shutil
 import sys
 import textwrap
 import traceback
@@ -37,6 +41,9 @@ from matplotlib.patches import Patch, Rectangle  # noqa: E402
 from matplotlib.ticker import MaxNLocator  # noqa: E402
 from PIL import Image  # noqa: E402
 from scipy import stats  # noqa: E402
+
+from lagsieve.io.files import sha256_file  # noqa: E402
+from lagsieve.io.provenance import tool_version  # noqa: E402
 
 # ----------------------------------------------------------------------------- palette
 #: grade -> (fill colour, text colour on that fill, one-word label used inside cells)
@@ -75,8 +82,13 @@ RC = {
     "svg.fonttype": "none", "svg.hashsalt": "lagsieve", "figure.dpi": 100,
 }
 
-PNG_DPI = 300          # exported files
-EMBED_DPI = 150        # embedded copy (displayed at 96 px per inch: sharp on dense screens)
+#: One raster per figure, the exported PNG and the page's embedded copy alike: figures are
+#: shown at their size in inches (96 CSS px per inch), so 150 dpi gives about 1.5 device pixels
+#: per CSS pixel, and the PDF's half-width panels about 200 dpi. The SVG is the copy for print.
+PNG_DPI = 150
+FORMATS = ("png", "svg")   # written for every figure, by the process that draws it
+KEY_SUFFIX = ".key"        # the content key stored beside a figure (see content_key)
+KEY_FORMAT = 1             # raise when the key's meaning changes, so no stored figure matches
 INVENTED_NOTE = "invented data"
 
 
@@ -576,102 +588,184 @@ class FigureJob:
     kwargs: dict = field(default_factory=dict)
 
 
-def to_png_base64(fig, dpi: int = EMBED_DPI) -> str:
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=dpi)
-    return base64.b64encode(buf.getvalue()).decode("ascii")
+def _feed(h, v) -> None:
+    """Feed one argument value into the hash ``h`` in a canonical form (type-tagged, lengths
+    stated, arrays by dtype, shape and bytes). A type it does not know raises TypeError."""
+    if v is None or isinstance(v, (bool, np.bool_)):
+        h.update(b"N" if v is None else (b"b1" if v else b"b0"))
+    elif isinstance(v, (int, np.integer)):
+        h.update(b"i%d;" % int(v))
+    elif isinstance(v, (float, np.floating)):
+        h.update(b"f" + float(v).hex().encode() + b";")
+    elif isinstance(v, str):
+        data = v.encode("utf-8", "surrogatepass")
+        h.update(b"s%d:" % len(data) + data)
+    elif isinstance(v, (list, tuple)):
+        h.update(b"l%d:" % len(v))
+        for x in v:
+            _feed(h, x)
+    elif isinstance(v, dict):
+        h.update(b"d%d:" % len(v))
+        for k, x in v.items():  # in order: the order of entries is the order they are drawn in
+            _feed(h, k)
+            _feed(h, x)
+    elif isinstance(v, np.ndarray) and v.dtype == object:
+        h.update(b"O" + repr(v.shape).encode())
+        for x in v.ravel():
+            _feed(h, x)
+    elif isinstance(v, np.ndarray):
+        h.update(b"a" + v.dtype.str.encode() + repr(v.shape).encode())
+        h.update(np.ascontiguousarray(v).tobytes())
+    else:
+        raise TypeError(f"no content key for a {type(v).__name__}")
 
 
-def save_png(fig, figures_dir: str | Path, name: str) -> tuple[str, tuple[int, int]]:
-    """Lay the figure out and draw it once at 300 dpi; write ``name``.png; return the embedded
-    copy (base64 PNG at 150 dpi, halved from the 300 dpi raster) and its display size in CSS
-    pixels. The layout is then frozen, so a later SVG uses the same positions without laying
-    the figure out again."""
-    d = Path(figures_dir)
+@functools.lru_cache(maxsize=None)
+def _code_digest(path: str | None) -> str:
+    """sha256 of the source file that holds a builder ('' when there is none to read)."""
+    try:
+        return sha256_file(path) if path else ""
+    except OSError:
+        return ""
+
+
+@functools.lru_cache(maxsize=1)
+def _settings_digest() -> str:
+    """What every figure depends on besides its own arguments: the rc settings, the raster's
+    resolution and the versions of the tool and of the drawing libraries."""
+    h = hashlib.sha256()
+    _feed(h, [KEY_FORMAT, PNG_DPI, tool_version(), matplotlib.__version__, np.__version__])
+    _feed(h, {k: repr(v) for k, v in sorted(RC.items())})
+    return h.hexdigest()
+
+
+def content_key(job: FigureJob) -> str | None:
+    """The figure's content key: sha256 of its builder (name and the source file it is in), its
+    arguments and :func:`_settings_digest`. Equal keys draw equal figures, so a figure whose
+    key is stored beside it (``name.key``) is not drawn again. None when an argument has a type
+    the key cannot read: that figure is always drawn."""
+    builder = BUILDERS.get(job.builder)
+    h = hashlib.sha256()
+    try:
+        _feed(h, [job.builder, _code_digest(inspect.getsourcefile(builder) if builder else None), _settings_digest()])
+        _feed(h, job.kwargs)
+    except TypeError:
+        return None
+    return h.hexdigest()
+
+
+def _key_path(d: Path, name: str) -> Path:
+    return d / f"{name}{KEY_SUFFIX}"
+
+
+def stored(d: str | Path, name: str, key: str | None) -> tuple[int, int] | None:
+    """The display size of figure ``name`` stored in ``d`` under ``key``; None when there is no
+    such figure (absent, drawn from other inputs, or written only in part)."""
+    if key is None:
+        return None
+    d = Path(d)
+    try:
+        meta = json.loads(_key_path(d, name).read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        return None
+    if meta.get("key") != key or not all((d / f"{name}.{ext}").is_file() for ext in FORMATS):
+        return None
+    return tuple(meta["size"])
+
+
+def forget(d: str | Path, name: str) -> None:
+    """Remove figure ``name`` (its key first, then its files) from ``d``."""
+    d = Path(d)
+    for path in [_key_path(d, name)] + [d / f"{name}.{ext}" for ext in FORMATS]:
+        path.unlink(missing_ok=True)
+
+
+def prune(d: str | Path, keep) -> None:
+    """Remove from ``d`` every figure (PNG, SVG, key) whose name is not in ``keep``."""
+    d = Path(d)
+    keep = set(keep)
+    for ext in FORMATS + (KEY_SUFFIX.lstrip("."),):
+        for path in d.glob(f"*.{ext}"):
+            if path.name[: -len(ext) - 1] not in keep:
+                path.unlink(missing_ok=True)
+
+
+def _write_atomic(path: Path, write) -> None:
+    tmp = path.with_name(f".{path.name}.tmp")
+    write(tmp)
+    os.replace(tmp, path)
+
+
+def write_figure(fig, d: str | Path, name: str) -> tuple[int, int]:
+    """Lay the figure out and draw it once at ``PNG_DPI``; write ``name``.png (the exported file
+    and the page's embedded copy are one raster) and ``name``.svg from the same frozen layout.
+    Returns the display size in CSS pixels (96 per inch)."""
+    d = Path(d)
     d.mkdir(parents=True, exist_ok=True)
     width_in, height_in = fig.get_size_inches()
     fig.set_dpi(PNG_DPI)
     fig.canvas.draw()
-    fig.set_layout_engine(None)  # keep the positions; with no engine, saving does not lay out again
+    fig.set_layout_engine(None)  # keep the positions; with no engine, the SVG does not lay out again
     im = Image.fromarray(np.asarray(fig.canvas.buffer_rgba()), "RGBA").convert("RGB")
-    im.save(d / f"{name}.png", format="PNG", dpi=(PNG_DPI, PNG_DPI), compress_level=1)
-    small = im.reduce(PNG_DPI // EMBED_DPI)
-    out = io.BytesIO()
-    small.save(out, format="PNG", compress_level=1)
-    return base64.b64encode(out.getvalue()).decode("ascii"), (round(width_in * 96), round(height_in * 96))
+    _write_atomic(d / f"{name}.png", lambda p: im.save(p, format="PNG", dpi=(PNG_DPI, PNG_DPI), compress_level=1))
+    _write_atomic(d / f"{name}.svg", lambda p: fig.savefig(p, format="svg", metadata={"Date": None, "Creator": None}))
+    return round(width_in * 96), round(height_in * 96)
 
 
-def save_svg(fig, figures_dir: str | Path, name: str) -> None:
-    fig.savefig(Path(figures_dir) / f"{name}.svg", format="svg", metadata={"Date": None, "Creator": None})
-
-
-def save(fig, figures_dir: str | Path, name: str) -> tuple[str, tuple[int, int]]:
-    """Write ``name``.png (300 dpi) and ``name``.svg, close the figure; see :func:`save_png`."""
-    b64, size = save_png(fig, figures_dir, name)
-    save_svg(fig, figures_dir, name)
-    plt.close(fig)
-    return b64, size
-
-
-def _draw_job(job: FigureJob, figures_dir: str):
-    """Build and rasterise one job; return (name, base64, size, pickled figure or None). When
-    the figure cannot be pickled its SVG is written at once. A figure that cannot be drawn
-    gives (name, None, None, None) and its traceback in the log (stderr): the page leaves it
-    out, and the rest of the report is still made."""
+def _draw_job(job: FigureJob, d: str, key: str | None):
+    """Draw one job and write every format of it into ``d``, then its key; returns (name, size).
+    A figure that cannot be drawn gives (name, None) and its traceback in the log (stderr):
+    the page leaves it out, and the rest of the report is still made."""
+    forget(d, job.name)  # the old key goes first: a figure written in part is never reused
     with plt.rc_context(RC):
         try:
             fig = BUILDERS[job.builder](**job.kwargs)
-            b64, size = save_png(fig, figures_dir, job.name)
+            size = write_figure(fig, d, job.name)
         except Exception:  # noqa: BLE001 - one figure never stops the report
             sys.stderr.write(f"lagsieve: figure {job.name} could not be drawn; left out of the report\n")
             traceback.print_exc(file=sys.stderr)
             plt.close("all")
-            return job.name, None, None, None
-        try:
-            blob = pickle.dumps(fig)
-        except Exception:  # some artist that does not pickle: write the SVG here instead
-            blob = None
-            save_svg(fig, figures_dir, job.name)
+            forget(d, job.name)
+            return job.name, None
         plt.close(fig)
-    return job.name, b64, size, blob
-
-
-def _svg_job(name: str, blob: bytes, figures_dir: str) -> str:
-    with plt.rc_context(RC):
-        fig = pickle.loads(blob)
-        save_svg(fig, figures_dir, name)
-        plt.close(fig)
-    return name
+    if key is not None:
+        _write_atomic(_key_path(Path(d), job.name),
+                      lambda p: p.write_text(json.dumps({"key": key, "size": list(size)}), encoding="utf-8"))
+    return job.name, size
 
 
 def _draw_star(args):
     return _draw_job(*args)
 
 
-def _svgs_star(items):
-    return [_svg_job(*a) for a in items]
+def _fork_pool(workers: int):
+    """A pool of ``workers`` forked processes, or None where the platform cannot fork."""
+    if workers < 2 or not hasattr(os, "fork"):
+        return None
+    try:
+        return ProcessPoolExecutor(max_workers=workers, mp_context=mp.get_context("fork"))
+    except (OSError, RuntimeError, ValueError):  # no process creation here: draw serially
+        return None
 
 
 class FigureRenderer:
-    """Draws figure jobs, in worker processes when ``workers > 1`` and the platform can fork.
+    """Draws figure jobs into ``figures_dir``, in ``workers`` forked processes when there is more
+    than one figure to draw. Each worker draws a figure and writes all its formats (PNG, SVG)
+    itself: no figure crosses a process boundary.
 
-    Rasters (PNG, needed by the page) come first with :meth:`draw`; the SVG copies are written
-    afterwards by :meth:`write_svgs`, which returns at once when workers are available, so the
-    caller can do other work (the PDF) while they are written; :meth:`close` waits for them.
-    Use as a context manager.
+    ``cache_dir`` (default ``figures_dir``) keeps every figure with its content key
+    (:func:`content_key`, in ``name.key``): a job whose key is stored there is not drawn again.
+    When it is another folder, the figures are drawn there and copied into ``figures_dir`` (a
+    folder that a workflow clears before each run can so still reuse them). Use as a context
+    manager.
     """
 
-    def __init__(self, figures_dir: str | Path, workers: int = 1):
-        self.figures_dir = str(figures_dir)
+    def __init__(self, figures_dir: str | Path, workers: int = 1, cache_dir: str | Path | None = None):
+        self.figures_dir = Path(figures_dir)
+        self.cache_dir = Path(cache_dir) if cache_dir is not None else self.figures_dir
         self.workers = max(1, int(workers))
+        self.drawn: list[str] = []   # names drawn by the last draw(); the others were reused
         self._pool = None
-        self._pending: list = []
-        self._blobs: dict[str, bytes] = {}
-        if self.workers > 1 and hasattr(os, "fork"):
-            try:
-                self._pool = ProcessPoolExecutor(max_workers=self.workers, mp_context=mp.get_context("fork"))
-            except (OSError, RuntimeError, ValueError):  # no process creation here: draw serially
-                self._pool = None
 
     def __enter__(self):
         return self
@@ -680,55 +774,49 @@ class FigureRenderer:
         self.close()
         return False
 
-    def draw(self, jobs: list[FigureJob]) -> dict:
-        """Write every job's PNG; returns name -> (base64 PNG, (width, height) in CSS px)."""
-        args = [(j, self.figures_dir) for j in jobs]
-        results = None
-        if self._pool is not None and len(jobs) > 1:
+    def _run(self, todo: list[tuple]) -> list[tuple]:
+        if len(todo) > 1 and self._pool is None:
+            self._pool = _fork_pool(self.workers)
+        if self._pool is not None and len(todo) > 1:
             try:
-                results = list(self._pool.map(_draw_star, args, chunksize=1))
+                return list(self._pool.map(_draw_star, todo, chunksize=1))
             except BrokenProcessPool:
                 self._pool = None
-        if results is None:
-            results = [_draw_job(*a) for a in args]
+        return [_draw_job(*a) for a in todo]
+
+    def draw(self, jobs: list[FigureJob]) -> dict:
+        """Write every job's PNG and SVG (drawn, or reused when its key is stored); returns
+        name -> (base64 PNG, (width, height) in CSS px)."""
+        self.cache_dir.mkdir(parents=True, exist_ok=True)
+        self.figures_dir.mkdir(parents=True, exist_ok=True)
+        keys = {j.name: content_key(j) for j in jobs}
+        sizes = {j.name: stored(self.cache_dir, j.name, keys[j.name]) for j in jobs}
+        todo = [(j, str(self.cache_dir), keys[j.name]) for j in jobs if sizes[j.name] is None]
+        self.drawn = [j.name for j, _, _ in todo]
+        sizes.update(self._run(todo))
         out = {}
-        for name, b64, size, blob in results:
-            if b64 is None:  # not drawn (see _draw_job)
+        for j in jobs:
+            if sizes[j.name] is None:  # not drawn (see _draw_job)
                 continue
-            out[name] = (b64, size)
-            if blob is not None:
-                self._blobs[name] = blob
+            png = (self.cache_dir / f"{j.name}.png").read_bytes()
+            if self.cache_dir != self.figures_dir:
+                (self.figures_dir / f"{j.name}.png").write_bytes(png)
+                shutil.copyfile(self.cache_dir / f"{j.name}.svg", self.figures_dir / f"{j.name}.svg")
+            out[j.name] = (base64.b64encode(png).decode("ascii"), tuple(sizes[j.name]))
         return out
 
     def write_svgs(self) -> None:
-        """Write the SVG copies in the background: with ``workers`` processes, in
-        ``workers - 1`` of them, so that one CPU stays free for the caller (the PDF is laid
-        out meanwhile, and would otherwise compete with every worker)."""
-        items = [(n, b, self.figures_dir) for n, b in self._blobs.items()]
-        self._blobs = {}
-        if self._pool is not None:
-            lanes = max(1, self.workers - 1)
-            self._pending += [self._pool.submit(_svgs_star, items[i::lanes]) for i in range(lanes) if items[i::lanes]]
-        else:
-            for a in items:
-                _svg_job(*a)
+        """Nothing left to write: each figure's SVG is written with its PNG (kept for callers)."""
 
     def close(self) -> None:
-        if self._blobs:
-            self.write_svgs()
-        try:
-            for f in self._pending:
-                f.result()
-        finally:
-            self._pending = []
-            if self._pool is not None:
-                self._pool.shutdown(wait=True)
-                self._pool = None
+        if self._pool is not None:
+            self._pool.shutdown(wait=True)
+            self._pool = None
 
 
-def render_jobs(jobs: list[FigureJob], figures_dir: str | Path, workers: int = 1) -> dict:
-    """Draw every job (PNG 300 dpi and SVG under ``figures_dir``); returns name -> (base64
-    PNG, (width, height) in CSS px)."""
-    with FigureRenderer(figures_dir, workers) as r:
-        figs = r.draw(jobs)
-    return figs
+def render_jobs(jobs: list[FigureJob], figures_dir: str | Path, workers: int = 1,
+                cache_dir: str | Path | None = None) -> dict:
+    """Draw every job (PNG and SVG under ``figures_dir``; see :class:`FigureRenderer`);
+    returns name -> (base64 PNG, (width, height) in CSS px)."""
+    with FigureRenderer(figures_dir, workers, cache_dir) as r:
+        return r.draw(jobs)

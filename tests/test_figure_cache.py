@@ -1,0 +1,150 @@
+"""Figures reused when their inputs did not change (report.figures: content_key, FigureRenderer).
+
+A figure is stored with its content key (a sha256 of its builder, its arguments, the drawing
+settings and the versions); a rerun with the same jobs draws nothing, a changed job draws only
+itself. Caching by a content hash is common practice (no published source); the checks below
+are of our own rules: what must and must not change the key, and what is drawn again.
+"""
+from __future__ import annotations
+
+import base64
+import hashlib
+import json
+
+import numpy as np
+import pytest
+from PIL import Image
+
+from lagsieve.report import figures as fg
+
+
+def _overlay(name: str, shift: float = 0.0, response: str = "M age 2") -> fg.FigureJob:
+    years = np.arange(1990, 2010)
+    return fg.FigureJob(name, "overlay", {"years": years, "y": np.sin(years / 3.0) + shift * (years - 1990),
+                                          "x": np.cos(years / 4.0), "lag": 1, "response": response,
+                                          "driver": "forage biomass", "invented": True})
+
+
+def _jobs(**shifts) -> list[fg.FigureJob]:
+    return [_overlay(n, shifts.get(n, 0.0)) for n in ("a", "b", "c")]
+
+
+def _draw(figures, jobs, cache=None, workers=1):
+    with fg.FigureRenderer(figures, workers, cache_dir=cache) as r:
+        figs = r.draw(jobs)
+    return r.drawn, figs
+
+
+# ----------------------------------------------------------------------------- the key
+def test_key_follows_content_not_object_identity():
+    a, b = _overlay("a"), _overlay("a")
+    assert fg.content_key(a) == fg.content_key(b)  # equal arguments built twice: one key
+    strided = np.arange(1990, 2030)[::2]
+    c = _overlay("a")
+    c.kwargs["years"] = strided
+    d = _overlay("a")
+    d.kwargs["years"] = strided.copy()  # a view and a contiguous copy of the same numbers
+    assert fg.content_key(c) == fg.content_key(d)
+
+
+@pytest.mark.parametrize("change", [
+    lambda k: k.update(lag=2),                                   # a number
+    lambda k: k.update(response="M age 3"),                      # a label
+    lambda k: k["y"].__setitem__(3, k["y"][3] + 1e-12),          # one value, by the last bit
+    lambda k: k.update(years=k["years"].astype(float)),          # same numbers, other dtype
+    lambda k: k.update(invented=False),                          # a flag
+])
+def test_key_changes_with_any_argument(change):
+    job = _overlay("a")
+    before = fg.content_key(job)
+    change(job.kwargs)
+    assert fg.content_key(job) != before
+
+
+def test_key_includes_the_builder_and_the_settings(monkeypatch):
+    job = _overlay("a")
+    before = fg.content_key(job)
+    assert fg.content_key(fg.FigureJob("a", "scatter", job.kwargs)) != before
+    fg._settings_digest.cache_clear()
+    monkeypatch.setattr(fg, "PNG_DPI", fg.PNG_DPI + 1)
+    try:
+        assert fg.content_key(job) != before
+    finally:
+        fg._settings_digest.cache_clear()
+
+
+def test_an_argument_the_key_cannot_read_is_always_drawn(tmp_path):
+    job = _overlay("a")
+    job.kwargs["extra"] = {1, 2}  # a set has no stable order: no key
+    assert fg.content_key(job) is None
+
+
+def test_key_is_the_sha256_of_the_canonical_form():
+    """The canonical form of a small value, written out by hand (common practice: type tag,
+    length, content); hashlib's sha256 is the reference."""
+    h = hashlib.sha256()
+    fg._feed(h, {"n": 3, "v": [1.5, None, True], "a": np.array([1, 2], dtype="<i8")})
+    expected = hashlib.sha256(b"d3:" + b"s1:n" + b"i3;" + b"s1:v" + b"l3:" + b"f" + (1.5).hex().encode() + b";"
+                              + b"N" + b"b1" + b"s1:a" + b"a<i8(2,)" + np.array([1, 2], "<i8").tobytes())
+    assert h.hexdigest() == expected.hexdigest()
+
+
+# ----------------------------------------------------------------------------- reuse
+def test_rerun_with_the_same_jobs_draws_nothing(tmp_path):
+    drawn, first = _draw(tmp_path, _jobs())
+    assert drawn == ["a", "b", "c"]
+    stamps = {p.name: p.stat().st_mtime_ns for p in tmp_path.iterdir()}
+    drawn, again = _draw(tmp_path, _jobs())
+    assert drawn == [] and again == first
+    assert {p.name: p.stat().st_mtime_ns for p in tmp_path.iterdir()} == stamps  # not one file rewritten
+    meta = json.loads((tmp_path / "a.key").read_text())
+    assert meta["key"] == fg.content_key(_overlay("a")) and meta["size"] == [round(5.0 * 96), round(3.1 * 96)]
+
+
+def test_a_changed_input_redraws_only_its_figure(tmp_path):
+    _draw(tmp_path, _jobs())
+    old_b = (tmp_path / "b.png").read_bytes()
+    drawn, figs = _draw(tmp_path, _jobs(b=0.5))
+    assert drawn == ["b"]
+    assert (tmp_path / "b.png").read_bytes() != old_b and set(figs) == {"a", "b", "c"}
+
+
+def test_a_figure_written_in_part_is_drawn_again(tmp_path):
+    _draw(tmp_path, _jobs())
+    (tmp_path / "c.svg").unlink()       # a file lost
+    (tmp_path / "a.key").write_text("{")  # a key written in part
+    drawn, _ = _draw(tmp_path, _jobs())
+    assert drawn == ["a", "c"] and (tmp_path / "c.svg").is_file()
+
+
+def test_a_cleared_output_folder_is_filled_from_the_cache(tmp_path):
+    """As under Snakemake, which removes a directory output before the job: the figures are kept
+    in a cache folder and copied into the output folder."""
+    out, cache = tmp_path / "figures", tmp_path / "work" / "figures"
+    _, first = _draw(out, _jobs(), cache=cache, workers=2)
+    for p in out.iterdir():
+        p.unlink()
+    out.rmdir()
+    drawn, again = _draw(out, _jobs(), cache=cache, workers=2)
+    assert drawn == [] and again == first
+    assert sorted(p.name for p in out.iterdir()) == sorted(f"{n}.{e}" for n in "abc" for e in ("png", "svg"))
+    assert not list(out.glob("*.key"))  # the keys stay in the cache
+
+
+def test_workers_write_every_format_and_the_embedded_copy_is_the_file(tmp_path):
+    drawn, figs = _draw(tmp_path, _jobs(), workers=2)
+    assert sorted(drawn) == ["a", "b", "c"]
+    for name, (b64, size) in figs.items():
+        assert base64.b64decode(b64) == (tmp_path / f"{name}.png").read_bytes()
+        with Image.open(tmp_path / f"{name}.png") as im:
+            assert round(im.info["dpi"][0]) == fg.PNG_DPI
+            assert im.size == (round(5.0 * fg.PNG_DPI), round(3.1 * fg.PNG_DPI))  # fg.PANEL_SIZE
+        assert size == (480, round(3.1 * 96))
+        assert "</svg>" in (tmp_path / f"{name}.svg").read_text(encoding="utf-8")
+
+
+def test_prune_removes_figures_no_longer_planned(tmp_path):
+    _draw(tmp_path, _jobs())
+    (tmp_path / "table.csv").write_text("x\n1\n")
+    fg.prune(tmp_path, ["a"])
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["a.key", "a.png", "a.svg", "table.csv"]
