@@ -1,7 +1,11 @@
+from lagsieve.stages.digest import settings_digest as _settings_digest
+
+
 rule screen:
-    """One response against all its drivers: lags, surrogates, rolling-origin forecasts."""
+    """One response against all its drivers: lags, surrogates, rolling-origin forecasts. The
+    config is a param, with the digest of the settings this screen reads, so that the job
+    reruns when those change, not when a title, a label or another driver does."""
     input:
-        config=cfg,
         data=lambda w: STUDIES[w.study].response_inputs[w.response],
         condition=condition_for_response,
     output:
@@ -9,6 +13,9 @@ rule screen:
         hypotheses=f"{OUT}/{{study}}/work/responses/{{response}}/hypotheses.csv",
         forecasts=f"{OUT}/{{study}}/work/responses/{{response}}/forecasts.csv",
         nulls=f"{OUT}/{{study}}/work/responses/{{response}}/nulls.csv",
+    params:
+        config=cfg,
+        settings=lambda w: _settings_digest(STUDIES[w.study].study, "screen", w.response),
     log:
         f"{OUT}/{{study}}/logs/screen/{{response}}.log",
     conda:
