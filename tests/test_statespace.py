@@ -216,15 +216,18 @@ def test_report_block_shows_fits_and_skipped_responses():
                           {"state_space": True})
     labels = {"m": "M <age 2>", "d": "Prey & co", "other": "Other"}
     block = section(out, labels.get)
-    assert [(r["response"], r["driver"], r["lag"]) for r in block["rows"]] == [("M <age 2>", "Prey & co", 1)]
+    assert [(r["response"], r["driver"], r["lag"]) for r in block["rows"]] == [("M <age 2>", "Prey & co", "1")]
     row = block["rows"][0]
     assert row["state_space"] == f"{out.iloc[0]['ss_slope']:+.3f} ± {out.iloc[0]['ss_slope_se']:.3f}"  # se 0.01-0.1
     assert row["screen"] == "+0.210 ± 0.020"  # the same decimals, two significant digits of the se
-    assert row["obs_share"] == f"{out.iloc[0]['ss_obs_share']:.0%}" and row["n"] == 39
+    assert row["obs_share"] == f"{out.iloc[0]['ss_obs_share']:.0%}" and row["n"] == "39"
     assert block["skipped"] == [{"response": "Other", "reason": "skipped: the response has no se or cv"}]
     html = render("statespace.html", statespace=block)
     assert "M &lt;age 2&gt;" in html and "Prey &amp; co" in html and "not refitted: the response has no se" in html
     assert section(ev.assign(ss_status=np.nan), labels.get) is None  # the key off: no block
+    # a fitted row whose other cells went missing still renders (the report never stops on a cell)
+    broken = out.assign(lag=np.nan, ss_n=np.nan, grade=np.nan)
+    assert section(broken, labels.get)["rows"][0]["lag"] == "" and section(broken, labels.get)["rows"][0]["grade"] == ""
 
 
 def test_check_warns_for_a_response_without_se(tmp_path):

@@ -8,7 +8,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from lagsieve.formats import is_missing, number
+from lagsieve.formats import is_missing, number, text
 
 
 def _slope(value, se) -> str:
@@ -28,10 +28,10 @@ def section(evidence: pd.DataFrame, label) -> dict | None:
         return None
     status = evidence["ss_status"].astype(object).fillna("").astype(str)
     done = evidence[status.str.startswith("ok")]
-    rows = [{"response": label(r["response"]), "driver": label(r["driver"]), "lag": int(r["lag"]),
-             "grade": r["grade"], "screen": _slope(r["slope"], r["slope_se"]),
+    rows = [{"response": label(r["response"]), "driver": label(r["driver"]), "lag": number(r["lag"], "{:.0f}"),
+             "grade": text(r["grade"]), "screen": _slope(r["slope"], r["slope_se"]),
              "state_space": _slope(r["ss_slope"], r["ss_slope_se"]), "phi": number(r["ss_phi"], "{:+.2f}"),
-             "obs_share": number(r["ss_obs_share"], "{:.0%}"), "n": int(r["ss_n"]),
+             "obs_share": number(r["ss_obs_share"], "{:.0%}"), "n": number(r["ss_n"], "{:.0f}"),
              "note": "" if r["ss_status"] == "ok" else r["ss_status"].removeprefix("ok: ")}
             for _, r in done.iterrows()]
     other = evidence[(status != "") & ~status.str.startswith("ok")]
