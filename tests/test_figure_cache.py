@@ -148,3 +148,11 @@ def test_prune_removes_figures_no_longer_planned(tmp_path):
     (tmp_path / "table.csv").write_text("x\n1\n")
     fg.prune(tmp_path, ["a"])
     assert sorted(p.name for p in tmp_path.iterdir()) == ["a.key", "a.png", "a.svg", "table.csv"]
+
+
+def test_the_cache_keeps_only_the_figures_still_planned(tmp_path):
+    out, cache = tmp_path / "figures", tmp_path / "cache"
+    _draw(out, _jobs(), cache=cache)
+    drawn, _ = _draw(out, _jobs()[:2], cache=cache)  # figure c is no longer planned
+    assert drawn == [] and sorted(p.name for p in cache.iterdir()) == sorted(
+        f"{n}.{e}" for n in "ab" for e in ("png", "svg", "key"))

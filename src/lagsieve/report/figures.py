@@ -756,8 +756,8 @@ class FigureRenderer:
     ``cache_dir`` (default ``figures_dir``) keeps every figure with its content key
     (:func:`content_key`, in ``name.key``): a job whose key is stored there is not drawn again.
     When it is another folder, the figures are drawn there and copied into ``figures_dir`` (a
-    folder that a workflow clears before each run can so still reuse them). Use as a context
-    manager.
+    folder that a workflow clears before each run can so still reuse them). On closing, the
+    figures of ``cache_dir`` that no job asked for are removed. Use as a context manager.
     """
 
     def __init__(self, figures_dir: str | Path, workers: int = 1, cache_dir: str | Path | None = None):
@@ -765,6 +765,7 @@ class FigureRenderer:
         self.cache_dir = Path(cache_dir) if cache_dir is not None else self.figures_dir
         self.workers = max(1, int(workers))
         self.drawn: list[str] = []   # names drawn by the last draw(); the others were reused
+        self._asked: set[str] | None = None  # every name asked for; None before the first draw
         self._pool = None
 
     def __enter__(self):
@@ -789,6 +790,7 @@ class FigureRenderer:
         name -> (base64 PNG, (width, height) in CSS px)."""
         self.cache_dir.mkdir(parents=True, exist_ok=True)
         self.figures_dir.mkdir(parents=True, exist_ok=True)
+        self._asked = (self._asked or set()) | {j.name for j in jobs}
         keys = {j.name: content_key(j) for j in jobs}
         sizes = {j.name: stored(self.cache_dir, j.name, keys[j.name]) for j in jobs}
         todo = [(j, str(self.cache_dir), keys[j.name]) for j in jobs if sizes[j.name] is None]
@@ -812,6 +814,8 @@ class FigureRenderer:
         if self._pool is not None:
             self._pool.shutdown(wait=True)
             self._pool = None
+        if self._asked is not None:
+            prune(self.cache_dir, self._asked)
 
 
 def render_jobs(jobs: list[FigureJob], figures_dir: str | Path, workers: int = 1,
