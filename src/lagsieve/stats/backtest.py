@@ -44,8 +44,8 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import stats as _st
 
+from lagsieve.stats.distributions import t_sf
 from lagsieve.stats.linalg import expanding_added
 from lagsieve.stats.splines import (
     GCV_GAMMA,
@@ -394,9 +394,9 @@ def diebold_mariano(
     dm = dbar / np.sqrt(v / n)
     dm *= np.sqrt((n + 1 - 2 * h + h * (h - 1) / n) / n)
     if alternative == "greater":
-        p = _st.t.sf(dm, n - 1)
+        p = t_sf(dm, n - 1)
     elif alternative == "two-sided":
-        p = 2 * _st.t.sf(abs(dm), n - 1)
+        p = 2 * t_sf(abs(dm), n - 1)
     else:
         raise ValueError("alternative must be 'greater' or 'two-sided'")
     return DMResult(float(dm), float(p), n)
@@ -440,7 +440,7 @@ def clark_west(e_model: np.ndarray, e_baseline: np.ndarray) -> CWResult:
     if not s2 > 0:
         return CWResult(np.nan, np.nan, n, fbar)
     t = fbar / np.sqrt(s2 / n)
-    return CWResult(float(t), float(_st.t.sf(t, n - 1)), n, fbar)
+    return CWResult(float(t), float(t_sf(t, n - 1)), n, fbar)
 
 
 @dataclass(frozen=True)

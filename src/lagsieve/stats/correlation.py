@@ -20,8 +20,8 @@ Fisher, R.A. (1921) On the "probable error" of a coefficient of correlation dedu
 from __future__ import annotations
 
 import numpy as np
-from scipy import stats as _st
 
+from lagsieve.stats.distributions import norm_ppf, t_ppf, t_sf
 
 def _centre(a: np.ndarray) -> np.ndarray:
     return a - a.mean(axis=-1, keepdims=True)
@@ -50,7 +50,7 @@ def correlation_p(r: np.ndarray, n: np.ndarray | float) -> np.ndarray:
     df = np.maximum(np.asarray(n, float) - 2.0, 1.0)
     with np.errstate(divide="ignore", invalid="ignore"):
         t = r * np.sqrt(df / np.maximum(1.0 - r * r, 1e-300))
-    p = 2.0 * _st.t.sf(np.abs(t), df)
+    p = 2.0 * t_sf(np.abs(t), df)
     return np.where(np.isnan(r), np.nan, np.minimum(p, 1.0))
 
 
@@ -228,7 +228,7 @@ def slope_interval(
         se_hac = se * np.sqrt(n / np.maximum(n - 2.0, 1.0))
         se_eff = np.abs(slope) * np.sqrt(np.maximum(1.0 - r * r, 0.0)) / (np.abs(r) * np.sqrt(df))
         se_eff = np.where(np.isfinite(se_eff), se_eff, np.nan)  # r = 0: the HAC error alone
-        half = _st.t.ppf(0.5 + level / 2.0, df) * np.where(np.isnan(se_hac), np.nan, np.fmax(se_hac, se_eff))
+        half = t_ppf(0.5 + level / 2.0, df) * np.where(np.isnan(se_hac), np.nan, np.fmax(se_hac, se_eff))
     return slope - half, slope + half
 
 
@@ -241,7 +241,7 @@ def fisher_interval(r: np.ndarray, n: np.ndarray, level: float = 0.95) -> tuple[
     At the plain number of pairs this is scipy.stats.pearsonr(...).confidence_interval().
     """
     r = np.clip(np.asarray(r, float), -1.0 + 1e-12, 1.0 - 1e-12)
-    half = _st.norm.ppf(0.5 + level / 2.0) / np.sqrt(np.maximum(np.asarray(n, float) - 3.0, 1.0))
+    half = norm_ppf(0.5 + level / 2.0) / np.sqrt(np.maximum(np.asarray(n, float) - 3.0, 1.0))
     z = np.arctanh(r)
     return np.tanh(z - half), np.tanh(z + half)
 

@@ -42,7 +42,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import stats
+
+from lagsieve.stats.distributions import f_sf
 
 __all__ = [
     "DEFAULT_LAM_GRID",
@@ -729,7 +730,7 @@ def smooth_p_value(fit: PSplineFit, method: str = "f") -> np.ndarray:
         den = fit.rss / np.where(df2 > 0, df2, np.nan)
         with np.errstate(divide="ignore", invalid="ignore"):
             fstat = num / den
-        p = stats.f.sf(fstat, df1, df2)
+        p = f_sf(fstat, df1, df2)
     elif method == "wald":
         p = _wald_p(fit)
     else:
@@ -756,7 +757,7 @@ def _wald_p(fit: PSplineFit) -> np.ndarray:
     proj = np.einsum("...kj,...k->...j", evecs, rc)
     safe = np.where(keep & (evals > 0), evals, np.inf)
     tstat = np.sum(proj**2 / safe, axis=-1)
-    return stats.f.sf(tstat / r, r, fit.n_used - fit.edf)
+    return f_sf(tstat / r, r, fit.n_used - fit.edf)
 
 
 def partial_effect(fit: PSplineFit, grid) -> PartialEffect:
