@@ -21,6 +21,7 @@ from lagsieve.report.figures import FigureRenderer
 from lagsieve.report.html import build_report
 from lagsieve.report.pdf import write_report_pdf
 from lagsieve.report.rivals import read_outputs as read_rivals
+from lagsieve.stages.allocator import allocator_variables
 from lagsieve.stages.common import load_table, response_dirs
 from lagsieve.stages.plan import pdf_wanted
 
@@ -52,6 +53,7 @@ def _report_provenance(study: Study, annual_csv, dirs: dict, t0: float) -> dict:
         "inputs_prepared": _iso(Path(annual_csv).stat().st_mtime),
         "screened": _iso(max(screened)) if screened else None,
         "started": _iso(t0),
+        "allocator": allocator_variables(os.environ),
     }
     for name in ("pillow", "weasyprint"):  # the report's own libraries
         try:
