@@ -33,6 +33,15 @@ planted, harder cases (rho = 0.5 and 0.7, planted lag 1 only)
   planted_trend_drv the driver is a linear rise of 2 noise sd + AR(1) noise (phi 0.5),
                     standardised; y_t = b x_{t-k} + e_t (a real effect carried by a trend)
 
+relationships that change (``--stability``: the break test of ``lagsieve.evidence.stability``)
+  stationary worlds (ar1_0.3, ar1_0.8; planted and planted_t3 at lag 1, an effect that never
+  changes) measure how often ``unstable`` is raised without a change; ``switch`` is planted at
+  lag 1 whose effect is present in the first half of the response years and zero after
+  (rho is the correlation in the first half), and measures the power and the error of the
+  break year (truth: the first response year with no effect). Every world runs the break test
+  as the evidence stage does (on hypotheses graded weak or better or no-forecast-skill, with 20
+  or more years), and once more whatever its grade (the test's own size and power).
+
 decoys (``--decoys``: worlds of three drivers, graded with the rival check as the pipeline does)
   the true driver x (AR(1), phi 0.5; or, "trending", plus a rise of 2 noise sd) acts at lag 1
   with rho = 0.7; a same-year decoy d0_t = c x_t + sqrt(1 - c^2) u_t and a shifted decoy
@@ -84,6 +93,7 @@ from statsmodels.stats.proportion import proportion_confint
 from lagsieve.io.config import SCREEN_DEFAULTS
 from lagsieve.evidence.grading import build_evidence, finish_evidence, grade_hypotheses
 from lagsieve.evidence.rivals import cap_by_rivals, conditional_table
+from lagsieve.evidence.stability import add_stability, hypothesis_stability
 from lagsieve.screen.hypothesis import screen_hypothesis
 
 LAGS = [0, 1, 2]
@@ -92,6 +102,9 @@ NULL_WORLDS = ("ar1_0.3", "ar1_0.8", "random_walk", "trends", "step_vs_trend")
 RHOS = (0.5, 0.7)
 NS = (20, 25, 40, 60)
 HARDER = ("planted_t3", "planted_trend_resp", "planted_rw", "planted_trend_drv")  # planted lag 1 only
+STABILITY_STEADY = ("ar1_0.3", "ar1_0.8", "planted", "planted_t3")  # no change: unstable is a false positive
+STABILITY_NS = (25, 40, 60)
+STABILITY_RHOS = (0.5, 0.7, 0.9)
 STATIONARY_DRIVER = ("planted", "planted_t3", "planted_trend_resp")  # cells held to the power target
 TREND_FREE = ("ar1_0.3", "ar1_0.8", "planted", "planted_t3")  # no series has a trend
 SHARED_TREND = ("spurious-trend", "trend-confounded")  # the verdicts that say "a shared trend"
@@ -130,7 +143,7 @@ def simulate(world: str, n: int, rng: np.random.Generator, rho: float = 0.0, lag
         brk = int(rng.integers(round(0.3 * m), round(0.7 * m) + 1))
         x = STEP_SIZE * (np.arange(m) >= brk) + ar1(rng, m, NOISE_PHI)
         y = TREND_RISE * t + ar1(rng, m, NOISE_PHI)
-    elif world.startswith("planted"):
+    elif world.startswith("planted") or world == "switch":
         x, y = _planted(world, m, t, rng, rho, lag)
     else:
         raise ValueError(world)
@@ -145,6 +158,12 @@ def _standardised(v: np.ndarray) -> np.ndarray:
 
 def _planted(world: str, m: int, t: np.ndarray, rng: np.random.Generator, rho: float, lag: int):
     """Driver and response of a planted world: y_t = b x_{t-k} + e_t (+ a trend in y)."""
+    if world == "switch":  # an effect in the first half of the response years, none after
+        x = ar1(rng, m, DRIVER_PHI)
+        b = rho / np.sqrt(1.0 - rho * rho) * (np.arange(lag, m) < LEAD + (m - LEAD) // 2)
+        y = np.full(m, np.nan)
+        y[lag:] = b * x[: m - lag] + rng.normal(size=m - lag)
+        return x, y
     if world == "planted_rw":
         x = _standardised(np.cumsum(rng.normal(size=m)))
     elif world == "planted_trend_drv":
@@ -193,6 +212,7 @@ def run_world(task: tuple) -> dict:
             # grades: what the re-test buys in false positives and costs in power
             no_retest = dict(hyp, retest_skill=np.inf)
             grade_no_retest = build_evidence(pd.DataFrame([no_retest]), table, scr)["grade"].iloc[0]
+            out.update(_stability_entries(ev, table, scr))
         lin0 = rows[(rows["model"] == "linear") & (rows["lag"] == 0)]
         out.update(grade=ev["grade"], grade_no_retest=grade_no_retest, lag=ev.get("lag"), p_naive_sel=ev.get("p_naive"),
                    p_naive_lag0=float(lin0["p_naive"].iloc[0]) if len(lin0) else np.nan,
@@ -202,6 +222,16 @@ def run_world(task: tuple) -> dict:
                    status=f"error: {type(exc).__name__}: {exc}")
     out["seconds"] = time.perf_counter() - t0
     return out
+
+
+def _stability_entries(ev: pd.Series, table: pd.DataFrame, scr: dict) -> dict:
+    """The break test as the evidence stage runs it (``TESTED_GRADES``, 20 or more years)."""
+    st = add_stability(ev.to_frame().T, table, scr)[0].iloc[0]
+    # the same test on every world whatever its grade: the test's own size and power
+    any_grade = hypothesis_stability(table, ev.to_dict(), scr)[0] if pd.notna(ev.get("lag")) else {}
+    return {"break_tested": bool(pd.notna(st["break_p"])), "break_p": st["break_p"],
+            "unstable": "unstable" in str(st["flags"]).split(";"), "break_year": st["break_year"],
+            "break_p_any": any_grade.get("break_p", np.nan)}
 
 
 DECOY_CS = (0.5, 0.8)
@@ -428,10 +458,14 @@ def main(argv=None) -> int:
                          "calibration_decoys with --decoys; bench/out/ is not tracked)")
     ap.add_argument("--decoys", action="store_true",
                     help="only the decoy worlds (three drivers each, graded with the rival check), n = 40")
+    ap.add_argument("--stability", action="store_true",
+                    help="only the break-test worlds: steady relationships and planted switches, n = 25, 40, 60")
     args = ap.parse_args(argv)
     reps = 40 if args.quick else args.reps
     if args.decoys:
         return main_decoys(args, reps)
+    if args.stability:
+        return main_stability(args, reps)
     models = [m.strip() for m in args.models.split(",") if m.strip()]
     if not set(models) <= {"linear", "gam"} or "linear" not in models:
         ap.error("--models must be 'linear' or 'linear,gam'")
@@ -492,6 +526,87 @@ def _pool_map(fn, tasks: list, processes: int) -> list:
     return out
 
 
+def stability_cells() -> list[dict]:
+    """The cells of ``--stability``: steady worlds (no change) and planted switches, lag 1."""
+    out = [dict(kind="null", world=w, n=n, rho=0.0, lag=1) for w in STABILITY_STEADY[:2] for n in STABILITY_NS]
+    out += [dict(kind="planted", world=w, n=n, rho=rho, lag=1) for w in ("planted", "planted_t3", "switch")
+            for rho in STABILITY_RHOS for n in STABILITY_NS]
+    for i, c in enumerate(out):
+        c["cell"] = 2000 + i  # seeds apart from the main cells'
+    return out
+
+
+def summarise_stability(cell_list: list[dict], results: pd.DataFrame) -> list[str]:
+    """Markdown rows: per cell P(tested), P(unstable | tested), P(unstable) and, for switches,
+    the median absolute error of the break year among flagged worlds."""
+    rows = ["| world | rho | n | worlds | P(tested) | P(unstable given tested) | P(unstable) | "
+            "P(break p <= alpha), every grade | median abs. error of the break year (flagged) |",
+            "| --- | ---: | ---: | ---: | --- | --- | --- | --- | --- |"]
+    for c in cell_list:
+        r = results[(results["cell"] == c["cell"]) & (results["grade"] != "error")]
+        tested, flagged = r[r["break_tested"].astype(bool)], r[r["unstable"].astype(bool)]
+        err = ""
+        if c["world"] == "switch" and len(flagged):
+            truth = 1970 + LEAD + c["n"] // 2
+            err = f"{np.median(np.abs(flagged['break_year'].astype(float) - truth)):.1f}"
+        rho = f"{c['rho']:.1f}" if c["kind"] == "planted" else ""
+        rows.append(f"| {c['world']} | {rho} | {c['n']} | {len(r)} | {fmt(*rate(len(tested), len(r)))} | "
+                    f"{fmt(*rate(int(tested['unstable'].astype(bool).sum()), len(tested)))} | "
+                    f"{fmt(*rate(len(flagged), len(r)))} | "
+                    f"{fmt(*rate(int((r['break_p_any'] <= ALPHA).sum()), int(r['break_p_any'].notna().sum())))} | {err} |")
+    return rows
+
+
+def stability_targets(cell_list: list[dict], results: pd.DataFrame) -> list[str]:
+    """The target: unstable raised in at most 5% of the tested worlds of the steady cells, and no
+    steady cell clearly above 5% (the lower bound of its interval above 0.05)."""
+    steady = [c for c in cell_list if c["world"] in STABILITY_STEADY]
+    r = results[results["cell"].isin([c["cell"] for c in steady]) & results["break_tested"].astype(bool)]
+    k = int(r["unstable"].astype(bool).sum())
+    est, lo, hi = rate(k, len(r))
+    cells = {cid: rate(int(g["unstable"].astype(bool).sum()), len(g)) for cid, g in r.groupby("cell")}
+    worst = max(cells.values())
+    above = sum(v[1] > 0.05 for v in cells.values())
+    verdict = "met" if est <= 0.05 and not above else "MISSED"
+    return [f"{verdict}: unstable in steady worlds (tested): {k} of {len(r)} ({fmt(est, lo, hi)}); highest cell "
+            f"{fmt(*worst)}; cells clearly above 0.05: {above} of {len(cells)} (target: <= 0.05 overall, "
+            f"no cell's interval wholly above 0.05)"]
+
+
+def main_stability(args, reps: int) -> int:
+    """The break test's false-positive rate without a change and its power on a switch (issue 21)."""
+    stem = Path(args.out) if args.out else Path(__file__).resolve().parent / "out" / "calibration_stability"
+    stem.parent.mkdir(parents=True, exist_ok=True)
+    cl = stability_cells()
+    if args.n:
+        cl = [c for c in cl if c["n"] in {int(v) for v in args.n.split(",")}]
+    tasks = [(c["cell"], i, args.seed, c["world"], c["n"], c["rho"], c["lag"], ["linear"], args.surrogates)
+             for c in cl for i in range(reps)]
+    res, wall = _timed_run(run_world, tasks, args.processes)
+    md = "\n".join([f"## lagsieve calibration: relationships that change, {reps} worlds per cell", "",
+                     f"linear; lags {LAGS}; {args.surrogates} surrogates; the break test on hypotheses graded weak "
+                     f"or better or no-forecast-skill with 20 or more years, unstable at break p <= "
+                     f"{SCREEN_DEFAULTS['alpha']}; seed {args.seed}. {CI}. Wall time {wall:.0f} s on {args.processes} processes.", "",
+                     *summarise_stability(cl, res), "", "### Targets", "",
+                     *[f"- {t}" for t in stability_targets(cl, res)], ""])
+    return _write_run(stem, md, res)
+
+
+def _timed_run(fn, tasks: list, processes: int) -> tuple[pd.DataFrame, float]:
+    """Every world of ``tasks`` through ``fn``: (one row per world, sorted; wall seconds)."""
+    t0 = time.time()
+    res = pd.DataFrame(_pool_map(fn, tasks, processes)).sort_values(["cell", "rep"])
+    return res, time.time() - t0
+
+
+def _write_run(stem: Path, md: str, res: pd.DataFrame) -> int:
+    """Write the table (``stem``.md) and the worlds (``stem``_worlds.csv), print the table."""
+    stem.with_suffix(".md").write_text(md, encoding="utf-8")
+    res.to_csv(stem.parent / (stem.name + "_worlds.csv"), index=False, float_format="%.6g")
+    print(md)
+    return 0
+
+
 def main_decoys(args, reps: int) -> int:
     """The decoy worlds: echoes of the true driver must not be carried forward (issue 16)."""
     stem = Path(args.out) if args.out else Path(__file__).resolve().parent / "out" / "calibration_decoys"
@@ -499,17 +614,12 @@ def main_decoys(args, reps: int) -> int:
     cl = [(c, trending) for trending in (False, True) for c in DECOY_CS]
     tasks = [(i, rep, args.seed, c, trending, 40, args.surrogates) for i, (c, trending) in enumerate(cl)
              for rep in range(reps)]
-    t0 = time.time()
-    res = pd.DataFrame(_pool_map(run_decoy_world, tasks, args.processes)).sort_values(["cell", "rep"])
-    wall = time.time() - t0
+    res, wall = _timed_run(run_decoy_world, tasks, args.processes)
     md = "\n".join([f"## lagsieve calibration: decoys that echo the true driver, {reps} worlds per cell", "",
                      f"linear; lags {LAGS}; {args.surrogates} surrogates; rival check as in the pipeline; seed "
                      f"{args.seed}. Cells are P(strong or moderate) with {CI}. Wall time {wall:.0f} s on "
                      f"{args.processes} processes.", "", *summarise_decoys(tasks, res), ""])
-    stem.with_suffix(".md").write_text(md, encoding="utf-8")
-    res.to_csv(stem.parent / (stem.name + "_worlds.csv"), index=False)
-    print(md)
-    return 0
+    return _write_run(stem, md, res)
 
 
 if __name__ == "__main__":

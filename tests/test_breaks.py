@@ -89,6 +89,18 @@ def test_sup_f_against_statsmodels_loop(nuisance):
     assert test.df == (1, n - 3 - len(nuisance))
 
 
+def test_slope_break_closed_form_equals_general_sup_f():
+    # the cumulative-sum form of the slope test against the general solver (itself checked
+    # against statsmodels above)
+    rng = np.random.default_rng(9)
+    x, y = rng.normal(size=(5, 33)).cumsum(1), rng.normal(size=33)
+    fast = breaks.slope_break_sup_f(x, y)
+    xs = (x - x.mean(1, keepdims=True)) / x.std(1, keepdims=True)
+    general = breaks.sup_f((y - y.mean()) / y.std(), np.stack([np.ones_like(xs), xs], -1), tested=[1], nuisance=[0])
+    np.testing.assert_allclose(fast.f, general.f, rtol=1e-8)
+    assert fast.df == general.df and (fast.at == general.at).all()
+
+
 def test_slope_break_sup_f_is_scale_free():
     # F does not depend on the units of x or y, nor on a and b (common practice: F of nested OLS)
     rng = np.random.default_rng(4)

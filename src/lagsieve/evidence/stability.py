@@ -55,7 +55,11 @@ def lagged_pair(table: pd.DataFrame, response: str, driver: str, lag: int, scree
 
 
 def break_entries(x: np.ndarray, y: np.ndarray, years: np.ndarray) -> dict:
-    """The break test's evidence entries of one hypothesis (``STABILITY_COLUMNS``)."""
+    """The break test's evidence entries of one hypothesis (``STABILITY_COLUMNS``).
+
+    Every surrogate is tested against the response itself. Tested against the residuals of the
+    real driver's line instead (the real driver's F is the same either way), the false-positive
+    rate on steady worlds rose from 4.8% to 5.8% for a small gain in power (bench/README.md)."""
     test = slope_break_sup_f(x, y)
     if np.isnan(test.stat[0]):
         return {"break_note": "break test undefined: the driver is constant on one side of every candidate year"}

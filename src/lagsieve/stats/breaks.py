@@ -114,11 +114,7 @@ def sup_f(y: np.ndarray, X: np.ndarray, tested: list[int], nuisance: list[int] =
     df_den = n - p - len(tested) - len(nuisance)
     with np.errstate(invalid="ignore", divide="ignore"):
         f = ((rss_r - rss_u) / len(tested)) / (rss_u / df_den)
-    f = np.where(np.isfinite(f), np.maximum(f, 0.0), np.nan)
-    filled = np.where(np.isnan(f), -np.inf, f)
-    at = cand[np.argmax(filled, axis=1)]
-    stat = np.where(np.all(np.isnan(f), axis=1), np.nan, filled.max(axis=1))
-    return SupF(f=f, candidates=cand, stat=stat, at=at, df=(len(tested), df_den))
+    return _sup(f, cand, (len(tested), df_den))
 
 
 def slope_break_sup_f(x: np.ndarray, y: np.ndarray, trim: float = TRIM) -> SupF:
@@ -134,8 +130,34 @@ def slope_break_sup_f(x: np.ndarray, y: np.ndarray, trim: float = TRIM) -> SupF:
     y = np.asarray(y, float)
     xs = (x - x.mean(-1, keepdims=True)) / np.where(x.std(-1) > 0, x.std(-1), 1.0)[:, None]
     ys = (y - y.mean()) / (y.std() if y.std() > 0 else 1.0)
-    X = np.stack([np.ones_like(xs), xs], axis=-1)
-    return sup_f(ys, X, tested=[1], nuisance=[0], trim=trim)
+    n = xs.shape[-1]
+    cand = candidate_indices(n, 2, trim)
+    # with intercept and slope free on each side the fits are separate regressions: every sum
+    # they need is a cumulative sum, so no system is solved (sup_f gives the same F, tested)
+    pre = [np.cumsum(v, -1)[..., cand - 1] for v in (xs, xs * xs, xs * ys, np.broadcast_to(ys, xs.shape))]
+    tot = [v.sum(-1, keepdims=True) for v in (xs, xs * xs, xs * ys, np.broadcast_to(ys, xs.shape))]
+    syy_pre = np.cumsum(ys * ys)[cand - 1]
+    sides = [(cand.astype(float), *pre, syy_pre),
+             ((n - cand).astype(float), *[t - p for t, p in zip(tot, pre)], float(ys @ ys) - syy_pre)]
+    cxx, cxy, cyy = [], [], []
+    for m, sx, sxx, sxy, sy, syy in sides:
+        cxx.append(sxx - sx * sx / m)
+        cxy.append(sxy - sx * sy / m)
+        cyy.append(syy - sy * sy / m)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        rss_u = sum(c_yy - c_xy * c_xy / c_xx for c_xx, c_xy, c_yy in zip(cxx, cxy, cyy))
+        rss_r = sum(cyy) - (cxy[0] + cxy[1]) ** 2 / (cxx[0] + cxx[1])
+        f = (rss_r - rss_u) / (rss_u / (n - 4))
+    return _sup(f, cand, (1, n - 4))
+
+
+def _sup(f: np.ndarray, cand: np.ndarray, df: tuple[int, int]) -> SupF:
+    """The sup-F result from the F statistics (S, C) at the candidates (NaN where undefined)."""
+    f = np.where(np.isfinite(f), np.maximum(f, 0.0), np.nan)
+    filled = np.where(np.isnan(f), -np.inf, f)
+    at = cand[np.argmax(filled, axis=1)]
+    stat = np.where(np.all(np.isnan(f), axis=1), np.nan, filled.max(axis=1))
+    return SupF(f=f, candidates=cand, stat=stat, at=at, df=df)
 
 
 # ----------------------------------------------------------------------------- break date
