@@ -12,6 +12,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 import statsmodels.api as sm
+from scipy import linalg as scipy_linalg
 
 from lagsieve.stats import linalg
 
@@ -96,3 +97,46 @@ def test_window_cross_equals_sums_over_each_window():
     for j, o in enumerate(origins):
         ref = np.einsum("mt,mtp,mtq->mpq", np.broadcast_to(w[:o], (4, o)), A[:, :o], B[:, :o])
         np.testing.assert_allclose(out[:, j], ref, rtol=1e-12)
+
+
+@pytest.mark.parametrize("q", [1, 2, 5, 7, 11])
+def test_spd_inverse_equals_scipy_inverse(q):
+    """spd_inverse (Cholesky across the stack) against scipy.linalg.inv matrix by matrix, on
+    positive definite matrices with condition numbers up to about 1e8."""
+    rng = np.random.default_rng(q)
+    F = rng.normal(size=(6, 5, q, q))
+    A = F @ np.swapaxes(F, -1, -2) + 1e-6 * np.eye(q)
+    out = linalg.spd_inverse(A)
+    for idx in np.ndindex(6, 5):
+        ref = scipy_linalg.inv(A[idx])
+        np.testing.assert_allclose(out[idx], ref, rtol=1e-6, atol=1e-9 * np.abs(ref).max())
+
+
+def test_spd_inverse_falls_back_on_a_matrix_that_is_not_positive_definite():
+    """An indefinite member (Cholesky fails): the stack is inverted by LAPACK instead
+    (scipy.linalg.inv as the reference)."""
+    A = np.stack([np.eye(3) * 2.0, np.diag([1.0, -1.0, 3.0])])
+    out = linalg.spd_inverse(A)
+    np.testing.assert_allclose(out[1], scipy_linalg.inv(A[1]), rtol=1e-14)
+
+
+@pytest.mark.parametrize("r", [1, 2, 3, 4, 6])
+def test_symmetric_eigh_equals_scipy_eigh(r):
+    """symmetric_eigh (Jacobi across the stack up to 4 x 4, LAPACK above) against
+    scipy.linalg.eigh: ascending eigenvalues to 1e-12 of the norm, each eigenvector the same
+    up to its sign, the input left unchanged; repeated eigenvalues included (identity blocks)."""
+    rng = np.random.default_rng(10 + r)
+    F = rng.normal(size=(40, r, r))
+    A = F @ np.swapaxes(F, -1, -2)
+    A[:5] = np.eye(r) * 2.0  # a repeated eigenvalue: any orthonormal basis will do
+    before = A.copy()
+    vals, vecs = linalg.symmetric_eigh(A)
+    assert np.array_equal(A, before)
+    for i in range(len(A)):
+        ref_vals, ref_vecs = scipy_linalg.eigh(A[i])
+        scale = max(1.0, np.abs(ref_vals).max())
+        np.testing.assert_allclose(vals[i], ref_vals, atol=1e-12 * scale)
+        np.testing.assert_allclose(vecs[i] @ np.diag(vals[i]) @ vecs[i].T, A[i], atol=1e-12 * scale)
+        np.testing.assert_allclose(vecs[i].T @ vecs[i], np.eye(r), atol=1e-12)
+        if i >= 5 and np.min(np.diff(ref_vals), initial=np.inf) > 1e-6 * scale:
+            np.testing.assert_allclose(np.abs(np.sum(vecs[i] * ref_vecs, axis=0)), 1.0, atol=1e-9)

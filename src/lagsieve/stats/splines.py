@@ -44,6 +44,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from lagsieve.stats.distributions import f_sf
+from lagsieve.stats.linalg import spd_inverse, symmetric_eigh
 
 __all__ = [
     "DEFAULT_LAM_GRID",
@@ -916,12 +917,11 @@ def expanding_penalised(
         return np.take_along_axis(a, best[..., None], axis=-1)[..., 0]
 
     lam_b = lam[best]
-    h_inv, beta = form.solution(lam_b)
+    h_inv, beta = form.solution(lam_b, inverse=len(tune) < len(origins))
     # training RSS at the tuning origins (the grid's RSS counts the ridge's share too)
     rss_b = at_best(rss_t) - ridge[..., None] * np.sum(beta * beta, axis=-1)
     held = np.repeat(np.arange(len(tune)), np.diff(np.r_[tune, len(origins)]))  # origin -> tuning index
-    fc, rss_o = _carry_forward(W, y, w, origins, tune, h_inv, beta, rss_b, lam_b[..., None, None] * P
-                               + ridge[..., None, None, None] * np.eye(W.shape[-1]))
+    fc, rss_o = _carry_forward(W, y, w, origins, tune, (h_inv, beta, rss_b), (lam_b, P, ridge[..., None]))
     edf_o = at_best(edf_t)[..., held]
     return fc, _gcv_score(origins.astype(float), np.maximum(rss_o, 0.0), edf_o, gamma, floor=1e-9), edf_o
 
@@ -1037,11 +1037,10 @@ def _subspace_form(At: np.ndarray, bt: np.ndarray, yt: np.ndarray, P: np.ndarray
     pos = pe > 1e-10 * max(float(pe.max()), 0.0)
     R = (pv[:, pos] * np.sqrt(pe[pos])).T  # (r, q)
     mu = _penalty_shift(At, P)  # (..., R)
-    Ci = np.linalg.inv(At + mu[..., None, None] * P)
-    Ci = 0.5 * (Ci + np.swapaxes(Ci, -1, -2))
-    RC = R @ Ci  # (..., R, r, q)
+    Ci = spd_inverse(At + mu[..., None, None] * P)  # symmetric by construction
+    RC = np.swapaxes(_times(Ci, R.T), -1, -2)  # (..., R, r, q) = R C^-1
     N = RC @ R.T
-    theta, V = np.linalg.eigh(0.5 * (N + np.swapaxes(N, -1, -2)))
+    theta, V = symmetric_eigh(0.5 * (N + np.swapaxes(N, -1, -2)))
     theta = np.clip(theta, 0.0, 1.0 / mu[..., None])
     H = np.swapaxes(RC, -1, -2) @ V  # (..., R, q, r)
     Cib = (Ci @ bt[..., None])[..., 0]
@@ -1050,41 +1049,58 @@ def _subspace_form(At: np.ndarray, bt: np.ndarray, yt: np.ndarray, P: np.ndarray
                          n_null=P.shape[-1] - R.shape[0])
 
 
-def _carry_forward(W, y, w, origins, tune, h_inv, beta, rss, Q):
+def _carry_forward(W, y, w, origins, tune, fits, penalty):
     """Forecasts (..., O) and training RSS (..., O) at every origin: the fit of each tuning
     origin, carried forward within its block one training row at a time by the
-    Sherman-Morrison update of H = (A + Q)^-1 at the held penalty Q = lambda P + ridge
-    (..., R, q, q).
+    Sherman-Morrison update of H = (A + Q)^-1 at the held penalty Q = lambda P + ridge.
 
-    Adding row x with prior residual e moves the coefficients by d = k e, k = w H x / den,
-    den = 1 + w x'Hx. The RSS of the old rows at the new coefficients changes by
-    d'(A d) - 2 d'Q b, since the old rows' gradient is Q b by the normal equations, and
-    A d = (H^-1 - Q) d = (w e / den) x - Q d; the new row adds w (y - x'b_new)^2. Every term is
-    an increment, so no cancellation against the whole penalty builds up."""
-    n_o = len(origins)
+    ``fits`` = (H (..., R, q, q) or None without steps, coefficients (..., R, q), RSS (..., R))
+    of the tuning origins; ``penalty`` = (lambda (..., R), P (q, q), ridge (..., 1)).
+    H itself is never updated: after rows x_1..x_m, H x = H_0 x - sum_i k_i (u_i'x), so one
+    product H_0 [x_1..x_M] serves every step. Adding row x with prior residual e moves the
+    coefficients by d = k e, k = w u / den, u = Hx, den = 1 + w x'u; the old rows' RSS at the
+    new coefficients changes by d'Ad - 2 d'Qb (their gradient is Q b by the normal equations,
+    and A d = (w e / den) x - Q d), and the new row adds w (y - x'b_new)^2: increments only,
+    so no cancellation against the whole penalty builds up. A block that has run out of
+    steps takes weight 0, which leaves it unchanged."""
+    h0, beta, rss = fits
+    lam_b, P, ridge = penalty
+    n_o, ends = len(origins), np.r_[tune[1:], len(origins)]
     fc = np.empty(W.shape[:-2] + (n_o,))
     rss_o = np.empty(W.shape[:-2] + (n_o,))
-    for m in range(int(np.diff(np.r_[tune, n_o]).max())):  # steps within the longest block
-        idx = tune + m
-        live = idx < np.r_[tune[1:], n_o]  # blocks that still have origin idx
-        if m:  # add training row origins[idx - 1] to every live block
-            rows = origins[idx[live] - 1]
-            x = W[..., rows, :]  # (..., R_live, q)
-            Hl, bl, Ql = h_inv[..., live, :, :], beta[..., live, :], Q[..., live, :, :]
-            u = (Hl @ x[..., None])[..., 0]
-            wr = w[rows]
-            den = 1.0 + wr * np.sum(x * u, axis=-1)
-            e = y[rows] - np.sum(x * bl, axis=-1)
-            k = (wr / den)[..., None] * u
-            d = k * e[..., None]
-            Qd = (Ql @ d[..., None])[..., 0]
-            Qb = (Ql @ bl[..., None])[..., 0]
-            old = np.sum(d * ((wr * e / den)[..., None] * x - Qd - 2.0 * Qb), axis=-1)
-            bn = bl + d
-            rss[..., live] += old + wr * (y[rows] - np.sum(x * bn, axis=-1)) ** 2
-            beta[..., live, :] = bn
-            h_inv[..., live, :, :] = Hl - k[..., :, None] * u[..., None, :]
-        at = idx[live]
-        rss_o[..., at] = rss[..., live]
-        fc[..., at] = np.sum(W[..., origins[at], :] * beta[..., live, :], axis=-1)
+    fc[..., tune] = np.sum(W[..., origins[tune], :] * beta, axis=-1)
+    rss_o[..., tune] = rss
+    n_steps = int((ends - tune).max()) - 1
+    if n_steps <= 0:
+        return fc, rss_o
+    rows = np.minimum(origins[tune][:, None] + np.arange(n_steps)[None, :], origins[-1])  # (R, M)
+    live = tune[:, None] + np.arange(1, n_steps + 1)[None, :] < ends[:, None]  # (R, M)
+    X = W[..., rows, :]  # (..., R, M, q)
+    U0 = X @ h0  # (..., R, M, q): H_0 x of every step (H symmetric)
+    us, ks = [], []
+    for j in range(n_steps):
+        x, r = X[..., j, :], rows[:, j]
+        u = U0[..., j, :]
+        for ui, ki in zip(us, ks):
+            u = u - ki * np.sum(ui * x, axis=-1, keepdims=True)
+        wr = w[r] * live[:, j]
+        den = 1.0 + wr * np.sum(x * u, axis=-1)
+        e = y[r] - np.sum(x * beta, axis=-1)
+        k = (wr / den)[..., None] * u
+        d = k * e[..., None]
+        Qd = lam_b[..., None] * _times(d, P) + ridge[..., None] * d
+        Qb = lam_b[..., None] * _times(beta, P) + ridge[..., None] * beta
+        rss = rss + np.sum(d * ((wr * e / den)[..., None] * x - Qd - 2.0 * Qb), axis=-1)
+        beta = beta + d
+        rss = rss + wr * (y[r] - np.sum(x * beta, axis=-1)) ** 2
+        us.append(u)
+        ks.append(k)
+        at = tune[live[:, j]] + j + 1
+        rss_o[..., at] = rss[..., live[:, j]]
+        fc[..., at] = np.sum(W[..., origins[at], :] * beta[..., live[:, j], :], axis=-1)
     return fc, rss_o
+
+
+def _times(a: np.ndarray, P: np.ndarray) -> np.ndarray:
+    """a @ P for a stack a (..., q) and one matrix P (q, m), as one matrix product."""
+    return (a.reshape(-1, a.shape[-1]) @ P).reshape(a.shape[:-1] + P.shape[-1:])
