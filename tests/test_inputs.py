@@ -1071,6 +1071,7 @@ def test_screen_defaults_come_from_the_schema():
         "lags": [0, 1, 2, 3], "models": ["linear"], "min_overlap": 15, "seed": 1,
         "surrogates": 999, "surrogate_method": "phase", "surrogate_keep_trend": True,
         "fdr": 0.10, "alpha": 0.05, "weights": "none", "gam_trend": True, "state_space": False, "validation": {},
+        "draws": 100, "real_time": False,
     }
     assert screen_defaults() == SCREEN_DEFAULTS and screen_defaults() is not SCREEN_DEFAULTS
     assert report_defaults() == {"top": 3, "pdf": True, "docx": True}
@@ -1145,7 +1146,7 @@ def test_a_smoothing_criterion_or_test_that_does_not_exist_is_one_line(tmp_path)
     lines = str(info.value).splitlines()
     assert len(lines) == 1
     assert "unknown key(s) 'forecast_test', 'smoothing'; remove 'forecast_test'; remove 'smoothing'" in lines[0]
-    assert "allowed here: alpha, fdr, gam_trend, lags," in lines[0]
+    assert "allowed here: alpha, draws, fdr, gam_trend, lags," in lines[0]
 
 
 # ----------------------------------------------------------------------------- files

@@ -1,3 +1,6 @@
+from lagsieve.io.estimates import estimate_paths as _estimate_paths
+
+
 rule evidence:
     """Align every input of the study on one annual axis (stage `align`), then study-wide
     q-values, flags, grades and ranks (stage `evidence`). The two stages share one job so that
@@ -5,6 +8,9 @@ rule evidence:
     input:
         config=cfg,
         data=lambda w: STUDIES[w.study].input_paths,
+        estimates=lambda w: _estimate_paths(
+            STUDIES[w.study].study.responses, STUDIES[w.study].study.base_dir
+        ),
         condition=condition_outputs("condition.csv"),
         hypotheses=response_files("hypotheses.csv"),
         screens=response_files("screen.csv"),

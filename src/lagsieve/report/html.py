@@ -25,6 +25,7 @@ from lagsieve.ledger.section import LedgerSection
 from lagsieve.report import annex
 from lagsieve.report import figures as fg
 from lagsieve.report import condition as cond
+from lagsieve.report import estimates as est
 from lagsieve.report import rivals as rv
 from lagsieve.report import sections
 from lagsieve.report import statespace as ssp
@@ -43,7 +44,8 @@ def render_page(ctx: Context, figs: dict, plan, since: LedgerSection | None = No
                   methods=sections.methods(ctx, plan.tables), provenance=sections.provenance(ctx),
                   condition=cond.section(ctx.condition), annex=annex.section(ctx),
                   rivals=rv.section(ctx.rivals, ctx.study.response_ids, ctx.label),
-                  statespace=ssp.section(ctx.evidence, ctx.label)) + "\n"
+                  statespace=ssp.section(ctx.evidence, ctx.label),
+                  estimates=est.section(ctx.evidence, ctx.label)) + "\n"
 
 
 def write_document(ctx: Context, figs: dict, path: Path) -> bool:

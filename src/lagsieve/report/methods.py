@@ -88,6 +88,9 @@ REF = {
            "79:551-563.",
     "litzow": "Litzow, M.A. et al. (2018) Proc. R. Soc. B 285 (moving-window correlations of non-stationary "
               "environment-biology relationships; cited from memory).",
+    "rubin": "Rubin, D.B. (1987) Multiple Imputation for Nonresponse in Surveys. Wiley, New York.",
+    "mohn": "Mohn, R. (1999) The retrospective problem in sequential population analysis: an investigation "
+            "using cod fishery and simulated data. ICES J. Mar. Sci. 56:473-488.",
     "wood": "Wood, S.N. (2017) Generalized Additive Models: An Introduction with R, 2nd ed. "
             "Chapman & Hall/CRC, Boca Raton.",
 }
@@ -132,7 +135,23 @@ def methods_facts(ctx: Context) -> dict:
             "keep_trend": bool(sc.get("surrogate_keep_trend", True)), "n_hypotheses": len(ctx.evidence),
             "fdr": sc["fdr"], "alpha": sc["alpha"], "inverse_variance": sc.get("weights") == "inverse-variance",
             "seed": sc["seed"], "condition": _condition_facts(ctx), "grade_rules": list(GRADE_RULES.items()),
-            "rivals": ctx.rivals is not None, "breaks": _break_facts(ctx), "state_space": _state_space_facts(ctx)}
+            "rivals": ctx.rivals is not None, "breaks": _break_facts(ctx), "state_space": _state_space_facts(ctx),
+            **_estimate_facts(ctx)}
+
+
+def _estimate_facts(ctx: Context) -> dict:
+    """What the methods text says of draws and vintages (``draws``, ``vintages``: None without them)."""
+    ev, sc = ctx.evidence, ctx.study.screen
+    out = {"draws": None, "vintages": None}
+    if "draw_n" in ev and ev["draw_n"].notna().any():
+        judged = ev[ev["draw_n"].notna()]
+        out["draws"] = {"n": int(judged["draw_n"].max()),
+                        "responses": [ctx.label(r) for r in judged["response"].unique()],
+                        "fragile": int((judged["draw_fragile"].astype(str).str.lower() == "true").sum())}
+    if "rt_mode" in ev and ev["rt_mode"].notna().any():
+        out["vintages"] = {"responses": [ctx.label(r) for r in ev.loc[ev["rt_mode"].notna(), "response"].unique()],
+                           "real_time": bool(sc.get("real_time"))}
+    return out
 
 
 def _state_space_facts(ctx: Context) -> dict | None:
@@ -180,6 +199,8 @@ def cited(facts: dict) -> list[str]:
                  "peresneto"]
     refs += ["andrews", "bai", "litzow"] if facts.get("breaks") else []
     refs += ["durbin", "seabold"] if facts.get("state_space") else []
+    refs += ["rubin"] if facts.get("draws") else []
+    refs += ["mohn"] if facts.get("vintages") else []
     refs += (["lecren", "huber", "froese", "kish", "raowu"] if facts.get("condition") else [])
     refs += ["dersimonian"] if facts.get("inverse_variance") else []
     return refs + ["bartlett", "gneiting"]  # the forecast ledger's paragraph

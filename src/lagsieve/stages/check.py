@@ -13,6 +13,7 @@ from lagsieve.condition.series import input_frame
 from lagsieve.condition.settings import ConditionSettings, check_condition, series_ids
 from lagsieve.errors import InputErrors, InputProblem, suggest
 from lagsieve.io.config import Study, load_study
+from lagsieve.io.estimates import estimate_problems
 from lagsieve.io.readers import read_inputs
 from lagsieve.io.tables import UnusedSeries, empty_frame
 from lagsieve.prep.annual import to_annual
@@ -50,6 +51,7 @@ def check_study(config_path: str | Path, condition: str | Path | list | None = N
                          ignore_index=True)
     annual, notes = to_annual(long, study.series_options())
     _check_values(study, annual, long, cond_ids if table is None else set())
+    raise_any(estimate_problems(study.responses, study.base_dir, annual))  # draws and vintages tables
     units = {s["id"]: s["unit"] for s in study.responses + study.drivers if s.get("unit")}
     warnings = warnings + list(series_warnings(annual, study.screen["min_overlap"], units))
     warnings += backtest_warnings(study, annual)

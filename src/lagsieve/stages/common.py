@@ -37,6 +37,8 @@ EVIDENCE_COLUMNS = ["response", "driver", "category", "expected_sign", "lag", "m
                     "retest_model", "gam_gain", "edf", "shape", "grade", "flags", "rank", "collinear_with",
                     "rival", "rival_added_skill",
                     "ss_slope", "ss_slope_se", "ss_phi", "ss_process_var", "ss_obs_share", "ss_n", "ss_status",
+                    "draw_n", "draw_grade_share", "draw_slope", "draw_slope_se", "draw_between_share",
+                    "draw_fragile", "mohn_rho", "mohn_peels", "rt_skill", "rt_n", "rt_mode",
                     "summary", "status"]
 
 

@@ -4,8 +4,10 @@ trigger). The study config file itself is an input of the report job only.
 
 - ``screen`` of one response: the config without what only the report reads (title,
   description, report, ledger, invented), with only that response and its own drivers, and
-  without the series' presentation keys (label, unit). A driver's change reruns the screens
-  of the responses it is screened against, and nothing else of the screen.
+  without the series' presentation keys (label, unit) and the keys only the evidence stage
+  reads (a response's draws and vintages, screen.draws and screen.real_time). A driver's
+  change reruns the screens of the responses it is screened against, and nothing else of the
+  screen.
 - ``evidence``: the config without what only the report reads. Labels and units stay in: the
   evidence table's sentences and effect units use them.
 """
@@ -19,6 +21,9 @@ from lagsieve.io.names import slug
 
 REPORT_ONLY = ("title", "description", "report", "ledger", "invented")
 PRESENTATION = ("label", "unit")
+#: Keys that only the evidence stage reads (draws and vintages of a response: stages.estimates).
+EVIDENCE_ONLY_RESPONSE = ("draws", "vintages")
+EVIDENCE_ONLY_SCREEN = ("draws", "real_time")
 
 
 def _digest(obj) -> str:
@@ -41,8 +46,11 @@ def screen_settings(study: Study, response: str) -> dict:
     rid = {slug(r): r for r in study.response_ids}.get(response, response)
     mine = {d["id"] for d in study.drivers_for(rid)}
     raw = evidence_settings(study)
-    raw["responses"] = [_without(r, PRESENTATION) for r in raw["responses"] if r["id"] == rid]
+    raw["responses"] = [_without(r, PRESENTATION + EVIDENCE_ONLY_RESPONSE) for r in raw["responses"]
+                        if r["id"] == rid]
     raw["drivers"] = [_without(d, PRESENTATION) for d in raw["drivers"] if d["id"] in mine]
+    if isinstance(raw.get("screen"), dict):
+        raw["screen"] = _without(raw["screen"], EVIDENCE_ONLY_SCREEN)
     return raw
 
 

@@ -17,6 +17,7 @@ from lagsieve.io.files import write_csv
 from lagsieve.prep.align import se_table
 from lagsieve.stages.check import check_study
 from lagsieve.stages.common import EVIDENCE_COLUMNS, SCREEN_COLUMNS, load_table, ordered, response_dirs
+from lagsieve.stages.estimates import add_estimates
 
 
 def run_align(config_path: str | Path, out_annual: str | Path, out_notes: str | Path, condition=None) -> None:
@@ -46,7 +47,11 @@ def run_evidence(config_path, annual_csv, work_dir, out_screen, out_evidence) ->
     lags = {d["id"]: study.lags_for(d) for d in study.drivers}
     cond = conditional_table(graded, table, study.drivers, lags, study.screen)
     ev = finish_evidence(cap_by_rivals(graded, cond), table, study.screen, study.responses + study.drivers)
-    ev = add_state_space(ev, table, se_table(pd.read_csv(annual_csv), study.transforms()), study.screen)
+    annual = pd.read_csv(annual_csv)
+    se = se_table(annual, study.transforms())
+    ev = add_state_space(ev, table, se, study.screen)
+    nulls = pd.concat([pd.read_csv(d / "nulls.csv") for d in dirs.values()], ignore_index=True)
+    ev = add_estimates(ev, study, table, annual, nulls, se)  # a response's draws and vintages
     write_csv(ordered(scr, SCREEN_COLUMNS), out_screen)
     write_csv(ordered(ev, EVIDENCE_COLUMNS), out_evidence)
     write_csv(cond, Path(out_evidence).with_name("conditional.csv"))  # beside evidence.csv

@@ -1,0 +1,148 @@
+"""Tables that describe a response as an estimate: its draws and its vintages.
+
+* draws (response key ``draws``): a long table with the columns ``draw`` (a whole number
+  naming a posterior sample or bootstrap replicate), ``year`` and ``value``; every draw holds
+  every year of the table.
+* vintages (response key ``vintages``): a long table with the columns ``vintage`` (the year
+  of the assessment that published the value), ``year`` and ``value``; an assessment cannot
+  publish a year after its own.
+
+Column names are matched case-insensitively; other columns are ignored. Every problem is one
+line (file, row, what is wrong, how to fix it) through :class:`lagsieve.errors.InputErrors`.
+"""
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+import pandas as pd
+
+from lagsieve.errors import InputErrors, show
+from lagsieve.io.cells import Collector, header_name, is_missing, parse_number
+from lagsieve.io.readers import read_grid
+
+_FIX_WHOLE = "write a whole number such as 12"
+
+
+def _whole(cell, name: str, decimal: str) -> tuple[int | None, str | None]:
+    """(whole number, None) or (None, what is wrong) for one cell."""
+    if is_missing(cell):
+        return None, f"{name} is empty"
+    x, prob = parse_number(cell, decimal, name)
+    if prob:
+        return None, prob[0]
+    if not float(x).is_integer():
+        return None, f"{name} '{show(cell)}' is not a whole number"
+    return int(x), None
+
+
+def _columns(header: list, key: str, col: Collector, row: int) -> dict[str, int]:
+    """Positions of ``key``, year and value; the missing ones reported (fatal)."""
+    names = {header_name(h).lower(): j for j, h in enumerate(header)}
+    missing = [c for c in (key, "year", "value") if c not in names]
+    if missing:
+        col.fatal(f"the table has no {', '.join(missing)} column", f"write a header with the columns {key}, "
+                  "year and value (one row per " + key + " and year)", row=row)
+    return {c: names[c] for c in (key, "year", "value")}
+
+
+def read_long(spec: str, base_dir: str | Path, key: str, series: str) -> pd.DataFrame:
+    """The rows of a ``key`` x year x value table (``key``: 'draw' or 'vintage') as a frame
+    with the columns key, year, value and row (the file's line); problems raised together."""
+    grid, col, decimal, _ = read_grid(spec, base_dir)
+    pos = _columns(grid.header, key, col, grid.header_row)
+    rows = []
+    for r, cells in grid.rows:
+        got = {}
+        for name in (key, "year"):
+            got[name], what = _whole(cells[pos[name]] if pos[name] < len(cells) else None, name, decimal)
+            if what:
+                col.add(what, _FIX_WHOLE, row=r, series=series)
+        cell = cells[pos["value"]] if pos["value"] < len(cells) else None
+        value, prob = parse_number(cell, decimal, "value")
+        if prob or value is None or not math.isfinite(value):
+            col.add(prob[0] if prob else "value is empty", prob[1] if prob else "give every row a value",
+                    row=r, series=series)
+        elif None not in got.values():
+            rows.append({key: got[key], "year": got["year"], "value": value, "row": r})
+    col.check()
+    return pd.DataFrame(rows, columns=[key, "year", "value", "row"])
+
+
+def _duplicates(frame: pd.DataFrame, key: str, col: Collector, series: str) -> None:
+    dup = frame[frame.duplicated([key, "year"], keep="first")]
+    for _, d in dup.head(3).iterrows():
+        col.add(f"{key} {int(d[key])} has year {int(d['year'])} twice", "keep one row per " + key + " and year",
+                row=int(d["row"]), series=series)
+
+
+def read_draws(spec: str, base_dir: str | Path, series: str, years=()) -> pd.DataFrame:
+    """The draws of response ``series``: columns draw, year, value (see the module docstring).
+    A draw without a year that other draws hold, or without one of ``years`` (the years the
+    response has a value), is an error: every draw is a whole series."""
+    frame = read_long(spec, base_dir, "draw", series)
+    col = Collector(str(spec))
+    _duplicates(frame, "draw", col, series)
+    years = sorted(set(frame["year"].unique()) | {int(y) for y in years})
+    lacking = [(d, sorted(set(years) - set(g["year"]))) for d, g in frame.groupby("draw", sort=True)]
+    lacking = [(d, lack) for d, lack in lacking if lack]
+    if lacking:
+        d, lack = lacking[0]
+        more = f"; {len(lacking) - 1} more draws lack years too" if len(lacking) > 1 else ""
+        col.add(f"draw {d} has no value for year {lack[0]}" + (f" (and {len(lack) - 1} more years)" if len(lack) > 1
+                                                               else "") + more,
+                "give every draw a value for every year of the table and of the response (each draw is a whole "
+                "series)", series=series)
+    if frame["draw"].nunique() == 1:
+        col.add("the table holds a single draw", "give two or more draws (posterior samples or bootstrap "
+                "replicates), or remove the draws key", series=series)
+    col.check()
+    return frame.drop(columns="row").sort_values(["draw", "year"], kind="mergesort").reset_index(drop=True)
+
+
+def read_vintages(spec: str, base_dir: str | Path, series: str, last_year: int | None = None) -> pd.DataFrame:
+    """The vintages of response ``series``: columns vintage, year, value. A value for a year
+    after its vintage, or a vintage after ``last_year`` (the response's last year of data), is
+    an error."""
+    frame = read_long(spec, base_dir, "vintage", series)
+    col = Collector(str(spec))
+    _duplicates(frame, "vintage", col, series)
+    for _, d in frame[frame["year"] > frame["vintage"]].head(3).iterrows():
+        col.add(f"vintage {int(d['vintage'])} holds year {int(d['year'])}, later than the assessment itself",
+                "check the vintage column: it is the year of the assessment that published the value",
+                row=int(d["row"]), series=series)
+    if last_year is not None:
+        for _, d in frame[frame["vintage"] > last_year + 1].head(1).iterrows():
+            col.add(f"vintage {int(d['vintage'])} is newer than the response's data (last year {last_year})",
+                    "the newest assessment is the series in inputs; check the vintage column",
+                    row=int(d["row"]), series=series)
+    col.check()
+    return frame.drop(columns="row").sort_values(["vintage", "year"], kind="mergesort").reset_index(drop=True)
+
+
+def wide(frame: pd.DataFrame, key: str) -> pd.DataFrame:
+    """A long draws or vintages frame as a wide one: index year, one column per draw or vintage."""
+    return frame.pivot(index="year", columns=key, values="value").sort_index()
+
+
+def estimate_problems(responses: list[dict], base_dir: str | Path, annual: pd.DataFrame) -> list:
+    """Every problem of the draws and vintages tables of ``responses`` (config entries), checked
+    against the response's years in ``annual`` (tidy: series, year, value); one line each."""
+    problems = []
+    for r in responses:
+        years = annual.loc[annual["series"] == r["id"], "year"].astype(int)
+        last = int(years.max()) if len(years) else None
+        try:
+            if r.get("draws"):
+                read_draws(r["draws"], base_dir, r["id"], years)
+            if r.get("vintages"):
+                read_vintages(r["vintages"], base_dir, r["id"], last)
+        except InputErrors as exc:
+            problems += list(exc.problems)
+    return problems
+
+
+def estimate_paths(responses: list[dict], base_dir: str | Path) -> list[Path]:
+    """Every draws and vintages file of ``responses`` (config entries), resolved against the
+    config's folder: inputs of the evidence job."""
+    return [Path(base_dir) / r[k] for r in responses for k in ("draws", "vintages") if r.get(k)]
