@@ -125,3 +125,25 @@ def test_demo_state_space_refit(demo_run):
         assert row["ss_slope"] / row["ss_slope_se"] < -2
     html = (out / "report.html").read_text()
     assert 'id="statespace"' in html and "observation error" in html.lower()
+
+
+def test_break_test_outputs(demo_run):
+    """The break test ran on the hypotheses of its grades with 20 or more years, and only on
+    them; unstable marks break p <= alpha; windows.csv holds their moving-window correlations
+    (lagsieve.evidence.stability; the test itself is checked in tests/test_breaks.py)."""
+    from lagsieve.evidence.stability import BREAK_MIN_YEARS, TESTED_GRADES, WINDOW_COLUMNS
+
+    cfg, out = demo_run
+    ev = pd.read_csv(out / "evidence.csv", keep_default_na=False, na_values=[""])
+    tested = ev["grade"].isin(TESTED_GRADES) & (ev["n"] >= BREAK_MIN_YEARS)
+    assert tested.any()
+    assert ev.loc[tested, "break_p"].between(0, 1).all() and ev.loc[~tested, "break_p"].isna().all()
+    unstable = ev["flags"].fillna("").str.split(";").map(lambda f: "unstable" in f)
+    assert (unstable == (ev["break_p"] <= 0.05)).all()  # the demo's alpha
+    inside = ev.loc[tested & unstable]
+    assert (inside["break_year_low"] <= inside["break_year"]).all()
+    assert (inside["break_year"] <= inside["break_year_high"]).all()
+    win = pd.read_csv(out / "windows.csv")
+    assert list(win.columns) == WINDOW_COLUMNS
+    assert set(zip(win["response"], win["driver"])) == set(zip(ev.loc[tested, "response"], ev.loc[tested, "driver"]))
+    assert (win["band_low"] <= win["band_high"]).all() and win["r"].between(-1, 1).all()

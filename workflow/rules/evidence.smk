@@ -21,6 +21,7 @@ rule evidence:
         evidence=f"{OUT}/{{study}}/evidence.csv",
         conditional=f"{OUT}/{{study}}/conditional.csv",
         models=f"{OUT}/{{study}}/models.csv",
+        windows=f"{OUT}/{{study}}/windows.csv",
     log:
         f"{OUT}/{{study}}/logs/evidence.log",
     conda:

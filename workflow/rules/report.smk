@@ -15,6 +15,7 @@ REPORT_INPUT = dict(
     evidence=f"{OUT}/{{study}}/evidence.csv",
     conditional=f"{OUT}/{{study}}/conditional.csv",
     models=f"{OUT}/{{study}}/models.csv",
+    windows=f"{OUT}/{{study}}/windows.csv",
     forecasts=response_files("forecasts.csv"),
     nulls=response_files("nulls.csv"),
     condition=condition_outputs(

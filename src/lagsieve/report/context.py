@@ -94,6 +94,7 @@ class Context:
     invented: bool = False
     condition: dict | None = None   # the condition stage's outputs (report.condition.read_outputs)
     rivals: dict | None = None      # conditional.csv and models.csv (report.rivals.read_outputs)
+    windows: pd.DataFrame | None = None  # windows.csv (report.stability.read_windows)
 
     @classmethod
     def of(cls, study, table, screen, evidence, forecasts, nulls, notes, provenance,

@@ -28,6 +28,7 @@ from lagsieve.report import condition as cond
 from lagsieve.report import estimates as est
 from lagsieve.report import rivals as rv
 from lagsieve.report import sections
+from lagsieve.report import stability as stab
 from lagsieve.report import statespace as ssp
 from lagsieve.report.context import Context
 from lagsieve.report.exports import write_tables
@@ -45,7 +46,8 @@ def render_page(ctx: Context, figs: dict, plan, since: LedgerSection | None = No
                   condition=cond.section(ctx.condition), annex=annex.section(ctx),
                   rivals=rv.section(ctx.rivals, ctx.study.response_ids, ctx.label),
                   statespace=ssp.section(ctx.evidence, ctx.label),
-                  estimates=est.section(ctx.evidence, ctx.label)) + "\n"
+                  estimates=est.section(ctx.evidence, ctx.label),
+                  stability=stab.section(ctx.evidence, ctx.windows, ctx.label)) + "\n"
 
 
 def write_document(ctx: Context, figs: dict, path: Path) -> bool:
@@ -70,7 +72,8 @@ def _clear(figures_dir: Path) -> None:
 def build_report(study, table, screen, evidence, forecasts, nulls, notes, provenance, figures_dir,
                  annual: pd.DataFrame | None = None, workers: int = 1,
                  renderer: fg.FigureRenderer | None = None, since: LedgerSection | None = None,
-                 docx_path: Path | None = None, condition: dict | None = None, rivals: dict | None = None) -> tuple[str, dict]:
+                 docx_path: Path | None = None, condition: dict | None = None, rivals: dict | None = None,
+                 windows: pd.DataFrame | None = None) -> tuple[str, dict]:
     """Render the report HTML; write its figures (PNG 300 dpi and SVG) and tables (CSV) under
     ``figures_dir``. Returns (html, figures) where figures maps name -> (base64 PNG, size).
 
@@ -81,14 +84,16 @@ def build_report(study, table, screen, evidence, forecasts, nulls, notes, proven
     data section; None leaves it out. ``condition``: the condition stage's outputs
     (:func:`lagsieve.report.condition.read_outputs`), shown in a section of their own. ``rivals``:
     conditional.csv and models.csv (:func:`lagsieve.report.rivals.read_outputs`), the competing
-    explanations after the leading hypotheses."""
+    explanations after the leading hypotheses. ``windows``: windows.csv
+    (:func:`lagsieve.report.stability.read_windows`), the relationships that change."""
     figures_dir = Path(figures_dir)
     _clear(figures_dir)
     ctx = Context.of(study, table, screen, evidence, forecasts, nulls, notes, provenance, annual=annual)
-    ctx.condition, ctx.rivals = condition, rivals
+    ctx.condition, ctx.rivals, ctx.windows = condition, rivals, windows
     plan = plan_figures(ctx)
     plan.jobs += cond.plan_condition(condition, ctx.invented, int(study.screen["seed"]))
     plan.jobs += rv.plan_rivals(rivals, ctx.label, ctx.invented)
+    plan.jobs += stab.plan_stability(evidence, windows, ctx.label, ctx.invented)
     figs = fg.render_jobs(plan.jobs, figures_dir, workers=workers) if renderer is None else renderer.draw(plan.jobs)
     write_tables(ctx, plan, figures_dir)
     if docx_path is not None:

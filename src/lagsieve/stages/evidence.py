@@ -11,6 +11,7 @@ import pandas as pd
 from lagsieve.evidence.grading import finish_evidence, grade_hypotheses
 from lagsieve.evidence.models import model_table
 from lagsieve.evidence.rivals import cap_by_rivals, conditional_table
+from lagsieve.evidence.stability import WINDOW_COLUMNS, add_stability
 from lagsieve.evidence.statespace import add_state_space
 from lagsieve.io.config import load_study
 from lagsieve.io.files import write_csv
@@ -36,7 +37,9 @@ def run_align(config_path: str | Path, out_annual: str | Path, out_notes: str | 
 def run_evidence(config_path, annual_csv, work_dir, out_screen, out_evidence) -> None:
     """Stage `evidence`: study-wide q-values, flags, grades (strong and moderate capped when the
     strongest rival explains the same signal) and ranks; ``conditional.csv`` and ``models.csv``
-    (the multi-driver model sets) beside evidence.csv; with ``screen.state_space`` the supported
+    (the multi-driver model sets) and ``windows.csv`` (moving-window correlations of the
+    hypotheses the break test of :mod:`lagsieve.evidence.stability` examined) beside
+    evidence.csv; with ``screen.state_space`` the supported
     hypotheses refitted with the response's se as known observation error (``ss_*`` columns)."""
     study = load_study(config_path)
     table = load_table(study, annual_csv)
@@ -46,7 +49,8 @@ def run_evidence(config_path, annual_csv, work_dir, out_screen, out_evidence) ->
     graded = grade_hypotheses(hyps, table, study.screen)
     lags = {d["id"]: study.lags_for(d) for d in study.drivers}
     cond = conditional_table(graded, table, study.drivers, lags, study.screen)
-    ev = finish_evidence(cap_by_rivals(graded, cond), table, study.screen, study.responses + study.drivers)
+    ev, windows = add_stability(cap_by_rivals(graded, cond), table, study.screen)  # break test, flag unstable
+    ev = finish_evidence(ev, table, study.screen, study.responses + study.drivers)
     annual = pd.read_csv(annual_csv)
     se = se_table(annual, study.transforms())
     ev = add_state_space(ev, table, se, study.screen)
@@ -55,4 +59,5 @@ def run_evidence(config_path, annual_csv, work_dir, out_screen, out_evidence) ->
     write_csv(ordered(scr, SCREEN_COLUMNS), out_screen)
     write_csv(ordered(ev, EVIDENCE_COLUMNS), out_evidence)
     write_csv(cond, Path(out_evidence).with_name("conditional.csv"))  # beside evidence.csv
+    write_csv(ordered(windows, WINDOW_COLUMNS), Path(out_evidence).with_name("windows.csv"))
     write_csv(model_table(ev, table, study.screen), Path(out_evidence).with_name("models.csv"))

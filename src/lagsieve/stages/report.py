@@ -21,6 +21,7 @@ from lagsieve.report.figures import FigureRenderer
 from lagsieve.report.html import build_report
 from lagsieve.report.pdf import write_report_pdf
 from lagsieve.report.rivals import read_outputs as read_rivals
+from lagsieve.report.stability import read_windows
 from lagsieve.stages.allocator import allocator_variables
 from lagsieve.stages.common import load_table, response_dirs
 from lagsieve.stages.plan import pdf_wanted
@@ -94,7 +95,8 @@ def run_report(config_path, annual_csv, notes_csv, work_dir, screen_csv, evidenc
         html, figs = build_report(study, table, screen, evidence, forecasts, nulls, notes, prov, figures_dir,
                                   annual=annual, renderer=renderer, since=since,
                                   docx_path=docx_path if study.report["docx"] else None,
-                                  condition=read_outputs(condition), rivals=read_rivals(evidence_csv))
+                                  condition=read_outputs(condition), rivals=read_rivals(evidence_csv),
+                                  windows=read_windows(evidence_csv))
         write_text(html, out_report)
         renderer.write_svgs()  # the SVG copies are written by the workers while the PDF is made
         if pdf_wanted(study):
