@@ -2,6 +2,8 @@
 and vintages (Mohn's rho, real-time forecasts), and their input tables."""
 from __future__ import annotations
 
+import re
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -267,3 +269,22 @@ def test_report_block_names_the_fragile_hypotheses():
     (v,) = s["vintages"]
     assert v["rho"] == "+6.1%" and v["peels"] == "3" and v["realtime"] == []
     assert section(ev.drop(columns=["draw_n", "mohn_peels"]), str) is None
+
+
+def test_draw_and_vintage_keys_rerun_the_evidence_not_the_screens(new_study):
+    """The screen's settings digest leaves out what only the evidence stage reads (a response's
+    draws and vintages, screen.draws, screen.real_time); the evidence digest keeps them."""
+    from lagsieve.io.config import load_study
+    from lagsieve.stages.digest import settings_digest
+
+    def digests():
+        st = load_study(new_study)
+        return settings_digest(st, "screen", "m:age5plus"), settings_digest(st, "evidence")
+
+    screen0, evidence0 = digests()
+    text = new_study.read_text().replace('  - id: "m:age5plus"', '  - id: "m:age5plus"\n    vintages: data/v.csv', 1)
+    new_study.write_text(re.sub(r"^screen:.*\n", lambda m: m.group(0) + "  draws: 40\n  real_time: true\n", text,
+                                count=1, flags=re.M))
+    assert load_study(new_study).screen["draws"] == 40
+    screen1, evidence1 = digests()
+    assert screen1 == screen0 and evidence1 != evidence0
