@@ -21,6 +21,8 @@ rule evidence:
         evidence=f"{OUT}/{{study}}/evidence.csv",
         conditional=f"{OUT}/{{study}}/conditional.csv",
         models=f"{OUT}/{{study}}/models.csv",
+        joint=f"{OUT}/{{study}}/joint.csv",
+        joint_groups=f"{OUT}/{{study}}/joint_groups.csv",
         windows=f"{OUT}/{{study}}/windows.csv",
     log:
         f"{OUT}/{{study}}/logs/evidence.log",

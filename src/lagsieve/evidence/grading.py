@@ -13,7 +13,7 @@ from lagsieve.evidence.effects import add_effects, allowed_phrase, effect_phrase
 from lagsieve.evidence.vocabulary import COLLINEAR_R, DRIVER_TREND_R2, GRADE_ORDER, SHORT_OVERLAP_YEARS, SUPPORTED
 from lagsieve.formats import skill_percent
 from lagsieve.stats.backtest import BASELINES
-from lagsieve.stats.multiplicity import bh_qvalues
+from lagsieve.stats.multiplicity import bh_qvalues, family_qvalues
 
 #: Hypothesis columns the grading reads. A screen in which no hypothesis reached a stage (no
 #: out-of-sample forecast anywhere, every pair constant) writes none of that stage's columns:
@@ -281,15 +281,37 @@ def _rival_words(row: dict) -> str:
     return f"; capped at weak: {rival} explains the same signal ({skill})"
 
 
-def grade_hypotheses(hypotheses: pd.DataFrame, table: pd.DataFrame, screen: dict) -> pd.DataFrame:
-    """Study-wide q-values, collinear partners (at the lags paired with each response), flags
-    and grades of every hypothesis, before ranks and sentences (:func:`finish_evidence`)."""
+def study_qvalues(ev: pd.DataFrame, fdr: float, families: pd.DataFrame | None = None) -> np.ndarray:
+    """q-values of every hypothesis: Benjamini-Hochberg over the study; with ``families``
+    (response, driver, family, family_p: the groups of a series screened jointly,
+    :func:`lagsieve.evidence.joint.joint_table`) the groups of a joint series and driver are one
+    family whose joint test enters the study-wide control once
+    (:func:`lagsieve.stats.multiplicity.family_qvalues`)."""
+    p = ev["p_surrogate"].to_numpy(float)
+    if families is None or not len(families):
+        return bh_qvalues(p)
+    return family_qvalues(p, *family_labels(ev, families), fdr)
+
+
+def family_labels(ev: pd.DataFrame, families: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
+    """(family label, family p) of every hypothesis of ``ev``: the joint family that
+    ``families`` names for its response and driver, else a family of its own (p NaN)."""
+    key = ev[["response", "driver"]].reset_index(drop=True).merge(families, how="left", on=["response", "driver"])
+    alone = pd.Series([f"#{i}" for i in range(len(ev))])
+    return key["family"].where(key["family"].notna(), alone).to_numpy(object), key["family_p"].to_numpy(float)
+
+
+def grade_hypotheses(hypotheses: pd.DataFrame, table: pd.DataFrame, screen: dict,
+                     families: pd.DataFrame | None = None) -> pd.DataFrame:
+    """Study-wide q-values (``families``: see :func:`study_qvalues`), collinear partners (at
+    the lags paired with each response), flags and grades of every hypothesis, before ranks and
+    sentences (:func:`finish_evidence`)."""
     ev = hypotheses.copy()
     for col in GRADED_COLUMNS:
         if col not in ev:
             ev[col] = np.nan
     alpha, fdr, min_overlap = screen["alpha"], screen["fdr"], screen["min_overlap"]
-    ev["q_value"] = bh_qvalues(ev["p_surrogate"].to_numpy(float))
+    ev["q_value"] = study_qvalues(ev, fdr, families)
     ev["collinear_with"] = collinear_partners(ev, table) if len(ev) else []
     flags, grades = [], []
     for row in ev.to_dict("records"):

@@ -92,3 +92,20 @@ GRADE_WORDS = {  # one-line meaning of each grade, for the report's summary and 
     "none": "no support after adjustment",
     "insufficient-data": "could not be judged",
 }
+
+#: The words of a joint screen of the groups of one series (:mod:`lagsieve.evidence.joint`),
+#: each with its rule; ``{group}`` is the one group that carries the effect. The rules are
+#: lagsieve's own (no published source), applied in this order, the first that holds wins.
+JOINT_WORDS = {
+    "{group} only": "the slopes differ between the groups (heterogeneity p <= alpha) and exactly one group's "
+                    "own slope is supported (its surrogate p, by Holm's step-down over the groups at alpha)",
+    "opposite between ages": "the slopes differ and two supported groups' slopes have opposite signs",
+    "stronger in older fish": "the slopes differ, and the shared slope is supported (surrogate p <= alpha) "
+                              "or two or more groups' own slopes are; the shrunken slope in the shared "
+                              "direction grows from the youngest group to the oldest (least-squares trend "
+                              "on age rank)",
+    "stronger in younger fish": "as above, the slope in the shared direction falling with age",
+    "acts on all ages": "the slopes do not differ (heterogeneity p > alpha) and the shared slope is supported "
+                        "(surrogate p <= alpha)",
+    "no joint effect": "none of the above",
+}

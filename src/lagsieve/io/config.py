@@ -41,6 +41,7 @@ class Study:
     report: dict
     ledger_path: str | None = None
     condition: dict | None = None  # the ``condition:`` section with its defaults, when present
+    joint: tuple[str, ...] = ()  # series whose groups are also screened jointly (``joint:``)
 
     @property
     def response_ids(self) -> list[str]:
@@ -72,6 +73,37 @@ class Study:
 
     def lags_for(self, driver: dict) -> list[int]:
         return sorted(driver.get("lags") or self.screen["lags"])
+
+    def joint_groups(self) -> dict[str, list[str]]:
+        """Every series of ``joint:`` with its group responses (``series:group``), in config order."""
+        return {s: group_responses(self.response_ids, s) for s in self.joint}
+
+
+def group_responses(response_ids: list[str], series: str) -> list[str]:
+    """The responses that are groups of ``series`` (ids ``series:group``), in the given order."""
+    return [r for r in response_ids if r.partition(":")[0] == series and ":" in r]
+
+
+def joint_problems(joint: list[str], response_ids: list[str], shown: str) -> list[InputProblem]:
+    """One line per ``joint:`` entry that does not name a series with two or more groups."""
+    problems = []
+    series = sorted({r.partition(":")[0] for r in response_ids if ":" in r})
+    for i, s in enumerate(joint):
+        key = f"joint[{i + 1}] ('{s}')"
+        groups = group_responses(response_ids, s)
+        if ":" in s:
+            what, fix = (f"names the group response '{s}', not a series",
+                         f"name the series, the part before ':' ('{s.partition(':')[0]}')")
+        elif not groups:
+            what, fix = "names no series with groups among the responses", \
+                f"use a series whose groups are listed under responses as '<series>:<group>' ({suggest(s, series, 'series with groups')})"
+        elif len(groups) == 1:
+            what, fix = (f"series '{s}' has a single group among the responses ('{groups[0]}'); a joint screen "
+                         "needs two or more", f"list its other groups under responses, or remove '{s}' from joint")
+        else:
+            continue
+        problems.append(InputProblem(what=what, fix=fix, file=shown, key=key))
+    return problems
 
 
 def signed_for(driver: dict, response_id: str) -> dict:
@@ -274,9 +306,10 @@ def _build(path: Path, raw: dict) -> Study:
                         what=f"names response '{rid}', which is not in responses",
                         fix=f"use an id listed under responses ({suggest(rid, resp_ids, 'responses')})",
                         file=shown, key=item_key("drivers", i, d["id"], key), series=d["id"]))
+    problems += joint_problems(full["joint"], [r["id"] for r in responses], shown)
     if problems:
         raise InputErrors(problems)
     ledger = (raw.get("ledger") or {}).get("path")
     return Study(path=path.resolve(), raw=raw, id=raw["study"], base_dir=base, inputs=inputs,
                  responses=responses, drivers=drivers, screen=full["screen"], report=full["report"],
-                 ledger_path=ledger, condition=full.get("condition"))
+                 ledger_path=ledger, condition=full.get("condition"), joint=tuple(full["joint"]))

@@ -9,6 +9,7 @@ import numpy as np
 import pandas as pd
 
 from lagsieve.evidence.grading import finish_evidence, grade_hypotheses
+from lagsieve.evidence.joint import JOINT_COLUMNS, JOINT_GROUP_COLUMNS, joint_qvalues, joint_table
 from lagsieve.evidence.models import model_table
 from lagsieve.evidence.rivals import cap_by_rivals, conditional_table
 from lagsieve.evidence.stability import WINDOW_COLUMNS, add_stability
@@ -40,13 +41,17 @@ def run_evidence(config_path, annual_csv, work_dir, out_screen, out_evidence) ->
     (the multi-driver model sets) and ``windows.csv`` (moving-window correlations of the
     hypotheses the break test of :mod:`lagsieve.evidence.stability` examined) beside
     evidence.csv; with ``screen.state_space`` the supported
-    hypotheses refitted with the response's se as known observation error (``ss_*`` columns)."""
+    hypotheses refitted with the response's se as known observation error (``ss_*`` columns);
+    ``joint.csv`` and ``joint_groups.csv`` (config ``joint``: the groups of a series screened
+    together, :mod:`lagsieve.evidence.joint`; headers only without it), whose families enter
+    the q-values."""
     study = load_study(config_path)
     table = load_table(study, annual_csv)
     dirs = response_dirs(work_dir, study)
     hyps = pd.concat([pd.read_csv(d / "hypotheses.csv") for d in dirs.values()], ignore_index=True)
     scr = pd.concat([pd.read_csv(d / "screen.csv") for d in dirs.values()], ignore_index=True)
-    graded = grade_hypotheses(hyps, table, study.screen)
+    joint, joint_groups, families = joint_table(study, table)  # config `joint`: groups of a series together
+    graded = grade_hypotheses(hyps, table, study.screen, families)
     lags = {d["id"]: study.lags_for(d) for d in study.drivers}
     cond = conditional_table(graded, table, study.drivers, lags, study.screen)
     ev, windows = add_stability(cap_by_rivals(graded, cond), table, study.screen)  # break test, flag unstable
@@ -61,3 +66,5 @@ def run_evidence(config_path, annual_csv, work_dir, out_screen, out_evidence) ->
     write_csv(cond, Path(out_evidence).with_name("conditional.csv"))  # beside evidence.csv
     write_csv(ordered(windows, WINDOW_COLUMNS), Path(out_evidence).with_name("windows.csv"))
     write_csv(model_table(ev, table, study.screen), Path(out_evidence).with_name("models.csv"))
+    write_csv(ordered(joint_qvalues(joint, graded, families), JOINT_COLUMNS), Path(out_evidence).with_name("joint.csv"))
+    write_csv(ordered(joint_groups, JOINT_GROUP_COLUMNS), Path(out_evidence).with_name("joint_groups.csv"))

@@ -22,3 +22,41 @@ def bh_qvalues(p: np.ndarray) -> np.ndarray:
     if ok.any():
         q[ok] = stats.false_discovery_control(p[ok], method="bh")
     return q
+
+
+def family_level_q(p: np.ndarray, family: np.ndarray, family_p: np.ndarray) -> np.ndarray:
+    """Per hypothesis, the Benjamini-Hochberg q-value of its family among all families (one p
+    per family: ``family_p``, or the hypothesis's own p for a family of one; see
+    :func:`family_qvalues`)."""
+    p, family_p = np.asarray(p, float), np.asarray(family_p, float)
+    family = np.asarray(family, object)
+    own = np.where(np.isnan(family_p), p, family_p)
+    labels, first, back = np.unique(family, return_index=True, return_inverse=True)
+    return bh_qvalues(own[first])[back.reshape(-1)]
+
+
+def family_qvalues(p: np.ndarray, family: np.ndarray, family_p: np.ndarray, level: float) -> np.ndarray:
+    """Adjusted p-values of hypotheses tested in families (Benjamini & Bogomolov 2014, Selective
+    inference on multiple families of hypotheses, J. R. Stat. Soc. B 76:297-318).
+
+    ``family`` (n,) labels the hypotheses of one family; ``family_p`` (n,) is the p of the
+    family's own test of "no hypothesis of the family holds" (the same value on every member;
+    NaN for a hypothesis alone, whose own p stands for its family). The families are selected
+    by Benjamini-Hochberg at ``level`` (R of m selected), and within a selected family its
+    hypotheses by Benjamini-Hochberg at level R q / m. Returned per hypothesis: its family's
+    BH q-value for a family of one (the plain BH q-values when every family has one member),
+    else max(family q, within-family q m / R) capped at 1, which is <= ``level`` exactly when
+    the two-stage procedure rejects the hypothesis at ``level`` (the value depends on ``level``
+    through R). The expected share of false discoveries among the selected families is at
+    most ``level``, and so is the average over them of the share within each family."""
+    p, family = np.asarray(p, float), np.asarray(family, object)
+    q = family_level_q(p, family, family_p)
+    labels, first = np.unique(family, return_index=True)
+    m = int(np.sum(~np.isnan(q[first])))
+    r = max(1, int(np.sum(q[first] <= level)))
+    for f in labels:
+        members = np.flatnonzero(family == f)
+        if len(members) > 1:
+            within = bh_qvalues(p[members]) * m / r
+            q[members] = np.minimum(np.maximum(q[members], within), 1.0)
+    return q
