@@ -94,6 +94,7 @@ class Context:
     invented: bool = False
     condition: dict | None = None   # the condition stage's outputs (report.condition.read_outputs)
     rivals: dict | None = None      # conditional.csv and models.csv (report.rivals.read_outputs)
+    joint: tuple | None = None      # joint.csv and joint_groups.csv (report.joint.read_joint)
     windows: pd.DataFrame | None = None  # windows.csv (report.stability.read_windows)
 
     @classmethod

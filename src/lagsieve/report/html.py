@@ -25,6 +25,7 @@ from lagsieve.ledger.section import LedgerSection
 from lagsieve.report import annex
 from lagsieve.report import figures as fg
 from lagsieve.report import condition as cond
+from lagsieve.report import joint as jnt
 from lagsieve.report import estimates as est
 from lagsieve.report import rivals as rv
 from lagsieve.report import sections
@@ -47,7 +48,8 @@ def render_page(ctx: Context, figs: dict, plan, since: LedgerSection | None = No
                   rivals=rv.section(ctx.rivals, ctx.study.response_ids, ctx.label),
                   statespace=ssp.section(ctx.evidence, ctx.label),
                   estimates=est.section(ctx.evidence, ctx.label),
-                  stability=stab.section(ctx.evidence, ctx.windows, ctx.label)) + "\n"
+                  stability=stab.section(ctx.evidence, ctx.windows, ctx.label),
+                  joint=jnt.section(ctx.joint, ctx.label)) + "\n"
 
 
 def write_document(ctx: Context, figs: dict, path: Path) -> bool:
@@ -73,7 +75,7 @@ def build_report(study, table, screen, evidence, forecasts, nulls, notes, proven
                  annual: pd.DataFrame | None = None, workers: int = 1,
                  renderer: fg.FigureRenderer | None = None, since: LedgerSection | None = None,
                  docx_path: Path | None = None, condition: dict | None = None, rivals: dict | None = None,
-                 windows: pd.DataFrame | None = None) -> tuple[str, dict]:
+                 windows: pd.DataFrame | None = None, joint: tuple | None = None) -> tuple[str, dict]:
     """Render the report HTML; write its figures (PNG 300 dpi and SVG) and tables (CSV) under
     ``figures_dir``. Returns (html, figures) where figures maps name -> (base64 PNG, size).
 
@@ -85,14 +87,17 @@ def build_report(study, table, screen, evidence, forecasts, nulls, notes, proven
     (:func:`lagsieve.report.condition.read_outputs`), shown in a section of their own. ``rivals``:
     conditional.csv and models.csv (:func:`lagsieve.report.rivals.read_outputs`), the competing
     explanations after the leading hypotheses. ``windows``: windows.csv
-    (:func:`lagsieve.report.stability.read_windows`), the relationships that change."""
+    (:func:`lagsieve.report.stability.read_windows`), the relationships that change. ``joint``:
+    joint.csv and joint_groups.csv (:func:`lagsieve.report.joint.read_joint`), groups screened jointly."""
     figures_dir = Path(figures_dir)
     _clear(figures_dir)
     ctx = Context.of(study, table, screen, evidence, forecasts, nulls, notes, provenance, annual=annual)
     ctx.condition, ctx.rivals, ctx.windows = condition, rivals, windows
+    ctx.joint = joint
     plan = plan_figures(ctx)
     plan.jobs += cond.plan_condition(condition, ctx.invented, int(study.screen["seed"]))
     plan.jobs += rv.plan_rivals(rivals, ctx.label, ctx.invented)
+    plan.jobs += jnt.plan_joint(joint, ctx.label, ctx.invented)
     plan.jobs += stab.plan_stability(evidence, windows, ctx.label, ctx.invented)
     figs = fg.render_jobs(plan.jobs, figures_dir, workers=workers) if renderer is None else renderer.draw(plan.jobs)
     write_tables(ctx, plan, figures_dir)

@@ -91,6 +91,19 @@ REF = {
     "rubin": "Rubin, D.B. (1987) Multiple Imputation for Nonresponse in Surveys. Wiley, New York.",
     "mohn": "Mohn, R. (1999) The retrospective problem in sequential population analysis: an investigation "
             "using cod fishery and simulated data. ICES J. Mar. Sci. 56:473-488.",
+    "gelman": "Gelman, A. & Hill, J. (2007) Data Analysis Using Regression and Multilevel/Hierarchical "
+              "Models. Cambridge University Press, Cambridge.",
+    "harville": "Harville, D.A. (1977) Maximum likelihood approaches to variance component estimation and to "
+                "related problems. J. Am. Stat. Assoc. 72:320-338.",
+    "bates": "Bates, D., M\u00e4chler, M., Bolker, B. & Walker, S. (2015) Fitting linear mixed-effects models using "
+             "lme4. J. Stat. Softw. 67(1):1-48.",
+    "selflang": "Self, S.G. & Liang, K.-Y. (1987) Asymptotic properties of maximum likelihood estimators and "
+                "likelihood ratio tests under nonstandard conditions. J. Am. Stat. Assoc. 82:605-610.",
+    "holm": "Holm, S. (1979) A simple sequentially rejective multiple test procedure. Scand. J. Stat. 6:65-70.",
+    "efronmorris": "Efron, B. & Morris, C. (1975) Data analysis using Stein's estimator and its generalizations. "
+                   "J. Am. Stat. Assoc. 70:311-319.",
+    "bogomolov": "Benjamini, Y. & Bogomolov, M. (2014) Selective inference on multiple families of hypotheses. "
+                 "J. R. Stat. Soc. B 76:297-318.",
     "wood": "Wood, S.N. (2017) Generalized Additive Models: An Introduction with R, 2nd ed. "
             "Chapman & Hall/CRC, Boca Raton.",
 }
@@ -135,7 +148,7 @@ def methods_facts(ctx: Context) -> dict:
             "keep_trend": bool(sc.get("surrogate_keep_trend", True)), "n_hypotheses": len(ctx.evidence),
             "fdr": sc["fdr"], "alpha": sc["alpha"], "inverse_variance": sc.get("weights") == "inverse-variance",
             "seed": sc["seed"], "condition": _condition_facts(ctx), "grade_rules": list(GRADE_RULES.items()),
-            "rivals": ctx.rivals is not None, "breaks": _break_facts(ctx), "state_space": _state_space_facts(ctx),
+            "rivals": ctx.rivals is not None, "breaks": _break_facts(ctx), "state_space": _state_space_facts(ctx), "joint": _joint_facts(ctx),
             **_estimate_facts(ctx)}
 
 
@@ -152,6 +165,17 @@ def _estimate_facts(ctx: Context) -> dict:
         out["vintages"] = {"responses": [ctx.label(r) for r in ev.loc[ev["rt_mode"].notna(), "response"].unique()],
                            "real_time": bool(sc.get("real_time"))}
     return out
+
+
+def _joint_facts(ctx: Context) -> dict | None:
+    """What the methods text says of the groups screened jointly (None without a joint screen)."""
+    data = getattr(ctx, "joint", None)
+    if data is None:
+        return None
+    joint = data[0]
+    fitted = joint[joint["lag"].notna()]
+    return {"series": sorted(map(str, joint["series"].unique())), "fitted": len(fitted),
+            "effects": int((fitted["words"] != "no joint effect").sum())}
 
 
 def _state_space_facts(ctx: Context) -> dict | None:
@@ -199,6 +223,7 @@ def cited(facts: dict) -> list[str]:
                  "peresneto"]
     refs += ["andrews", "bai", "litzow"] if facts.get("breaks") else []
     refs += ["durbin", "seabold"] if facts.get("state_space") else []
+    refs += ["gelman", "harville", "bates", "selflang", "holm", "efronmorris", "bogomolov"] if facts.get("joint") else []
     refs += ["rubin"] if facts.get("draws") else []
     refs += ["mohn"] if facts.get("vintages") else []
     refs += (["lecren", "huber", "froese", "kish", "raowu"] if facts.get("condition") else [])

@@ -19,6 +19,7 @@ from lagsieve.ledger.update import input_hashes
 from lagsieve.report.condition import read_outputs
 from lagsieve.report.figures import FigureRenderer
 from lagsieve.report.html import build_report
+from lagsieve.report.joint import read_joint
 from lagsieve.report.pdf import write_report_pdf
 from lagsieve.report.rivals import read_outputs as read_rivals
 from lagsieve.report.stability import read_windows
@@ -96,7 +97,7 @@ def run_report(config_path, annual_csv, notes_csv, work_dir, screen_csv, evidenc
                                   annual=annual, renderer=renderer, since=since,
                                   docx_path=docx_path if study.report["docx"] else None,
                                   condition=read_outputs(condition), rivals=read_rivals(evidence_csv),
-                                  windows=read_windows(evidence_csv))
+                                  windows=read_windows(evidence_csv), joint=read_joint(evidence_csv))
         write_text(html, out_report)
         renderer.write_svgs()  # the SVG copies are written by the workers while the PDF is made
         if pdf_wanted(study):
