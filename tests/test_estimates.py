@@ -2,12 +2,11 @@
 and vintages (Mohn's rho, real-time forecasts), and their input tables."""
 from __future__ import annotations
 
-import re
-
 import numpy as np
 import pandas as pd
 import pytest
 import statsmodels.api as sm
+import yaml
 from scipy import stats as sps
 from statsmodels.imputation.mice import MICE
 
@@ -245,12 +244,12 @@ def test_check_refuses_a_bad_draws_table_with_one_line(new_study):
 
     data = new_study.parent / "data"
     (data / "draws.csv").write_text("draw,year,value\n1,1985,0.3\n2,1985,0.31\n")
-    text = new_study.read_text().replace('  - id: "m:age5plus"', '  - id: "m:age5plus"\n    draws: data/draws.csv', 1)
+    text = new_study.read_text().replace('  - id: "m:age2"', '  - id: "m:age2"\n    draws: data/draws.csv', 1)
     new_study.write_text(text)
     proc = lagsieve("check", new_study)
     assert proc.returncode == 2
     (line,) = [ln for ln in proc.stderr.splitlines() if "draws.csv" in ln]
-    assert "draw 1 has no value for year 1986" in line and "m:age5plus" in line
+    assert "draw 1 has no value for year 1986" in line and "m:age2" in line
 
 
 def test_report_block_names_the_fragile_hypotheses():
@@ -279,12 +278,14 @@ def test_draw_and_vintage_keys_rerun_the_evidence_not_the_screens(new_study):
 
     def digests():
         st = load_study(new_study)
-        return settings_digest(st, "screen", "m:age5plus"), settings_digest(st, "evidence")
+        return settings_digest(st, "screen", "m:age3-4"), settings_digest(st, "evidence")
 
     screen0, evidence0 = digests()
-    text = new_study.read_text().replace('  - id: "m:age5plus"', '  - id: "m:age5plus"\n    vintages: data/v.csv', 1)
-    new_study.write_text(re.sub(r"^screen:.*\n", lambda m: m.group(0) + "  draws: 40\n  real_time: true\n", text,
-                                count=1, flags=re.M))
+    cfg = yaml.safe_load(new_study.read_text())
+    next(r for r in cfg["responses"] if r["id"] == "m:age3-4")["vintages"] = "data/v.csv"
+    cfg["screen"]["draws"] = 40
+    cfg["screen"]["real_time"] = not cfg["screen"].get("real_time", False)
+    new_study.write_text(yaml.safe_dump(cfg, sort_keys=False))
     assert load_study(new_study).screen["draws"] == 40
     screen1, evidence1 = digests()
     assert screen1 == screen0 and evidence1 != evidence0
