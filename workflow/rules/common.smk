@@ -39,6 +39,8 @@ def condition_outputs(*names):
 
 
 def expand_all():
+    if BATCHES:  # one record per chunk: its job writes every output of its studies
+        return [f"{OUT}/batches/{chunk}.json" for chunk in BATCHES]
     outs = []
     for s in STUDIES:
         # evidence.csv (rule evidence) and report.html (rule report) pull in every job of the

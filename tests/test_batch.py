@@ -1,0 +1,105 @@
+"""Batches of studies (lagsieve.stages.batch): the `batch` option of Snakemake's config, its
+chunks, and a batch run's outputs against the per-stage jobs' (common practice of batch
+schedulers, no outside source: a chunk size from 1 to the number of items, the last chunk
+holding the rest)."""
+from __future__ import annotations
+
+import shutil
+import subprocess
+import sys
+from pathlib import Path
+
+import pandas as pd
+import pytest
+import yaml
+
+from lagsieve.stages.batch import batch_problems, plan_batches
+
+REPO = Path(__file__).resolve().parents[1]
+
+
+@pytest.mark.parametrize("value, words", [
+    (0, "0 studies per job: a job must run at least one study"),
+    ("0", "0 studies per job"),
+    (6, "6 studies per job, but this run has 5"),
+    (-1, "-1 is not a whole number of studies per job"),
+    ("two", "two is not a whole number"),
+    (2.5, "2.5 is not a whole number"),
+    (True, "is not a whole number"),
+    (None, "is not a whole number"),
+])
+def test_a_bad_batch_is_one_line_naming_the_key_and_the_range(value, words):
+    problems = batch_problems(value, 5)
+    assert len(problems) == 1
+    line = problems[0].line()
+    assert line.startswith("key 'batch': ") and words in line and "from 1 to 5" in line, line
+
+
+@pytest.mark.parametrize("value", [1, 3, 5, "2"])
+def test_a_batch_from_one_to_the_number_of_studies_is_accepted(value):
+    assert batch_problems(value, 5) == []
+
+
+def test_chunks_keep_the_order_and_the_last_holds_the_rest():
+    studies = dict.fromkeys(["a", "b", "c", "d", "e"])
+    assert plan_batches({"batch": 2}, studies) == {"0001": ["a", "b"], "0002": ["c", "d"], "0003": ["e"]}
+    assert plan_batches({"batch": 5}, studies) == {"0001": list(studies)}
+    assert plan_batches({}, studies) == {}
+
+
+def test_a_bad_batch_exits_with_status_2(capsys):
+    with pytest.raises(SystemExit) as exc:
+        plan_batches({"batch": 0}, dict.fromkeys(["a", "b"]))
+    assert exc.value.code == 2
+    lines = capsys.readouterr().err.strip().splitlines()
+    assert lines == ["key 'batch': 0 studies per job: a job must run at least one study; give a whole number "
+                     "from 1 to 2 (this run's studies; each job runs that many)"]
+
+
+def _small_study(folder: Path, study_id: str) -> Path:
+    """The demo study cut to one response and three drivers, 99 surrogates, linear, no PDF."""
+    cfg = folder / "config.yaml"
+    data = yaml.safe_load(cfg.read_text())
+    data["study"] = study_id
+    data.pop("condition", None)
+    data["responses"] = data["responses"][:1]
+    data["drivers"] = [d for d in data["drivers"] if "expected_sign_by_response" not in d][:3]
+    data["screen"].update(surrogates=99, models=["linear"])
+    data["report"] = {"pdf": False, "docx": False}
+    cfg.write_text(yaml.safe_dump(data, sort_keys=False))
+    return cfg
+
+
+def _snakemake(root: Path, results: str, studies: list[Path], **config) -> subprocess.CompletedProcess:
+    batch = root / f"{results}.yaml"
+    batch.write_text(yaml.safe_dump({"studies": [str(s) for s in studies], "out": str(root / results), **config}))
+    return subprocess.run([sys.executable, "-m", "snakemake", "--snakefile", str(REPO / "Snakefile"), "--directory",
+                           str(root / results), "--cores", "2", "--configfile", str(batch)],
+                          capture_output=True, text=True)
+
+
+@pytest.mark.slow
+def test_a_batch_writes_what_the_stage_jobs_write_and_reruns_only_a_changed_study(new_study, tmp_path):
+    shutil.copytree(new_study.parent, tmp_path / "s2")
+    studies = [_small_study(new_study.parent, "one"), _small_study(tmp_path / "s2", "two")]
+    proc = _snakemake(tmp_path, "batched", studies, batch=2)
+    assert proc.returncode == 0, proc.stderr[-3000:]
+    record = tmp_path / "batched" / "batches" / "0001.json"
+    assert [r["ran"] for r in yaml.safe_load(record.read_text())["studies"]] == [True, True]
+    proc = _snakemake(tmp_path, "staged", studies)
+    assert proc.returncode == 0, proc.stderr[-3000:]
+    for sid in ("one", "two"):
+        for name in ("screen.csv", "evidence.csv", "models.csv", "work/annual.csv"):
+            pd.testing.assert_frame_equal(pd.read_csv(tmp_path / "batched" / sid / name),
+                                          pd.read_csv(tmp_path / "staged" / sid / name), obj=f"{sid}/{name}")
+        assert (tmp_path / "batched" / sid / "report.html").is_file()
+        assert "stage took" in (tmp_path / "batched" / sid / "logs" / "screen" / "m--age2.log").read_text()
+    # a new title for study two: its chunk reruns, but study one is left as it is
+    kept = (tmp_path / "batched" / "one" / "report.html").stat().st_mtime_ns
+    data = yaml.safe_load(studies[1].read_text())
+    studies[1].write_text(yaml.safe_dump(dict(data, title="Another title (invented)"), sort_keys=False))
+    proc = _snakemake(tmp_path, "batched", studies, batch=2)
+    assert proc.returncode == 0, proc.stderr[-3000:]
+    assert [r["ran"] for r in yaml.safe_load(record.read_text())["studies"]] == [False, True]
+    assert (tmp_path / "batched" / "one" / "report.html").stat().st_mtime_ns == kept
+    assert "Another title" in (tmp_path / "batched" / "two" / "report.html").read_text()
