@@ -69,7 +69,7 @@ def test_series_not_in_any_input(study):
     data = yaml.safe_load(study.read_text())
     data["drivers"][0]["id"] = "forage_biomas"
     study.write_text(yaml.safe_dump(data))
-    line = _expect_one_line(lagsieve("check", study), "forage_biomas", "drivers.0.id")
+    line = _expect_one_line(lagsieve("check", study), "forage_biomas", "drivers[1] (id 'forage_biomas').id")
     assert "forage_biomass" in line  # the nearest id is suggested
 
 
@@ -177,3 +177,32 @@ def test_ledger_before_any_run_is_one_line(study):
     assert proc.returncode == 2 and "Traceback" not in proc.stderr
     lines = proc.stderr.strip().splitlines()
     assert len(lines) == 1 and "no forecast ledger" in lines[0] and "lagsieve run" in lines[0], proc.stderr
+
+
+def test_check_and_ledger_accept_the_study_folder(study):
+    """The folder `lagsieve init` wrote stands for its config.yaml; a folder without one is
+    one line saying what to give."""
+    proc = lagsieve("check", study.parent)
+    assert proc.returncode == 0 and "ok: study 'caldrin_shelf_demo'" in proc.stdout, proc.stderr
+    empty = study.parent / "empty"
+    empty.mkdir()
+    line = _expect_one_line(lagsieve("check", empty), "folder without config.yaml", "holds config.yaml")
+    assert line.startswith(f"{empty}: ")
+
+
+@pytest.mark.parametrize("command", [None, "init", "check", "run", "ledger"])
+def test_help_has_examples_and_every_argument_explained(command):
+    """Every argument has help text, each --help shows at least two examples, and run states
+    its default number of cores (common practice of command-line tools)."""
+    from lagsieve.cli import build_parser
+
+    parser = build_parser()
+    if command is not None:
+        parser = next(a for a in parser._actions if a.dest == "command").choices[command]
+    text = parser.format_help()
+    examples = text.split("examples:\n", 1)[1].splitlines()
+    assert sum(line.startswith("  lagsieve ") for line in examples) >= 2
+    for action in parser._actions:
+        assert action.help, (command, action.dest)
+    if command == "run":
+        assert "default: all" in " ".join(text.split()) and "cores of this machine" in " ".join(text.split())

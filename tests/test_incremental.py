@@ -152,6 +152,40 @@ def test_appended_year_of_a_driver_reruns_its_dependents(wf):
     assert wf.jobs() == []
 
 
+def _edited(wf, change) -> list[tuple[str, str]]:
+    """The dry-run job list after ``change(config dict)``; the config is put back afterwards."""
+    text = wf.config.read_text()
+    cfg = yaml.safe_load(text)
+    change(cfg)
+    wf.config.write_text(yaml.safe_dump(cfg, sort_keys=False))
+    try:
+        return wf.jobs()
+    finally:
+        wf.config.write_text(text)
+
+
+def _driver(cfg, did):
+    return next(d for d in cfg["drivers"] if d["id"] == did)
+
+
+def test_reruns_follow_what_changed_in_the_config(wf):
+    """Each stage reruns when the settings it reads change (lagsieve.stages.digest, Snakemake's
+    params rerun trigger), not on any edit of the config file."""
+    report = [("report", "")]
+    assert _edited(wf, lambda c: c.update(title="A new title")) == report
+    assert _edited(wf, lambda c: c.update(description="Rewritten")) == report
+    assert _edited(wf, lambda c: c["report"].update(top=2)) == report
+    # labels and units: the evidence table's sentences use them; no screen reruns
+    assert _edited(wf, lambda c: _driver(c, "bottom_temp").update(label="Bottom water temperature")) == \
+        sorted([("evidence", ""), ("report", "")])
+    # one driver's settings: the screens it is screened against, then evidence and report
+    assert _edited(wf, lambda c: _driver(c, "local_index").update(lags=[1, 2])) == \
+        sorted([("evidence", ""), ("report", ""), ("screen", "m--age2")])
+    # a screen setting: every screen
+    assert _edited(wf, lambda c: c["screen"].update(surrogates=29)) == EVERYTHING
+    assert wf.jobs() == []  # the config put back: nothing to do
+
+
 def test_delete_all_output_keeps_the_ledger(wf):
     db = wf.study / "ledger.sqlite"
     con = sqlite3.connect(str(db))

@@ -1060,7 +1060,7 @@ def test_a_misspelt_id_is_matched_against_the_unused_series(tmp_path):
     with pytest.raises(InputErrors) as info:
         check_study(cfg)
     first = assert_one_line_each(info.value)[0]
-    assert "series 'sunspot': no input file holds this series" in first and "sunspots" in first
+    assert "responses[1] (id 'sunspot').id: no input file holds this series" in first and "sunspots" in first
 
 
 # ----------------------------------------------------------------------------- config defaults

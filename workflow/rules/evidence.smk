@@ -6,7 +6,6 @@ rule evidence:
     q-values, flags, grades and ranks (stage `evidence`). The two stages share one job so that
     a study costs one job per response plus two."""
     input:
-        config=cfg,
         data=lambda w: STUDIES[w.study].input_paths,
         estimates=lambda w: _estimate_paths(
             STUDIES[w.study].study.responses, STUDIES[w.study].study.base_dir
@@ -24,6 +23,9 @@ rule evidence:
         joint=f"{OUT}/{{study}}/joint.csv",
         joint_groups=f"{OUT}/{{study}}/joint_groups.csv",
         windows=f"{OUT}/{{study}}/windows.csv",
+    params:
+        config=cfg,  # a param with the digest of what the stages read: a new title reruns only the report
+        settings=lambda w: _settings_digest(STUDIES[w.study].study, "evidence"),
     log:
         f"{OUT}/{{study}}/logs/evidence.log",
     conda:

@@ -6,6 +6,7 @@
 # not tracked by Snakemake.
 from lagsieve.stages.plan import docx_wanted as _docx_wanted
 from lagsieve.stages.plan import pdf_wanted as _pdf_wanted
+from lagsieve.stages import catalog as _catalog
 
 REPORT_INPUT = dict(
     config=cfg,
@@ -41,10 +42,11 @@ REPORT_OUTPUT = {
     "ledger": f"{OUT}/{{study}}/work/ledger_update.json",
     "figures": report(
         directory(f"{OUT}/{{study}}/figures"),
-        patterns=["{name}.png"],
-        caption="../report/figures.rst",
+        patterns=_catalog.FIGURE_PATTERNS,  # response, driver and kind read off each file's name
+        caption="../report/figures.rst",  # one caption per kind of figure
         category="Figures",
-        labels={"study": "{study}", "figure": "{name}"},
+        subcategory=lambda w: _catalog.figure_labels(STUDIES[w.study].study, w)["figure"],
+        labels=lambda w: _catalog.figure_labels(STUDIES[w.study].study, w),
     ),
 }
 if STUDIES and all(_pdf_wanted(p.study) for p in STUDIES.values()):

@@ -5,7 +5,7 @@ from lagsieve.stages.common import logged
 from lagsieve.stages.evidence import run_align, run_evidence
 
 with logged(snakemake):
-    run_align(snakemake.input.config, snakemake.output.annual, snakemake.output.notes,
+    run_align(snakemake.params.config, snakemake.output.annual, snakemake.output.notes,
               condition=list(snakemake.input.condition))
-    run_evidence(snakemake.input.config, snakemake.output.annual, Path(snakemake.output.annual).parent,
+    run_evidence(snakemake.params.config, snakemake.output.annual, Path(snakemake.output.annual).parent,
                  snakemake.output.screen, snakemake.output.evidence)

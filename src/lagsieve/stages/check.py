@@ -11,7 +11,7 @@ from lagsieve.condition.lengthweight import fit_reference
 from lagsieve.condition.samples import assign_groups, read_samples
 from lagsieve.condition.series import input_frame
 from lagsieve.condition.settings import ConditionSettings, check_condition, series_ids
-from lagsieve.errors import InputErrors, InputProblem, suggest
+from lagsieve.errors import InputErrors, InputProblem, item_key, suggest
 from lagsieve.io.config import Study, load_study
 from lagsieve.io.estimates import estimate_problems
 from lagsieve.io.readers import read_inputs
@@ -135,7 +135,7 @@ def _absent_series(study: Study, present: set[str], others: set[str] = frozenset
                 problems.append(InputProblem(
                     what="no input file holds this series",
                     fix=f"check the id or add its file to inputs ({suggest(s['id'], found, 'series')})",
-                    file=str(study.path), key=f"{role}.{i}.id", series=s["id"]))
+                    file=str(study.path), key=item_key(role, i, s["id"], "id"), series=s["id"]))
     return problems
 
 
@@ -150,5 +150,5 @@ def _responses_without_se(study: Study, annual: pd.DataFrame) -> list[InputProbl
                 what=f"screen.weights is inverse-variance but {len(bad)} year(s) have no positive se "
                      f"(first: {int(bad['year'].iloc[0])})",
                 fix="add an se or cv column for this response, or set screen.weights: none",
-                file=str(study.path), key=f"responses.{i}", series=r["id"]))
+                file=str(study.path), key=item_key("responses", i, r["id"]), series=r["id"]))
     return problems
