@@ -6,7 +6,7 @@ with the default first window (16 years, so 24 origins). The inputs are built th
 ``screen_hypothesis`` builds them (``driver_batch``, ``forecast_frame``, ``shift_batch``).
 
 (a) lagsieve, batched
-    linear: ``validation.rolling_origin(..., models=("linear",))``: the three baselines and
+    linear: ``backtest.rolling_origin(..., models=("linear",))``: the four baselines and
             baseline + driver at every surrogate x lag x origin, lag chosen by training RSS.
     gam:    ``validation.gam_candidate`` on the hardest baseline, chunked over the batch
             exactly as ``rolling_origin`` does, smoothing chosen by GCV every 5 origins.
@@ -30,7 +30,7 @@ with the default first window (16 years, so 24 origins). The inputs are built th
             the gam speedup is a lower bound.
 
 Agreement is relative (|a - b| <= tol max(1, |b|)). lagsieve's solvers add a ridge
-proportional to the trace of X'X (1e-10 in validation._expanding_solve, 1e-11 in
+proportional to the trace of X'X (1e-10 in stats.linalg.expanding_added, 1e-11 in
 gam.expanding_penalised) and centre the response on its first-window mean first, so the
 ridge does not act in proportion to the response's level; the responses here have level 10
 (``--level``) so that a level-dependent difference would show.
@@ -38,8 +38,17 @@ ridge does not act in proportion to the response's level; the responses here hav
 Timings are medians over repeats (batched) or over hypotheses / fits (loops), all in one
 run. The last line printed is ``speedup_linear=<x> speedup_gam=<y>``.
 
+Machine limit: the one-core matrix-product rate of the same run (a 2000 x 2000 float64
+product under ``threadpool_limits(1)``, 2 n^3 flops, best of 3), and beside it the rate each
+batched kernel achieves: its operation count (:func:`linear_flops`, :func:`spline_flops`: the
+multiplications and additions of the algorithm as implemented, a division, square root or
+comparison one flop each; never the flops of a naive per-fit solve it avoids) over its median
+time, and the share of the peak.
+
 Then the whole demo study (``lagsieve init`` + ``lagsieve run --cores 2``: 999 surrogates,
-linear and gam) is timed end to end (``--no-demo`` skips it).
+linear and gam) is timed end to end, and every demo response is screened again in this process
+(``screen_response``, BLAS on one thread, one worker, as a screen job does) to report its CPU
+time (median of ``--demo-repeats``) against the target of 2 s (``--no-demo`` skips both).
 """
 from __future__ import annotations
 
@@ -59,6 +68,8 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
+
+from threadpoolctl import threadpool_limits
 
 from lagsieve.stats import splines as lgam
 from lagsieve.prep.align import forecast_frame, shift_batch
@@ -175,14 +186,15 @@ def compare_linear(ro, lp) -> dict:
 
 # ------------------------------------------------------------------------------ gam
 def gam_inputs(h, hardest: str):
-    """What rolling_origin hands to gam_candidate for this hypothesis."""
+    """What rolling_origin hands to gam_candidate for this hypothesis (basis size from the first
+    training window, ``default_n_basis(initial)``, as rolling_origin chooses it)."""
     initial = h["initial"]
     T = len(h["y"])
     Xs = _scale_from_start(np.asarray(h["X"], float), initial)
     yl = _scale_from_start(h["ylag"], initial)
     yr = _scale_from_start(h["years"], initial)
     Z = baseline_design(hardest, yl, yr)
-    return Z, Xs, np.arange(initial, T), lgam.default_n_basis(T)
+    return Z, Xs, np.arange(initial, T), lgam.default_n_basis(initial)
 
 
 def batched_gam(h, hardest):
@@ -232,7 +244,7 @@ def design_raw(h, hardest, s, li):
     the B-spline basis (pygam's own basis function) with knots on the training range of
     the first window; the intercept lives in the basis, which sums to one."""
     T, initial = len(h["y"]), h["initial"]
-    K = lgam.default_n_basis(T)
+    K = lgam.default_n_basis(initial)
     from pygam.utils import b_spline_basis
 
     x = h["X"][s, li]
@@ -285,7 +297,7 @@ def pygam_fits(h, hardest, lam, pairs):
     y = h["y"]
     out, times = {}, []
     Zraw = baseline_design(hardest, h["ylag"], h["years"])[:, 1:]
-    K = lgam.default_n_basis(len(y))
+    K = lgam.default_n_basis(h["initial"])
     for (si, li) in pairs:
         x = h["X"][si, li]
         edge = np.r_[x[:h["initial"]].min(), x[:h["initial"]].max()]
@@ -304,8 +316,65 @@ def pygam_fits(h, hardest, lam, pairs):
     return out, np.asarray(times)
 
 
+# ------------------------------------------------------------------------------ machine limit
+def peak_gflops(n: int = 2000, repeats: int = 3) -> float:
+    """One-core float64 matrix-product rate: 2 n^3 flops of an n x n product, best of ``repeats``."""
+    rng = np.random.default_rng(0)
+    a, b = rng.normal(size=(n, n)), rng.normal(size=(n, n))
+    with threadpool_limits(limits=1):
+        a @ b  # warm-up
+        best = min(timed(lambda: a @ b, 1)[0] for _ in range(repeats))
+    return 2.0 * n**3 / best / 1e9
+
+
+def linear_flops(T: int, initial: int, S: int, L: int) -> float:
+    """Operations of ``rolling_origin(models=("linear",))`` on one hypothesis: for every baseline
+    (p columns, intercept included) :func:`lagsieve.stats.linalg.expanding_added` over N = S L
+    members and O = T - initial origins. Window sums: 2 (p + 2) per member and training row of
+    every window (sum of the window lengths, the zeros of the window mask left out); per member
+    and origin G C (2 p^2), the Schur complement, s and the forecast's lead (2 p each) and 6 for
+    g, RSS and forecast; the shared design's own sums and inverses (O (2 T p^2 + p^3))."""
+    O = T - initial
+    rows = sum(range(initial, T))  # training rows summed over the windows
+    N = S * L
+    total = 0.0
+    for p in (1, 2, 2, 3):  # climatology, persistence, trend, trend_ar1
+        total += N * rows * 2 * (p + 2) + N * O * (2 * p * p + 6 * p + 6) + O * (2 * T * p * p + p**3)
+    return total
+
+
+def spline_flops(T: int, initial: int, S: int, L: int, q: int, n_basis: int, retune: int = RETUNE,
+                 n_grid: int = 25, chunk: int = CHUNK) -> float:
+    """Operations of ``gam_candidate`` (:func:`lagsieve.stats.splines.expanding_penalised`) on one
+    hypothesis: N = S L members with q columns, R tuning origins every ``retune`` origins,
+    r = n_basis - 2 penalised directions, ``n_grid`` smoothing values.
+
+    Per member: the basis (50 per row and basis value set: the segment recursion, the
+    extrapolation and the placement), the tuning windows' normal equations (2 (q^2 + q) per row
+    up to the last tuning origin). Per tuning system: C = A + mu P (q^2 + 2 q), the inverse by
+    Cholesky (q^3), R C^-1 (2 q^2 r), R C^-1 R' (2 q r^2), the r x r eigen-problem (9 r^3, the
+    usual count for a symmetric eigen-decomposition with vectors), H (2 q r^2), C^-1 b and h
+    (2 q^2 + 4 q r), per grid value 10 r + 11 (factors, edf, RSS, GCV), the solution and the
+    inverse at the chosen value (2 q r + 2 q^2 r + q^2), the first products H_0 x of the
+    carried steps (2 q^2 each). Per carried step 4 q^2 + 24 q + 4 q (j - 1) (the Sherman-Morrison
+    step with its RSS increment, j = step within its block); per origin the forecast and GCV
+    (2 q + 6). ``chunk`` does not change the count."""
+    O = T - initial
+    R = -(-O // retune)
+    r = n_basis - 2
+    M = retune - 1
+    last_tuning = initial + (R - 1) * retune
+    N = S * L
+    per_system = (q * q + 2 * q + q**3 + 2 * q * q * r + 2 * q * r * r + 9 * r**3 + 2 * q * r * r
+                  + 2 * q * q + 4 * q * r + n_grid * (10 * r + 11) + 2 * q * r + 2 * q * q * r + q * q
+                  + M * 2 * q * q)
+    steps = sum(4 * q * q + 24 * q + 4 * q * (j - 1) for j in range(1, M + 1)) * (O - R) / max(M, 1)
+    return N * (T * 50 + last_tuning * 2 * (q * q + q) + R * per_system + steps + O * (2 * q + 6))
+
+
 # ------------------------------------------------------------------------------ demo
-def time_demo() -> float:
+def time_demo(repeats: int) -> tuple[float, dict[str, float]]:
+    """(wall time of ``lagsieve run`` on the demo, {response: screen CPU seconds, median of repeats})."""
     with tempfile.TemporaryDirectory(prefix="lagsieve-demo-") as d:
         env = dict(os.environ, MPLBACKEND="Agg")
         subprocess.run([sys.executable, "-m", "lagsieve.cli", "init", f"{d}/study"], check=True, env=env,
@@ -318,7 +387,33 @@ def time_demo() -> float:
             raise SystemExit(f"demo run failed:\n{proc.stdout[-2000:]}\n{proc.stderr[-2000:]}")
         ev = pd.read_csv(f"{d}/study/results/caldrin_shelf_demo/evidence.csv")
         print(f"demo: {len(ev)} hypotheses graded: {ev['grade'].value_counts().to_dict()}")
-    return wall
+        cpu = screen_cpu(f"{d}/study/config.yaml", f"{d}/study/results/caldrin_shelf_demo/work/annual.csv", repeats)
+    return wall, cpu
+
+
+def screen_cpu(config: str, annual_csv: str, repeats: int) -> dict[str, float]:
+    """CPU seconds (process time, median of ``repeats``) of screening every response of a study
+    in this process as a screen job does: one worker, BLAS on one thread, the aligned table of
+    the run. The first response is screened once more beforehand (first-call costs)."""
+    from lagsieve.io.config import load_study
+    from lagsieve.prep.align import annual_table, se_table
+    from lagsieve.screen.response import screen_response
+
+    study = load_study(config)
+    annual = pd.read_csv(annual_csv)
+    table = annual_table(annual, study.transforms())
+    se = se_table(annual, study.transforms()) if study.screen.get("weights") == "inverse-variance" else None
+    out = {}
+    with threadpool_limits(limits=1):
+        screen_response(table, study, study.response_ids[0], se, workers=1)
+        for rid in study.response_ids:
+            ts = []
+            for _ in range(repeats):
+                t0 = time.process_time()
+                screen_response(table, study, rid, se, workers=1)
+                ts.append(time.process_time() - t0)
+            out[rid] = float(np.median(ts))
+    return out
 
 
 # ------------------------------------------------------------------------------ main
@@ -330,7 +425,10 @@ def main(argv=None) -> int:
                     help="hypotheses run through the statsmodels and dense loops (median time per hypothesis)")
     ap.add_argument("--pygam-pairs", type=int, default=8,
                     help="(surrogate, lag) pairs of hypothesis 0 fitted with pygam at every origin")
-    ap.add_argument("--no-demo", action="store_true", help="skip the end-to-end demo timing")
+    ap.add_argument("--no-demo", action="store_true",
+                    help="skip the end-to-end demo timing and the demo's per-response screen CPU")
+    ap.add_argument("--demo-repeats", type=int, default=3,
+                    help="screens of every demo response for its CPU time (median)")
     ap.add_argument("--strict", action="store_true",
                     help="also fail when lagsieve's gam forecasts differ from the exact (ridge-free) fit by > 1e-5")
     ap.add_argument("--level", type=float, default=10.0,
@@ -342,14 +440,19 @@ def main(argv=None) -> int:
     S, L, T = hyps[0]["X"].shape
     O = T - hyps[0]["initial"]
     print(f"subset: {len(hyps)} hypotheses x {L} lags x {S - 1} surrogates (+ real) x {O} origins, n = {T}")
-    rows = []
+    peak = peak_gflops()
+    print(f"machine limit: one-core float64 matrix product (2000 x 2000, BLAS on one thread) {peak:.1f} GFLOP/s")
+    rows = [dict(kernel="peak", method="2000 x 2000 matmul, one core", gflops=peak)]
 
     # ---- linear, batched
     t_lin_all, ros = timed(lambda: [batched_linear(h) for h in hyps], args.repeats)
     t_lin = t_lin_all / len(hyps)
-    fits_lin = 3 * (O + S * L * O)  # per hypothesis: baseline fits + candidate fits
+    fits_lin = len(BASELINES) * (O + S * L * O)  # per hypothesis: baseline fits + candidate fits
     print(f"linear batched: {t_lin_all:.3f} s for {len(hyps)} hypotheses (median of {args.repeats}); "
           f"{t_lin * 1e3:.1f} ms per hypothesis = {fits_lin} OLS fits")
+    gf_lin = linear_flops(T, hyps[0]["initial"], S, L) / t_lin / 1e9
+    print(f"linear kernel: {linear_flops(T, hyps[0]['initial'], S, L) / 1e6:.1f} Mflop per hypothesis (operation "
+          f"count) -> {gf_lin:.2f} GFLOP/s = {100 * gf_lin / peak:.1f}% of the one-core peak {peak:.1f} GFLOP/s")
     # ---- linear, loop
     loop_t, worst = [], None
     for i in range(min(args.loop_hyps, len(hyps))):
@@ -367,7 +470,8 @@ def main(argv=None) -> int:
           f"chosen lags differing {worst['lag_mismatch']}; response level {args.level:g}")
     assert worst["forecast_rel"] < 1e-8 and worst["lag_mismatch"] == 0, worst
     speed_lin = t_loop_lin / t_lin
-    rows += [dict(kernel="linear", method="lagsieve batched", seconds_per_hypothesis=t_lin, fits_per_hypothesis=fits_lin),
+    rows += [dict(kernel="linear", method="lagsieve batched", seconds_per_hypothesis=t_lin, fits_per_hypothesis=fits_lin,
+                  gflops=gf_lin, share_of_peak=gf_lin / peak),
              dict(kernel="linear", method="statsmodels OLS loop", seconds_per_hypothesis=t_loop_lin,
                   fits_per_hypothesis=fits_lin, max_abs_diff=worst["forecast"])]
 
@@ -379,6 +483,11 @@ def main(argv=None) -> int:
     print(f"gam batched (gam_candidate, GCV over {len(lgam.DEFAULT_LAM_GRID)} lambdas every {RETUNE} origins): "
           f"{t_gam_all:.3f} s for {len(hyps)} hypotheses (median of {args.repeats}); {t_gam * 1e3:.1f} ms per "
           f"hypothesis = {fits_gam} penalised fits; hardest baselines {pd.Series(hardest).value_counts().to_dict()}")
+    fl_gam = float(np.mean([spline_flops(T, h["initial"], S, L, gam_inputs(h, hb)[0].shape[1] - 1 + gam_inputs(h, hb)[3],
+                                         gam_inputs(h, hb)[3]) for h, hb in zip(hyps, hardest)]))
+    gf_gam = fl_gam / t_gam / 1e9
+    print(f"gam kernel: {fl_gam / 1e6:.1f} Mflop per hypothesis (operation count) -> {gf_gam:.2f} GFLOP/s = "
+          f"{100 * gf_gam / peak:.1f}% of the one-core peak {peak:.1f} GFLOP/s")
     # ---- gam, dense numpy loop at lagsieve's lambda (exactness reference)
     dense_t, dense_worst, dense_rel, ridge_rel, lams = [], 0.0, 0.0, 0.0, {}
     for i in range(min(args.loop_hyps, len(hyps))):
@@ -423,23 +532,28 @@ def main(argv=None) -> int:
           f"assertions are made against the dense loops above)")
     speed_gam = t_pygam / t_gam
     print(f"gam speedup against the dense numpy loop (for reference): {t_dense / t_gam:.0f}x")
-    rows += [dict(kernel="gam", method="lagsieve batched", seconds_per_hypothesis=t_gam, fits_per_hypothesis=fits_gam),
+    rows += [dict(kernel="gam", method="lagsieve batched", seconds_per_hypothesis=t_gam, fits_per_hypothesis=fits_gam,
+                  gflops=gf_gam, share_of_peak=gf_gam / peak),
              dict(kernel="gam", method="dense numpy loop", seconds_per_hypothesis=t_dense, fits_per_hypothesis=fits_gam,
                   max_abs_diff=dense_worst, max_rel_diff=dense_rel, max_rel_diff_same_ridge=ridge_rel),
              dict(kernel="gam", method="pygam loop (extrapolated from median per fit)", seconds_per_hypothesis=t_pygam,
                   fits_per_hypothesis=fits_gam, max_abs_diff=pg_diff, fits_run=len(pg_times))]
 
-    demo = None
     if not args.no_demo:
-        demo = time_demo()
+        demo, cpu = time_demo(args.demo_repeats)
         print(f"demo study wall time (lagsieve run, --cores 2, 999 surrogates, linear+gam): {demo:.1f} s "
               f"(target < 60 s)")
         rows.append(dict(kernel="demo", method="lagsieve run --cores 2", seconds_per_hypothesis=np.nan,
                          wall_seconds=demo))
+        for rid, c in cpu.items():
+            print(f"demo screen CPU {rid}: {c:.2f} s (median of {args.demo_repeats}; target <= 2 s)")
+            rows.append(dict(kernel="demo screen", method=rid, cpu_seconds=c))
+        print(f"demo screen CPU per response: median {np.median(list(cpu.values())):.2f} s, "
+              f"largest {max(cpu.values()):.2f} s")
     df = pd.DataFrame(rows)
     df["speedup_vs_batched"] = [
-        r.seconds_per_hypothesis / (t_lin if r.kernel == "linear" else t_gam) if r.kernel != "demo" else np.nan
-        for r in df.itertuples()]
+        r.seconds_per_hypothesis / (t_lin if r.kernel == "linear" else t_gam) if r.kernel in ("linear", "gam")
+        else np.nan for r in df.itertuples()]
     Path(args.out).parent.mkdir(parents=True, exist_ok=True)
     df.to_csv(args.out, index=False, float_format="%.6g")
     print(f"wrote {args.out}")
