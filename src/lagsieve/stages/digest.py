@@ -5,9 +5,9 @@ trigger). The study config file itself is an input of the report job only.
 - ``screen`` of one response: the config without what only the report reads (title,
   description, report, ledger, invented), with only that response and its own drivers, and
   without the series' presentation keys (label, unit) and the keys only the evidence stage
-  reads (a response's draws and vintages, screen.draws and screen.real_time). A driver's
-  change reruns the screens of the responses it is screened against, and nothing else of the
-  screen.
+  reads (a response's draws and vintages, screen.draws and screen.real_time, the top-level
+  joint). A driver's change reruns the screens of the responses it is screened against, and
+  nothing else of the screen.
 - ``evidence``: the config without what only the report reads. Labels and units stay in: the
   evidence table's sentences and effect units use them.
 """
@@ -24,6 +24,7 @@ PRESENTATION = ("label", "unit")
 #: Keys that only the evidence stage reads (draws and vintages of a response: stages.estimates).
 EVIDENCE_ONLY_RESPONSE = ("draws", "vintages")
 EVIDENCE_ONLY_SCREEN = ("draws", "real_time")
+EVIDENCE_ONLY_TOP = ("joint",)  # the groups screened jointly (evidence.joint)
 
 
 def _digest(obj) -> str:
@@ -45,7 +46,7 @@ def screen_settings(study: Study, response: str) -> dict:
     """What the screen of ``response`` (its id or its file-name slug) reads of the config."""
     rid = {slug(r): r for r in study.response_ids}.get(response, response)
     mine = {d["id"] for d in study.drivers_for(rid)}
-    raw = evidence_settings(study)
+    raw = {k: v for k, v in evidence_settings(study).items() if k not in EVIDENCE_ONLY_TOP}
     raw["responses"] = [_without(r, PRESENTATION + EVIDENCE_ONLY_RESPONSE) for r in raw["responses"]
                         if r["id"] == rid]
     raw["drivers"] = [_without(d, PRESENTATION) for d in raw["drivers"] if d["id"] in mine]
