@@ -13,7 +13,10 @@ and every job it started, sampled with psutil every 0.2 s, summed over the proce
 at that moment), the peak of the Snakemake process alone and the peak of one job (a job's
 process and its worker processes, summed), against N, and fits wall = a + b N by least
 squares (b: seconds per study; linear growth means the seconds per study do not rise
-with N). Each study is R + 2 = 3 jobs (screen, evidence, report). A run longer than
+with N). Each study is R + 2 = 3 jobs (screen, evidence, report); with ``--batch K`` one job
+runs every stage of K studies in one process (``batch: K`` in the run's config;
+``lagsieve.stages.batch``), so N studies are ceil(N / K) jobs. The CPU time of the whole
+run (Snakemake and every job, user + system) is reported beside the wall time. A run longer than
 ``--max-seconds`` is stopped (its process group, which this script started) and reported
 as such, with the number of studies finished by then.
 
@@ -79,11 +82,15 @@ def write_study(folder: Path, i: int, rng: np.random.Generator, pdf: bool = Fals
     return path
 
 
-def write_batch(root: Path, n: int, seed: int, pdf: bool = False) -> Path:
+def write_batch(root: Path, n: int, seed: int, pdf: bool = False, batch_size: int = 0) -> Path:
+    """N studies and the run's config (``batch: K`` when ``batch_size`` is given, at most N)."""
     rng = np.random.default_rng(seed)
     paths = [str(write_study(root / "studies" / f"s{i:05d}", i, rng, pdf)) for i in range(n)]
     batch = root / "batch.yaml"
-    batch.write_text(yaml.safe_dump({"studies": paths, "out": str(root / "results")}), encoding="utf-8")
+    run = {"studies": paths, "out": str(root / "results")}
+    if batch_size:
+        run["batch"] = min(batch_size, n)
+    batch.write_text(yaml.safe_dump(run), encoding="utf-8")
     return batch
 
 
@@ -117,7 +124,7 @@ def tree_rss(proc: psutil.Process) -> tuple[int, int, int]:
 
 
 def run_measured(cmd: list[str], env: dict, max_seconds: float, log: Path) -> dict:
-    t0 = time.perf_counter()
+    t0, cpu0 = time.perf_counter(), os.times()
     with open(log, "w") as fh:
         p = subprocess.Popen(cmd, env=env, stdout=fh, stderr=subprocess.STDOUT, start_new_session=True)
         ps = psutil.Process(p.pid)
@@ -132,7 +139,9 @@ def run_measured(cmd: list[str], env: dict, max_seconds: float, log: Path) -> di
                 p.wait(timeout=60)
                 break
             time.sleep(0.2)
-    return dict(wall=time.perf_counter() - t0, rc=p.returncode, peak_tree_mb=peak_tree / 2**20,
+    cpu1 = os.times()  # the run's processes are waited for: their CPU is counted as children's
+    cpu = cpu1.children_user + cpu1.children_system - cpu0.children_user - cpu0.children_system
+    return dict(wall=time.perf_counter() - t0, cpu=cpu, rc=p.returncode, peak_tree_mb=peak_tree / 2**20,
                 peak_snakemake_mb=peak_own / 2**20, peak_job_mb=peak_job / 2**20, stopped=stopped)
 
 
@@ -186,6 +195,7 @@ def main(argv=None) -> int:
     ap.add_argument("--cores", type=int, default=2)
     ap.add_argument("--max-seconds", type=float, default=2400, help="stop a run after this long (default 2400)")
     ap.add_argument("--pdf", action="store_true", help="write each study's PDF report too (slower)")
+    ap.add_argument("--batch", type=int, default=0, help="studies per job (batch: K; default 0: one job per stage)")
     ap.add_argument("--seed", type=int, default=11)
     ap.add_argument("--out", default=str(REPO / "bench" / "out" / "scale"))  # bench/out/ is not tracked
     args = ap.parse_args(argv)
@@ -195,7 +205,8 @@ def main(argv=None) -> int:
     with tempfile.TemporaryDirectory(prefix="lagsieve-scale-") as tmp:
         for n in [int(v) for v in args.n.split(",") if v]:
             root = Path(tmp) / f"n{n}"
-            batch = write_batch(root, n, args.seed, args.pdf)
+            batch = write_batch(root, n, args.seed, args.pdf, args.batch)
+            jobs = -(-n // min(args.batch, n)) if args.batch else JOBS_PER_STUDY * n
             t0 = time.perf_counter()
             plan = subprocess.run(snakemake_cmd(root, batch, args.cores, ["-n", "--quiet"]), env=env,
                                   capture_output=True, text=True)
@@ -214,18 +225,18 @@ def main(argv=None) -> int:
             ok = m["rc"] == 0 and done == n
             if not ok and not m["stopped"]:
                 print((root / "snakemake.log").read_text()[-3000:], file=sys.stderr)
-            rows.append(dict(studies=n, jobs=JOBS_PER_STUDY * n, finished=done, jobs_done=n_jobs, wall_s=m["wall"],
-                             s_per_job=m["wall"] / max(n_jobs, 1),
-                             s_per_study=JOBS_PER_STUDY * m["wall"] / max(n_jobs, 1),
+            rows.append(dict(studies=n, jobs=jobs, finished=done, jobs_done=n_jobs, wall_s=m["wall"],
+                             s_per_job=m["wall"] / max(n_jobs, 1), cpu_s=m["cpu"],
+                             s_per_study=m["wall"] / max(done, 1), cpu_per_study=m["cpu"] / max(done, 1),
                              jobs_by_rule=" ".join(f"{k}={v}" for k, v in sorted(per_rule.items())),
                              median_job_s=" ".join(f"{k}={v:.0f}" for k, v in durations.items()),
                              peak_tree_rss_mb=m["peak_tree_mb"], peak_snakemake_rss_mb=m["peak_snakemake_mb"],
                              peak_job_rss_mb=m["peak_job_mb"],
                              plan_s=t_plan, status="ok" if ok else ("stopped at --max-seconds" if m["stopped"] else f"failed rc={m['rc']}")))
             r = rows[-1]
-            print(f"N={n}: {r['status']}, {done}/{n} studies complete, {n_jobs}/{JOBS_PER_STUDY * n} jobs "
+            print(f"N={n}: {r['status']}, {done}/{n} studies complete, {n_jobs}/{jobs} jobs "
                   f"({r['jobs_by_rule']}) in {r['wall_s']:.0f} s ({r['s_per_job']:.2f} s per job, "
-                  f"{r['s_per_study']:.2f} s per study); median job wall s by rule: {r['median_job_s']}; "
+                  f"{r['s_per_study']:.2f} s wall and {r['cpu_per_study']:.2f} s CPU per study); median job wall s by rule: {r['median_job_s']}; "
                   f"peak RSS tree {r['peak_tree_rss_mb']:.0f} MB, snakemake alone {r['peak_snakemake_rss_mb']:.0f} MB, "
                   f"one job {r['peak_job_rss_mb']:.0f} MB", flush=True)
             # free the disk between sizes
@@ -253,14 +264,16 @@ def main(argv=None) -> int:
     df.to_csv(out.with_suffix(".csv"), index=False, float_format="%.3f")
     md = ["## lagsieve scaling: N studies in one Snakemake run", "",
           f"Each study: 1 response x 3 drivers, 40 years, lags 0-3, 99 surrogates, models [linear], report with "
-          f"one panel per response, {'with' if args.pdf else 'without'} PDF; {JOBS_PER_STUDY} jobs (screen, "
-          f"evidence, report); --cores {args.cores}.", "",
-          "| studies | jobs | jobs finished | studies complete | wall (s) | s per study | median job wall (s) by rule "
+          f"one panel per response, {'with' if args.pdf else 'without'} PDF; "
+          + (f"batch {args.batch}: one job runs every stage of {args.batch} studies" if args.batch else
+             f"{JOBS_PER_STUDY} jobs (screen, evidence, report)") + f"; --cores {args.cores}.", "",
+          "| studies | jobs | jobs finished | studies complete | wall (s) | s per study | CPU s per study "
+          "| median job wall (s) by rule "
           "| peak RSS, tree (MB) | peak RSS, snakemake (MB) | peak RSS, one job (MB) | planning -n (s) | status |",
-          "| ---: | ---: | ---: | ---: | ---: | ---: | --- | ---: | ---: | ---: | ---: | --- |"]
+          "| ---: | ---: | ---: | ---: | ---: | ---: | ---: | --- | ---: | ---: | ---: | ---: | --- |"]
     for r in rows:
         md.append(f"| {r['studies']} | {r['jobs']} | {r['jobs_done']} ({r['jobs_by_rule']}) | {r['finished']} | "
-                  f"{r['wall_s']:.0f} | {r['s_per_study']:.2f} | {r['median_job_s']} | "
+                  f"{r['wall_s']:.0f} | {r['s_per_study']:.2f} | {r['cpu_per_study']:.2f} | {r['median_job_s']} | "
                   f"{r['peak_tree_rss_mb']:.0f} | {r['peak_snakemake_rss_mb']:.0f} | {r['peak_job_rss_mb']:.0f} | "
                   f"{r['plan_s']:.1f} | {r['status']} |")
     complete = [r for r in rows if r["status"] == "ok"]
