@@ -10,12 +10,17 @@ from __future__ import annotations
 import base64
 import hashlib
 import json
+import shutil
 
 import numpy as np
 import pytest
+import yaml
 from PIL import Image
 
+from lagsieve.io.names import slug
 from lagsieve.report import figures as fg
+
+from helpers import make_report, run_study, tiny_config, write_config
 
 
 def _overlay(name: str, shift: float = 0.0, response: str = "M age 2") -> fg.FigureJob:
@@ -156,3 +161,32 @@ def test_the_cache_keeps_only_the_figures_still_planned(tmp_path):
     drawn, _ = _draw(out, _jobs()[:2], cache=cache)  # figure c is no longer planned
     assert drawn == [] and sorted(p.name for p in cache.iterdir()) == sorted(
         f"{n}.{e}" for n in "ab" for e in ("png", "svg", "key"))
+
+
+# ----------------------------------------------------------------------------- the report stage
+def _stamps(folder):
+    return {p.name: (p.stat().st_ino, p.stat().st_mtime_ns) for p in folder.glob("*.png")}
+
+
+def test_a_report_rerun_redraws_only_the_figures_whose_inputs_changed(tmp_path):
+    cfg = tiny_config(tmp_path / "cfg", report={"top": 1, "pdf": False, "docx": False})
+    res = run_study(cfg, tmp_path / "results")
+    make_report(cfg, res)
+    cache = res / "work" / "figures"
+    first = _stamps(cache)
+    assert first and sorted(first) == sorted(p.name for p in (res / "figures").glob("*.png"))
+    shutil.rmtree(res / "figures")  # as Snakemake clears a directory output before the job
+    make_report(cfg, res)
+    assert _stamps(cache) == first  # same inputs: nothing drawn again
+    assert sorted(p.name for p in (res / "figures").glob("*.png")) == sorted(first)
+    raw = yaml.safe_load(cfg.read_text(encoding="utf-8"))
+    raw["responses"][1]["label"] = "M age 5 and older"  # shown in that response's figures only
+    write_config(cfg, raw)
+    make_report(cfg, res)
+    after = _stamps(cache)
+    changed = {n for n in first if after[n] != first[n]}
+    own = {n for n in first if n.startswith(slug("m:age5plus") + "__")}
+    labelled = {n for n in own if n.endswith(("__overlay.png", "__scatter.png", "__forecasts.png"))}
+    assert labelled and labelled <= changed  # the panels that show the response's label
+    assert changed <= own | {"coverage.png", "evidence_map.png"}  # and the study-wide figures that name it
+    assert not any(n.endswith(("__lags.png", "__nulls.png")) for n in changed)  # no label in them: kept

@@ -42,7 +42,7 @@ from matplotlib.ticker import MaxNLocator  # noqa: E402
 from PIL import Image  # noqa: E402
 from scipy import stats  # noqa: E402
 
-from lagsieve.io.files import sha256_file  # noqa: E402
+from lagsieve.io.files import atomic_path, sha256_file, write_text  # noqa: E402
 from lagsieve.io.provenance import tool_version  # noqa: E402
 
 # ----------------------------------------------------------------------------- palette
@@ -690,12 +690,6 @@ def prune(d: str | Path, keep) -> None:
                 path.unlink(missing_ok=True)
 
 
-def _write_atomic(path: Path, write) -> None:
-    tmp = path.with_name(f".{path.name}.tmp")
-    write(tmp)
-    os.replace(tmp, path)
-
-
 def write_figure(fig, d: str | Path, name: str) -> tuple[int, int]:
     """Lay the figure out and draw it once at ``PNG_DPI``; write ``name``.png (the exported file
     and the page's embedded copy are one raster) and ``name``.svg from the same frozen layout.
@@ -707,8 +701,10 @@ def write_figure(fig, d: str | Path, name: str) -> tuple[int, int]:
     fig.canvas.draw()
     fig.set_layout_engine(None)  # keep the positions; with no engine, the SVG does not lay out again
     im = Image.fromarray(np.asarray(fig.canvas.buffer_rgba()), "RGBA").convert("RGB")
-    _write_atomic(d / f"{name}.png", lambda p: im.save(p, format="PNG", dpi=(PNG_DPI, PNG_DPI), compress_level=1))
-    _write_atomic(d / f"{name}.svg", lambda p: fig.savefig(p, format="svg", metadata={"Date": None, "Creator": None}))
+    with atomic_path(d / f"{name}.png") as tmp:
+        im.save(tmp, format="PNG", dpi=(PNG_DPI, PNG_DPI), compress_level=1)
+    with atomic_path(d / f"{name}.svg") as tmp:
+        fig.savefig(tmp, format="svg", metadata={"Date": None, "Creator": None})
     return round(width_in * 96), round(height_in * 96)
 
 
@@ -729,8 +725,7 @@ def _draw_job(job: FigureJob, d: str, key: str | None):
             return job.name, None
         plt.close(fig)
     if key is not None:
-        _write_atomic(_key_path(Path(d), job.name),
-                      lambda p: p.write_text(json.dumps({"key": key, "size": list(size)}), encoding="utf-8"))
+        write_text(json.dumps({"key": key, "size": list(size)}), _key_path(Path(d), job.name))
     return job.name, size
 
 
@@ -802,13 +797,11 @@ class FigureRenderer:
                 continue
             png = (self.cache_dir / f"{j.name}.png").read_bytes()
             if self.cache_dir != self.figures_dir:
-                (self.figures_dir / f"{j.name}.png").write_bytes(png)
-                shutil.copyfile(self.cache_dir / f"{j.name}.svg", self.figures_dir / f"{j.name}.svg")
+                for ext in FORMATS:
+                    with atomic_path(self.figures_dir / f"{j.name}.{ext}") as tmp:
+                        shutil.copyfile(self.cache_dir / f"{j.name}.{ext}", tmp)
             out[j.name] = (base64.b64encode(png).decode("ascii"), tuple(sizes[j.name]))
         return out
-
-    def write_svgs(self) -> None:
-        """Nothing left to write: each figure's SVG is written with its PNG (kept for callers)."""
 
     def close(self) -> None:
         if self._pool is not None:

@@ -65,9 +65,11 @@ def write_document(ctx: Context, figs: dict, path: Path) -> bool:
     return True
 
 
-def _clear(figures_dir: Path) -> None:
+def _clear_tables(figures_dir: Path) -> None:
+    """Remove the tables of an earlier report (written again below); the figures are kept, to be
+    reused by their content keys (figures.FigureRenderer) or pruned when no longer planned."""
     figures_dir.mkdir(parents=True, exist_ok=True)
-    for old in list(figures_dir.glob("*.png")) + list(figures_dir.glob("*.svg")) + list(figures_dir.glob("*.csv")):
+    for old in figures_dir.glob("*.csv"):
         old.unlink()
 
 
@@ -76,12 +78,13 @@ def build_report(study, table, screen, evidence, forecasts, nulls, notes, proven
                  renderer: fg.FigureRenderer | None = None, since: LedgerSection | None = None,
                  docx_path: Path | None = None, condition: dict | None = None, rivals: dict | None = None,
                  windows: pd.DataFrame | None = None, joint: tuple | None = None) -> tuple[str, dict]:
-    """Render the report HTML; write its figures (PNG 300 dpi and SVG) and tables (CSV) under
-    ``figures_dir``. Returns (html, figures) where figures maps name -> (base64 PNG, size).
+    """Render the report HTML; write its figures (PNG and SVG, drawn or reused by their content
+    keys) and tables (CSV) under ``figures_dir``. Returns (html, figures) where figures maps
+    name -> (base64 PNG, size).
 
-    With a ``renderer`` (a :class:`figures.FigureRenderer` on ``figures_dir``) the SVG copies
-    are left to the caller (``renderer.write_svgs()`` / ``close()``); without one they are
-    written before this returns, using ``workers`` processes. ``since``: the ledger's section
+    The figures are drawn by ``renderer`` (a :class:`figures.FigureRenderer` on ``figures_dir``,
+    perhaps with a cache folder of its own), else by one made here with ``workers`` processes;
+    figures left from an earlier report that this one does not draw are removed. ``since``: the ledger's section
     "Since the previous run" (:func:`lagsieve.ledger.section.ledger_section`), placed after the
     data section; None leaves it out. ``condition``: the condition stage's outputs
     (:func:`lagsieve.report.condition.read_outputs`), shown in a section of their own. ``rivals``:
@@ -90,7 +93,7 @@ def build_report(study, table, screen, evidence, forecasts, nulls, notes, proven
     (:func:`lagsieve.report.stability.read_windows`), the relationships that change. ``joint``:
     joint.csv and joint_groups.csv (:func:`lagsieve.report.joint.read_joint`), groups screened jointly."""
     figures_dir = Path(figures_dir)
-    _clear(figures_dir)
+    _clear_tables(figures_dir)
     ctx = Context.of(study, table, screen, evidence, forecasts, nulls, notes, provenance, annual=annual)
     ctx.condition, ctx.rivals, ctx.windows = condition, rivals, windows
     ctx.joint = joint
@@ -100,6 +103,7 @@ def build_report(study, table, screen, evidence, forecasts, nulls, notes, proven
     plan.jobs += jnt.plan_joint(joint, ctx.label, ctx.invented)
     plan.jobs += stab.plan_stability(evidence, windows, ctx.label, ctx.invented)
     figs = fg.render_jobs(plan.jobs, figures_dir, workers=workers) if renderer is None else renderer.draw(plan.jobs)
+    fg.prune(figures_dir, figs)
     write_tables(ctx, plan, figures_dir)
     if docx_path is not None:
         write_document(ctx, figs, docx_path)

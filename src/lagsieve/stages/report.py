@@ -73,7 +73,9 @@ def run_report(config_path, annual_csv, notes_csv, work_dir, screen_csv, evidenc
     config sets ``report.pdf: false``), the editable annex ``report.docx`` beside it (unless
     ``report.docx: false``) and provenance.json.
 
-    ``threads``: worker processes for drawing the figures (default: up to 4 CPUs).
+    ``threads``: worker processes for drawing the figures (default: up to 4 CPUs). The figures
+    are kept with their content keys in ``work_dir``/figures and copied into ``figures_dir`` (which
+    Snakemake clears before the job): an unchanged figure is not drawn again.
     ``condition``: the condition stage's outputs (paths), shown in a section of their own.
     """
     t0 = time.time() if started is None else started
@@ -91,7 +93,7 @@ def run_report(config_path, annual_csv, notes_csv, work_dir, screen_csv, evidenc
     docx_path = Path(out_report).with_name("report.docx")
     if docx_path.is_file():  # written again below when wanted; a copy left by an earlier run would be stale
         docx_path.unlink()
-    with FigureRenderer(figures_dir, workers) as renderer:
+    with FigureRenderer(figures_dir, workers, cache_dir=Path(work_dir) / "figures") as renderer:
         since = ledger_section(resolve_ledger_path(study, Path(out_report).parent), study, evidence)
         html, figs = build_report(study, table, screen, evidence, forecasts, nulls, notes, prov, figures_dir,
                                   annual=annual, renderer=renderer, since=since,
@@ -99,7 +101,6 @@ def run_report(config_path, annual_csv, notes_csv, work_dir, screen_csv, evidenc
                                   condition=read_outputs(condition), rivals=read_rivals(evidence_csv),
                                   windows=read_windows(evidence_csv), joint=read_joint(evidence_csv))
         write_text(html, out_report)
-        renderer.write_svgs()  # the SVG copies are written by the workers while the PDF is made
         if pdf_wanted(study):
             prov["pdf"] = write_report_pdf(html, pdf_path, study, evidence, figs)
         else:
