@@ -326,3 +326,12 @@ def test_joint_reruns_the_evidence_not_the_screens(new_study):
     assert settings_digest(before, "evidence") != settings_digest(after, "evidence")
     for rid in before.response_ids:
         assert settings_digest(before, "screen", rid) == settings_digest(after, "screen", rid)
+
+
+def test_a_driver_that_is_its_own_trend_is_not_fitted():
+    """A driver that is a straight line in the year leaves nothing once each group's trend is
+    taken out: a note, no fit, no words (common practice: no slope without variation)."""
+    t = _world(3, [0.3, 0.3, 0.3])
+    t["drv"] = np.arange(len(t), dtype=float)
+    row, groups = joint_hypothesis(t, "m", GROUPS, "drv", [0, 1], "any", dict(screen_defaults(), surrogates=19))
+    assert "driver varies" in row["note"] and "words" not in row and groups.empty

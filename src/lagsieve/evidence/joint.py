@@ -28,6 +28,8 @@ Per series x driver:
   hardest baseline summed over the groups, with its surrogate p;
 * the words (``JOINT_WORDS`` in :mod:`lagsieve.evidence.vocabulary`), with the groups in age
   order (:func:`age_order`).
+
+Every fit is unweighted (``screen.weights`` weights the screen's forecasts, not this model).
 """
 from __future__ import annotations
 
@@ -116,6 +118,12 @@ class LagScan:
         return np.array([surrogate_p(at[:, g]) for g in range(at.shape[1])])
 
 
+def _varies(x: np.ndarray, trend: np.ndarray) -> bool:
+    """Whether the driver x (T,) varies around its own line in the year (else no slope can be fitted)."""
+    rest = x - trend @ np.linalg.lstsq(trend, x, rcond=None)[0]
+    return bool(np.std(rest) > 1e-9 * max(np.std(x), np.abs(x).max(), 1e-300))
+
+
 def scan_lags(table: pd.DataFrame, responses: list[str], batch: np.ndarray, lags: list[int], sign: str,
               min_overlap: int) -> LagScan | None:
     """:class:`LagScan` over the lags with at least ``min_overlap`` years where every group and
@@ -128,6 +136,8 @@ def scan_lags(table: pd.DataFrame, responses: list[str], batch: np.ndarray, lags
         if len(ok) < max(min_overlap, 4):
             continue
         D, trend = design(xk[:, ok], False), level_and_trend(table.index.to_numpy()[ok])
+        if not _varies(D[0, :, 0], trend):
+            continue
         fit = balanced_fit(D, Y[:, ok], trend)
         used.append(int(k))
         rows.append(ok)
@@ -229,13 +239,18 @@ def joint_hypothesis(table: pd.DataFrame, series: str, responses: list[str], dri
                          screen.get("surrogate_keep_trend", True))
     scan = scan_lags(table, responses, batch, lags, sign, int(screen["min_overlap"]))
     if scan is None:
-        row["note"] = f"fewer than min_overlap {screen['min_overlap']} years with every group observed at every lag"
+        row["note"] = (f"no lag with min_overlap {screen['min_overlap']} years where every group is observed and the "
+                       "driver varies around its own trend")
         return row, pd.DataFrame(columns=JOINT_GROUP_COLUMNS)
     lag, ok = int(scan.lags[scan.pick[0]]), scan.rows[scan.pick[0]]
     p_any, p_shared, p_differ = scan.p_values()
     row.update(lag=lag, p_any=p_any, p_surrogate=p_shared, p_heterogeneity=p_differ)
     Y = table[responses].to_numpy(float).T[:, ok]
-    entries, per_group = _fit_entries(shift_batch(batch[:1], lag)[0, ok], Y, table.index.to_numpy()[ok])
+    try:
+        entries, per_group = _fit_entries(shift_batch(batch[:1], lag)[0, ok], Y, table.index.to_numpy()[ok])
+    except (np.linalg.LinAlgError, ValueError) as exc:  # the tests above stand; the fit is said to have failed
+        row["note"] = f"the mixed model could not be fitted ({exc})"
+        return row, pd.DataFrame(columns=JOINT_GROUP_COLUMNS)
     row.update(entries)
     oos, group_skill = joint_forecasts(table, responses, driver, batch, lags, screen.get("validation", {}))
     row.update(oos)
