@@ -81,7 +81,7 @@ N_ROWS = 40
 N_HYP = 20
 N_SURR = 199
 RETUNE = 5  # rolling_origin's default retune_every
-CHUNK = 128  # rolling_origin's default chunk
+CHUNK = 512  # rolling_origin's default chunk
 
 
 # ------------------------------------------------------------------------------ inputs

@@ -393,21 +393,20 @@ def _backtest_summary(ro: RollingOriginResult) -> dict:
 
 
 def _forecast_table(ro: RollingOriginResult, rid: str, did: str) -> pd.DataFrame:
-    """The real driver's backtest forecasts, one row per forecast year."""
-    fc = pd.DataFrame({"response": rid, "driver": did, "year": ro.years, "observed": ro.observed})
+    """The real driver's backtest forecasts, one row per forecast year (the columns gathered
+    first and the frame built once)."""
+    cols = {"response": rid, "driver": did, "year": ro.years, "observed": ro.observed}
     for b in BASELINES:
-        fc[f"baseline_{b}"] = ro.baseline_forecast[b]
-        fc[f"model_{b}"] = ro.model_forecast[b][0]
-        fc[f"lag_{b}"] = ro.chosen_lag[b][0]
+        cols[f"baseline_{b}"] = ro.baseline_forecast[b]
+        cols[f"model_{b}"] = ro.model_forecast[b][0]
+        cols[f"lag_{b}"] = ro.chosen_lag[b][0]
     if ro.chosen_model is not None:
-        fc["model_chosen"] = ro.chosen_model[0]
-        fc["gam_only"] = ro.gam_forecast[0]
-        fc["linear_only"] = ro.linear_forecast[0]
-    fc["hardest"] = ro.hardest
-    fc["candidate"] = ro.candidate_fc[0]
-    fc["candidate_baseline"] = ro.candidate_baseline[0]
-    fc["candidate_lag"] = ro.candidate_lag[0]
-    return fc
+        cols["model_chosen"] = ro.chosen_model[0]
+        cols["gam_only"] = ro.gam_forecast[0]
+        cols["linear_only"] = ro.linear_forecast[0]
+    cols.update(hardest=ro.hardest, candidate=ro.candidate_fc[0], candidate_baseline=ro.candidate_baseline[0],
+                candidate_lag=ro.candidate_lag[0])
+    return pd.DataFrame(cols)
 
 
 def _extrapolated(X: np.ndarray, lag_used: np.ndarray, lags: np.ndarray, initial: int) -> np.ndarray:

@@ -168,7 +168,7 @@ def rolling_origin(
     initial: int,
     models: tuple[str, ...] = ("linear",),
     n_basis: int | None = None,
-    chunk: int = 128,
+    chunk: int = 512,
     retune_every: int = 5,
     weights: np.ndarray | None = None,
 ) -> RollingOriginResult:
