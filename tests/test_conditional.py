@@ -287,7 +287,8 @@ def test_controls_enter_every_test():
     ev = pd.DataFrame({"response": "R", "driver": ["true"], "grade": "strong", "lag": [0], "flags": ""})
     drivers = [{"id": "true", "expected_sign": "positive"}]
     cond = conditional_table(ev, table, drivers, {"true": [0, 1, 2]}, SCREEN, controls={"ctrl": 0})
-    assert cond["competitor"].tolist() == ["ctrl"] and bool(cond["keeps_support"].iloc[0])
+    assert cond["competitor"].tolist() == ["ctrl"] and cond["controls"].tolist() == ["ctrl"]
+    assert bool(cond["keeps_support"].iloc[0])
     # now the echo is the driver and the true driver the control
     ev2 = pd.DataFrame({"response": "R", "driver": ["ctrl", "ahead"], "grade": ["strong", "weak"], "lag": [0, 1],
                         "flags": ""})
@@ -295,11 +296,15 @@ def test_controls_enter_every_test():
     cond2 = conditional_table(ev2, table, drivers2, {"ctrl": [0, 1, 2], "ahead": [0, 1, 2]}, SCREEN,
                               controls={"true": 0})
     # ctrl given ahead (and the control), and the reverse test of the weak rival: ahead given ctrl
-    assert cond2["competitor"].tolist() == ["ahead+true", "ctrl+true"]
-    assert cond2["driver"].tolist() == ["ctrl", "ahead"]
+    # ctrl given the control alone, given ahead (and the control), and the reverse test of the
+    # weak rival: ahead given ctrl (and the control)
+    assert cond2["competitor"].tolist() == ["true", "ahead", "ctrl"]
+    assert cond2["controls"].tolist() == ["true", "true", "true"]
+    assert cond2["driver"].tolist() == ["ctrl", "ctrl", "ahead"]
     out = cap_by_rivals(ev2, cond2)
-    assert out.loc[out.driver == "ctrl", "grade"].iloc[0] == "weak"
-    row = cond2.iloc[0]
+    capped = out[out.driver == "ctrl"].iloc[0]
+    assert capped["grade"] == "weak" and capped["rival"] == "true"  # the control explains the echo
+    row = cond2.iloc[1]
     k = int(row["partial_lag"])
     Z = np.column_stack([table["ahead"].shift(1), table["true"]])
     x, y = table["ctrl"].shift(k).to_numpy(), table["R"].to_numpy()

@@ -43,7 +43,7 @@ TESTED_GRADES = ("strong", "moderate")
 RIVAL_GRADES = ("strong", "moderate", "weak")
 ADDED_P = 0.10  # surrogate p of the added skill a driver must reach to keep its support (the moderate rule's)
 
-CONDITIONAL_COLUMNS = ["response", "driver", "competitor", "driver_lag", "competitor_lag", "partial_r",
+CONDITIONAL_COLUMNS = ["response", "driver", "competitor", "driver_lag", "competitor_lag", "controls", "partial_r",
                        "partial_lag", "partial_n", "p_partial_surrogate", "oos_n", "added_skill", "p_clark_west",
                        "p_added_surrogate", "keeps_support", "status"]
 
@@ -96,20 +96,26 @@ def out_of_sample(table, rid, batch, Cy, lags, screen) -> dict:
 
 
 def conditional_pair(table: pd.DataFrame, rid: str, driver: dict, lags: list[int], driver_lag: int,
-                     competitors: dict[str, int], screen: dict) -> dict:
-    """One driver given one or more competitors (id -> its lag with the response): the row of
-    ``conditional.csv`` (without ``keeps_support``). The driver is regressed on the competitors
-    as they are paired with the response at the driver's screened lag ``driver_lag``."""
+                     competitors: dict[str, int], screen: dict, controls: dict[str, int] | None = None) -> dict:
+    """One driver given one or more competitors (id -> its lag with the response) and the
+    response's ``controls`` (the same): the row of ``conditional.csv`` (without
+    ``keeps_support``). The driver is regressed on them as they are paired with the response at
+    the driver's screened lag ``driver_lag``. The row's ``competitor`` names the competitors
+    (the controls where there are none: a test given the controls alone), ``controls`` the
+    controls held fixed besides."""
     did = driver["id"]
-    ids = sorted(competitors)
-    Cy = np.column_stack([shift_rows(table[c].to_numpy(float), competitors[c]) for c in ids])
-    Cx = np.column_stack([shift_rows(table[c].to_numpy(float), competitors[c] - driver_lag) for c in ids])
+    controls = dict(controls or {})
+    given = {**competitors, **controls}
+    ids = sorted(given)
+    Cy = np.column_stack([shift_rows(table[c].to_numpy(float), given[c]) for c in ids])
+    Cx = np.column_stack([shift_rows(table[c].to_numpy(float), given[c] - driver_lag) for c in ids])
     rng = pair_rng(screen["seed"], rid, did, "+".join(ids))
     batch = residual_surrogates(table[did].to_numpy(float), Cx, int(screen["surrogates"]), rng,
                                 screen["surrogate_method"], screen.get("surrogate_keep_trend", True))
+    named = sorted(competitors) or sorted(controls)
     y = table[rid].to_numpy(float)
-    row = {"response": rid, "driver": did, "competitor": "+".join(ids), "driver_lag": int(driver_lag),
-           "competitor_lag": ";".join(str(competitors[c]) for c in ids)}
+    row = {"response": rid, "driver": did, "competitor": "+".join(named), "driver_lag": int(driver_lag),
+           "competitor_lag": ";".join(str(given[c]) for c in named), "controls": "+".join(sorted(controls))}
     row.update(in_sample(y, batch, Cy, np.asarray(lags), driver.get("expected_sign", "any")))
     row.update(out_of_sample(table, rid, batch, Cy, np.asarray(lags), screen))
     missing = np.isnan(row["p_partial_surrogate"]) and np.isnan(row["added_skill"])
@@ -123,33 +129,35 @@ def conditional_table(ev: pd.DataFrame, table: pd.DataFrame, drivers: list[dict]
     weak or better, one at a time (``CONDITIONAL_COLUMNS``); ``lags``: driver id -> lags tried.
 
     ``controls`` (series id -> lag with the response; columns of ``table``) are accounted for
-    in every test: each competitor enters together with them, and a driver without a rival is
-    tested given the controls alone (the ``competitor`` column joins the ids with ``+``)."""
+    in every test: each competitor enters together with them (column ``controls``), and a
+    driver without a rival is tested given the controls alone (its ``competitor`` names them)."""
     config = {d["id"]: d for d in drivers}
     controls = dict(controls or {})
     rows = []
     for rid, grp in ev.groupby("response", sort=True):
-        for did, dlag, given in _pairs(grp, controls):
-            rows.append(conditional_pair(table, rid, signed_for(config[did], rid), lags[did], dlag, given, screen))
+        for did, dlag, given in _pairs(grp, bool(controls)):
+            rows.append(conditional_pair(table, rid, signed_for(config[did], rid), lags[did], dlag, given, screen,
+                                         controls))
     out = pd.DataFrame(rows, columns=CONDITIONAL_COLUMNS)
     out["keeps_support"] = [keeps_support(r, screen["alpha"]) for r in out.to_dict("records")]
     return out
 
 
-def _pairs(grp: pd.DataFrame, controls: dict[str, int]) -> list[tuple[str, int, dict[str, int]]]:
+def _pairs(grp: pd.DataFrame, with_controls: bool) -> list[tuple[str, int, dict[str, int]]]:
     """(driver, its lag, competitors with their lags) of every test of one response: each tested
-    driver given each rival, and each rival graded only weak given each tested driver (the
-    reverse test of :func:`cap_by_rivals`)."""
+    driver given the controls alone (when there are controls: a control may explain it) and
+    given each rival, and each rival graded only weak given each tested driver (the reverse
+    test of :func:`cap_by_rivals`)."""
     usable = grp[grp["lag"].notna()]
     rivals = usable[usable["grade"].isin(RIVAL_GRADES)]
     tested = usable[usable["grade"].isin(TESTED_GRADES)]
     out = []
     for d, lag in zip(tested["driver"], tested["lag"]):
-        sets = [{c: int(lc), **controls} for c, lc in zip(rivals["driver"], rivals["lag"]) if c != d]
-        out += [(d, int(lag), given) for given in sets or ([controls] if controls else [])]
+        sets = [{c: int(lc)} for c, lc in zip(rivals["driver"], rivals["lag"]) if c != d]
+        out += [(d, int(lag), given) for given in ([{}] if with_controls else []) + sets]
     for c, lc in zip(rivals["driver"], rivals["lag"]):
         if c not in set(tested["driver"]):
-            out += [(c, int(lc), {d: int(lag), **controls}) for d, lag in zip(tested["driver"], tested["lag"])]
+            out += [(c, int(lc), {d: int(lag)}) for d, lag in zip(tested["driver"], tested["lag"])]
     return out
 
 

@@ -9,7 +9,7 @@ from __future__ import annotations
 import copy
 import importlib.resources
 import functools
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
@@ -23,6 +23,7 @@ from lagsieve.io.yamlfile import read_yaml
 # libyaml's safe loader when PyYAML was built with it (same safety, about ten times faster)
 SafeLoader = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
 
+YEAR_CONTROL = "year"  # the control that is a plain linear trend, not a series of the inputs
 WORKFLOW = importlib.resources.files("lagsieve.workflow")  # the Snakefile, rules and schema
 SCHEMA_FILE = WORKFLOW / "schemas" / "config.schema.yaml"
 
@@ -42,6 +43,17 @@ class Study:
     ledger_path: str | None = None
     condition: dict | None = None  # the ``condition:`` section with its defaults, when present
     joint: tuple[str, ...] = ()  # series whose groups are also screened jointly (``joint:``)
+    controls: list[dict] = field(default_factory=list)  # ``controls:`` with defaults filled
+
+    @property
+    def control_series(self) -> list[dict]:
+        """The controls that are series of the inputs (all but the trend ``year``)."""
+        return [c for c in self.controls if c["id"] != YEAR_CONTROL]
+
+    def controls_for(self, response_id: str) -> dict[str, int]:
+        """The controls of one response: id -> its lag with the response."""
+        return {c["id"]: int(c["lag"]) for c in self.controls
+                if not c.get("responses") or response_id in c["responses"]}
 
     @property
     def response_ids(self) -> list[str]:
@@ -54,7 +66,7 @@ class Study:
     def series_options(self) -> dict[str, dict]:
         """Per-series options (transform, aggregate, fill, max_gap, unit) by id."""
         out = {}
-        for s in self.responses + self.drivers:
+        for s in self.responses + self.drivers + self.control_series:
             out[s["id"]] = {k: s[k] for k in ("transform", "aggregate", "fill", "max_gap", "unit") if k in s}
         return out
 
@@ -64,7 +76,7 @@ class Study:
 
     def transforms(self) -> dict[str, str]:
         """The configured transform of every series, by id."""
-        return {s["id"]: s.get("transform", "none") for s in self.responses + self.drivers}
+        return {s["id"]: s.get("transform", "none") for s in self.responses + self.drivers + self.control_series}
 
     def drivers_for(self, response_id: str) -> list[dict]:
         """The drivers paired with a response, each with the sign expected for that response."""
@@ -103,6 +115,38 @@ def joint_problems(joint: list[str], response_ids: list[str], shown: str) -> lis
         else:
             continue
         problems.append(InputProblem(what=what, fix=fix, file=shown, key=key))
+    return problems
+
+
+def control_problems(controls: list[dict], drivers: list[dict], response_ids: list[str],
+                     shown: str) -> list[InputProblem]:
+    """One line per ``controls:`` entry that repeats another, is a response, names a response
+    that is not one, or is also a driver of a response it applies to (a control is accounted for
+    in every test of that response, so it cannot also be tested there)."""
+    problems, seen = [], set()
+    for i, c in enumerate(controls):
+        cid, key = c["id"], item_key("controls", i, c["id"])
+        applies = c.get("responses") or response_ids
+        unknown = [r for r in c.get("responses") or [] if r not in response_ids]
+        both = [r for r in applies if any(d["id"] == cid and (not d.get("responses") or r in d["responses"])
+                                          for d in drivers)]
+        if cid in seen:
+            problems.append(InputProblem(what="listed twice in controls", fix="give each control one entry",
+                                         file=shown, key=key))
+        elif cid in response_ids:
+            problems.append(InputProblem(what="is a response; a response cannot be a control",
+                                         fix="remove it from controls", file=shown, key=key))
+        elif unknown:
+            problems.append(InputProblem(what=f"names response '{unknown[0]}', which is not in responses",
+                                         fix=f"use an id listed under responses ({suggest(unknown[0], response_ids, 'responses')})",
+                                         file=shown, key=f"{key}.responses"))
+        elif both:
+            problems.append(InputProblem(
+                what=f"is also a driver of response '{both[0]}'; a control is accounted for in every test of a "
+                     "response, so it cannot be tested there too",
+                fix="keep it in drivers or in controls, or restrict one of them to other responses with responses",
+                file=shown, key=key))
+        seen.add(cid)
     return problems
 
 
@@ -307,9 +351,12 @@ def _build(path: Path, raw: dict) -> Study:
                         fix=f"use an id listed under responses ({suggest(rid, resp_ids, 'responses')})",
                         file=shown, key=item_key("drivers", i, d["id"], key), series=d["id"]))
     problems += joint_problems(full["joint"], [r["id"] for r in responses], shown)
+    controls = full.get("controls") or []
+    problems += control_problems(controls, drivers, [r["id"] for r in responses], shown)
     if problems:
         raise InputErrors(problems)
     ledger = (raw.get("ledger") or {}).get("path")
     return Study(path=path.resolve(), raw=raw, id=raw["study"], base_dir=base, inputs=inputs,
                  responses=responses, drivers=drivers, screen=full["screen"], report=full["report"],
-                 ledger_path=ledger, condition=full.get("condition"), joint=tuple(full["joint"]))
+                 ledger_path=ledger, condition=full.get("condition"), joint=tuple(full["joint"]),
+                 controls=controls)

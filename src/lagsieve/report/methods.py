@@ -6,6 +6,7 @@ from __future__ import annotations
 import pandas as pd
 
 from lagsieve.evidence.vocabulary import GRADE_RULES
+from lagsieve.io.config import YEAR_CONTROL
 from lagsieve.report.context import Context
 from lagsieve.report.render import render_text
 
@@ -148,8 +149,19 @@ def methods_facts(ctx: Context) -> dict:
             "keep_trend": bool(sc.get("surrogate_keep_trend", True)), "n_hypotheses": len(ctx.evidence),
             "fdr": sc["fdr"], "alpha": sc["alpha"], "inverse_variance": sc.get("weights") == "inverse-variance",
             "seed": sc["seed"], "condition": _condition_facts(ctx), "grade_rules": list(GRADE_RULES.items()),
-            "rivals": ctx.rivals is not None, "breaks": _break_facts(ctx), "state_space": _state_space_facts(ctx), "joint": _joint_facts(ctx),
+            "rivals": ctx.rivals is not None, "controls": _control_facts(ctx), "breaks": _break_facts(ctx), "state_space": _state_space_facts(ctx), "joint": _joint_facts(ctx),
             **_estimate_facts(ctx)}
+
+
+def _control_facts(ctx: Context) -> list[str]:
+    """The study's controls in words: label (or 'a linear trend in year'), lag, responses."""
+    out = []
+    for c in ctx.study.controls:
+        name = "a linear trend in year" if c["id"] == YEAR_CONTROL else c.get("label") or ctx.label(c["id"])
+        lag = f" at lag {c['lag']}" if c["id"] != YEAR_CONTROL else ""
+        where = f" (for {', '.join(ctx.label(r) for r in c['responses'])})" if c.get("responses") else ""
+        out.append(f"{name}{lag}{where}")
+    return out
 
 
 def _estimate_facts(ctx: Context) -> dict:

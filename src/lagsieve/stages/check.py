@@ -12,7 +12,7 @@ from lagsieve.condition.samples import assign_groups, read_samples
 from lagsieve.condition.series import input_frame
 from lagsieve.condition.settings import ConditionSettings, check_condition, series_ids
 from lagsieve.errors import InputErrors, InputProblem, item_key, suggest
-from lagsieve.io.config import Study, load_study
+from lagsieve.io.config import YEAR_CONTROL, Study, load_study
 from lagsieve.io.estimates import estimate_problems
 from lagsieve.io.readers import read_inputs
 from lagsieve.io.tables import UnusedSeries, empty_frame
@@ -35,7 +35,8 @@ def check_study(config_path: str | Path, condition: str | Path | list | None = N
     raise_any(pattern_problems([str(p) for p in [study.path, *study.input_paths(), *sample_paths(study)]]))
     raise_any(budget_problems(study))  # a plan over the budget: refused before any input is read
     cond_ids, warnings, problems = check_samples(study)
-    wanted = (set(study.response_ids) | set(study.driver_ids)) - cond_ids
+    series = set(study.response_ids) | set(study.driver_ids) | {c["id"] for c in study.control_series}
+    wanted = series - cond_ids
     try:
         long, more = read_inputs(study.inputs, study.base_dir, wanted)  # other series: left out, noted
     except InputErrors as exc:
@@ -47,7 +48,7 @@ def check_study(config_path: str | Path, condition: str | Path | list | None = N
     raise_any(_absent_series(study, present | cond_ids, unused) + _condition_clashes(study, cond_ids, present | unused))
     table = condition_table(condition)
     if table is not None:
-        long = pd.concat([long, input_frame(table, cond_ids & set(study.response_ids + study.driver_ids))],
+        long = pd.concat([long, input_frame(table, cond_ids & series)],
                          ignore_index=True)
     annual, notes = to_annual(long, study.series_options())
     _check_values(study, annual, long, cond_ids if table is None else set())
@@ -129,9 +130,9 @@ def _absent_series(study: Study, present: set[str], others: set[str] = frozenset
     inputs (``others``: the series the study does not use)."""
     problems = []
     found = present | others
-    for role, items in (("responses", study.responses), ("drivers", study.drivers)):
+    for role, items in (("responses", study.responses), ("drivers", study.drivers), ("controls", study.controls)):
         for i, s in enumerate(items):
-            if s["id"] not in present:
+            if s["id"] not in present and (role != "controls" or s["id"] != YEAR_CONTROL):
                 problems.append(InputProblem(
                     what="no input file holds this series",
                     fix=f"check the id or add its file to inputs ({suggest(s['id'], found, 'series')})",

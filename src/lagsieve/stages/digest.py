@@ -50,6 +50,7 @@ def screen_settings(study: Study, response: str) -> dict:
     raw["responses"] = [_without(r, PRESENTATION + EVIDENCE_ONLY_RESPONSE) for r in raw["responses"]
                         if r["id"] == rid]
     raw["drivers"] = [_without(d, PRESENTATION) for d in raw["drivers"] if d["id"] in mine]
+    raw.pop("controls", None)  # read by the evidence stage only
     if isinstance(raw.get("screen"), dict):
         raw["screen"] = _without(raw["screen"], EVIDENCE_ONLY_SCREEN)
     return raw

@@ -10,11 +10,11 @@ import pandas as pd
 
 from lagsieve.evidence.grading import finish_evidence, grade_hypotheses
 from lagsieve.evidence.joint import JOINT_COLUMNS, JOINT_GROUP_COLUMNS, joint_qvalues, joint_table
-from lagsieve.evidence.models import model_table
-from lagsieve.evidence.rivals import cap_by_rivals, conditional_table
+from lagsieve.evidence.models import MODEL_COLUMNS, model_table
+from lagsieve.evidence.rivals import CONDITIONAL_COLUMNS, cap_by_rivals, conditional_table
 from lagsieve.evidence.stability import WINDOW_COLUMNS, add_stability
 from lagsieve.evidence.statespace import add_state_space
-from lagsieve.io.config import load_study
+from lagsieve.io.config import YEAR_CONTROL, Study, load_study
 from lagsieve.io.files import write_csv
 from lagsieve.prep.align import se_table
 from lagsieve.stages.check import check_study
@@ -26,13 +26,29 @@ def run_align(config_path: str | Path, out_annual: str | Path, out_notes: str | 
     """Stage `align`: write the tidy annual table and the list of dropped or filled years
     (``condition``: the study's condition.csv, or a list of none or one path)."""
     study, annual, notes, warnings = check_study(config_path, condition)
-    role = {i: "response" for i in study.response_ids} | {i: "driver" for i in study.driver_ids}
+    role = ({c["id"]: "control" for c in study.control_series} | {i: "driver" for i in study.driver_ids}
+            | {i: "response" for i in study.response_ids})
     annual = annual.assign(role=annual["series"].map(role)).sort_values(["series", "year"])
     notes_df = pd.DataFrame(notes, columns=["series", "year", "action", "reason"])
     warn_df = pd.DataFrame({"series": [w.series for w in warnings], "year": np.nan,
                             "action": "warning", "reason": [w.what for w in warnings]})
     write_csv(pd.concat([notes_df, warn_df], ignore_index=True), out_notes)
     write_csv(annual, out_annual)
+
+
+def with_controls(study: Study, table: pd.DataFrame) -> pd.DataFrame:
+    """The study table with the trend control's column (``year``) when a control asks for it."""
+    if any(c["id"] == YEAR_CONTROL for c in study.controls):
+        return table.assign(**{YEAR_CONTROL: table.index.to_numpy(float)})
+    return table
+
+
+def by_response(ev: pd.DataFrame, study: Study, make, columns: list[str]) -> pd.DataFrame:
+    """``make(rows of one response, its controls)`` for every response of ``ev``, stacked: each
+    response is tested given its own controls (``controls:``, :meth:`Study.controls_for`)."""
+    parts = [make(grp, study.controls_for(rid)) for rid, grp in ev.groupby("response", sort=True)]
+    parts = [p for p in parts if len(p)]
+    return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(columns=columns)
 
 
 def run_evidence(config_path, annual_csv, work_dir, out_screen, out_evidence) -> None:
@@ -53,7 +69,9 @@ def run_evidence(config_path, annual_csv, work_dir, out_screen, out_evidence) ->
     joint, joint_groups, families = joint_table(study, table)  # config `joint`: groups of a series together
     graded = grade_hypotheses(hyps, table, study.screen, families)
     lags = {d["id"]: study.lags_for(d) for d in study.drivers}
-    cond = conditional_table(graded, table, study.drivers, lags, study.screen)
+    table = with_controls(study, table)
+    cond = by_response(graded, study, lambda ev, c: conditional_table(ev, table, study.drivers, lags, study.screen, c),
+                       CONDITIONAL_COLUMNS)
     ev, windows = add_stability(cap_by_rivals(graded, cond), table, study.screen)  # break test, flag unstable
     ev = finish_evidence(ev, table, study.screen, study.responses + study.drivers)
     annual = pd.read_csv(annual_csv)
@@ -65,6 +83,7 @@ def run_evidence(config_path, annual_csv, work_dir, out_screen, out_evidence) ->
     write_csv(ordered(ev, EVIDENCE_COLUMNS), out_evidence)
     write_csv(cond, Path(out_evidence).with_name("conditional.csv"))  # beside evidence.csv
     write_csv(ordered(windows, WINDOW_COLUMNS), Path(out_evidence).with_name("windows.csv"))
-    write_csv(model_table(ev, table, study.screen), Path(out_evidence).with_name("models.csv"))
+    models = by_response(ev, study, lambda e, c: model_table(e, table, study.screen, c), MODEL_COLUMNS)
+    write_csv(models, Path(out_evidence).with_name("models.csv"))
     write_csv(ordered(joint_qvalues(joint, graded, families), JOINT_COLUMNS), Path(out_evidence).with_name("joint.csv"))
     write_csv(ordered(joint_groups, JOINT_GROUP_COLUMNS), Path(out_evidence).with_name("joint_groups.csv"))
