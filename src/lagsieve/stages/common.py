@@ -44,27 +44,58 @@ EVIDENCE_COLUMNS = ["response", "driver", "category", "expected_sign", "lag", "m
                     "summary", "status"]
 
 
+PACE_SECONDS = 5.0  # at most one progress line per job in this many seconds on the terminal
+
+
+class PacedHandler(logging.Handler):
+    """Progress lines to the terminal at a readable pace: the first, then one at most every
+    ``pace`` seconds (the job's log keeps every line)."""
+
+    def __init__(self, stream, pace: float = PACE_SECONDS):
+        super().__init__(logging.INFO)
+        self.stream, self.pace, self.last = stream, pace, -float("inf")
+
+    def emit(self, record: logging.LogRecord) -> None:
+        now = time.monotonic()
+        if now - self.last >= self.pace:
+            self.last = now
+            self.stream.write(f"lagsieve: {record.getMessage()}\n")
+            self.stream.flush()
+
+
 @contextmanager
 def logged(smk):
-    """Send a Snakemake job's warnings and errors to its ``log:`` file (when it has one), and
-    end the log with the job's own timing (:func:`stage_timing`), which ``bench/demo.py``
-    reads: Snakemake's log stamps whole seconds only."""
+    """Send a Snakemake job's warnings, errors and progress to its ``log:`` file (when it has
+    one), progress also to the terminal at a readable pace (:class:`PacedHandler`), and end the
+    log with the job's own timing (:func:`stage_timing`), which ``bench/demo.py`` reads:
+    Snakemake's log stamps whole seconds only. A failure leaves its traceback in the log and
+    one line on the terminal; Ctrl-C one line in the log."""
     logs = list(getattr(smk, "log", []) or [])
     if not logs:
         yield
         return
     Path(logs[0]).parent.mkdir(parents=True, exist_ok=True)
     start = (time.time(), time.perf_counter(), os.times())
+    progress = PacedHandler(sys.__stderr__)
+    package = logging.getLogger("lagsieve")
     with open(logs[0], "w", encoding="utf-8") as fh, contextlib.redirect_stderr(fh):
         logging.basicConfig(stream=fh, level=logging.INFO, force=True)
         warnings.simplefilter("default")
+        package.addHandler(progress)
         try:
             yield
+        except KeyboardInterrupt:
+            fh.write("lagsieve: interrupted\n")
+            raise SystemExit(130) from None
+        except SystemExit:
+            raise
         except BaseException:
             traceback.print_exc(file=fh)
             fh.flush()
             sys.__stderr__.write(f"lagsieve: job failed; see {logs[0]}\n")
-            raise
+            raise SystemExit(1) from None
+        finally:
+            package.removeHandler(progress)
         fh.write(stage_timing(*start) + "\n")
 
 
