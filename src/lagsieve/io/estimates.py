@@ -15,6 +15,7 @@ from __future__ import annotations
 import math
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 
 from lagsieve.errors import InputErrors, show
@@ -46,27 +47,60 @@ def _columns(header: list, key: str, col: Collector, row: int) -> dict[str, int]
     return {c: names[c] for c in (key, "year", "value")}
 
 
+def _row_cells(cells: list, pos: dict[str, int], key: str, decimal: str, r: int, col: Collector,
+               series: str) -> dict | None:
+    """One row parsed cell by cell (problems added to ``col``); None when it has a problem."""
+    got = {}
+    for name in (key, "year"):
+        got[name], what = _whole(cells[pos[name]] if pos[name] < len(cells) else None, name, decimal)
+        if what:
+            col.add(what, _FIX_WHOLE, row=r, series=series)
+    cell = cells[pos["value"]] if pos["value"] < len(cells) else None
+    value, prob = parse_number(cell, decimal, "value")
+    if prob or value is None or not math.isfinite(value):
+        col.add(prob[0] if prob else "value is empty", prob[1] if prob else "give every row a value",
+                row=r, series=series)
+        return None
+    return None if None in got.values() else {key: got[key], "year": got["year"], "value": value, "row": r}
+
+
+def _fast_numbers(cells, decimal: str) -> np.ndarray:
+    """The cells as floats in one pass, NaN where the quick reading fails (those cells are then
+    read one by one, with their problems, by :func:`_row_cells`)."""
+    if decimal == ",":
+        cells = [c.replace(",", ".") if isinstance(c, str) else c for c in cells]
+    try:
+        return np.asarray(cells, dtype=float)
+    except (TypeError, ValueError):
+        return pd.to_numeric(pd.Series(cells, dtype=object), errors="coerce").to_numpy(float)
+
+
+def _columns_of(grid, pos: dict[str, int]) -> dict[str, list]:
+    """The cells of the columns at ``pos``, a row too short for one holding None there."""
+    width = max(pos.values()) + 1
+    if all(len(cells) >= width for _, cells in grid.rows):
+        by_column = list(zip(*(cells[:width] for _, cells in grid.rows))) or [()] * width
+        return {c: list(by_column[j]) for c, j in pos.items()}
+    return {c: [cells[j] if j < len(cells) else None for _, cells in grid.rows] for c, j in pos.items()}
+
+
 def read_long(spec: str, base_dir: str | Path, key: str, series: str) -> pd.DataFrame:
     """The rows of a ``key`` x year x value table (``key``: 'draw' or 'vintage') as a frame
-    with the columns key, year, value and row (the file's line); problems raised together."""
+    with the columns key, year, value and row (the file's line); problems raised together.
+    The columns are read in one pass; a row the pass cannot read is read cell by cell."""
     grid, col, decimal, _ = read_grid(spec, base_dir)
     pos = _columns(grid.header, key, col, grid.header_row)
-    rows = []
-    for r, cells in grid.rows:
-        got = {}
-        for name in (key, "year"):
-            got[name], what = _whole(cells[pos[name]] if pos[name] < len(cells) else None, name, decimal)
-            if what:
-                col.add(what, _FIX_WHOLE, row=r, series=series)
-        cell = cells[pos["value"]] if pos["value"] < len(cells) else None
-        value, prob = parse_number(cell, decimal, "value")
-        if prob or value is None or not math.isfinite(value):
-            col.add(prob[0] if prob else "value is empty", prob[1] if prob else "give every row a value",
-                    row=r, series=series)
-        elif None not in got.values():
-            rows.append({key: got[key], "year": got["year"], "value": value, "row": r})
+    got = {c: _fast_numbers(cells, decimal) for c, cells in _columns_of(grid, pos).items()}
+    with np.errstate(invalid="ignore"):
+        ok = np.isfinite(got["value"]) & (got[key] % 1 == 0) & (got["year"] % 1 == 0)
+    frame = pd.DataFrame({key: got[key][ok].astype("int64"), "year": got["year"][ok].astype("int64"),
+                          "value": got["value"][ok], "row": np.array([r for r, _ in grid.rows], "int64")[ok]})
+    slow = [_row_cells(grid.rows[i][1], pos, key, decimal, grid.rows[i][0], col, series)
+            for i in np.flatnonzero(~ok)]
     col.check()
-    return pd.DataFrame(rows, columns=[key, "year", "value", "row"])
+    if slow:
+        frame = pd.concat([frame, pd.DataFrame(slow)], ignore_index=True).sort_values("row", kind="mergesort")
+    return frame.reset_index(drop=True)[[key, "year", "value", "row"]]
 
 
 def _duplicates(frame: pd.DataFrame, key: str, col: Collector, series: str) -> None:
@@ -84,13 +118,15 @@ def read_draws(spec: str, base_dir: str | Path, series: str, years=()) -> pd.Dat
     col = Collector(str(spec))
     _duplicates(frame, "draw", col, series)
     years = sorted(set(frame["year"].unique()) | {int(y) for y in years})
-    lacking = [(d, sorted(set(years) - set(g["year"]))) for d, g in frame.groupby("draw", sort=True)]
-    lacking = [(d, lack) for d, lack in lacking if lack]
-    if lacking:
-        d, lack = lacking[0]
-        more = f"; {len(lacking) - 1} more draws lack years too" if len(lacking) > 1 else ""
-        col.add(f"draw {d} has no value for year {lack[0]}" + (f" (and {len(lack) - 1} more years)" if len(lack) > 1
-                                                               else "") + more,
+    full = pd.MultiIndex.from_product([sorted(frame["draw"].unique()), years])
+    missing = full.difference(pd.MultiIndex.from_frame(frame[["draw", "year"]]))
+    if len(missing):
+        d, y = missing[0]
+        lacking = missing.get_level_values(0)
+        n_years, n_draws = int((lacking == d).sum()), len(lacking.unique())
+        more = f"; {n_draws - 1} more draws lack years too" if n_draws > 1 else ""
+        col.add(f"draw {d} has no value for year {y}" + (f" (and {n_years - 1} more years)" if n_years > 1
+                                                         else "") + more,
                 "give every draw a value for every year of the table and of the response (each draw is a whole "
                 "series)", series=series)
     if frame["draw"].nunique() == 1:
