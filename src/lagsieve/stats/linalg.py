@@ -172,7 +172,7 @@ def _schur(Xt: np.ndarray, mask: np.ndarray, C: np.ndarray, GC: np.ndarray, k: i
 # vectorised operation over the whole stack (structure of arrays).
 
 #: Largest matrix inverted by the vectorised Cholesky method; larger ones go to LAPACK (measured
-#: on 2,560 and 20,000 matrices: 1.3-1.5x faster up to 7 x 7, slower from 8 x 8 on).
+#: on 2,560 and 20,000 matrices: 1.1-1.5x faster up to 7 x 7, slower from 8 x 8 on).
 SPD_MAX = 7
 
 #: Largest eigen-problem solved by the vectorised Jacobi method; larger ones go to LAPACK
