@@ -164,6 +164,8 @@ def main(argv=None) -> int:
     if shutil.which("lagsieve") is None:
         sys.exit("the lagsieve command is not installed: python -m pip install -e .")
     env = dict(os.environ, **dict(e.split("=", 1) for e in args.env))
+    out = Path(args.out)
+    out.mkdir(parents=True, exist_ok=True)
     runs, jobs = [], []
     for _ in range(args.runs):  # variants interleaved, so that a change of load touches both
         for variant in args.variants.split(","):
@@ -171,13 +173,11 @@ def main(argv=None) -> int:
             print(f"{variant}: {run['wall']:.1f} s wall, {run['cpu']:.1f} s CPU", flush=True)
             runs.append(run)
             jobs += rows
+            pd.DataFrame(runs).to_csv(out / "demo_runs.csv", index=False)  # after every run: an
+            pd.DataFrame(jobs).to_csv(out / "demo_jobs.csv", index=False)  # interrupted bench keeps them
     imports = pd.DataFrame([import_times(p, SNAKEMAKE_PREAMBLE + script_imports(p))
                             for p in sorted(SCRIPTS.glob("*.py"))])
-    out = Path(args.out)
-    out.mkdir(parents=True, exist_ok=True)
-    runs, jobs = pd.DataFrame(runs), pd.DataFrame(jobs)
-    runs.to_csv(out / "demo_runs.csv", index=False)
-    jobs.to_csv(out / "demo_jobs.csv", index=False)
+    runs = pd.DataFrame(runs)
     imports.to_csv(out / "demo_imports.csv", index=False)
     text = summary(runs, imports, args, args.note or f"{os.cpu_count()} CPUs")
     (out / "demo.md").write_text(text, encoding="utf-8")
