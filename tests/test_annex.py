@@ -102,7 +102,7 @@ def test_annex_section_first_in_the_page(annex_run):
     assert "strong effect" not in annex_html
     assert "Association is not cause" in annex_html and "do not replace" in annex_html
     assert "M age 2" in annex_html  # labels, not ids
-    assert '<p class="note colkey">' in h  # the ranked table's column key, printed
+    assert '<div class="colkey">' in h  # the ranked table's column key, printed
 
 
 # ----------------------------------------------------------------------------- report.docx

@@ -7,7 +7,7 @@ import json
 import pandas as pd
 
 from lagsieve.evidence.effects import allowed_phrase, effect_cell, effect_phrase
-from lagsieve.evidence.vocabulary import COLLINEAR_R, GRADES, SUPPORTED
+from lagsieve.evidence.vocabulary import COLLINEAR_R, FLAGS, GRADES, SUPPORTED
 from lagsieve.report import figures as fg
 from lagsieve.report.context import Context, lead_words, not_computed, set_aside_reason, summary_line
 from lagsieve.formats import is_missing, lag_range, number, p_text, text
@@ -30,10 +30,12 @@ EFFECT_NOTE = ("Effect: the change in the response, in its units (% for a log-tr
                "one-unit change of the driver, or for a halving of a log-transformed driver, at the chosen lag; "
                "95% interval from the slope's autocorrelation-robust standard error on the effective sample size.")
 
-TABLE_COLS = [  # key, heading, tooltip, kind, format
-    ("response", "Response", "response series id", "text", None),
-    ("rank", "Rank", "rank within the response (1 = best supported)", "num", "{:.0f}"),
-    ("driver", "Driver", "driver label and id", "text", None),
+TABLE_COLS = [  # key, heading, key to the column (printed below the table and shown on hover), kind, format
+    ("response", "Response", "the response series; sorting by it keeps the study's order of responses", "response", None),
+    ("rank", "Rank", "rank within the response (1 = best supported); sorting by it keeps each response together",
+     "rank", "{:.0f}"),
+    ("driver", "Driver", "the driver series, with its category below", "driver", None),
+    ("grade", "Grade", "grade by the rules listed below the table", "grade", None),
     ("lag", "Lag", "driver lead in years at the chosen lag", "num", "{:.0f}"),
     ("n", "n", "overlapping years at the chosen lag", "num", "{:.0f}"),
     ("r", "r", "Pearson r at the chosen lag", "num", "{:+.2f}"),
@@ -47,9 +49,12 @@ TABLE_COLS = [  # key, heading, tooltip, kind, format
     ("oos_p_surrogate", "p skill", "surrogate p-value of the out-of-sample skill", "p", None),
     ("retest_skill", "Re-test", "skill on the latest years, fitted before them", "num", "{:+.2f}"),
     ("effect", "Effect (95% CI)", EFFECT_NOTE, "effect", None),
-    ("grade", "Grade", "grade by the rules listed below the table", "grade", None),
-    ("flags", "Flags", "cautions; hover a code for its meaning", "flags", None),
+    ("flags", "Flags", "cautions, defined in the list of flags below the table", "flags", None),
 ]
+
+#: Baselines as the table names them under a skill (the keys are the ids of stats.backtest).
+BASELINE_WORDS = {"climatology": "climatology", "persistence": "persistence", "trend": "trend",
+                  "trend_ar1": "trend + AR(1)"}
 
 PANEL_ALTS = {"overlay": "standardised overlay", "scatter": "scatter with fit", "lags": "lag profile of r",
               "forecasts": "out-of-sample forecasts", "nulls": "surrogate null distribution",
@@ -109,13 +114,13 @@ def summary(ctx: Context) -> dict:
 # ----------------------------------------------------------------------------- evidence table
 def _cell(ctx: Context, row: dict, key: str, kind: str, fmt: str | None) -> dict:
     v = row.get(key)
-    if key == "driver":
-        return {"kind": "driver", "v": ctx.label(v), "text": ctx.label(v), "id": text(v),
-                "note": text(row.get("category"))}
+    if kind in ("response", "driver"):
+        return {"kind": kind, "v": ctx.label(v), "text": ctx.label(v), "id": text(v),
+                "note": text(row.get("category")) if kind == "driver" else ""}
     if key == "oos_skill":
-        return {"kind": "skill", "v": number(v, "{:.6g}"), "text": number(v, fmt), "note": text(row.get("oos_hardest"))}
-    if key == "response":
-        return {"kind": "response", "v": text(v), "text": text(v)}
+        hardest = text(row.get("oos_hardest"))
+        return {"kind": "skill", "v": number(v, "{:.6g}"), "text": number(v, fmt),
+                "note": BASELINE_WORDS.get(hardest, hardest)}
     if kind == "effect":
         value, note = effect_cell(row)
         return {"kind": "effect", "v": number(v, "{:.6g}"), "text": value, "note": note}
@@ -124,20 +129,36 @@ def _cell(ctx: Context, row: dict, key: str, kind: str, fmt: str | None) -> dict
     if kind == "flags":
         return {"kind": "flags", "v": text(v), "text": text(v)}
     if kind == "p":
-        return {"kind": "plain", "v": number(v, "{:.6g}"), "text": p_text(v)}
-    if kind == "num":
-        return {"kind": "plain", "v": number(v, "{:.6g}"), "text": number(v, fmt)}
+        return {"kind": "num", "v": number(v, "{:.6g}"), "text": p_text(v)}
+    if kind in ("num", "rank"):
+        return {"kind": "num", "v": number(v, "{:.6g}"), "text": number(v, fmt)}
     return {"kind": "plain", "v": text(v), "text": text(v)}
 
 
+def _table_row(ctx: Context, row: dict, order: dict) -> dict:
+    """One row of the table: its cells, and what the column searches and the sort read."""
+    group = order.get(row.get("response"), len(order))
+    cells = [_cell(ctx, row, key, kind, fmt) for key, _, _, kind, fmt in TABLE_COLS]
+    for c in cells:
+        if c["kind"] == "response":  # the response column sorts in the study's order of responses
+            c["v"] = group
+    return {"response": text(row.get("response")), "grade": text(row.get("grade")), "group": group,
+            "driver": " ".join([ctx.label(row.get("driver")), text(row.get("driver")), text(row.get("category"))]),
+            "flags": " ".join(c for c in text(row.get("flags")).split(";") if c), "cells": cells}
+
+
 def evidence_table(ctx: Context) -> dict:
-    """Columns (key, heading, tooltip, sort type) and one row of cells per hypothesis."""
-    columns = [{"key": key, "name": name, "tip": tip, "type": "num" if kind in ("num", "p", "effect") else "text"}
+    """Columns (key, heading, key text, sort type) and one row of cells per hypothesis, with the
+    choices of the column searches (responses by label, grades, the flags the table holds)."""
+    sort_type = {"num": "num", "p": "num", "effect": "num", "rank": "num", "grade": "num", "response": "num"}
+    columns = [{"key": key, "name": name, "tip": tip, "type": sort_type.get(kind, "text"), "group": kind == "rank",
+                "cls": f"c-{key.replace('_', '-')}" + (" num" if kind in ("num", "p", "rank") else "")}
                for key, name, tip, kind, _ in TABLE_COLS]
-    rows = [{"response": text(row.get("response")), "grade": text(row.get("grade")),
-             "cells": [_cell(ctx, row, key, kind, fmt) for key, _, _, kind, fmt in TABLE_COLS]}
-            for row in ctx.evidence.to_dict("records")]
-    return {"columns": columns, "rows": rows, "grades": GRADES, "effect_note": EFFECT_NOTE,
+    order = {r: i for i, r in enumerate(ctx.study.response_ids)}
+    rows = [_table_row(ctx, row, order) for row in ctx.evidence.to_dict("records")]
+    present = {c for row in rows for c in row["flags"].split()}
+    return {"columns": columns, "rows": rows, "grades": list(GRADES), "effect_note": EFFECT_NOTE,
+            "flags": [c for c in FLAGS if c in present],
             "responses": [(r, ctx.label(r)) for r in ctx.study.response_ids]}
 
 
