@@ -45,6 +45,12 @@ class Block:
     text: str = ""
     header: list[str] = field(default_factory=list)
     rows: list[list[str]] = field(default_factory=list)
+    numeric: list[bool] = field(default_factory=list)  # per column: quantities (set right), not years
+
+    def __post_init__(self):
+        if self.kind == "table" and not self.numeric:
+            self.numeric = [bool(col) and "year" not in h and all(_is_number(c) for c in col if c)
+                            for h, col in ((h, [str(r[i]) for r in self.rows]) for i, h in enumerate(self.header))]
 
 
 @dataclass
@@ -77,6 +83,15 @@ def _text(text: str) -> Block:
 
 def _table(header: list[str], rows: list[list]) -> Block:
     return Block("table", header=list(header), rows=[[str(c) for c in r] for r in rows])
+
+
+def _is_number(cell: str) -> bool:
+    """A cell that reads as a number: a count, a value, a percentage or a ratio such as 3/4."""
+    try:
+        [float(part) for part in cell.rstrip("%").split("/")]
+    except ValueError:
+        return False
+    return True
 
 
 def _read(path: Path, sid: str) -> tuple[SinceLastRun, pd.DataFrame | None]:
