@@ -169,4 +169,14 @@ def gam_fit(ctx: Context, rid, did, lag: int):
         return None
     lo, hi = pe.band(1.96)
     return {"pair": pair, "grid": grid, "curve": pe.curve, "lo": lo, "hi": hi,
-            "fit": float(fit.intercept) + pe.curve, "edf": float(fit.edf), "trend": trend is not None}
+            "fit": float(fit.intercept) + pe.curve, "edf": float(fit.edf), "trend": trend is not None,
+            "explained": float(fit.deviance_explained), "added": added_share(fit)}
+
+
+def added_share(fit) -> float:
+    """The share of the response's variation that the driver's curve explains beyond the rest of
+    the model: (RSS of the model without the curve - RSS with it) / TSS. Without a year term this
+    is the deviance explained (1 - RSS/TSS, Wood 2017, Generalized Additive Models, 2nd ed.,
+    sec. 3.1.4 for a Gaussian model); with one, what the year alone explains is not counted."""
+    tss = float(fit.tss)
+    return (float(fit.rss_null) - float(fit.rss)) / tss if tss > 0 else float("nan")

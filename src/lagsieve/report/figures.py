@@ -8,7 +8,7 @@ with its content key beside it, so an unchanged figure is reused on a rerun; the
 the PNG as a data URI.
 
 Colours are a palette of our own: grades run from deep blue (most support) through pale
-blue to grey, with orange reserved for "shared trend only". The blue-orange contrast and the
+blue to grey, with orange reserved for the grades of a trend (spurious-trend, trend-confounded). The blue-orange contrast and the
 lightness ramp survive the common colour-vision deficiencies, and every coloured mark also
 carries a text label, so no reading depends on colour alone.
 """
@@ -46,17 +46,18 @@ from lagsieve.io.files import atomic_path, sha256_file, write_text  # noqa: E402
 from lagsieve.io.provenance import tool_version  # noqa: E402
 
 # ----------------------------------------------------------------------------- palette
-#: grade -> (fill colour, text colour on that fill, one-word label used inside cells)
+#: grade -> (fill colour, text colour on that fill): every pair at least 4.5:1 (WCAG 2.1 AA);
+#: figures and the page name a grade by its word in ``evidence.vocabulary.GRADES``, never another
 GRADE_STYLE = {
-    "strong": ("#0b3c68", "#ffffff", "strong"),
-    "moderate": ("#3d85c6", "#ffffff", "moderate"),
-    "weak": ("#b8d4ec", "#10263a", "weak"),
-    "no-forecast-skill": ("#d7c6e6", "#241433", "no forecast"),
-    "autocorrelation-only": ("#f6d09a", "#2a1a00", "autocorr."),
-    "trend-confounded": ("#d99a5b", "#1f1300", "trend driver"),
-    "spurious-trend": ("#e8913a", "#1f1300", "trend only"),
-    "none": ("#e9e9e9", "#2b2b2b", "none"),
-    "insufficient-data": ("#ffffff", "#555555", "too few data"),
+    "strong": ("#0b3c68", "#ffffff"),
+    "moderate": ("#2f74b5", "#ffffff"),
+    "weak": ("#b8d4ec", "#10263a"),
+    "no-forecast-skill": ("#d7c6e6", "#241433"),
+    "autocorrelation-only": ("#f6d09a", "#2a1a00"),
+    "trend-confounded": ("#d99a5b", "#1f1300"),
+    "spurious-trend": ("#e8913a", "#1f1300"),
+    "none": ("#e9e9e9", "#2b2b2b"),
+    "insufficient-data": ("#ffffff", "#555555"),
 }
 GRADE_COLOURS = {g: s[0] for g, s in GRADE_STYLE.items()}
 
@@ -73,9 +74,13 @@ BASELINE_STYLES = {           # grey family, told apart by dash pattern and mark
 CORR_CMAP = LinearSegmentedColormap.from_list(
     "lagsieve_div", ["#0b3c68", "#6fa3d2", "#f7f7f5", "#eda363", "#9c3d0c"])
 
+#: The smallest text of any figure, in points at the figure's own size: figures are shown at their
+#: size in inches (96 CSS px per inch) or larger, so no tick, label or legend shows below 8 pt.
+TEXT_PT = 8
+
 RC = {
-    "font.size": 8, "axes.titlesize": 8.5, "axes.labelsize": 8, "xtick.labelsize": 7.5,
-    "ytick.labelsize": 7.5, "legend.fontsize": 7, "axes.spines.top": False,
+    "font.size": TEXT_PT, "axes.titlesize": 8.5, "axes.labelsize": TEXT_PT, "xtick.labelsize": TEXT_PT,
+    "ytick.labelsize": TEXT_PT, "legend.fontsize": TEXT_PT, "axes.spines.top": False,
     "axes.spines.right": False, "axes.edgecolor": "#555555", "axes.labelcolor": INK,
     "text.color": INK, "xtick.color": "#444444", "ytick.color": "#444444",
     "axes.grid": True, "grid.color": "#e3e3e3", "grid.linewidth": 0.6,
@@ -135,15 +140,20 @@ def capped_size(width: float, height: float) -> tuple[float, float]:
 def _mark_invented(fig, invented: bool) -> None:
     """A small note in the bottom-right corner (laid out with the figure, never over data)."""
     if invented:
-        fig.supxlabel(INVENTED_NOTE, x=0.995, ha="right", fontsize=6.5, color="#9c3d0c", style="italic")
+        fig.supxlabel(INVENTED_NOTE, x=0.995, ha="right", fontsize=TEXT_PT, color="#9c3d0c", style="italic")
 
 
 def _top_legend(fig, ax, ncol: int = 3) -> None:
-    """The legend above the axes, outside the data area."""
+    """The legend above the axes, outside the data area, in as many columns (up to ``ncol``) as
+    fit the figure's width: a legend wider than its figure would be cut at the edges."""
     handles, labels = ax.get_legend_handles_labels()
-    if handles:
-        fig.legend(handles, labels, loc="outside upper center", ncol=ncol, frameon=False, fontsize=6.8,
-                   handlelength=2.2, columnspacing=1.2)
+    renderer = fig.canvas.get_renderer()
+    for n in range(min(ncol, len(handles)), 0, -1):
+        legend = fig.legend(handles, labels, loc="outside upper center", ncol=n, frameon=False, fontsize=TEXT_PT,
+                            handlelength=2.2, columnspacing=1.2)
+        if n == 1 or legend.get_window_extent(renderer).width <= fig.bbox.width:
+            return
+        legend.remove()
 
 
 def _gapped(years, *series):
@@ -200,17 +210,20 @@ def coverage(series: list[str], labels: list[str], roles: list[str], years, obse
             first, last = np.flatnonzero(obs[i])[[0, -1]]
             inner = ~obs[i] & (np.arange(len(years)) > first) & (np.arange(len(years)) < last)
             ax.scatter(years[inner], np.full(inner.sum(), i), marker="x", s=16, color="#b11d1d",
-                       linewidths=1.0, zorder=3)
+                       linewidths=1.0, zorder=3, label="_missing")
     ax.set_yticks(range(k), [mpl_text(_short(s, 45)) for s in labels])
     ax.set_ylim(k - 0.5, -0.5)
     ax.set_xlim(years.min() - 1, years.max() + 1)
     ax.grid(axis="y", visible=False)
     ax.set_xlabel("year")
-    handles = [Patch(color=RESPONSE_COLOUR, label="response, observed"),
+    handles = [Patch(color=RESPONSE_COLOUR, label="response, observed"),  # the legend names only what is drawn
                Patch(color=DRIVER_COLOUR, label="driver, observed"),
                Patch(facecolor="white", edgecolor="#555555", hatch="////", label="filled (interpolated)"),
                plt.Line2D([], [], marker="x", color="#b11d1d", ls="none", label="missing inside the series")]
-    fig.legend(handles=handles, loc="outside lower center", ncol=4, frameon=False, fontsize=7)
+    crossed = any(len(c.get_offsets()) for c in ax.collections if c.get_label() == "_missing")
+    drawn = ("response" in roles, any(r != "response" for r in roles), bool((fil & obs).any()), crossed)
+    handles = [h for h, shown in zip(handles, drawn) if shown]
+    fig.legend(handles=handles, loc="outside lower center", ncol=len(handles), frameon=False, fontsize=TEXT_PT)
     _mark_invented(fig, invented)
     return fig
 
@@ -236,7 +249,7 @@ def driver_correlation(corr: np.ndarray, labels: list[str], threshold: float = 0
     with warnings.catch_warnings():  # seaborn 0.13 calls a colormap method matplotlib plans to rename
         warnings.simplefilter("ignore", PendingDeprecationWarning)
         sns.heatmap(corr, mask=mask | np.isnan(corr), cmap=CORR_CMAP, vmin=-1, vmax=1, center=0, annot=annot,
-                    fmt="", annot_kws={"fontsize": 7}, square=True, linewidths=0.6, linecolor="white",
+                    fmt="", annot_kws={"fontsize": TEXT_PT}, square=True, linewidths=0.6, linecolor="white",
                     cbar_kws={"label": "Pearson r (same year)", "shrink": 0.7}, ax=ax)
     for i in range(m):
         for j in range(i + 1):
@@ -246,7 +259,9 @@ def driver_correlation(corr: np.ndarray, labels: list[str], threshold: float = 0
                 ax.add_patch(Rectangle((j + 0.1, i + 0.1), 0.8, 0.8, fill=False, edgecolor="#ffffff",
                                        linewidth=0.9, zorder=6))
     short = [mpl_text(_short(s, 40)) for s in labels]
-    ax.set_xticks(np.arange(m) + 0.5, short[:-1], rotation=40, ha="right")
+    # upright labels (wrapped) stay above their own column: slanted ones ran off the left edge
+    ax.set_xticks(np.arange(m) + 0.5, [mpl_text(_short(s, 40), 16) for s in labels[:-1]], rotation=90,
+                  ha="center")
     ax.set_yticks(np.arange(m) + 0.5, short[1:], rotation=0)
     ax.grid(False)
     ax.set_title(f"Outlined and starred: |r| > {threshold:g}, too collinear to separate", loc="left")
@@ -272,16 +287,16 @@ def evidence_grid(grades: np.ndarray, lags: np.ndarray, row_labels: list[str], c
         for j in range(nc):
             grade = g[i, j]
             if grade in GRADE_STYLE:
-                fill, text, word = GRADE_STYLE[grade]
+                fill, text = GRADE_STYLE[grade]
                 lag = lags[i, j]
                 sub = "" if lag is None or (isinstance(lag, float) and np.isnan(lag)) else f"\nlag {int(lag)}"
-                ax.text(j, i, word + sub, ha="center", va="center", fontsize=7, color=text,
+                ax.text(j, i, grade.replace("-", "-\n", 1) + sub, ha="center", va="center", fontsize=TEXT_PT, color=text,
                         fontweight="bold" if grade in ("strong", "moderate") else "normal")
                 if grade == "insufficient-data":
                     ax.add_patch(Rectangle((j - 0.5, i - 0.5), 1, 1, fill=False, hatch="///",
                                            edgecolor="#bdbdbd", linewidth=0))
             else:
-                ax.text(j, i, "not tried", ha="center", va="center", fontsize=6.5, color="#888888")
+                ax.text(j, i, "not tried", ha="center", va="center", fontsize=TEXT_PT, color="#888888")
     ax.set_xticks(range(nc), [mpl_text(_short(s, 40)) for s in col_labels], rotation=35, ha="right")
     ax.set_yticks(range(nr), [mpl_text(_short(s, 45)) for s in row_labels])
     ax.set_xticks(np.arange(nc + 1) - 0.5, minor=True)
@@ -381,7 +396,7 @@ def forecasts(years, observed, baselines: dict, model, hardest: str, response: s
         colour, dash, _ = BASELINE_STYLES.get(name, ("#777777", "--", None))
         ax.plot(yrs, values, color=colour, ls=dash, lw=1.1, label=f"{name} baseline")
     ax.plot(yrs, mod, "-s", ms=2.8, lw=1.6, color=DRIVER_COLOUR, zorder=5,
-            label=mpl_text(f"{hardest} + {_short(driver, 30)}"))
+            label=mpl_text(f"{hardest} + {driver}", 44))
     ax.set_xlabel("forecast year")
     ax.set_ylabel(mpl_text(response, 45))
     _integer_years(ax)
@@ -433,7 +448,7 @@ def null_distributions(panels: list[dict], invented: bool = False):
         ax.set_title(mpl_text(p["title"]) + ptxt, loc="left")
         hidden = len(v) - len(shown)
         if hidden:
-            ax.text(0.02, 0.97, f"{hidden} lower\nnot shown", transform=ax.transAxes, fontsize=6,
+            ax.text(0.02, 0.97, f"{hidden} lower\nnot shown", transform=ax.transAxes, fontsize=TEXT_PT,
                     va="top", color="#555555")
         ax.grid(axis="x", visible=False)
     _top_legend(fig, axes[0][0], ncol=2)
@@ -455,7 +470,7 @@ def gam_effect(grid, curve, lower, upper, x_obs, driver: str, response: str, sta
             label="observed driver values")
     ax.set_xlabel(mpl_text(driver, 70))
     ax.set_ylabel(mpl_text(f"effect on {response}", 45))
-    ax.set_title(mpl_text(stats_line), loc="left", fontsize=7.5)
+    ax.set_title(mpl_text(stats_line, 70), loc="left", fontsize=TEXT_PT)
     _top_legend(fig, ax, ncol=3)
     _mark_invented(fig, invented)
     return fig
@@ -477,7 +492,7 @@ def condition_fit(log_length, log_weight, log_a: float, b: float, seasons: list[
     ax.plot(grid, log_a + b * grid, color=DRIVER_COLOUR, lw=1.6, label=f"reference: b = {b:.3f}")
     ax.set_xlabel("log length (cm)")
     ax.set_ylabel("log weight (g)")
-    ax.legend(fontsize=7, frameon=False, loc="upper left")
+    ax.legend(fontsize=TEXT_PT, frameon=False, loc="upper left")
     bx.boxplot([np.asarray(r, float) for r in residuals], showfliers=False)
     bx.set_xticks(range(1, len(seasons) + 1), [mpl_text(_short(s, 14)) for s in seasons])
     bx.axhline(0, color=INK, lw=0.6, ls="--")
@@ -501,7 +516,7 @@ def condition_indices(panels: list[dict], invented: bool = False):
         ax.set_ylabel(mpl_text(panel["ylabel"]))
         ax.set_xlabel("year")
         _integer_years(ax)
-    axes[0][0].legend(fontsize=7, frameon=False, title="age group", title_fontsize=7)
+    axes[0][0].legend(fontsize=TEXT_PT, frameon=False, title="age group", title_fontsize=TEXT_PT)
     _mark_invented(fig, invented)
     return fig
 
@@ -520,7 +535,7 @@ def condition_design(seasons: list[str], effects: dict, years, design: dict, inv
                   [mpl_text(_short(s, 14)) for s in seasons])
     ax.axhline(0, color=INK, lw=0.6)
     ax.set_ylabel("season effect on log Kn")
-    ax.legend(fontsize=7, frameon=False, title="age group", title_fontsize=7)
+    ax.legend(fontsize=TEXT_PT, frameon=False, title="age group", title_fontsize=TEXT_PT)
     bx.axhline(1, color=INK, lw=0.6, ls="--")
     bx.set_ylabel("design effect 1 + (m - 1) rho")
     bx.set_xlabel("year")
@@ -545,7 +560,7 @@ def condition_sensitivity(groups: list[str], thresholds: list[float], years, sha
         ax.set_xlabel("year")
         _integer_years(ax)
     axes[0][0].set_ylabel("share of fish below the threshold")
-    axes[0][-1].legend(fontsize=6.5, frameon=False, title="threshold Kn", title_fontsize=7)
+    axes[0][-1].legend(fontsize=TEXT_PT, frameon=False, title="threshold Kn", title_fontsize=TEXT_PT)
     _mark_invented(fig, invented)
     return fig
 
@@ -563,7 +578,7 @@ def variance_fractions(fractions: list[float], labels: list[str], response: str,
     ax.barh(pos, np.nan_to_num(v), color=colours, height=0.6)
     for y, x in zip(pos, v):
         if np.isfinite(x):
-            ax.text(max(x, 0) + 0.01, y, f"{x:.0%}", va="center", fontsize=7.5)
+            ax.text(max(x, 0) + 0.01, y, f"{x:.0%}", va="center", fontsize=TEXT_PT)
     ax.set_yticks(pos, names)
     ax.axvline(0, color=INK, linewidth=0.8)
     ax.set_xlim(min(0.0, float(np.nanmin(v)) - 0.05) if np.isfinite(v).any() else 0.0, 1.1)

@@ -56,7 +56,7 @@ def joint_slopes(groups, slope, low, high, own, shared, shared_low, shared_high,
     ax.set_xlabel("group, youngest first")
     ax.set_ylabel(f"slope on {fg.mpl_text(fg._short(driver, 28))}")
     ax.set_title(fg.mpl_text(fg._short(f"{series}: {words}", 60)), fontsize=9)
-    ax.legend(fontsize=6.5, loc="best", frameon=False)
+    ax.legend(fontsize=fg.TEXT_PT, loc="best", frameon=False)
     fg._mark_invented(fig, invented)
     return fig
 

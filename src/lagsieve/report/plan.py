@@ -259,12 +259,23 @@ def _null_panel(ctx, key, row, jobs, info) -> None:
         info["null_n"] = max(len(p["values"]) for p in panels)
 
 
+def gam_stats_line(lag: int, gam_row: dict, gfit: dict) -> str:
+    """The spline panel's line: what the driver's curve explains beyond the year term (when the
+    spline has one, what the year alone explains beside it), its edf and p."""
+    added = number(gfit["added"], "{:.0%}")
+    if gfit["trend"]:
+        year = number(gfit["explained"] - gfit["added"], "{:.0%}")
+        words = f"curve adds {added} of the variation to the year term's {year}"
+    else:
+        words = f"curve explains {added} of the variation"
+    return f"lag {lag}: {words}; edf {number(gam_row.get('edf'), '{:.1f}')}, p(smooth) {p_text(gam_row.get('p_smooth'))}"
+
+
 def _gam_panel(ctx, key, row, gam_row, gfit, jobs, info) -> None:
     if gfit is None:
         return
     gl = int(gam_row["lag"])
-    line = (f"lag {gl}: edf {number(gam_row.get('edf'), '{:.1f}')}, deviance explained "
-            f"{number(gam_row.get('deviance_explained'), '{:.0%}')}, p(smooth) {p_text(gam_row.get('p_smooth'))}")
+    line = gam_stats_line(gl, gam_row, gfit)
     jobs.append(fg.FigureJob(f"{key}__gam", "gam_effect", dict(
         grid=gfit["grid"], curve=gfit["curve"], lower=gfit["lo"], upper=gfit["hi"],
         x_obs=gfit["pair"].x, driver=ctx.axis(row["driver"]) + ("" if gl == 0 else f", {gl}-year lead"),

@@ -50,7 +50,7 @@ def window_correlation(first_year, last_year, r, band_low, band_high, driver: st
     ax.set_xlabel("centre year of the window")
     ax.set_ylabel(f"r: {fg.mpl_text(fg._short(driver, 28))}")
     ax.set_title(fg.mpl_text(fg._short(response, 50)), fontsize=9)
-    ax.legend(fontsize=6.5, loc="lower left", frameon=False)
+    ax.legend(fontsize=fg.TEXT_PT, loc="lower left", frameon=False)
     fg._mark_invented(fig, invented)
     return fig
 
