@@ -97,7 +97,7 @@ def _row(r: dict, label, planned: set) -> dict:
     name = figure_name(r["response"], r["driver"])
     years = "" if is_missing(r.get("break_year")) else (
         f"{int(r['break_year'])} ({int(r['break_year_low'])}–{int(r['break_year_high'])})")
-    return {"response": label(r["response"]), "driver": label(r["driver"]), "lag": int(r["lag"]),
+    return {"response": label(r["response"]), "driver": label(r["driver"]), "lag": "" if is_missing(r.get("lag")) else int(r["lag"]),
             "grade": r["grade"], "p": p_text(r.get("break_p")), "year": years, "flagged": flagged,
             "before": _slope(r.get("slope_before"), r.get("slope_before_se")),
             "after": _slope(r.get("slope_after"), r.get("slope_after_se")),
