@@ -289,3 +289,22 @@ def test_draw_and_vintage_keys_rerun_the_evidence_not_the_screens(new_study):
     assert load_study(new_study).screen["draws"] == 40
     screen1, evidence1 = digests()
     assert screen1 == screen0 and evidence1 != evidence0
+
+
+def test_demo_judges_draws_and_vintages(demo_run):
+    """The demo end to end: every hypothesis of m:age5plus judged on its 100 draws, Mohn's
+    rho of its three vintages as the formula gives it on the demo's files (TRUTH.md: +0.063), the
+    real-time mode said; the other responses without them; the report's block."""
+    cfg, results = demo_run
+    ev = pd.read_csv(results / "evidence.csv")
+    mine = ev[ev["response"] == "m:age5plus"]
+    assert (mine["draw_n"] == 100).all() and mine["draw_grade_share"].between(0, 1).all()
+    assert ev.loc[ev["response"] != "m:age5plus", ["draw_n", "mohn_rho"]].isna().all().all()
+    data = cfg.parent / "data"
+    v = wide(pd.read_csv(data / "m_age5plus_vintages.csv"), "vintage")
+    m = pd.read_csv(data / "mortality_by_age.csv").query("group == 'age5plus'")
+    rho = mohn_rho(v, pd.Series(m["value"].to_numpy(), index=m["year"].to_numpy())).rho
+    assert mine["mohn_rho"].to_numpy() == pytest.approx(rho) and 0.05 < rho < 0.08
+    assert (mine["rt_mode"] == "latest vintage; real time beside").all() and (mine["rt_n"] == 3).all()
+    html = (results / "report.html").read_text()
+    assert 'id="estimates"' in html and "Mohn's rho +6.3%" in html

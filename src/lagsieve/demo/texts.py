@@ -11,6 +11,7 @@ from functools import lru_cache
 import numpy as np
 from jinja2 import Environment, PackageLoader, StrictUndefined
 
+from lagsieve.demo import estimates as est
 from lagsieve.demo.check import association_check
 from lagsieve.demo.fish import AGE_GROUPS, CONDITION, PREY_BETA, SEASON_EFFECT
 from lagsieve.demo.world import (
@@ -108,6 +109,20 @@ def _check_rows(data: DemoData) -> list[dict]:
     return rows
 
 
+def _estimate_context(data: DemoData) -> dict:
+    """The draws and vintages of the demo (:mod:`lagsieve.demo.estimates`) with their Mohn's rho."""
+    vint = est.vintages_table(data.mortality, data.seed)
+    g = data.mortality[data.mortality["group"] == est.DRAWS_GROUP]
+    latest = dict(zip(g["year"].astype(int), g["value"].astype(float)))
+    peels = []
+    for v, rows in vint.groupby("vintage"):
+        ty = int(rows["year"].max())
+        peels.append((int(v), ty, (float(rows["value"].iloc[-1]) - latest[ty]) / latest[ty]))
+    return {"group": est.DRAWS_GROUP, "n_draws": est.N_DRAWS, "phi": est.DRAW_PHI, "bias": est.RETRO_BIAS,
+            "decay": est.RETRO_DECAY, "restate_sd": est.RESTATE_SD, "vintages": sorted(vint["vintage"].unique()),
+            "peels": peels, "rho": sum(p[2] for p in peels) / len(peels)}
+
+
 def truth_context(data: DemoData) -> dict:
     """The plain data TRUTH.md is rendered from."""
     P = data.parameters
@@ -128,6 +143,7 @@ def truth_context(data: DemoData) -> dict:
         "truth_rows": _truth_rows(data),
         "effects": effects[["driver", "response", "size"]].to_dict("records"),
         "check_rows": _check_rows(data),
+        "estimates": _estimate_context(data),
         "fish": {"n": len(data.fish), "first": int(data.fish["year"].min()), "last": int(data.fish["year"].max()),
                  "groups": AGE_GROUPS, "beta": PREY_BETA, "seasons": SEASON_EFFECT, **CONDITION},
     }

@@ -1,4 +1,4 @@
-"""Write the invented demo study to a folder: the five data files and TRUTH.md
+"""Write the invented demo study to a folder: the data files and TRUTH.md
 (:func:`write_demo`), and with its config a new study folder (:func:`write_study`, what
 `lagsieve init` writes).
 
@@ -16,6 +16,7 @@ from pathlib import Path
 
 import pandas as pd
 
+from lagsieve.demo.estimates import draws_table, vintages_table
 from lagsieve.demo.texts import demo_config_text, truth_markdown
 from lagsieve.demo.world import DEFAULT_SEED, DemoData, simulate_demo
 from lagsieve.errors import InputErrors, fail, show
@@ -37,6 +38,8 @@ DEMO_FILES = (
     "indices_long.csv",
     "bottom_temperature_monthly.csv",
     "fish_samples.csv",
+    "m_age5plus_draws.csv",
+    "m_age5plus_vintages.csv",
     "TRUTH.md",
 )
 
@@ -49,6 +52,8 @@ def demo_files(data: DemoData) -> dict[str, pd.DataFrame | str]:
         "indices_long.csv": data.indices_long,
         "bottom_temperature_monthly.csv": data.bottom_temperature_monthly,
         "fish_samples.csv": data.fish,
+        "m_age5plus_draws.csv": draws_table(data.mortality, data.seed),
+        "m_age5plus_vintages.csv": vintages_table(data.mortality, data.seed),
         "TRUTH.md": truth_markdown(data),
     }
 
