@@ -23,9 +23,6 @@ rule evidence:
         joint=f"{OUT}/{{study}}/joint.csv",
         joint_groups=f"{OUT}/{{study}}/joint_groups.csv",
         windows=f"{OUT}/{{study}}/windows.csv",
-    params:
-        config=cfg,  # a param with the digest of what the stages read: a new title reruns only the report
-        settings=lambda w: _settings_digest(STUDIES[w.study].study, "evidence"),
     log:
         f"{OUT}/{{study}}/logs/evidence.log",
     conda:
@@ -33,5 +30,8 @@ rule evidence:
     resources:
         mem_mb=1000,
         runtime=10,
+    params:
+        config=cfg,  # a param with the digest of what the stages read: a new title reruns only the report
+        settings=lambda w: _settings_digest(STUDIES[w.study].study, "evidence"),
     script:
         "../scripts/evidence.py"

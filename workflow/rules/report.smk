@@ -45,7 +45,9 @@ REPORT_OUTPUT = {
         patterns=_catalog.FIGURE_PATTERNS,  # response, driver and kind read off each file's name
         caption="../report/figures.rst",  # one caption per kind of figure
         category="Figures",
-        subcategory=lambda w: _catalog.figure_labels(STUDIES[w.study].study, w)["figure"],
+        subcategory=lambda w: _catalog.figure_labels(STUDIES[w.study].study, w)[
+            "figure"
+        ],
         labels=lambda w: _catalog.figure_labels(STUDIES[w.study].study, w),
     ),
 }
