@@ -33,7 +33,7 @@ def test_init_refuses_existing(study):
     config = study.read_bytes()
     proc = lagsieve("init", study.parent)
     line = _expect_one_line(proc, "exist already", "config.yaml", "data/mortality_by_age.csv", "never overwrites")
-    assert line.startswith(f"{study.parent}: 7 of the files init writes")
+    assert line.startswith(f"{study.parent}: 9 of the files init writes")
     assert _hashes(study.parent / "data") == before and study.read_bytes() == config
 
 

@@ -76,6 +76,10 @@ class Deliveries:
         cfg["drivers"] = [d for d in cfg["drivers"] if not d["id"].startswith(CONDITION_SERIES)]
         for d in cfg["drivers"]:  # signs stated for the condition series that left the study
             d.pop("expected_sign_by_response", None)
+        for r in cfg["responses"]:  # draws and vintages are not delivered year by year here
+            r.pop("draws", None)
+            r.pop("vintages", None)
+        cfg["screen"].pop("real_time", None)
         self.config = root / "config.yaml"
         self.config.write_text(yaml.safe_dump(cfg, sort_keys=False))
         self.out = root / "results" / STUDY

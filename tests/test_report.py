@@ -65,6 +65,10 @@ def demo_report(tmp_path_factory):
     raw["inputs"] = [str((src.parent / p).resolve()) for p in raw["inputs"]]
     if raw.get("condition"):
         raw["condition"]["samples"] = [str((src.parent / p).resolve()) for p in raw["condition"]["samples"]]
+    for r in raw["responses"]:  # the response's draws and vintages tables, read from the demo's folder
+        for key in ("draws", "vintages"):
+            if r.get(key):
+                r[key] = str((src.parent / r[key]).resolve())
     raw["screen"]["surrogates"] = 99
     raw.setdefault("report", {})["top"] = 2
     cfg = write_config(base / "config.yaml", raw)

@@ -88,7 +88,7 @@ def test_init_refuses_to_overwrite_user_data(tmp_path):
 
 def test_init_lists_every_existing_file(initialised_study, capsys):
     line = _main(capsys, "init", initialised_study.parent)
-    assert "7 of the files" in line and "config.yaml" in line and "data/TRUTH.md" in line
+    assert "9 of the files" in line and "config.yaml" in line and "data/TRUTH.md" in line
 
 
 def test_init_beside_other_user_files_keeps_them(tmp_path, capsys):
