@@ -11,7 +11,8 @@ from functools import lru_cache
 import numpy as np
 from jinja2 import Environment, PackageLoader, StrictUndefined
 
-from lagsieve.demo import estimates as est
+from lagsieve.demo.estimates import (DRAW_PHI, DRAWS_GROUP, N_DRAWS, RESTATE_SD, RETRO_BIAS, RETRO_DECAY,
+                                     vintages_table)
 from lagsieve.demo.check import association_check
 from lagsieve.demo.fish import AGE_GROUPS, CONDITION, PREY_BETA, SEASON_EFFECT
 from lagsieve.demo.world import (
@@ -111,15 +112,15 @@ def _check_rows(data: DemoData) -> list[dict]:
 
 def _estimate_context(data: DemoData) -> dict:
     """The draws and vintages of the demo (:mod:`lagsieve.demo.estimates`) with their Mohn's rho."""
-    vint = est.vintages_table(data.mortality, data.seed)
-    g = data.mortality[data.mortality["group"] == est.DRAWS_GROUP]
+    vint = vintages_table(data.mortality, data.seed)
+    g = data.mortality[data.mortality["group"] == DRAWS_GROUP]
     latest = dict(zip(g["year"].astype(int), g["value"].astype(float)))
     peels = []
     for v, rows in vint.groupby("vintage"):
         ty = int(rows["year"].max())
         peels.append((int(v), ty, (float(rows["value"].iloc[-1]) - latest[ty]) / latest[ty]))
-    return {"group": est.DRAWS_GROUP, "n_draws": est.N_DRAWS, "phi": est.DRAW_PHI, "bias": est.RETRO_BIAS,
-            "decay": est.RETRO_DECAY, "restate_sd": est.RESTATE_SD, "vintages": sorted(vint["vintage"].unique()),
+    return {"group": DRAWS_GROUP, "n_draws": N_DRAWS, "phi": DRAW_PHI, "bias": RETRO_BIAS,
+            "decay": RETRO_DECAY, "restate_sd": RESTATE_SD, "vintages": sorted(vint["vintage"].unique()),
             "peels": peels, "rho": sum(p[2] for p in peels) / len(peels)}
 
 

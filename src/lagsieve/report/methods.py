@@ -90,8 +90,8 @@ REF = {
     "litzow": "Litzow, M.A. et al. (2018) Proc. R. Soc. B 285 (moving-window correlations of non-stationary "
               "environment-biology relationships; cited from memory).",
     "rubin": "Rubin, D.B. (1987) Multiple Imputation for Nonresponse in Surveys. Wiley, New York.",
-    "mohn": "Mohn, R. (1999) The retrospective problem in sequential population analysis: an investigation "
-            "using cod fishery and simulated data. ICES J. Mar. Sci. 56:473-488.",
+    "mohn": "Mohn, R. (1999) The retrospective problem in sequential population analysis. "
+            "ICES J. Mar. Sci. 56:473-488.",
     "gelman": "Gelman, A. & Hill, J. (2007) Data Analysis Using Regression and Multilevel/Hierarchical "
               "Models. Cambridge University Press, Cambridge.",
     "harville": "Harville, D.A. (1977) Maximum likelihood approaches to variance component estimation and to "

@@ -295,19 +295,14 @@ def _in_sample_evidence(hyp: dict, scan: _LagScan, screen_rows: pd.DataFrame, la
     return max_stat
 
 
-def _stability(x: np.ndarray, y: np.ndarray, window: int = 15) -> dict:
-    """Leave-one-year-out, split-half and rolling-window correlations at the chosen lag."""
+def _stability(x: np.ndarray, y: np.ndarray) -> dict:
+    """Leave-one-year-out correlations at the chosen lag (changes in time are the break test's,
+    :mod:`lagsieve.evidence.stability`)."""
     r = float(st.pearson_r(x, y))
     loo = st.leave_one_out_r(x, y)
-    h = len(x) // 2
-    win = st.windowed_r(x, y, window)
-    strong_opposite = (np.sign(win) != np.sign(r)) & (np.abs(win) >= 0.3)
     return {
         "loo_max_change": float(np.nanmax(np.abs(loo - r))),
         "loo_sign_flip": bool(np.any(np.sign(loo) != np.sign(r))),
-        "r_first_half": float(st.pearson_r(x[:h], y[:h])) if h >= 5 else np.nan,
-        "r_second_half": float(st.pearson_r(x[h:], y[h:])) if len(x) - h >= 5 else np.nan,
-        "window_sign_flip": bool(strong_opposite.any()) if win.size else False,
     }
 
 

@@ -10,8 +10,8 @@ that published the values), NaN where a vintage has no value.
 
 References
 ----------
-Mohn, R. (1999) The retrospective problem in sequential population analysis: an
-    investigation using cod fishery and simulated data. ICES J. Mar. Sci. 56:473-488.
+Mohn, R. (1999) The retrospective problem in sequential population analysis.
+    ICES J. Mar. Sci. 56:473-488.
 """
 from __future__ import annotations
 
