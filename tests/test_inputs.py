@@ -1071,7 +1071,7 @@ def test_screen_defaults_come_from_the_schema():
         "lags": [0, 1, 2, 3], "models": ["linear"], "min_overlap": 15, "seed": 1,
         "surrogates": 999, "surrogate_method": "phase", "surrogate_keep_trend": True,
         "fdr": 0.10, "alpha": 0.05, "weights": "none", "gam_trend": True, "state_space": False, "validation": {},
-        "draws": 100, "real_time": False,
+        "draws": 100, "real_time": False, "season_lags": [0, 1, 2, 3],
     }
     assert screen_defaults() == SCREEN_DEFAULTS and screen_defaults() is not SCREEN_DEFAULTS
     assert report_defaults() == {"top": 3, "pdf": True, "docx": True}

@@ -210,7 +210,8 @@ def insufficient_reason(row: dict, min_overlap: int) -> str:
 
 def _lead_direction(row: dict) -> str:
     lag = row.get("lag")
-    lead = "same year" if lag == 0 else f"{int(lag)}-year lead" if lag == lag and lag is not None else "no lag"
+    unit = "season" if row.get("lag_unit") == "season" else "year"  # a monthly driver of a season response
+    lead = f"same {unit}" if lag == 0 else f"{int(lag)}-{unit} lead" if lag == lag and lag is not None else "no lag"
     r = _get(row, "r")
     return f"{lead}, {'positive' if r > 0 else 'negative' if r < 0 else 'no'}"
 

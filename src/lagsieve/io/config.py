@@ -44,6 +44,15 @@ class Study:
     condition: dict | None = None  # the ``condition:`` section with its defaults, when present
     joint: tuple[str, ...] = ()  # series whose groups are also screened jointly (``joint:``)
     controls: list[dict] = field(default_factory=list)  # ``controls:`` with defaults filled
+    seasons: dict[str, tuple[int, ...]] = field(default_factory=dict)  # ``seasons:`` (or the condition's)
+
+    def season_of(self, response_id: str) -> str | None:
+        """The response a season response (``<id>-<season>`` of ``by_season``) was made from."""
+        r = next((r for r in self.responses if r["id"] == response_id), None)
+        return None if r is None else r.get("season_of")
+
+    def _base(self, response_id: str) -> str:
+        return self.season_of(response_id) or response_id
 
     @property
     def control_series(self) -> list[dict]:
@@ -52,8 +61,9 @@ class Study:
 
     def controls_for(self, response_id: str) -> dict[str, int]:
         """The controls of one response: id -> its lag with the response."""
+        base = self._base(response_id)
         return {c["id"]: int(c["lag"]) for c in self.controls
-                if not c.get("responses") or response_id in c["responses"]}
+                if not c.get("responses") or base in c["responses"]}
 
     @property
     def response_ids(self) -> list[str]:
@@ -67,7 +77,8 @@ class Study:
         """Per-series options (transform, aggregate, fill, max_gap, unit) by id."""
         out = {}
         for s in self.responses + self.drivers + self.control_series:
-            out[s["id"]] = {k: s[k] for k in ("transform", "aggregate", "fill", "max_gap", "unit") if k in s}
+            out[s["id"]] = {k: s[k] for k in ("transform", "aggregate", "fill", "max_gap", "unit", "season_of",
+                                              "season_months") if k in s}
         return out
 
     def input_paths(self) -> list[Path]:
@@ -79,16 +90,18 @@ class Study:
         return {s["id"]: s.get("transform", "none") for s in self.responses + self.drivers + self.control_series}
 
     def drivers_for(self, response_id: str) -> list[dict]:
-        """The drivers paired with a response, each with the sign expected for that response."""
-        return [signed_for(d, response_id) for d in self.drivers
-                if not d.get("responses") or response_id in d["responses"]]
+        """The drivers paired with a response, each with the sign expected for that response (a
+        season response takes those of the response it comes from)."""
+        base = self._base(response_id)
+        return [signed_for(d, base) for d in self.drivers if not d.get("responses") or base in d["responses"]]
 
     def lags_for(self, driver: dict) -> list[int]:
         return sorted(driver.get("lags") or self.screen["lags"])
 
     def joint_groups(self) -> dict[str, list[str]]:
         """Every series of ``joint:`` with its group responses (``series:group``), in config order."""
-        return {s: group_responses(self.response_ids, s) for s in self.joint}
+        plain = [r["id"] for r in self.responses if not r.get("season_of")]
+        return {s: group_responses(plain, s) for s in self.joint}
 
 
 def group_responses(response_ids: list[str], series: str) -> list[str]:
@@ -148,6 +161,46 @@ def control_problems(controls: list[dict], drivers: list[dict], response_ids: li
                 file=shown, key=key))
         seen.add(cid)
     return problems
+
+
+def season_responses(responses: list[dict], seasons: dict | None, taken: set[str], shown: str
+                     ) -> tuple[list[dict], list[InputProblem]]:
+    """The responses with, after every one with ``by_season``, one response per season
+    (``<id>-<season>``, seasons in the order of the year by their last month): its ``season``,
+    ``season_of`` (the response it comes from) and ``season_months``. One line for a
+    ``by_season`` response without seasons, for seasons that share a month, and for a season
+    response whose id is already a series of the study."""
+    out, problems = [], []
+    usable = isinstance(seasons, dict) and all(
+        isinstance(v, list) and v and all(isinstance(m, int) and 1 <= m <= 12 for m in v) for v in seasons.values())
+    for i, r in enumerate(responses):
+        out.append(r)
+        if not r.get("by_season"):
+            continue
+        key = item_key("responses", i, r["id"], "by_season")
+        if not usable or len(seasons) < 2:
+            problems.append(InputProblem(what="by_season is true but the study has no seasons (two or more)",
+                                         fix="add seasons: {name: [months], ...} at the top level, or a condition "
+                                             "section with seasons", file=shown, key=key))
+            continue
+        owner = {}
+        for name, months in seasons.items():
+            clash = next((owner[m] for m in months if m in owner), None)
+            if clash:
+                problems.append(InputProblem(what=f"seasons '{clash}' and '{name}' share a month",
+                                             fix="give every month to one season only", file=shown, key="seasons"))
+            owner.update(dict.fromkeys(months, name))
+        for name, months in sorted(seasons.items(), key=lambda kv: kv[1][-1]):
+            sid = f"{r['id']}-{name}"
+            if sid in taken:
+                problems.append(InputProblem(what=f"by_season makes the response '{sid}', which is already listed",
+                                             fix=f"remove '{sid}' from the config, or by_season from '{r['id']}'",
+                                             file=shown, key=key, series=sid))
+            label = {"label": f"{r['label']} ({name})"} if r.get("label") else {}
+            out.append({"id": sid, "kind": r.get("kind", "other"), "transform": r.get("transform", "none"),
+                        **{k: r[k] for k in ("unit",) if k in r}, **label, "season": name, "season_of": r["id"],
+                        "season_months": {"months": list(months), "how": (r.get("aggregate") or {}).get("how", "mean")}})
+    return out, problems
 
 
 def signed_for(driver: dict, response_id: str) -> dict:
@@ -351,6 +404,9 @@ def _build(path: Path, raw: dict) -> Study:
                         fix=f"use an id listed under responses ({suggest(rid, resp_ids, 'responses')})",
                         file=shown, key=item_key("drivers", i, d["id"], key), series=d["id"]))
     problems += joint_problems(full["joint"], [r["id"] for r in responses], shown)
+    seasons = full.get("seasons") or (full.get("condition") or {}).get("seasons")
+    responses, more = season_responses(responses, seasons, set(ids), shown)
+    problems += more
     controls = full.get("controls") or []
     problems += control_problems(controls, drivers, [r["id"] for r in responses], shown)
     if problems:
@@ -359,4 +415,4 @@ def _build(path: Path, raw: dict) -> Study:
     return Study(path=path.resolve(), raw=raw, id=raw["study"], base_dir=base, inputs=inputs,
                  responses=responses, drivers=drivers, screen=full["screen"], report=full["report"],
                  ledger_path=ledger, condition=full.get("condition"), joint=tuple(full["joint"]),
-                 controls=controls)
+                 controls=controls, seasons=dict(seasons) if any(r.get("season") for r in responses) else {})

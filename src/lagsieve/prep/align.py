@@ -126,12 +126,15 @@ class ForecastFrame:
     lags: np.ndarray
 
 
-def forecast_frame(table: pd.DataFrame, response: str, driver: str, lags: list[int]) -> ForecastFrame:
+def forecast_frame(table: pd.DataFrame, response: str, driver: str | None, lags: list[int],
+                   driver_lags: np.ndarray | None = None) -> ForecastFrame:
+    """The usable rows; ``driver_lags`` (L, n_years) gives the driver at every lag when it is not
+    the table's column shifted in years (a monthly driver lagged in seasons)."""
     y = table[response].to_numpy(dtype=float)
     ylag = table[response].shift(1).to_numpy(dtype=float)
     ok = ~(np.isnan(y) | np.isnan(ylag))
-    for k in lags:
-        ok &= ~np.isnan(lagged(table, driver, k))
+    for i, k in enumerate(lags):
+        ok &= ~np.isnan(lagged(table, driver, k) if driver_lags is None else driver_lags[i])
     rows = np.flatnonzero(ok)
     return ForecastFrame(years=table.index.to_numpy()[rows], y=y[rows], ylag=ylag[rows],
                          rows=rows, lags=np.asarray(lags))

@@ -40,6 +40,9 @@ def to_annual(long_df: pd.DataFrame, series_options: Mapping[str, Mapping[str, A
     ``sqrt(sum se^2) / n`` and of a sum ``sqrt(sum se^2)`` (months taken as independent; NaN
     if any month lacks an se); for min and max it is the se of the chosen month.
 
+    A season response of ``by_season`` (option ``season_of``) that the data do not hold is made
+    from the monthly rows of the response it comes from, over its ``season_months``.
+
     Then gaps: with ``fill: linear`` interior runs of at most ``max_gap`` (default 1) missing
     years are filled by linear interpolation between the neighbouring years (``filled`` is
     True, ``se`` NaN); longer runs, and every interior gap when ``fill`` is ``none``, are left
@@ -58,11 +61,15 @@ def to_annual(long_df: pd.DataFrame, series_options: Mapping[str, Mapping[str, A
     df = long_df[np.isfinite(long_df["value"].to_numpy(dtype=float))]
     groups = {sid: g for sid, g in df.groupby("series", sort=True)}
     for sid in sorted(series_options):
+        opts = dict(series_options.get(sid) or {})
+        if sid not in groups and opts.get("season_of") in groups:  # a season of a monthly response
+            groups[sid] = groups[opts["season_of"]].assign(series=sid)
+            opts["aggregate"] = opts.get("season_months")
         if sid not in groups:
             continue
         g = groups[sid].sort_values(["year", "month"], na_position="first")
         file = str(g["file"].iat[0])
-        annual, series_notes, prob = _series_annual(g, sid, series_options.get(sid) or {})
+        annual, series_notes, prob = _series_annual(g, sid, opts)
         if prob:
             problems.append(InputProblem(what=prob[0], fix=prob[1], file=file, series=sid))
             continue

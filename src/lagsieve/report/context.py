@@ -18,11 +18,13 @@ def flag_list(v) -> list[str]:
     return [c for c in text(v).split(";") if c]
 
 
-def lead_words(lag) -> str:
+def lead_words(lag, unit: str | None = None) -> str:
+    """'same year', '2-year lead'; with ``unit`` 'season' (a monthly driver of a season
+    response) 'same season', '2-season lead'."""
     if is_missing(lag):
         return "no lag chosen"
-    lag = int(lag)
-    return "same year" if lag == 0 else f"{lag}-year lead"
+    lag, unit = int(lag), unit or "year"
+    return f"same {unit}" if lag == 0 else f"{lag}-{unit} lead"
 
 
 # ----------------------------------------------------------------------------- plain words

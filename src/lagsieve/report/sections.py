@@ -13,6 +13,7 @@ from lagsieve.report.context import Context, lead_words, not_computed, set_aside
 from lagsieve.formats import is_missing, lag_range, number, p_text, text
 from lagsieve.stats.backtest import BASELINES
 from lagsieve.report.methods import methods_paragraphs, reference_list
+from lagsieve.report.seasons import by_season
 
 CAUTIONS = [
     ("Association is not cause.", "A driver that tracks the response may share a cause with it, "
@@ -87,7 +88,8 @@ def _aside_groups(ctx: Context, aside: pd.DataFrame) -> list[tuple[str, list[dic
     groups: dict[str, list[dict]] = {}
     for row in aside.to_dict("records"):
         groups.setdefault(set_aside_reason(row, ctx.label), []).append(
-            {"summary": summary_line(row), "driver": ctx.label(row["driver"]), "lead": lead_words(row.get("lag"))})
+            {"summary": summary_line(row), "driver": ctx.label(row["driver"]),
+             "lead": lead_words(row.get("lag"), None if is_missing(row.get("lag_unit")) else row.get("lag_unit"))})
     return [(reason[:1].upper() + reason[1:], who) for reason, who in groups.items()]
 
 
@@ -97,7 +99,7 @@ def _response_summary(ctx: Context, rid) -> dict:
                   "partners": [ctx.label(p) for p in text(row.get("collinear_with")).split(";") if p]}
                  for row in sub[sub["grade"].isin(SUPPORTED)].to_dict("records")]
     return {"id": rid, "label": ctx.label(rid), "supported": supported,
-            "aside": _aside_groups(ctx, sub[~sub["grade"].isin(SUPPORTED)])}
+            "aside": _aside_groups(ctx, sub[~sub["grade"].isin(SUPPORTED)]), "by_season": by_season(ctx, rid)}
 
 
 def summary(ctx: Context) -> dict:
@@ -108,7 +110,7 @@ def summary(ctx: Context) -> dict:
             "counts": [(g, int(counts.get(g, 0))) for g in GRADES if counts.get(g, 0)],
             "none_supported": not ev["grade"].isin(SUPPORTED).any() if len(ev) else True,
             "not_computed": not_computed(ctx),
-            "responses": [_response_summary(ctx, rid) for rid in ctx.study.response_ids]}
+            "responses": [_response_summary(ctx, r["id"]) for r in ctx.study.responses if not r.get("season_of")]}
 
 
 # ----------------------------------------------------------------------------- evidence table

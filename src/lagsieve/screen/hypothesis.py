@@ -25,6 +25,7 @@ from lagsieve.stats.backtest import (
     diebold_mariano,
     retest,
     rolling_origin,
+    skill_score,
 )
 from lagsieve.stats.shapes import shape_word
 from lagsieve.stats.splines import fit_pspline, partial_effect, smooth_gain, smooth_p_value
@@ -110,29 +111,47 @@ def backtest_windows(n_rows: int, settings: dict) -> tuple[int, int]:
     return initial, holdout
 
 
+def lagged_driver_batch(table: pd.DataFrame, did: str, lags: list[int], screen: dict) -> np.ndarray:
+    """(S, L, n_years): the driver and its surrogates (:func:`driver_batch`) at every lag in years."""
+    batch = driver_batch(table, did, int(screen["surrogates"]), screen["surrogate_method"], screen["seed"],
+                         screen.get("surrogate_keep_trend", True))
+    return np.stack([shift_batch(batch, k) for k in lags], axis=1)
+
+
 def screen_hypothesis(table: pd.DataFrame, response: dict, driver: dict, lags: list[int], screen: dict,
-                      response_se: np.ndarray | None = None):
+                      response_se: np.ndarray | None = None, season=None):
     """Screen rows, hypothesis row, forecasts and null statistics for one response x driver.
 
     ``response_se`` (n_years,) holds the response's standard errors on the table's axis; with
     ``screen['weights'] == 'inverse-variance'`` the forecasting fits are weighted by 1/se^2.
+    ``season`` (a :class:`lagsieve.screen.seasonal.SeasonScreen`, for a season response): a
+    monthly driver is lagged in seasons and the harmonic baselines join the backtest.
     """
     rid, did = response["id"], driver["id"]
     sign = driver.get("expected_sign", "any")
     use_gam = "gam" in screen["models"]
-    batch = driver_batch(table, did, int(screen["surrogates"]), screen["surrogate_method"], screen["seed"],
-                         screen.get("surrogate_keep_trend", True))
-    scan = _scan_lags(table, rid, did, sign, lags, batch, screen)
+    in_seasons = season is not None and did in season.drivers
+    if in_seasons:
+        lags = list(season.lags)
+        xl = season.lagged_batch(did, table.index.to_numpy(), screen)
+    else:
+        xl = lagged_driver_batch(table, did, lags, screen)
+    scan = _scan_lags(table, rid, did, sign, lags, xl, screen)
     screen_rows = pd.DataFrame(scan.rows)
     hyp = {"response": rid, "driver": did, "category": driver.get("category", "other"),
            "expected_sign": sign, "model": "linear", "lags_tried": len(lags)}
+    if season is not None:
+        unit = "season" if in_seasons else "year"
+        screen_rows = screen_rows.assign(season=season.season, lag_unit=unit)
+        hyp.update(season=season.season, lag_unit=unit)
     if not scan.data:
-        hyp.update(status=f"insufficient: {no_lag_reason(table, rid, did, lags)}", n=int(screen_rows["n"].max()))
+        hyp.update(status=f"insufficient: {no_lag_reason(table, rid, did, lags, xl[0])}", n=int(screen_rows["n"].max()))
         return screen_rows, hyp, None, None
     max_stat = _in_sample_evidence(hyp, scan, screen_rows, lags, use_gam)
     nulls = [pd.DataFrame({"response": rid, "driver": did, "test": "in-sample", "statistic": "best-lag r (directed)",
                            "value": max_stat[1:], "observed": max_stat[0]})]
-    fc, oos_null, oos_reason = _out_of_sample(hyp, table, rid, did, lags, batch, screen, response_se)
+    extra = season.baselines if season is not None else None
+    fc, oos_null, oos_reason = _out_of_sample(hyp, table, rid, lags, xl, screen, response_se, extra)
     if oos_null is not None:
         nulls.append(oos_null)
     if use_gam:
@@ -161,15 +180,18 @@ def constant_words(series: str, value: float) -> str:
     return f"{series} is constant ({short_number(value)} every year): correlations are undefined"
 
 
-def no_lag_reason(table: pd.DataFrame, rid: str, did: str, lags: list[int]) -> str:
-    """Why no lag of a hypothesis could be screened, in plain words."""
-    for sid in (rid, did):
-        value = constant_value(table[sid].to_numpy(float))
+def no_lag_reason(table: pd.DataFrame, rid: str, did: str, lags: list[int], lagged: np.ndarray | None = None) -> str:
+    """Why no lag of a hypothesis could be screened, in plain words (``lagged``: the real
+    driver at every lag, (L, n_years), when it is not the table's column shifted in years)."""
+    x = table[did].to_numpy(float) if did in table else lagged[0]
+    for sid, v in ((rid, table[rid].to_numpy(float)), (did, x)):
+        value = constant_value(v)
         if value is not None:
             return constant_words(sid, value)
     y = table[rid].to_numpy(float)
-    x = table[did].to_numpy(float)[None, :]
-    counts = [int((~(np.isnan(y) | np.isnan(shift_batch(x, k)[0]))).sum()) for k in lags]
+    if lagged is None:
+        lagged = np.stack([shift_batch(x[None, :], k)[0] for k in lags])
+    counts = [int((~(np.isnan(y) | np.isnan(xk))).sum()) for xk in lagged]
     if max(counts) == 0:
         return f"{did} has no value in any year of {rid} at the lags tried ({', '.join(map(str, lags))})"
     if max(counts) < MIN_YEARS:
@@ -190,14 +212,15 @@ class _LagScan:
     data: dict[int, tuple] = field(default_factory=dict)  # lag -> (x, y, years) of the real driver
 
 
-def _scan_lags(table, rid, did, sign, lags, batch, screen) -> _LagScan:
-    """Linear (and spline) statistics at every lag on the years where both series are present."""
+def _scan_lags(table, rid, did, sign, lags, xl, screen) -> _LagScan:
+    """Linear (and spline) statistics at every lag on the years where both series are present
+    (``xl``: the driver batch at every lag, (S, L, n_years))."""
     y_full = table[rid].to_numpy(dtype=float)
     years_full = table.index.to_numpy()
     use_gam = "gam" in screen["models"]
     scan = _LagScan()
-    for k in lags:
-        xk = shift_batch(batch, k)
+    for li, k in enumerate(lags):
+        xk = xl[:, li]
         ok = ~(np.isnan(y_full) | np.isnan(xk[0]))
         n = int(ok.sum())
         base = {"response": rid, "driver": did, "lag": k, "model": "linear", "n": n,
@@ -207,9 +230,9 @@ def _scan_lags(table, rid, did, sign, lags, batch, screen) -> _LagScan:
             rid, y_full[ok], did, xk[0, ok])
         if skip:
             scan.rows.append(dict(base, status=f"skipped: {skip}"))
-            scan.stats.append(np.full(batch.shape[0], np.nan))
+            scan.stats.append(np.full(xl.shape[0], np.nan))
             if use_gam:
-                scan.gam_stats.append(np.full(batch.shape[0], np.nan))
+                scan.gam_stats.append(np.full(xl.shape[0], np.nan))
             continue
         x, y, yrs = xk[:, ok], y_full[ok], years_full[ok]
         r_all = st.pearson_r(x, y[None, :])
@@ -309,7 +332,7 @@ def _stability(x: np.ndarray, y: np.ndarray) -> dict:
 # --------------------------------------------------------------------------- out of sample
 
 
-def _out_of_sample(hyp: dict, table, rid, did, lags, batch, screen, response_se):
+def _out_of_sample(hyp: dict, table, rid, lags, xl, screen, response_se, extra=None):
     """Backtest (rolling origin) and re-test of the hypothesis: adds the ``oos_*`` and
     ``retest_*`` entries to ``hyp``; returns (forecasts, null statistics, reason). ``reason``
     says in plain words why the backtest cannot be judged (None when it can); with fewer
@@ -317,13 +340,14 @@ def _out_of_sample(hyp: dict, table, rid, did, lags, batch, screen, response_se)
 
     The re-test on the latest years fits the form the forecasts chose (``model``: a line, or
     the penalised spline when the spline won at most origins) on the candidate's baseline,
-    and records it in ``retest_model``."""
-    ff = forecast_frame(table, rid, did, lags)
+    and records it in ``retest_model``. ``extra``: more baselines' forecasts on the table's
+    years (the harmonic ones of a season response), also beaten by the candidate or not."""
+    ff = forecast_frame(table, rid, None, lags, driver_lags=xl[0])
     initial, holdout = backtest_windows(len(ff.years), screen.get("validation", {}))
     hyp.update(oos_initial=initial, oos_n=max(0, len(ff.years) - initial))
     if len(ff.years) - initial < MIN_FORECASTS:
         return None, None, too_few_forecasts(len(ff.years), initial)
-    X = np.stack([shift_batch(batch, k)[:, ff.rows] for k in lags], axis=1)  # (S, L, T)
+    X = xl[:, :, ff.rows]  # (S, L, T)
     models = tuple(m for m in ("linear", "gam") if m in screen["models"])
     w = None
     if screen.get("weights") == "inverse-variance" and response_se is not None:
@@ -331,9 +355,14 @@ def _out_of_sample(hyp: dict, table, rid, did, lags, batch, screen, response_se)
     ro = rolling_origin(ff.y, ff.ylag, ff.years, X, np.asarray(lags), initial, models=models, weights=w)
     hyp.update(_backtest_summary(ro))
     ms = ro.min_skill
+    if extra:
+        ms = _extra_baselines(hyp, ro, extra, table.index.to_numpy())
+    did = hyp["driver"]
     null = pd.DataFrame({"response": rid, "driver": did, "test": "out-of-sample",
                          "statistic": "skill vs hardest baseline", "value": ms[1:], "observed": ms[0]})
     fc = _forecast_table(ro, rid, did)
+    for name, f in (extra or {}).items():
+        fc[f"baseline_{name}"] = f[np.searchsorted(table.index.to_numpy(), ro.years)]
     fc["extrapolated"] = _extrapolated(X[0], ro.candidate_lag[0], np.asarray(lags), initial)
     if len(ff.years) - holdout >= max(10, initial // 2):
         rt = retest(ff.y, ff.ylag, ff.years, X[0], np.asarray(lags), holdout, ro.candidate, weights=w,
@@ -344,6 +373,30 @@ def _out_of_sample(hyp: dict, table, rid, did, lags, batch, screen, response_se)
     reason = None if np.isfinite(hyp["oos_skill"]) else (
         "out-of-sample skill is undefined: a baseline forecasts the response without error")
     return fc, null, reason
+
+
+def _extra_baselines(hyp: dict, ro: RollingOriginResult, extra: dict, years: np.ndarray) -> np.ndarray:
+    """The candidate's skill against further baselines (``extra``: forecasts on ``years``) in
+    ``oos_skill_<name>``; where one is harder than the backtest's hardest it becomes the hardest
+    (``oos_skill``, ``oos_hardest``, ``oos_p`` by Diebold-Mariano with the HLN correction: the
+    candidate is not nested in it) and ``oos_p_surrogate`` is taken against it. Returns the
+    skill against the hardest baseline of every batch member, (S,)."""
+    ms = ro.min_skill
+    mse_c = np.mean((ro.observed[None, :] - ro.candidate_forecast) ** 2, axis=-1)
+    for name, f in extra.items():
+        fb = f[np.searchsorted(years, ro.years)]
+        if not np.all(np.isfinite(fb)):
+            hyp[f"oos_skill_{name}"] = np.nan
+            continue
+        sk = skill_score(mse_c, np.mean((ro.observed - fb) ** 2))
+        hyp[f"oos_skill_{name}"] = float(sk[0])
+        if sk[0] < ms[0]:
+            hyp.update(oos_skill=float(sk[0]), oos_hardest=name,
+                       oos_p=diebold_mariano(ro.observed - ro.candidate_forecast[0], ro.observed - fb).p_value,
+                       oos_test="diebold-mariano")
+        ms = np.minimum(ms, sk)
+    hyp["oos_p_surrogate"] = surrogate_p(ms)
+    return ms
 
 
 def too_few_forecasts(usable: int, initial: int) -> str:

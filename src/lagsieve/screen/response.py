@@ -43,12 +43,12 @@ def failure_words(exc: BaseException) -> str:
     return words if isinstance(exc, NUMERICAL) else f"{type(exc).__name__}: {words}"
 
 
-def _screen_one(table, response, driver, lags, screen, se):
+def _screen_one(table, response, driver, lags, screen, se, season=None):
     """screen_hypothesis with any failure turned into a ``failed: <reason>`` row: one
     hypothesis never stops the others (the traceback goes to the job's log)."""
     rid = response["id"]
     try:
-        return screen_hypothesis(table, response, driver, lags, screen, se)
+        return screen_hypothesis(table, response, driver, lags, screen, se, season)
     except Exception as exc:  # noqa: BLE001 - recorded in the row's status, the stage goes on
         if not isinstance(exc, NUMERICAL):
             traceback.print_exc(file=sys.stderr)
@@ -100,18 +100,19 @@ def _concat(frames: list[pd.DataFrame], columns: list[str] | None = None) -> pd.
 
 
 def screen_response(table: pd.DataFrame, study, response_id: str, se_table: pd.DataFrame | None = None,
-                    workers: int = 1) -> ResponseScreen:
+                    workers: int = 1, season=None) -> ResponseScreen:
     """Screen one response against every driver configured for it.
 
     A numerical failure inside one hypothesis is recorded in its row's ``status`` and the
     rest of the response is still screened. With ``workers > 1`` the drivers are screened in
     that many processes; every random draw is keyed by the driver
     (:func:`lagsieve.screen.hypothesis.driver_rng`), so the results are identical to a
-    sequential run.
+    sequential run. ``season``: the :class:`lagsieve.screen.seasonal.SeasonScreen` of a season
+    response (config ``by_season``).
     """
     response = next(r for r in study.responses if r["id"] == response_id)
     se = None if se_table is None or response_id not in se_table else se_table[response_id].to_numpy(float)
-    tasks = [(table, response, d, study.lags_for(d), study.screen, se) for d in study.drivers_for(response_id)]
+    tasks = [(table, response, d, study.lags_for(d), study.screen, se, season) for d in study.drivers_for(response_id)]
     progress = _Progress(response_id, len(tasks))
     if workers > 1 and len(tasks) > 1:
         results = _run_parallel(tasks, table, workers, progress)

@@ -20,6 +20,7 @@ from lagsieve.prep.annual import to_annual
 from lagsieve.prep.budget import budget_problems
 from lagsieve.prep.checks import (backtest_warnings, check_positive, series_warnings, state_space_warnings,
                                   unscreenable_responses)
+from lagsieve.prep.seasons import study_season_problems
 from lagsieve.stages.common import condition_table, raise_any
 
 
@@ -45,7 +46,8 @@ def check_study(config_path: str | Path, condition: str | Path | list | None = N
     warnings = list(more) + warnings
     unused = {n for w in warnings if isinstance(w, UnusedSeries) for n in w.names}
     present = set(long["series"].unique())
-    raise_any(_absent_series(study, present | cond_ids, unused) + _condition_clashes(study, cond_ids, present | unused))
+    raise_any(_absent_series(study, present | cond_ids, unused) + _condition_clashes(study, cond_ids, present | unused)
+              + study_season_problems(study, long, present | cond_ids))
     table = condition_table(condition)
     if table is not None:
         long = pd.concat([long, input_frame(table, cond_ids & series)],
@@ -132,7 +134,7 @@ def _absent_series(study: Study, present: set[str], others: set[str] = frozenset
     found = present | others
     for role, items in (("responses", study.responses), ("drivers", study.drivers), ("controls", study.controls)):
         for i, s in enumerate(items):
-            if s["id"] not in present and (role != "controls" or s["id"] != YEAR_CONTROL):
+            if s["id"] not in present and (role != "controls" or s["id"] != YEAR_CONTROL) and not s.get("season_of"):
                 problems.append(InputProblem(
                     what="no input file holds this series",
                     fix=f"check the id or add its file to inputs ({suggest(s['id'], found, 'series')})",

@@ -23,8 +23,8 @@ from lagsieve.prep.align import annual_table
 SCREEN_COLUMNS = ["response", "driver", "lag", "model", "n", "first_year", "last_year", "r", "p_naive",
                   "n_eff", "p_adjusted", "r_detrended", "p_detrended", "r_diff", "p_differenced",
                   "trend_p_response", "trend_p_driver", "driver_trend_r2", "slope", "slope_se",
-                  "p_surrogate_lag", "edf", "deviance_explained", "p_smooth", "shape", "status"]
-EVIDENCE_COLUMNS = ["response", "driver", "category", "expected_sign", "lag", "model", "n", "first_year",
+                  "p_surrogate_lag", "edf", "deviance_explained", "p_smooth", "shape", "season", "lag_unit", "status"]
+EVIDENCE_COLUMNS = ["response", "driver", "category", "expected_sign", "season", "lag", "lag_unit", "model", "n", "first_year",
                     "last_year", "r", "p_naive", "n_eff", "p_adjusted", "r_detrended", "p_detrended", "r_diff",
                     "p_differenced", "trend_p_response", "trend_p_driver", "driver_trend_r2",
                     "slope", "slope_se", "slope_ci_low", "slope_ci_high", "r_ci_low", "r_ci_high",

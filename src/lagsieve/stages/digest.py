@@ -47,8 +47,9 @@ def screen_settings(study: Study, response: str) -> dict:
     rid = {slug(r): r for r in study.response_ids}.get(response, response)
     mine = {d["id"] for d in study.drivers_for(rid)}
     raw = {k: v for k, v in evidence_settings(study).items() if k not in EVIDENCE_ONLY_TOP}
+    own = {rid, study.season_of(rid)}  # a season response reads the response it comes from
     raw["responses"] = [_without(r, PRESENTATION + EVIDENCE_ONLY_RESPONSE) for r in raw["responses"]
-                        if r["id"] == rid]
+                        if r["id"] in own]
     raw["drivers"] = [_without(d, PRESENTATION) for d in raw["drivers"] if d["id"] in mine]
     raw.pop("controls", None)  # read by the evidence stage only
     if isinstance(raw.get("screen"), dict):

@@ -12,6 +12,7 @@ from lagsieve.evidence.grading import finish_evidence, grade_hypotheses
 from lagsieve.evidence.joint import JOINT_COLUMNS, JOINT_GROUP_COLUMNS, joint_qvalues, joint_table
 from lagsieve.evidence.models import MODEL_COLUMNS, model_table
 from lagsieve.evidence.rivals import CONDITIONAL_COLUMNS, cap_by_rivals, conditional_table
+from lagsieve.evidence.seasons import read_paired, resummarize, season_view
 from lagsieve.evidence.stability import WINDOW_COLUMNS, add_stability
 from lagsieve.evidence.statespace import add_state_space
 from lagsieve.io.config import YEAR_CONTROL, Study, load_study
@@ -67,23 +68,27 @@ def run_evidence(config_path, annual_csv, work_dir, out_screen, out_evidence) ->
     hyps = pd.concat([pd.read_csv(d / "hypotheses.csv") for d in dirs.values()], ignore_index=True)
     scr = pd.concat([pd.read_csv(d / "screen.csv") for d in dirs.values()], ignore_index=True)
     joint, joint_groups, families = joint_table(study, table)  # config `joint`: groups of a series together
-    graded = grade_hypotheses(hyps, table, study.screen, families)
     lags = {d["id"]: study.lags_for(d) for d in study.drivers}
+    view = season_view(hyps, read_paired(dirs.values()), table, study.drivers, lags, study.responses + study.drivers)
+    hyps, table = view.hypotheses, view.table  # monthly drivers of season responses at their lag in seasons
+    graded = grade_hypotheses(hyps, table, study.screen, families)
     table = with_controls(study, table)
-    cond = by_response(graded, study, lambda ev, c: conditional_table(ev, table, study.drivers, lags, study.screen, c),
-                       CONDITIONAL_COLUMNS)
+    cond = by_response(graded, study, lambda ev, c: conditional_table(ev, table, view.drivers, view.lags, study.screen,
+                                                                      c), CONDITIONAL_COLUMNS)
     ev, windows = add_stability(cap_by_rivals(graded, cond), table, study.screen)  # break test, flag unstable
-    ev = finish_evidence(ev, table, study.screen, study.responses + study.drivers)
+    ev = finish_evidence(ev, table, study.screen, view.series)
     annual = pd.read_csv(annual_csv)
     se = se_table(annual, study.transforms())
     ev = add_state_space(ev, table, se, study.screen)
     nulls = pd.concat([pd.read_csv(d / "nulls.csv") for d in dirs.values()], ignore_index=True)
     ev = add_estimates(ev, study, table, annual, nulls, se)  # a response's draws and vintages
+    models = by_response(ev, study, lambda e, c: model_table(e, table, study.screen, c), MODEL_COLUMNS)
+    ev = resummarize(view.restore(ev, {"lag": "driver"}), study.screen, view.series)  # driver ids, lags in seasons
+    cond = view.restore(cond, {"driver_lag": "driver", "competitor_lag": "competitor", "partial_lag": "driver"})
     write_csv(ordered(scr, SCREEN_COLUMNS), out_screen)
     write_csv(ordered(ev, EVIDENCE_COLUMNS), out_evidence)
     write_csv(cond, Path(out_evidence).with_name("conditional.csv"))  # beside evidence.csv
-    write_csv(ordered(windows, WINDOW_COLUMNS), Path(out_evidence).with_name("windows.csv"))
-    models = by_response(ev, study, lambda e, c: model_table(e, table, study.screen, c), MODEL_COLUMNS)
-    write_csv(models, Path(out_evidence).with_name("models.csv"))
+    write_csv(ordered(view.restore(windows, {"lag": "driver"}), WINDOW_COLUMNS), Path(out_evidence).with_name("windows.csv"))
+    write_csv(view.restore(models, {"lags": "drivers"}), Path(out_evidence).with_name("models.csv"))
     write_csv(ordered(joint_qvalues(joint, graded, families), JOINT_COLUMNS), Path(out_evidence).with_name("joint.csv"))
     write_csv(ordered(joint_groups, JOINT_GROUP_COLUMNS), Path(out_evidence).with_name("joint_groups.csv"))
