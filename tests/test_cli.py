@@ -24,7 +24,7 @@ def _hashes(folder: Path) -> dict:
 def test_init_then_check_ok(study):
     proc = lagsieve("check", study)
     assert proc.returncode == 0, proc.stderr
-    assert "ok: study 'caldrin_shelf_demo': 6 responses, 9 drivers" in proc.stdout
+    assert "ok: study 'caldrin_shelf_demo': 6 responses, 10 drivers" in proc.stdout
 
 
 def test_init_refuses_existing(study):

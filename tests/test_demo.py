@@ -114,7 +114,7 @@ def test_streams_are_independent(monkeypatch, data):
 
 def test_written_values_are_the_sum_of_the_parts(data):
     c = data.components
-    parts = c["baseline"] + c["trend"] + c["prey"] + c["temperature"] + c["noise"]
+    parts = c["baseline"] + c["trend"] + c["prey"] + c["temperature"] + c["cold_pool"] + c["noise"]
     np.testing.assert_array_equal(np.round(parts.to_numpy(), 4), c["value"].to_numpy())
     np.testing.assert_array_equal(c["value"].to_numpy(), data.mortality["value"].to_numpy())
     assert (data.mortality["value"] > 0).all()
@@ -132,11 +132,44 @@ def test_prey_effect_is_the_stated_hockey_stick(data):
         np.testing.assert_allclose(prey, beta * shortfall, rtol=1e-12, atol=0)
 
 
+def test_cold_pool_effect_switches_off_after_the_regime_shift(data):
+    """cold part = delta * (cold pool - its mean over the driver years) up to 2004, exactly 0
+    from 2005 on, and 0 in every year for the two younger groups (TRUTH.md's equation)."""
+    cold = data.drivers.set_index("year")["cold_pool_extent"]
+    dev = cold.reindex(world.RESPONSE_YEARS).to_numpy() - cold.mean()
+    before = world.RESPONSE_YEARS <= 2004
+    assert before.sum() == 20 and world.PARAMETERS["cold_pool"]["last_year"] == 2004
+    for rid, delta in (("m:age2", 0.0), ("m:age3-4", 0.0), ("m:age5plus", 0.013)):
+        part = data.components.loc[data.components["response"] == rid, "cold_pool"].to_numpy()
+        np.testing.assert_allclose(part, np.where(before, delta * dev, 0.0), rtol=1e-12, atol=0)
+    part = data.components.loc[data.components["response"] == "m:age5plus", "cold_pool"].to_numpy()
+    assert np.all(part[~before] == 0.0) and part[before].std() > 0.08  # about 4.5 times the noise sd (0.022)
+
+
+def test_cold_pool_stream_leaves_everything_else_alone(monkeypatch, data):
+    """The cold pool was added later from a stream of its own: another draw of it changes the
+    cold pool and M of ages 5+ in 1985-2004 only (every other driver, every other group and the
+    later years of ages 5+ are as they were)."""
+    params = {k: dict(v) for k, v in world.PARAMETERS.items()}
+    params["cold_pool"]["innov_sd"] = 4.0
+    monkeypatch.setattr(world, "PARAMETERS", params)
+    changed = world.simulate_demo()
+    others = [c for c in data.drivers.columns if c != "cold_pool_extent"]
+    pd.testing.assert_frame_equal(changed.drivers[others], data.drivers[others], check_exact=True)
+    assert not np.array_equal(changed.drivers["cold_pool_extent"], data.drivers["cold_pool_extent"])
+    old, new = (d.mortality.set_index(["group", "year"])["value"] for d in (data, changed))
+    moved = old.index[old.to_numpy() != new.to_numpy()]
+    assert set(moved.get_level_values("group")) == {"age5plus"}
+    assert moved.get_level_values("year").max() <= 2004 and len(moved) >= 15
+
+
 def test_truth_table(data):
     tt = data.truth
     effects = tt[tt["true_effect"]]
     assert sorted(zip(effects["driver"], effects["response"], effects["lag"])) == [
-        ("bottom_temp", "m:age2", 0), ("forage_biomass", "m:age3-4", 1), ("forage_biomass", "m:age5plus", 1)]
+        ("bottom_temp", "m:age2", 0), ("cold_pool_extent", "m:age5plus", 0), ("forage_biomass", "m:age3-4", 1),
+        ("forage_biomass", "m:age5plus", 1)]
+    assert effects.set_index("driver").loc["cold_pool_extent", "shape"] == "linear up to 2004, none after"
     assert len(tt) == len(world.RESPONSE_IDS) * len(world.DRIVER_IDS)
 
 
@@ -158,7 +191,8 @@ def test_association_check_against_scipy(data):
     table = annual_as_written(data)
     y_all = data.mortality[data.mortality["group"] == "age5plus"].set_index("year")["value"]
     row = chk.loc[("m:age5plus", "forage_biomass")]
-    assert row["detrended_lag"] == 1 and row["detrended_r"] < -0.7
+    # -0.80 before the cold pool's effect (1985-2004) entered M of ages 5+; -0.53 with it
+    assert row["detrended_lag"] == 1 and row["detrended_r"] < -0.5
     x = table["forage_biomass"].reindex(y_all.index - 1).to_numpy()
     ok = np.isfinite(x)
     t, y, x = y_all.index.to_numpy()[ok].astype(float), y_all.to_numpy()[ok], x[ok]
@@ -184,3 +218,7 @@ def test_truth_markdown_states_the_truth(data):
     der = data.parameters["derived"]
     assert f"mean(spring_temp) = {der['spring_temperature_mean']:.4f} deg C" in text
     assert "it should rank below `forage_biomass`.\n" in text and "for `kn:young` (ages 1-2), no driver." in text
+    # the switch and what the joint screen should say
+    assert "* [t <= 2004]" in text and "| `m:age5plus` | 0.24 | +0.20 | 0.32 | 0.000 | 0.013 |" in text
+    assert "break year within a few years of 2005" in text
+    assert '`forage_biomass` as "stronger in older fish"' in text and '`bottom_temp` as "age2 only"' in text

@@ -263,8 +263,11 @@ def test_study_qvalues_use_the_families():
 
 
 def _with_joint(cfg, joint) -> None:
+    """Set the config's ``joint`` (None: leave the key out; the demo's config has ``joint: [m]``)."""
     raw = yaml.safe_load(cfg.read_text())
     raw["joint"] = joint
+    if joint is None:
+        raw.pop("joint")
     cfg.write_text(yaml.safe_dump(raw, sort_keys=False))
 
 
@@ -320,6 +323,7 @@ def test_joint_reruns_the_evidence_not_the_screens(new_study):
     stage's settings digest and no screen's (common practice: incremental reruns)."""
     from lagsieve.stages.digest import settings_digest
 
+    _with_joint(new_study, None)
     before = load_study(new_study)
     _with_joint(new_study, ["m"])
     after = load_study(new_study)

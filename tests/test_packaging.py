@@ -222,7 +222,7 @@ def test_installed_tool_runs_a_study_from_anywhere(installed):
 
     check = installed.lagsieve("check", cfg)
     assert check.returncode == 0, check.stderr
-    assert "ok: study 'caldrin_shelf_demo': 6 responses, 9 drivers" in check.stdout
+    assert "ok: study 'caldrin_shelf_demo': 6 responses, 10 drivers" in check.stdout
 
     dry = installed.lagsieve("run", cfg, "--cores", "2", "--", "--dry-run")
     assert dry.returncode == 0, dry.stdout[-3000:] + dry.stderr[-3000:]

@@ -33,10 +33,10 @@ def test_screen_contract(demo_run):
     sc = pd.read_csv(out / "screen.csv")
     assert set(CONTRACT_SCREEN) <= set(sc.columns)
     assert list(sc.columns[: len(SCREEN_COLUMNS)]) == SCREEN_COLUMNS
-    # 6 responses (M of three age groups, three condition series) x 9 drivers; lags per driver from
-    # the config (bottom_temp 3, climate 5, others 4)
+    # 6 responses (M of three age groups, three condition series) x 10 drivers; lags per driver from
+    # the config (bottom_temp 3, climate 5, cold pool 2, others 4)
     per_model = sc.groupby("model").size()
-    assert per_model["linear"] == 6 * (7 * 4 + 3 + 5)
+    assert per_model["linear"] == 6 * (7 * 4 + 3 + 5 + 2)
     assert per_model["gam"] == per_model["linear"]
     assert sc.loc[sc.model == "gam", "edf"].between(1.0, 12.0).all()
     lin = sc[sc.model == "linear"]
@@ -48,7 +48,7 @@ def test_evidence_contract_and_vocabulary(demo_run):
     ev = pd.read_csv(out / "evidence.csv")
     assert set(CONTRACT_EVIDENCE) <= set(ev.columns)
     assert list(ev.columns[: len(EVIDENCE_COLUMNS)]) == EVIDENCE_COLUMNS
-    assert len(ev) == 54
+    assert len(ev) == 60  # 6 responses x 10 drivers
     assert set(ev.grade) <= set(GRADES)
     codes = {c for f in ev["flags"].dropna() for c in f.split(";")}
     assert codes <= set(FLAGS)

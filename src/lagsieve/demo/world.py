@@ -5,11 +5,13 @@ surveys, the assessment model and every number are made up by this module from a
 describe no real stock, place, survey or agency.
 
 The study is built to test a driver screen honestly. Its responses are the natural mortality
-M of three age groups of the invented predator; its nine candidate drivers include two true
+M of three age groups of the invented predator; its ten candidate drivers include three true
 effects and seven decoys:
 
 * a true lagged, threshold-shaped (hockey-stick) prey effect on the two older groups;
 * a true linear spring-temperature effect on the youngest group only;
+* a true linear cold-pool effect on the oldest group that switches off after an invented regime
+  shift halfway through the record (present 1985-2004, zero from 2005);
 * decoys that share the upward trend of M (a trend-only index, a logistic predator rise,
   a random-walk climate index), decoys collinear with a true driver (oxygen with
   temperature, a second prey index with the true prey), a hump-shaped fishing mortality and
@@ -56,12 +58,12 @@ GROUPS = ("age2", "age3-4", "age5plus")
 
 #: Every parameter of the generating equations (TRUTH.md is written from this table).
 PARAMETERS: dict[str, dict[str, float]] = {
-    # Natural mortality M_g(t) = base_g + trend_g * (t - 1985) / 39 + prey_g + temp_g + e_g(t)
-    "m:age2": {"base": 0.38, "trend": 0.16, "prey_beta": 0.0, "temp_gamma": 0.060,
+    # Natural mortality M_g(t) = base_g + trend_g * (t - 1985) / 39 + prey_g + temp_g + cold_g + e_g(t)
+    "m:age2": {"base": 0.38, "trend": 0.16, "prey_beta": 0.0, "temp_gamma": 0.060, "cold_delta": 0.0,
                "noise_phi": 0.40, "noise_sd": 0.022},
-    "m:age3-4": {"base": 0.28, "trend": 0.14, "prey_beta": 0.12, "temp_gamma": 0.0,
+    "m:age3-4": {"base": 0.28, "trend": 0.14, "prey_beta": 0.12, "temp_gamma": 0.0, "cold_delta": 0.0,
                  "noise_phi": 0.40, "noise_sd": 0.024},
-    "m:age5plus": {"base": 0.24, "trend": 0.20, "prey_beta": 0.32, "temp_gamma": 0.0,
+    "m:age5plus": {"base": 0.24, "trend": 0.20, "prey_beta": 0.32, "temp_gamma": 0.0, "cold_delta": 0.013,
                    "noise_phi": 0.40, "noise_sd": 0.022},
     # Forage fish biomass index (kt): log F = mu + AR(1) + dips; threshold of the M effect.
     "forage": {"log_mean": float(np.log(120.0)), "phi": 0.55, "innov_sd": 0.28,
@@ -89,6 +91,10 @@ PARAMETERS: dict[str, dict[str, float]] = {
                 "noise_sd": 0.08},
     # Zooplankton index: log Z = mu + AR(1) (pure noise decoy).
     "zooplankton": {"log_mean": float(np.log(15.0)), "phi": 0.60, "innov_sd": 0.25},
+    # Summer cold-pool extent (1000 km2): mean + AR(1), no trend; its effect on M (cold_delta per
+    # 1000 km2 above the mean, same year) holds up to last_year, the invented regime shift, and is
+    # zero after it.
+    "cold_pool": {"mean": 42.0, "phi": 0.35, "innov_sd": 9.0, "last_year": 2004},
     # Assessment standard errors: se = M * cv, cv ~ Uniform(cv_low, cv_high).
     "assessment": {"cv_low": 0.07, "cv_high": 0.13},
 }
@@ -117,7 +123,7 @@ class DemoData:
         one row per response x driver: whether the driver truly affects the response, at
         which lag, with which shape and size, and the driver's role.
     components:
-        ``response, year, baseline, trend, prey, temperature, noise, value``: the additive
+        ``response, year, baseline, trend, prey, temperature, cold_pool, noise, value``: the additive
         parts of every M value (value = sum of the parts, rounded as written).
     drivers:
         the annual driver values the equations used (``year`` plus one column per driver,
@@ -163,6 +169,8 @@ DRIVERS = (
      "Fishing mortality F, ages 3-6", "per year"),
     ("shelf_climate_index", "climate", "any", "none", "indices_long.csv",
      "Shelf climate index", "index"),
+    ("cold_pool_extent", "temperature", "positive", "none", "indices_long.csv",
+     "Summer cold-pool extent (bottom water below 2 deg C)", "1000 km2"),
 )
 DRIVER_IDS = tuple(d[0] for d in DRIVERS)
 RESPONSE_IDS = tuple(f"m:{g}" for g in GROUPS)
@@ -170,9 +178,11 @@ RESPONSE_IDS = tuple(f"m:{g}" for g in GROUPS)
 #: ``default_rng(seed)``. This order was picked once, among 40 orders, so that the realisation
 #: at the default seed has no large chance correlation between a decoy and a response (the
 #: largest detrended |r| of a decoy is about 0.25); TRUTH.md says so and prints the check.
-#: Other seeds give other realisations, where decoys can show chance associations.
+#: Other seeds give other realisations, where decoys can show chance associations. The cold
+#: pool came later: its stream is spawned last, so every earlier stream is the child it was
+#: and every other driver's series is unchanged.
 _STREAMS = ("shrimp", "m:age3-4", "m:age5plus", "pinniped", "zooplankton", "forage",
-            "fishing", "jellyfish", "temperature", "climate", "m:age2", "oxygen")
+            "fishing", "jellyfish", "temperature", "climate", "m:age2", "oxygen", "cold_pool")
 
 
 def _ar1(rng: np.random.Generator, n: int, phi: float, innov_sd: float) -> np.ndarray:
@@ -294,6 +304,11 @@ def _zooplankton(rng: np.random.Generator, n: int, p: dict) -> np.ndarray:
     return np.round(np.exp(p["log_mean"] + _ar1(rng, n, p["phi"], p["innov_sd"])), 2)
 
 
+def _cold_pool(rng: np.random.Generator, n: int, p: dict) -> np.ndarray:
+    """Summer cold-pool extent: AR(1) around a level, no trend (its effect on M switches off)."""
+    return np.round(p["mean"] + _ar1(rng, n, p["phi"], p["innov_sd"]), 1)
+
+
 @dataclass(frozen=True)
 class _Drivers:
     """The simulated drivers: the annual table, the monthly temperature file, the whole
@@ -325,6 +340,7 @@ def _simulate_drivers(streams: dict[str, np.random.Generator]) -> _Drivers:
         "pinniped_abundance": _pinniped(streams["pinniped"], yrs, P["pinniped"]),
         "fishing_mortality": _fishing(streams["fishing"], yrs, P["fishing"]),
         "shelf_climate_index": climate[CLIMATE_YEARS >= yrs[0]],
+        "cold_pool_extent": _cold_pool(streams["cold_pool"], yrs.size, P["cold_pool"]),
     })
     return _Drivers(annual=annual, monthly=monthly, climate=climate, spring=spring,
                     dip_events=dip_events)
@@ -341,12 +357,15 @@ def _surveys_annual(annual: pd.DataFrame) -> pd.DataFrame:
 
 
 def _indices_long(drivers: _Drivers) -> pd.DataFrame:
-    """The long file of further indices (the climate index with its whole, older record)."""
+    """The long file of further indices (the climate index with its whole, older record; the
+    cold pool, added later, last, so the earlier rows are as they were)."""
     years = drivers.annual["year"].to_numpy()
     parts = [pd.DataFrame({"series": s, "year": years, "value": drivers.annual[s].to_numpy()})
              for s in ("zooplankton_index", "pinniped_abundance", "fishing_mortality")]
     parts.append(pd.DataFrame({"series": "shelf_climate_index", "year": CLIMATE_YEARS,
                                "value": drivers.climate}))
+    parts.append(pd.DataFrame({"series": "cold_pool_extent", "year": years,
+                               "value": drivers.annual["cold_pool_extent"].to_numpy()}))
     return pd.concat(parts, ignore_index=True)
 
 
@@ -355,11 +374,13 @@ def _indices_long(drivers: _Drivers) -> pd.DataFrame:
 @dataclass(frozen=True)
 class _Forcing:
     """What moves M in the response years: the 0-1 trend, the prey shortfall of the year
-    before (hockey stick below the threshold) and the spring temperature deviation."""
+    before (hockey stick below the threshold), the spring temperature deviation and the
+    cold-pool deviation from its mean up to the regime shift (zero after it)."""
 
     trend01: np.ndarray
     prey_shortfall: np.ndarray
     spring_dev: np.ndarray
+    cold_dev: np.ndarray
 
 
 def _forcing(drivers: _Drivers) -> _Forcing:
@@ -368,10 +389,13 @@ def _forcing(drivers: _Drivers) -> _Forcing:
     log_forage = np.log(drivers.annual["forage_biomass"].to_numpy())
     log_thr = float(np.log(PARAMETERS["forage"]["threshold"]))
     spring_mean = float(np.mean(drivers.spring))
+    cold = drivers.annual["cold_pool_extent"].to_numpy()
+    before_shift = ryrs <= PARAMETERS["cold_pool"]["last_year"]
     return _Forcing(
         trend01=(ryrs - ryrs[0]) / (ryrs[-1] - ryrs[0]),
         prey_shortfall=np.maximum(0.0, log_thr - log_forage[idx - 1]),
         spring_dev=drivers.spring[idx] - spring_mean - PARAMETERS["temperature"]["reference"],
+        cold_dev=np.where(before_shift, cold[idx] - float(np.mean(cold)), 0.0),
     )
 
 
@@ -385,9 +409,10 @@ def _response(rng: np.random.Generator, rid: str, forcing: _Forcing) -> pd.DataF
     trend = pr["trend"] * forcing.trend01
     prey = pr["prey_beta"] * forcing.prey_shortfall
     tmp = pr["temp_gamma"] * forcing.spring_dev
-    value = np.round(base + trend + prey + tmp + noise, 4)
+    cold = pr["cold_delta"] * forcing.cold_dev
+    value = np.round(base + trend + prey + tmp + cold + noise, 4)  # + 0.0 leaves a sum as it was
     return pd.DataFrame({"response": rid, "year": RESPONSE_YEARS, "baseline": base,
-                         "trend": trend, "prey": prey, "temperature": tmp,
+                         "trend": trend, "prey": prey, "temperature": tmp, "cold_pool": cold,
                          "noise": noise, "value": value})
 
 
@@ -425,6 +450,7 @@ ROLES = {
     "pinniped_abundance": "decoy: logistic rise",
     "fishing_mortality": "decoy: hump-shaped history",
     "shelf_climate_index": "decoy: random walk",
+    "cold_pool_extent": "true effect (ages 5+), switched off after a regime shift",
 }
 
 
@@ -444,6 +470,11 @@ def truth_table() -> pd.DataFrame:
             elif d == "bottom_temp" and pr["temp_gamma"] > 0:
                 effect, lag, shape = True, 0, "linear"
                 size = f"M rises by {pr['temp_gamma']:.3f} per deg C of spring temperature, same year"
+            elif d == "cold_pool_extent" and pr["cold_delta"] > 0:
+                last = P["cold_pool"]["last_year"]
+                effect, lag, shape = True, 0, f"linear up to {last}, none after"
+                size = (f"M rises by {pr['cold_delta']:.3f} per 1000 km2 of cold pool above its mean, same "
+                        f"year, in {int(RESPONSE_YEARS[0])}-{last}; no effect from {last + 1} (regime shift)")
             rows.append({"response": rid, "driver": d, "true_effect": effect, "lag": lag,
                          "shape": shape, "size": size, "role": ROLES[d]})
     out = pd.DataFrame(rows)
@@ -462,7 +493,8 @@ def simulate_demo(seed: int = DEFAULT_SEED) -> DemoData:
     params = {k: dict(v) for k, v in PARAMETERS.items()}
     params["derived"] = {"spring_temperature_mean": float(np.mean(drivers.spring)),
                          "log_forage_threshold": float(np.log(PARAMETERS["forage"]["threshold"])),
-                         "forage_dips": drivers.dip_events}
+                         "forage_dips": drivers.dip_events,
+                         "cold_pool_mean": float(np.mean(drivers.annual["cold_pool_extent"]))}
     return DemoData(mortality=mortality, surveys_annual=_surveys_annual(drivers.annual),
                     indices_long=_indices_long(drivers),
                     bottom_temperature_monthly=drivers.monthly, truth=truth_table(),
