@@ -12,8 +12,11 @@ from pathlib import Path
 import pandas as pd
 import pytest
 import yaml
+from helpers import lagsieve
 
+from lagsieve.cli import main as cli_main
 from lagsieve.stages.batch import batch_problems, plan_batches
+from lagsieve.stages.plan import study_configs, write_run_config
 
 REPO = Path(__file__).resolve().parents[1]
 
@@ -56,12 +59,34 @@ def test_a_bad_batch_exits_with_status_2(capsys):
                      "from 1 to 2 (this run's studies; each job runs that many)"]
 
 
+@pytest.mark.parametrize("value, words", [("0", "0 studies per job"), ("3", "3 studies per job, but this run has 2"),
+                                          ("two", "two is not a whole number"), ("-1", "-1 is not a whole number")])
+def test_run_batch_option_bad_value_is_one_line_and_writes_nothing(new_study, tmp_path, capsys, value, words):
+    shutil.copytree(new_study.parent, tmp_path / "s2")
+    code = cli_main(["run", str(new_study), str(tmp_path / "s2"), "--batch", value, "--out", str(tmp_path / "res")])
+    lines = capsys.readouterr().err.strip().splitlines()
+    assert code == 2 and len(lines) == 1, lines
+    assert lines[0].startswith(f"--batch {value}: ") and words in lines[0] and "from 1 to 2" in lines[0], lines
+    assert not (tmp_path / "res").exists()
+
+
+def test_run_config_carries_the_studies_and_the_batch_to_the_plan(tmp_path):
+    from snakemake.common.configfile import load_configfile  # how Snakemake reads --configfile
+
+    configs = [tmp_path / "a, b" / "config.yaml", tmp_path / "c" / "config.yaml"]
+    config = load_configfile(str(write_run_config(configs, tmp_path / "out", tmp_path / "run.yaml", batch="1")))
+    assert study_configs(config) == [str(c) for c in configs]
+    assert plan_batches(config, dict.fromkeys(["x", "y"])) == {"0001": ["x"], "0002": ["y"]}
+    assert "batch" not in load_configfile(str(write_run_config(configs, tmp_path, tmp_path / "plain.yaml")))
+
+
 def _small_study(folder: Path, study_id: str) -> Path:
     """The demo study cut to one response and three drivers, 99 surrogates, linear, no PDF."""
     cfg = folder / "config.yaml"
     data = yaml.safe_load(cfg.read_text())
     data["study"] = study_id
     data.pop("condition", None)
+    data.pop("joint", None)  # one response left: no groups to screen jointly
     data["responses"] = data["responses"][:1]
     data["drivers"] = [d for d in data["drivers"] if "expected_sign_by_response" not in d][:3]
     data["screen"].update(surrogates=99, models=["linear"])
@@ -82,8 +107,9 @@ def _snakemake(root: Path, results: str, studies: list[Path], **config) -> subpr
 def test_a_batch_writes_what_the_stage_jobs_write_and_reruns_only_a_changed_study(new_study, tmp_path):
     shutil.copytree(new_study.parent, tmp_path / "s2")
     studies = [_small_study(new_study.parent, "one"), _small_study(tmp_path / "s2", "two")]
-    proc = _snakemake(tmp_path, "batched", studies, batch=2)
+    proc = lagsieve("run", *studies, "--batch", "2", "--out", tmp_path / "batched", "--cores", "2")  # the CLI's option
     assert proc.returncode == 0, proc.stderr[-3000:]
+    assert proc.stdout.count("results in ") == 2, proc.stdout
     record = tmp_path / "batched" / "batches" / "0001.json"
     assert [r["ran"] for r in yaml.safe_load(record.read_text())["studies"]] == [True, True]
     proc = _snakemake(tmp_path, "staged", studies)

@@ -27,6 +27,7 @@ import subprocess
 import sys
 import tempfile
 import threading
+from dataclasses import replace
 from pathlib import Path
 
 from jinja2 import TemplateNotFound
@@ -113,21 +114,25 @@ def cmd_check(args) -> int:
 
 
 def cmd_run(args, extra: list[str]) -> int:
-    """Check the study and its ledger, lock the results folder (:mod:`lagsieve.io.lock`), run
-    the workflow. Every refusal comes before anything is written under the results folder."""
+    """Check the studies and their ledgers, lock the results folder (:mod:`lagsieve.io.lock`),
+    run the workflow. Every refusal comes before anything is written under the results folder."""
     from lagsieve.ledger.store import check_ledger, resolve_ledger_path  # lazy: see the module docstring
 
     if args.cores < 1:
         return _err(f"--cores {args.cores}: a run needs at least one core; give --cores 1 or more "
                     f"(this machine has {os.cpu_count() or 1})")
     try:
-        study, *_ = _check(args.config)
-        cfg = Path(args.config).resolve()
-        out = Path(args.out).resolve() if args.out else cfg.parent / "results"
+        if args.batch is not None and _batch_problems(args.batch, len(args.config)):
+            raise InputErrors(_batch_problems(args.batch, len(args.config)))
+        studies = [_check(c)[0] for c in args.config]
+        cfgs = [Path(c).resolve() for c in args.config]
+        out = Path(args.out).resolve() if args.out else cfgs[0].parent / "results"
         check_folder(out, "the results folder cannot be made", RESULTS_FIX)
-        check_ledger(resolve_ledger_path(study, out / study.id))
-        lock = claim_results(out, shlex.join(["lagsieve", "run", str(cfg), "--out", str(out),
-                                              "--cores", str(args.cores), *extra]))
+        for study in studies:
+            check_ledger(resolve_ledger_path(study, out / study.id))
+        batch = [] if args.batch is None else ["--batch", str(args.batch)]
+        lock = claim_results(out, shlex.join(["lagsieve", "run", *map(str, cfgs), "--out", str(out),
+                                              "--cores", str(args.cores), *batch, *extra]))
     except InputErrors as exc:
         return report_problems(exc)
     with lock:
@@ -135,9 +140,17 @@ def cmd_run(args, extra: list[str]) -> int:
             print(f"note: the run that held {out} has stopped ({lock.took_over.describe()}); "
                   f"this run continues where it stopped", file=sys.stderr)
         try:
-            return _run_workflow(args, extra, study, cfg, out, lock)
+            return _run_workflow(args, extra, studies, cfgs, out, lock)
         except InputErrors as exc:
             return report_problems(exc)
+
+
+def _batch_problems(value: str, n_studies: int) -> list:
+    """What is wrong with ``--batch`` (:func:`lagsieve.stages.batch.batch_problems`), named by the
+    option rather than the config key."""
+    from lagsieve.stages.batch import batch_problems  # lazy: see the module docstring
+
+    return [replace(p, key=None, what=f"--batch {value}: {p.what}") for p in batch_problems(value, n_studies)]
 
 
 def _snakemake_locked(out: Path) -> bool:
@@ -208,7 +221,7 @@ def _wait_quietly(proc: subprocess.Popen) -> None:
             continue
 
 
-def _run_workflow(args, extra: list[str], study, cfg: Path, out: Path, lock) -> int:
+def _run_workflow(args, extra: list[str], studies: list, cfgs: list[Path], out: Path, lock) -> int:
     """Snakemake on the locked results folder ``out``: a stale Snakemake lock is cleared and
     the jobs a killed run left half done are redone, so a plain rerun continues a run."""
     from lagsieve.io.config import WORKFLOW  # lazy: see the module docstring
@@ -218,13 +231,13 @@ def _run_workflow(args, extra: list[str], study, cfg: Path, out: Path, lock) -> 
     dry = bool(DRY_RUN & set(extra))
     with tempfile.TemporaryDirectory(prefix="lagsieve-") as scratch:
         # a dry run writes nothing of the study: its run config goes to a scratch folder
-        work = Path(scratch) if dry else out / study.id / "work"
+        work = Path(scratch) if dry else out / studies[0].id / "work"
         if not dry:
             make_folder(work, "the study's results folder cannot be made", RESULTS_FIX)
         from lagsieve.pipeline import write_run_config  # lazy: see the module docstring
 
         # the paths go in a YAML file: `--config key=value` would cut a folder name at its commas
-        run_config = write_run_config(cfg, out, work / "run_config.yaml")
+        run_config = write_run_config(cfgs, out, work / "run_config.yaml", batch=args.batch)
         cmd = [sys.executable, "-m", "snakemake", "--snakefile", str(snakefile), "--configfile", str(run_config),
                "--directory", str(out), "--cores", str(args.cores), *extra]
         env = dict(os.environ)
@@ -237,7 +250,8 @@ def _run_workflow(args, extra: list[str], study, cfg: Path, out: Path, lock) -> 
                                 errors="replace")
         returncode = _wait(proc, lock)
     if returncode == 0 and not dry:
-        print(f"results in {out / study.id}")
+        for study in studies:
+            print(f"results in {out / study.id}")
     return returncode
 
 
@@ -257,7 +271,8 @@ EXAMPLES = {
     "init": ["lagsieve init mystudy", "lagsieve init ~/studies/shelf2025"],
     "check": ["lagsieve check mystudy", "lagsieve check mystudy/config.yaml"],
     "run": ["lagsieve run mystudy", "lagsieve run mystudy/config.yaml --cores 1 --out /scratch/results",
-            "lagsieve run mystudy -n    (a dry run: list the jobs, run none)"],
+            "lagsieve run mystudy -n    (a dry run: list the jobs, run none)",
+            "lagsieve run studies/*/config.yaml --batch 10 --out results    (10 studies per job)"],
     "ledger": ["lagsieve ledger mystudy", "lagsieve ledger mystudy/config.yaml --out /scratch/results"],
 }
 
@@ -284,12 +299,16 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("dir", help="the study folder: new, or one without config.yaml and data/ files of the same names")
     s = _sub(sub, "check", "validate a study config and every input file, listing every problem found")
     s.add_argument("config", help=CONFIG_HELP)
-    s = _sub(sub, "run", "check, then run the screening workflow for a study (options the tool does not know "
-                         "go to Snakemake)")
-    s.add_argument("config", help=CONFIG_HELP)
+    s = _sub(sub, "run", "check, then run the screening workflow for a study, or several in one run (options "
+                         "the tool does not know go to Snakemake)")
+    s.add_argument("config", nargs="+", help=CONFIG_HELP + "; several run together, their results side by side "
+                   "in one results folder")
+    s.add_argument("--batch", metavar="K", help="run the studies K at a time in one job each (every stage of a "
+                   "study in one process: Python's start and the imports paid once per K studies, for many small "
+                   "studies); K from 1 to the number of configs given (default: one job per stage)")
     s.add_argument("--cores", type=int, default=cores,
                    help=f"cores to use, 1 or more (default: all {cores} cores of this machine)")
-    s.add_argument("--out", help="results folder (default: results/ beside the config); one run at a time "
+    s.add_argument("--out", help="results folder (default: results/ beside the (first) config); one run at a time "
                    "writes there: a second is refused while the first lives")
     s.add_argument("--resume", action="store_true",
                    help="not needed any more: a plain rerun after an interrupted run continues it (it clears "
@@ -306,7 +325,9 @@ def main(argv: list[str] | None = None) -> int:
     args, extra = parser.parse_known_args(argv)
     if extra and args.command != "run":
         parser.error(f"unrecognised arguments: {' '.join(extra)}")
-    if hasattr(args, "config"):
+    if isinstance(getattr(args, "config", None), list):  # run: one or more
+        args.config = [config_path(c) for c in args.config]
+    elif hasattr(args, "config"):
         args.config = config_path(args.config)
     try:
         return _dispatch(args, extra)

@@ -21,13 +21,8 @@ from types import SimpleNamespace
 from lagsieve.errors import InputErrors, InputProblem, report_problems, show
 from lagsieve.io.files import sha256_file, sha256_text, write_json
 from lagsieve.io.provenance import tool_version
-from lagsieve.ledger.update import update_ledger
 from lagsieve.stages.common import logged
-from lagsieve.stages.condition import run_condition
-from lagsieve.stages.evidence import run_align, run_evidence
 from lagsieve.stages.plan import PlannedStudy
-from lagsieve.stages.report import run_report
-from lagsieve.stages.screen import run_screen
 
 CONDITION_OUTPUTS = ("condition.csv", "condition_sensitivity.csv", "work/condition_fish.csv", "work/condition_fit.json")
 
@@ -76,6 +71,15 @@ def _log(folder: Path, name: str) -> SimpleNamespace:
 def run_study(planned: PlannedStudy, out: Path, threads: int = 1) -> None:
     """Every stage of one study, writing what the per-stage jobs write, each stage's log where
     its job's log goes."""
+    # imported here, not at the top: the Snakefile imports this module when it plans a run
+    # (plan_batches), and the stages' imports (matplotlib, pandas, scipy) cost every run's
+    # planning about 1.9 s of CPU (python -X importtime); a batch job pays them once, here
+    from lagsieve.ledger.update import update_ledger
+    from lagsieve.stages.condition import run_condition
+    from lagsieve.stages.evidence import run_align, run_evidence
+    from lagsieve.stages.report import run_report
+    from lagsieve.stages.screen import run_screen
+
     cfg, d = planned.config_path, out / planned.study.id
     condition = [] if planned.condition is None else [str(d / "condition.csv")]
     if condition:

@@ -52,16 +52,21 @@ def study_configs(config: dict, default: str = "config/config.yaml") -> list[str
     return [p for p in value.split(",") if p]
 
 
-def write_run_config(study_config: str | Path, out: str | Path, path: str | Path) -> Path:
-    """Write the workflow's config for one study to ``path`` (a YAML file that `lagsieve run`
-    hands to Snakemake with ``--configfile``) and return ``path``.
+def write_run_config(study_config: str | Path | list, out: str | Path, path: str | Path,
+                     batch: int | str | None = None) -> Path:
+    """Write the workflow's config for one study, or a list of them, to ``path`` (a YAML file
+    that `lagsieve run` hands to Snakemake with ``--configfile``) and return ``path``; ``batch``:
+    studies per job (``batch: K``, :mod:`lagsieve.stages.batch`), none when None.
 
     Values given with ``--config key=value`` are cut at commas (``study_config``), stripped of
     quotes and read as YAML (``a: b`` becomes a mapping, `` #x`` a comment); in a YAML file the
     paths come back exactly, whatever the folders are called (commas, spaces, colons, unicode).
     """
-    text = yaml.safe_dump({"studies": [str(study_config)], "out": str(out)}, allow_unicode=True,
-                          default_style='"', width=float("inf"))
+    configs = study_config if isinstance(study_config, list) else [study_config]
+    run = {"studies": [str(c) for c in configs], "out": str(out)}
+    if batch is not None:
+        run["batch"] = int(str(batch).strip())
+    text = yaml.safe_dump(run, allow_unicode=True, default_style='"', width=float("inf"))
     write_text(text, path)
     return Path(path)
 
