@@ -150,7 +150,19 @@ def methods_facts(ctx: Context) -> dict:
             "fdr": sc["fdr"], "alpha": sc["alpha"], "inverse_variance": sc.get("weights") == "inverse-variance",
             "seed": sc["seed"], "condition": _condition_facts(ctx), "grade_rules": list(GRADE_RULES.items()),
             "rivals": ctx.rivals is not None, "controls": _control_facts(ctx), "breaks": _break_facts(ctx), "state_space": _state_space_facts(ctx), "joint": _joint_facts(ctx),
-            **_estimate_facts(ctx)}
+            "seasons": _season_facts(ctx), **_estimate_facts(ctx)}
+
+
+def _season_facts(ctx: Context) -> dict | None:
+    """What the methods text says of the seasonal screen (``by_season``); None without it."""
+    parts = [r for r in ctx.study.responses if r.get("season_of")]
+    if not parts:
+        return None
+    ev = ctx.evidence
+    n = int(ev["season"].notna().sum()) if "season" in ev else 0
+    return {"responses": [ctx.label(r) for r in dict.fromkeys(p["season_of"] for p in parts)],
+            "seasons": [{"name": name, "months": list(months)} for name, months in ctx.study.seasons.items()],
+            "lags": list(ctx.study.screen["season_lags"]), "n": n}
 
 
 def _control_facts(ctx: Context) -> list[str]:
