@@ -23,6 +23,7 @@ from helpers import lagsieve, run_study
 from lagsieve.evidence.seasons import SeasonView, alias, season_view
 from lagsieve.io.config import load_study
 from lagsieve.io.tables import FRAME_COLUMNS
+from lagsieve.ledger.update import grade_rows
 from lagsieve.prep.seasons import Seasons, season_axis, season_frame, season_lagged
 from lagsieve.report.render import render
 from lagsieve.stages.digest import settings_digest
@@ -286,3 +287,10 @@ def test_the_summary_says_in_which_seasons_an_effect_is_found():
     assert "found in all seasons" in said(["winter", "spring", "summer", "autumn"])
     assert "found in spring, summer and autumn" in said(["spring", "summer", "autumn"])
     assert "Found in no season: Temperature." in said(["spring"])
+
+
+def test_the_ledger_makes_no_next_year_forecast_from_a_lag_in_seasons():
+    ev = pd.DataFrame({"response": ["cond", "cond-spring"], "driver": ["prey", "prey"], "lag": [1, 2],
+                       "lag_unit": [None, "season"], "grade": ["moderate", "strong"]})
+    rows = grade_rows(ev).set_index("response")
+    assert rows.loc["cond", "lag"] == 1 and pd.isna(rows.loc["cond-spring", "lag"])

@@ -79,7 +79,11 @@ GRADE_COLUMNS = {"response": ("response", _str), "driver": ("driver", _str), "gr
 def grade_rows(evidence: pd.DataFrame) -> pd.DataFrame:
     """The per-hypothesis part of evidence.csv that the ledger keeps (and whose change makes a
     new run), sorted by response and driver. Column ``baseline`` is evidence's ``oos_baseline``,
-    the baseline the candidate used most often: the forecast is this baseline plus the driver."""
+    the baseline the candidate used most often: the forecast is this baseline plus the driver.
+    A lag in seasons (a monthly driver of a season response) is kept out: the ledger forecasts
+    from the annual table, in which the driver has no value per season."""
+    if "lag_unit" in evidence and "lag" in evidence:  # a lag in seasons (by_season): no lag in years
+        evidence = evidence.assign(lag=evidence["lag"].where(evidence["lag_unit"] != "season"))
     out = pd.DataFrame({name: [read(v) for v in (evidence[c] if c in evidence else [None] * len(evidence))]
                         for c, (name, read) in GRADE_COLUMNS.items()})
     return out.sort_values(["response", "driver"]).reset_index(drop=True)
@@ -104,7 +108,7 @@ def forecasts_of(grades: pd.DataFrame, data: StudyData) -> tuple[list[NextYearFo
     made, notes = [], {}
     for g in grades.to_dict("records"):
         key, model = (g["response"], g["driver"]), g["model"] or "linear"
-        if g["lag"] is None or not g["baseline"]:
+        if g["lag"] is None or pd.isna(g["lag"]) or not g["baseline"]:  # NaN: a column with a missing lag
             notes[key] = "no forecast: no selected lag or candidate baseline"
             continue
         f, why = data.forecast(g["response"], g["driver"], g["lag"], g["baseline"], model=model)
