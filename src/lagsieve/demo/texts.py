@@ -110,6 +110,19 @@ def _check_rows(data: DemoData) -> list[dict]:
     return rows
 
 
+#: The decoys that echo no true driver (oxygen and shrimp echo temperature and forage fish).
+INDEPENDENT_DECOYS = ("jellyfish_index", "zooplankton_index", "pinniped_abundance", "fishing_mortality",
+                      "shelf_climate_index")
+
+
+def _largest_decoy_r(data: DemoData, response: str) -> dict:
+    """The independent decoy with the largest detrended |r| (best lag) with ``response``."""
+    chk = association_check(data)
+    sub = chk[(chk["response"] == response) & chk["driver"].isin(INDEPENDENT_DECOYS)]
+    row = sub.loc[sub["detrended_r"].abs().idxmax()]
+    return {"driver": row["driver"], "r": float(row["detrended_r"]), "lag": int(row["detrended_lag"])}
+
+
 def _estimate_context(data: DemoData) -> dict:
     """The draws and vintages of the demo (:mod:`lagsieve.demo.estimates`) with their Mohn's rho."""
     vint = vintages_table(data.mortality, data.seed)
@@ -144,6 +157,7 @@ def truth_context(data: DemoData) -> dict:
         "truth_rows": _truth_rows(data),
         "effects": effects[["driver", "response", "size"]].to_dict("records"),
         "check_rows": _check_rows(data),
+        "decoy_older": _largest_decoy_r(data, "m:age5plus"),
         "estimates": _estimate_context(data),
         "fish": {"n": len(data.fish), "first": int(data.fish["year"].min()), "last": int(data.fish["year"].max()),
                  "groups": AGE_GROUPS, "beta": PREY_BETA, "seasons": SEASON_EFFECT, **CONDITION},

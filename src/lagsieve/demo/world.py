@@ -177,7 +177,9 @@ RESPONSE_IDS = tuple(f"m:{g}" for g in GROUPS)
 #: Names of the random streams, in spawn order. Each component draws from its own child of
 #: ``default_rng(seed)``. This order was picked once, among 40 orders, so that the realisation
 #: at the default seed has no large chance correlation between a decoy and a response (the
-#: largest detrended |r| of a decoy is about 0.25); TRUTH.md says so and prints the check.
+#: largest detrended |r| of a decoy is about 0.25); TRUTH.md says so and prints the check. The
+#: cold pool's effect, added later, changed M of ages 5+ in 1985-2004 and with it the chance
+#: correlations of the decoys with that group (TRUTH.md gives the largest).
 #: Other seeds give other realisations, where decoys can show chance associations. The cold
 #: pool came later: its stream is spawned last, so every earlier stream is the child it was
 #: and every other driver's series is unchanged.
