@@ -75,10 +75,10 @@ def run_study(planned: PlannedStudy, out: Path, threads: int = 1) -> None:
     # (plan_batches), and the stages' imports (matplotlib, pandas, scipy) cost every run's
     # planning about 1.9 s of CPU (python -X importtime); a batch job pays them once, here
     from lagsieve.ledger.update import update_ledger
-    from lagsieve.stages.condition import run_condition
-    from lagsieve.stages.evidence import run_align, run_evidence
-    from lagsieve.stages.report import run_report
-    from lagsieve.stages.screen import run_screen
+    from lagsieve.stages.condition import run_condition  # lazy: see above
+    from lagsieve.stages.evidence import run_align, run_evidence  # lazy: see above
+    from lagsieve.stages.report import run_report  # lazy: see above
+    from lagsieve.stages.screen import run_screen  # lazy: see above
 
     cfg, d = planned.config_path, out / planned.study.id
     condition = [] if planned.condition is None else [str(d / "condition.csv")]
