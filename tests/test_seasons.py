@@ -25,6 +25,7 @@ from lagsieve.io.config import load_study
 from lagsieve.io.tables import FRAME_COLUMNS
 from lagsieve.ledger.update import grade_rows
 from lagsieve.prep.seasons import Seasons, season_axis, season_frame, season_lagged
+from lagsieve.report.context import row_lead
 from lagsieve.report.render import render
 from lagsieve.stages.digest import settings_digest
 from lagsieve.stats.harmonic import fourier_design, harmonic_forecasts, harmonic_order
@@ -294,3 +295,10 @@ def test_the_ledger_makes_no_next_year_forecast_from_a_lag_in_seasons():
                        "lag_unit": [None, "season"], "grade": ["moderate", "strong"]})
     rows = grade_rows(ev).set_index("response")
     assert rows.loc["cond", "lag"] == 1 and pd.isna(rows.loc["cond-spring", "lag"])
+
+
+def test_leads_are_said_in_the_unit_of_the_lag():
+    assert row_lead({"lag": 2, "lag_unit": "season"}) == "2-season lead"
+    assert row_lead({"lag": 0, "lag_unit": "season"}) == "same season"
+    assert row_lead({"lag": 1, "lag_unit": float("nan")}) == "1-year lead"  # an annual response (CSV: empty)
+    assert row_lead({"lag": 1}) == "1-year lead"

@@ -15,7 +15,7 @@ import pandas as pd
 from lagsieve.evidence.effects import _fmt, effect_cell
 from lagsieve.evidence.vocabulary import GRADE_RULES, GRADE_WORDS, SUPPORTED
 from lagsieve.formats import is_missing, number, skill_percent, text
-from lagsieve.report.context import Context, flag_list, lead_words, set_aside_reason
+from lagsieve.report.context import Context, flag_list, row_lead, set_aside_reason
 
 #: The grade as evidence in words (the grade codes themselves stay in the evidence table).
 EVIDENCE_WORDS = {
@@ -98,7 +98,7 @@ def annex_row(ctx: Context, row: dict) -> dict:
     g = text(row.get("grade"))
     return {"response": row["response"], "response_label": ctx.label(row["response"]), "rank": row.get("rank"),
             "driver": row["driver"], "driver_label": ctx.label(row["driver"]), "category": text(row.get("category")),
-            "lag": row.get("lag"), "lead": lead_words(row.get("lag")), "expected_sign": text(row.get("expected_sign")),
+            "lag": row.get("lag"), "lead": row_lead(row), "expected_sign": text(row.get("expected_sign")),
             "sign_found": sign_found(row), "grade": g, "evidence": EVIDENCE_WORDS.get(g, g),
             "effect_text": value, "effect_note": note, "skill_words": skill_words(row),
             "caution_words": "; ".join(FLAG_WORDS.get(f, f) for f in flag_list(row.get("flags"))),

@@ -27,6 +27,12 @@ def lead_words(lag, unit: str | None = None) -> str:
     return f"same {unit}" if lag == 0 else f"{lag}-{unit} lead"
 
 
+def row_lead(row: dict) -> str:
+    """:func:`lead_words` of a hypothesis row, in the unit of its lag (``lag_unit``)."""
+    unit = row.get("lag_unit")
+    return lead_words(row.get("lag"), None if is_missing(unit) else str(unit))
+
+
 # ----------------------------------------------------------------------------- plain words
 def _weak_reason(row: dict, flags: list[str], label=str) -> str:
     sk = row.get("oos_skill")
@@ -76,7 +82,7 @@ def summary_line(row: dict) -> str:
         return s
     r = row.get("r")
     direction = "" if is_missing(r) else (", positive" if float(r) > 0 else ", negative")
-    return f"{lead_words(row.get('lag'))}{direction}: {text(row.get('grade'))}"
+    return f"{row_lead(row)}{direction}: {text(row.get('grade'))}"
 
 
 # ----------------------------------------------------------------------------- context

@@ -4,8 +4,7 @@ The words ("in spring only", "in all seasons") are the template's (``templates/s
 from __future__ import annotations
 
 from lagsieve.evidence.vocabulary import SUPPORTED
-from lagsieve.formats import is_missing
-from lagsieve.report.context import Context, lead_words, summary_line
+from lagsieve.report.context import Context, row_lead, summary_line
 
 
 def by_season(ctx: Context, rid: str) -> dict | None:
@@ -23,7 +22,6 @@ def by_season(ctx: Context, rid: str) -> dict | None:
         rows.sort(key=lambda row: seasons.index(row["season"]))
         drivers.append({"driver": ctx.label(did), "found": [row["season"] for row in rows],
                         "where": [{"season": row["season"], "grade": row["grade"], "summary": summary_line(row),
-                                   "lead": lead_words(row.get("lag"), None if is_missing(row.get("lag_unit"))
-                                                      else row.get("lag_unit"))} for row in rows]})
+                                   "lead": row_lead(row)} for row in rows]})
     drivers.sort(key=lambda d: (not d["found"], d["driver"]))
     return {"seasons": seasons, "drivers": drivers}

@@ -9,7 +9,7 @@ import pandas as pd
 from lagsieve.evidence.effects import allowed_phrase, effect_cell, effect_phrase
 from lagsieve.evidence.vocabulary import COLLINEAR_R, FLAGS, GRADES, SUPPORTED
 from lagsieve.report import figures as fg
-from lagsieve.report.context import Context, lead_words, not_computed, set_aside_reason, summary_line
+from lagsieve.report.context import Context, not_computed, row_lead, set_aside_reason, summary_line
 from lagsieve.formats import is_missing, lag_range, number, p_text, text
 from lagsieve.stats.backtest import BASELINES
 from lagsieve.report.methods import methods_paragraphs, reference_list
@@ -89,7 +89,7 @@ def _aside_groups(ctx: Context, aside: pd.DataFrame) -> list[tuple[str, list[dic
     for row in aside.to_dict("records"):
         groups.setdefault(set_aside_reason(row, ctx.label), []).append(
             {"summary": summary_line(row), "driver": ctx.label(row["driver"]),
-             "lead": lead_words(row.get("lag"), None if is_missing(row.get("lag_unit")) else row.get("lag_unit"))})
+             "lead": row_lead(row)})
     return [(reason[:1].upper() + reason[1:], who) for reason, who in groups.items()]
 
 
@@ -194,7 +194,7 @@ def _panel(ctx: Context, key: str, info: dict) -> dict:
         kind = name.rsplit("__", 1)[1]
         figures.append((name, kind, f"{PANEL_ALTS[kind]}: {ctx.label(rid)} and {ctx.label(did)}"))
     return {"key": key, "response": rid, "response_label": ctx.label(rid), "driver_label": ctx.label(did),
-            "rank": int(row["rank"]), "lead": lead_words(int(row["lag"])), "grade": row.get("grade"),
+            "rank": int(row["rank"]), "lead": row_lead(row), "grade": row.get("grade"),
             "summary": summary_line(row), "flags": row.get("flags"), "numbers": key_numbers(row),
             "effect": effect_phrase(row, ctx.units.get(rid, ""), ctx.label(rid)),
             "allowed": allowed_phrase(row, ctx.units.get(rid, ""), ctx.label(rid)),
