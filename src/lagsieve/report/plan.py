@@ -288,10 +288,14 @@ def _plan_hypothesis(ctx: Context, row: dict, plan: Plan) -> None:
     rid, did, lag = row["response"], row["driver"], int(row["lag"])
     key = pair_slug(rid, did)
     info = {"row": row, "names": []}
-    gam_row = _pick_gam_row(ctx, rid, did, lag)
+    # a monthly driver lagged in seasons (by_season) has no column at that lag in the annual table:
+    # its panels of the driver against the response are left out, its forecasts and nulls drawn
+    in_seasons = row.get("lag_unit") == "season"
+    gam_row = None if in_seasons else _pick_gam_row(ctx, rid, did, lag)
     gfit = gam_fit(ctx, rid, did, int(gam_row["lag"])) if gam_row is not None else None
-    _pair_panels(ctx, key, row, gam_row, gfit, plan.jobs, info)
-    _lag_panel(ctx, key, row, plan.jobs, info)
+    if not in_seasons:
+        _pair_panels(ctx, key, row, gam_row, gfit, plan.jobs, info)
+        _lag_panel(ctx, key, row, plan.jobs, info)
     _forecast_panel(ctx, key, row, plan.jobs, info)
     _null_panel(ctx, key, row, plan.jobs, info)
     _gam_panel(ctx, key, row, gam_row, gfit, plan.jobs, info)
