@@ -31,7 +31,7 @@ from lagsieve.report.context import Context
 from lagsieve.report.figures import PNG_DPI, mpl_text, r_critical
 from lagsieve.report.html import build_report, render_page
 from lagsieve.report.methods import methods_paragraphs
-from lagsieve.report.pdf import write_pdf
+from lagsieve.report.pdf import pdf_engine, with_figure_files, write_pdf
 from lagsieve.report.render import GRADE_CLASS
 from lagsieve.report.plan import plan_figures
 from lagsieve.report.render import static_text, stylesheet
@@ -291,6 +291,32 @@ def test_pdf_fallback_with_matplotlib(tiny, tmp_path):
     reader = PdfReader(out)
     assert len(reader.pages) >= 2
     assert "tiny_escape" in reader.pages[0].extract_text()
+
+
+def test_pdf_reads_the_same_figure_bytes_from_their_files(tiny, tmp_path):
+    """The PDF's copy of the page names each figure's PNG file instead of embedding its base64
+    text; the file holds exactly the bytes the page embeds, and the PDF is the same."""
+    from pypdf import PdfReader
+
+    html, folder = tiny["html"], tiny["res"] / "figures"
+    embedded = dict(re.findall(r'data-name="([^"]+)"[^>]*src="data:image/png;base64,([A-Za-z0-9+/=]+)"', html))
+    assert embedded
+    figs = {name: (b64, (0, 0)) for name, b64 in embedded.items()}
+    stray = '<img alt="x" src="data:image/png;base64,AAAA">'  # no figure of the report: left as it is
+    out = with_figure_files(html + stray, figs, folder)
+    assert "data:image/png;base64,AAAA" in out and out.count("data:image/png") == 1
+    for name, b64 in embedded.items():
+        uri = (folder / f"{name}.png").resolve().as_uri()
+        assert f'src="{uri}"' in out
+        assert base64.b64encode((folder / f"{name}.png").read_bytes()).decode() == b64
+    if pdf_engine() != "weasyprint":
+        pytest.skip("WeasyPrint is not installed")
+    pages = []
+    for text, name in ((html, "embedded.pdf"), (with_figure_files(html, figs, folder), "files.pdf")):
+        write_pdf(text, tmp_path / name, study_id="tiny", title="t", summary=[], figures=[], invented=True)
+        reader = PdfReader(tmp_path / name)
+        pages.append([(p.extract_text(), sorted(i.data for i in p.images)) for p in reader.pages])
+    assert pages[0] == pages[1]
 
 
 # ----------------------------------------------------------------------------- options

@@ -40,10 +40,9 @@ from matplotlib.colors import LinearSegmentedColormap, ListedColormap  # noqa: E
 from matplotlib.patches import Patch, Rectangle  # noqa: E402
 from matplotlib.ticker import MaxNLocator  # noqa: E402
 from PIL import Image  # noqa: E402
-from scipy import stats  # noqa: E402
-
 from lagsieve.io.files import atomic_path, sha256_file, write_text  # noqa: E402
 from lagsieve.io.provenance import tool_version  # noqa: E402
+from lagsieve.stats.distributions import t_ppf  # noqa: E402  (scipy.special: scipy.stats costs an import)
 
 # ----------------------------------------------------------------------------- palette
 #: grade -> (fill colour, text colour on that fill): every pair at least 4.5:1 (WCAG 2.1 AA);
@@ -119,7 +118,7 @@ def r_critical(n_eff, p: float = 0.05) -> np.ndarray:
     n_eff = np.asarray(n_eff, float)
     df = n_eff - 2.0
     with np.errstate(invalid="ignore", divide="ignore"):
-        t = stats.t.ppf(1.0 - p / 2.0, np.where(df > 0, df, np.nan))
+        t = t_ppf(1.0 - p / 2.0, np.where(df > 0, df, np.nan))
         return t / np.sqrt(df + t ** 2)
 
 

@@ -102,7 +102,7 @@ def run_report(config_path, annual_csv, notes_csv, work_dir, screen_csv, evidenc
                                   windows=read_windows(evidence_csv), joint=read_joint(evidence_csv))
         write_text(html, out_report)
         if pdf_wanted(study):
-            prov["pdf"] = write_report_pdf(html, pdf_path, study, evidence, figs)
+            prov["pdf"] = write_report_pdf(html, pdf_path, study, evidence, figs, figures_dir=figures_dir)
         else:
             prov["pdf"] = None
             if out_pdf is None and pdf_path.is_file():  # a copy left by an earlier run would be stale
