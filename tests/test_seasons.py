@@ -129,11 +129,13 @@ def write_study(folder: Path, seed: int = 5, years: int = 42, **changes) -> Path
             for i, y in enumerate(yrs) for k in range(12)]
     folder.mkdir(parents=True, exist_ok=True)
     pd.DataFrame(rows, columns=["series", "year", "month", "value"]).to_csv(folder / "data.csv", index=False)
+    pd.DataFrame({"series": "effort", "year": yrs, "value": rng.normal(size=years)}).to_csv(folder / "annual.csv",
+                                                                                         index=False)
     every = {"months": list(range(1, 13))}
-    cfg = {"study": "seasons_test", "invented": True, "inputs": ["data.csv"], "seasons": FOUR,
+    cfg = {"study": "seasons_test", "invented": True, "inputs": ["data.csv", "annual.csv"], "seasons": FOUR,
            "responses": [{"id": "cond", "kind": "condition", "by_season": True, "aggregate": every}],
            "drivers": [{"id": "prey", "expected_sign": "positive", "aggregate": every},
-                       {"id": "temp", "aggregate": every}],
+                       {"id": "temp", "aggregate": every}, {"id": "effort", "lags": [0, 1]}],
            "screen": {"surrogates": 199, "seed": 3}}
     cfg.update(changes)
     (folder / "config.yaml").write_text(yaml.safe_dump(cfg, sort_keys=False))
@@ -145,7 +147,7 @@ def test_by_season_makes_one_response_per_season(tmp_path):
     assert study.response_ids == ["cond", "cond-winter", "cond-spring", "cond-summer", "cond-autumn"]
     spring = study.responses[2]
     assert (spring["season"], spring["season_of"], spring["season_months"]["months"]) == ("spring", "cond", [3, 4, 5])
-    assert [d["id"] for d in study.drivers_for("cond-spring")] == ["prey", "temp"]
+    assert [d["id"] for d in study.drivers_for("cond-spring")] == ["prey", "temp", "effort"]
     assert study.joint_groups() == {}
 
 
@@ -195,9 +197,9 @@ def test_seasons_that_miss_months_of_the_data_is_one_line_per_series(tmp_path):
 def test_by_season_without_season_series_is_one_line(tmp_path):
     cfg = write_study(tmp_path)
     annual = pd.DataFrame({"series": "cpue", "year": np.arange(1980, 2022), "value": np.linspace(1, 2, 42)})
-    annual.to_csv(tmp_path / "annual.csv", index=False)
+    annual.to_csv(tmp_path / "cpue.csv", index=False)
     data = yaml.safe_load(cfg.read_text())
-    data["inputs"].append("annual.csv")
+    data["inputs"].append("cpue.csv")
     data["responses"] = [{"id": "cpue", "by_season": True}]
     cfg.write_text(yaml.safe_dump(data))
     line = _one_line(lagsieve("check", cfg))
@@ -240,7 +242,7 @@ def test_season_hypotheses_are_in_the_study_family(season_run):
     # Benjamini-Hochberg over every hypothesis of the study, seasons included (statsmodels)
     q_ref = multipletests(ev["p_surrogate"], method="fdr_bh")[1]
     np.testing.assert_allclose(ev["q_value"], q_ref)
-    assert len(ev) == 10  # 2 drivers x (the annual response + 4 seasons)
+    assert len(ev) == 15  # 3 drivers x (the annual response + 4 seasons)
 
 
 def test_season_rows_carry_the_harmonic_baselines_and_real_driver_ids(season_run):
@@ -252,8 +254,11 @@ def test_season_rows_carry_the_harmonic_baselines_and_real_driver_ids(season_run
     for name in ("evidence.csv", "screen.csv", "conditional.csv", "windows.csv", "models.csv"):
         assert "@" not in (res / name).read_text(), name
     scr = pd.read_csv(res / "screen.csv")
-    assert set(scr.loc[scr["response"] == "cond-spring", "lag_unit"]) == {"season"}
-    assert set(scr.loc[scr["response"] == "cond-spring", "lag"]) == {0, 1, 2, 3}
+    assert set(scr.loc[(scr["response"] == "cond-spring") & (scr["driver"] != "effort"), "lag_unit"]) == {"season"}
+    spring = scr[scr["response"] == "cond-spring"]
+    assert set(spring.loc[spring["driver"] == "prey", "lag"]) == {0, 1, 2, 3}
+    annual = spring[spring["driver"] == "effort"]  # an annual driver keeps its lags in years
+    assert set(annual["lag_unit"]) == {"year"} and set(annual["lag"]) == {0, 1}
     fc = pd.read_csv(res / "work" / "responses" / "cond-spring" / "forecasts.csv")
     assert {"baseline_harmonic", "baseline_harmonic_persistence"} <= set(fc.columns)
 
