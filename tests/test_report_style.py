@@ -47,6 +47,16 @@ def test_contrast_formula_against_w3c_values():
     assert contrast_ratio("#3d85c6", "#ffffff") < 4.5                      # the old "moderate" badge: 3.9:1
 
 
+@pytest.mark.parametrize("r", np.linspace(-1, 1, 81))
+def test_heatmap_numbers_contrast_with_their_cell(r):
+    """The driver-correlation heatmap writes each r in black or white, the one that contrasts more
+    with the cell's fill, and that is at least 4.5:1 (WCAG 2.1 AA) for every r."""
+    fill = "#%02x%02x%02x" % tuple(round(255 * v) for v in fg.CORR_CMAP((r + 1) / 2)[:3])
+    ink = fg.ink_on(fg.CORR_CMAP((r + 1) / 2))
+    other = "#ffffff" if ink == "#000000" else "#000000"
+    assert contrast_ratio(ink, fill) >= max(4.5, contrast_ratio(other, fill) - 1e-9), (r, fill, ink)
+
+
 def _rules(css: str) -> list[tuple[str, dict]]:
     """(selector, {property: value}) of every rule, custom properties (var(--x)) resolved."""
     root = dict(re.findall(r"--([\w-]+):\s*(#[0-9a-fA-F]{3,6})", css))

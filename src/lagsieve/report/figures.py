@@ -226,13 +226,13 @@ def coverage(series: list[str], labels: list[str], roles: list[str], years, obse
     return fig
 
 
-def _ink_on(rgba) -> str:
-    """Dark or white text for a fill colour: dark where the fill's relative luminance (WCAG 2.1:
-    0.2126 R + 0.7152 G + 0.0722 B of the linearised sRGB channels) exceeds 0.408, the switch
-    point seaborn's annotated heatmaps use (from its source, seaborn 0.13)."""
+def ink_on(rgba) -> str:
+    """Black or white text for a fill colour, whichever contrasts more with it (WCAG 2.1: relative
+    luminance L of the linearised sRGB channels, ratio (L1 + 0.05) / (L2 + 0.05)); the better of the
+    two is at least 4.58:1 on any fill (at L = 0.179 the two are equal)."""
     c = np.asarray(rgba[:3], float)
-    lin = np.where(c <= 0.03928, c / 12.92, ((c + 0.055) / 1.055) ** 2.4)
-    return "#262626" if float(lin @ [0.2126, 0.7152, 0.0722]) > 0.408 else "#ffffff"
+    lum = float(np.where(c <= 0.04045, c / 12.92, ((c + 0.055) / 1.055) ** 2.4) @ [0.2126, 0.7152, 0.0722])
+    return "#000000" if (lum + 0.05) / 0.05 >= 1.05 / (lum + 0.05) else "#ffffff"
 
 
 def driver_correlation(corr: np.ndarray, labels: list[str], threshold: float = 0.7,
@@ -259,7 +259,7 @@ def driver_correlation(corr: np.ndarray, labels: list[str], threshold: float = 0
     for i, j in zip(*np.nonzero(~hidden)):
         v = corr[i, j]
         ax.text(j + 0.5, i + 0.5, f"{v:.2f}*" if abs(v) > threshold else f"{v:.2f}", ha="center", va="center",
-                fontsize=TEXT_PT, color=_ink_on(CORR_CMAP((v + 1) / 2)))
+                fontsize=TEXT_PT, color=ink_on(CORR_CMAP((v + 1) / 2)))
     for i in range(m):
         for j in range(i + 1):
             if abs(corr[i, j]) > threshold:
