@@ -13,6 +13,7 @@ rule evidence:
         condition=condition_outputs("condition.csv"),
         hypotheses=response_files("hypotheses.csv"),
         screens=response_files("screen.csv"),
+        paired=response_files("paired.csv"),
     output:
         annual=f"{OUT}/{{study}}/work/annual.csv",
         notes=f"{OUT}/{{study}}/work/notes.csv",

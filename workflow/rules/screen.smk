@@ -13,6 +13,7 @@ rule screen:
         hypotheses=f"{OUT}/{{study}}/work/responses/{{response}}/hypotheses.csv",
         forecasts=f"{OUT}/{{study}}/work/responses/{{response}}/forecasts.csv",
         nulls=f"{OUT}/{{study}}/work/responses/{{response}}/nulls.csv",
+        paired=f"{OUT}/{{study}}/work/responses/{{response}}/paired.csv",
     log:
         f"{OUT}/{{study}}/logs/screen/{{response}}.log",
     conda:

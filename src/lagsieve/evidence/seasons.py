@@ -18,10 +18,9 @@ import numpy as np
 import pandas as pd
 
 from lagsieve.evidence.grading import summary_sentence
+from lagsieve.screen.seasonal import PAIRED_COLUMNS
 
 __all__ = ["PAIRED_COLUMNS", "SeasonView", "alias", "read_paired", "resummarize", "season_view"]
-
-PAIRED_COLUMNS = ["response", "driver", "lag", "year", "value"]
 
 
 def alias(driver: str, response: str) -> str:
@@ -91,8 +90,9 @@ def season_view(hypotheses: pd.DataFrame, paired: pd.DataFrame, table: pd.DataFr
 
 
 def read_paired(dirs) -> pd.DataFrame:
-    """The screens' ``paired.csv`` (season responses only) as one frame."""
+    """The screens' ``paired.csv`` (rows for season responses only) as one frame."""
     parts = [pd.read_csv(d / "paired.csv") for d in dirs if (d / "paired.csv").is_file()]
+    parts = [p for p in parts if not p.empty]  # annual responses write the header alone
     return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(columns=PAIRED_COLUMNS)
 
 

@@ -22,7 +22,10 @@ from lagsieve.screen.hypothesis import driver_rng
 from lagsieve.stats.harmonic import harmonic_forecasts
 from lagsieve.stats.surrogates import make_surrogates
 
-__all__ = ["SeasonScreen", "paired_table", "season_screen", "seasonal_batch"]
+__all__ = ["PAIRED_COLUMNS", "SeasonScreen", "paired_table", "season_screen", "seasonal_batch"]
+
+#: The columns of a screen's ``paired.csv``: a monthly driver at every lag in seasons.
+PAIRED_COLUMNS = ["response", "driver", "lag", "year", "value"]
 
 
 @dataclass(frozen=True)
@@ -52,8 +55,8 @@ def paired_table(season: SeasonScreen, response_id: str, years: np.ndarray) -> p
         for lag, values in zip(season.lags, xl):
             parts.append(pd.DataFrame({"response": response_id, "driver": did, "lag": lag, "year": years,
                                        "value": values}))
-    cols = ["response", "driver", "lag", "year", "value"]
-    return pd.concat(parts, ignore_index=True)[cols] if parts else pd.DataFrame(columns=cols)
+    return (pd.concat(parts, ignore_index=True)[PAIRED_COLUMNS] if parts
+            else pd.DataFrame(columns=PAIRED_COLUMNS))
 
 
 def seasonal_batch(frame: pd.DataFrame, seasons: Seasons, driver_id: str, screen: dict) -> tuple[int, np.ndarray]:

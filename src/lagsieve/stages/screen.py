@@ -14,7 +14,7 @@ from lagsieve.io.readers import read_inputs
 from lagsieve.prep.align import annual_table, se_table
 from lagsieve.prep.annual import to_annual
 from lagsieve.screen.response import screen_response
-from lagsieve.screen.seasonal import paired_table, season_screen
+from lagsieve.screen.seasonal import PAIRED_COLUMNS, paired_table, season_screen
 from lagsieve.stages.common import SCREEN_COLUMNS, condition_table, ordered
 
 
@@ -82,5 +82,8 @@ def run_screen(config_path, annual_csv, response_id: str, out_dir, threads: int 
     write_csv(res.nulls, out / "nulls.csv")
     write_csv(res.hypotheses, out / "hypotheses.csv")
     write_csv(ordered(res.screen, SCREEN_COLUMNS), out / "screen.csv")
-    if season is not None:  # the monthly drivers at their lags in seasons, for the evidence stage
-        write_csv(paired_table(season, response_id, table.index.to_numpy()), out / "paired.csv")
+    # the monthly drivers at their lags in seasons, for the evidence stage (a declared output of
+    # every screen, so that Snakemake tracks it: empty, with its header, for an annual response)
+    paired = (paired_table(season, response_id, table.index.to_numpy()) if season is not None
+              else pd.DataFrame(columns=PAIRED_COLUMNS))
+    write_csv(paired, out / "paired.csv")
