@@ -307,3 +307,19 @@ def test_leads_are_said_in_the_unit_of_the_lag():
     assert row_lead({"lag": 0, "lag_unit": "season"}) == "same season"
     assert row_lead({"lag": 1, "lag_unit": float("nan")}) == "1-year lead"  # an annual response (CSV: empty)
     assert row_lead({"lag": 1}) == "1-year lead"
+
+
+def test_forecast_panel_of_a_harmonic_hardest_draws_the_candidate():
+    """Where a harmonic baseline is the hardest (no driver model is built on it), the forecast panel
+    draws the candidate chosen in each window, named by its most frequent baseline (common practice:
+    a panel shows what was scored)."""
+    from lagsieve.report.plan import _forecast_model
+    fc = pd.DataFrame({"year": [2001, 2002, 2003], "candidate": [1.0, 2.0, 3.0],
+                       "candidate_baseline": ["trend", "persistence", "trend"],
+                       "model_trend": [9.0, 9.0, 9.0]})
+    model, on = _forecast_model(fc, "harmonic_persistence")
+    np.testing.assert_array_equal(model, [1.0, 2.0, 3.0])
+    assert on == "trend"
+    model, on = _forecast_model(fc, "trend")  # an ordinary hardest baseline: its own model column
+    np.testing.assert_array_equal(model, [9.0, 9.0, 9.0])
+    assert _forecast_model(fc.drop(columns=["candidate"]), "harmonic")[0] is None

@@ -24,6 +24,7 @@ from lagsieve.report import figures as fg
 from lagsieve.report.context import Context, gam_fit, gam_rows, top_rows
 from lagsieve.formats import is_missing, number, p_text, text
 from lagsieve.stats.backtest import BASELINES
+from lagsieve.stats.harmonic import HARMONIC_BASELINES
 
 BASELINE_NAMES = BASELINES
 
@@ -230,15 +231,30 @@ def _forecast_panel(ctx, key, row, jobs, info) -> None:
     fc = ctx.forecasts
     fc = fc[(fc["response"] == rid) & (fc["driver"] == did)].sort_values("year") if len(fc) else fc
     hardest = text(row.get("oos_hardest"))
-    if not (len(fc) and hardest and f"model_{hardest}" in fc):
+    if not (len(fc) and hardest):
         return
-    bases = {b: fc[f"baseline_{b}"].to_numpy(float) for b in BASELINE_NAMES if f"baseline_{b}" in fc}
+    model, on = _forecast_model(fc, hardest)
+    if model is None:
+        return
+    names = [*BASELINE_NAMES, *(b for b in HARMONIC_BASELINES if f"baseline_{b}" in fc)]
+    bases = {b: fc[f"baseline_{b}"].to_numpy(float) for b in names if f"baseline_{b}" in fc}
     jobs.append(fg.FigureJob(f"{key}__forecasts", "forecasts", dict(
         years=fc["year"].to_numpy(), observed=fc["observed"].to_numpy(float), baselines=bases,
-        model=fc[f"model_{hardest}"].to_numpy(float), hardest=hardest, response=ctx.axis(rid),
-        driver=ctx.label(did), invented=ctx.invented)))
+        model=model, hardest=on, response=ctx.axis(rid), driver=ctx.label(did), invented=ctx.invented)))
     info["names"].append(f"{key}__forecasts")
     info["forecast_n"] = len(fc)
+
+
+def _forecast_model(fc: pd.DataFrame, hardest: str) -> tuple:
+    """(forecasts of the baseline + driver, the baseline's name) drawn in a forecast panel: the
+    hardest baseline plus the driver; where the hardest is a harmonic baseline of a season
+    response (no model is built on it), the candidate chosen in each window and its baseline."""
+    if f"model_{hardest}" in fc:
+        return fc[f"model_{hardest}"].to_numpy(float), hardest
+    if "candidate" not in fc:
+        return None, hardest
+    on = fc["candidate_baseline"].dropna().astype(str)
+    return fc["candidate"].to_numpy(float), (on.mode().iloc[0] if len(on) else "baseline")
 
 
 def _null_panel(ctx, key, row, jobs, info) -> None:

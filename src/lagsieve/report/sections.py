@@ -55,7 +55,8 @@ TABLE_COLS = [  # key, heading, key to the column (printed below the table and s
 
 #: Baselines as the table names them under a skill (the keys are the ids of stats.backtest).
 BASELINE_WORDS = {"climatology": "climatology", "persistence": "persistence", "trend": "trend",
-                  "trend_ar1": "trend + AR(1)"}
+                  "trend_ar1": "trend + AR(1)", "harmonic": "annual cycle",
+                  "harmonic_persistence": "annual cycle + last anomaly"}
 
 PANEL_ALTS = {"overlay": "standardised overlay", "scatter": "scatter with fit", "lags": "lag profile of r",
               "forecasts": "out-of-sample forecasts", "nulls": "surrogate null distribution",
