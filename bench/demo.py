@@ -1,8 +1,9 @@
 """The demo study end to end: how long `lagsieve run` takes, and where the time goes.
 
 For each variant (default: with the PDF, and without it through a copy of the config with
-``report: {pdf: false}``) and each of ``--runs`` runs (default 3), the script writes a fresh
-study with `lagsieve init` in a temporary folder and runs::
+``report: {pdf: false}``; ``nojoint``: with the PDF, the config's ``joint`` left out) and each
+of ``--runs`` runs (default 3), the script writes a fresh study with `lagsieve init` in a
+temporary folder and runs::
 
     lagsieve run <study>/config.yaml --cores 2
 
@@ -50,13 +51,17 @@ SNAKEMAKE_PREAMBLE = "from snakemake.logging import logger\nfrom snakemake.iocon
 RULES = ["condition", "screen", "evidence", "report"]
 
 
-def fresh_study(root: Path, pdf: bool) -> Path:
-    """`lagsieve init` into ``root``; without the PDF, the config gets ``report: {pdf: false}``."""
+def fresh_study(root: Path, pdf: bool, joint: bool = True) -> Path:
+    """`lagsieve init` into ``root``; without the PDF, the config gets ``report: {pdf: false}``;
+    without the joint screen, the config's ``joint`` key is left out."""
     subprocess.run(["lagsieve", "init", str(root)], check=True, stdout=subprocess.DEVNULL)
     cfg = root / "config.yaml"
-    if not pdf:
+    if not pdf or not joint:
         data = yaml.safe_load(cfg.read_text(encoding="utf-8"))
-        data.setdefault("report", {})["pdf"] = False
+        if not pdf:
+            data.setdefault("report", {})["pdf"] = False
+        if not joint:
+            data.pop("joint", None)
         cfg.write_text(yaml.safe_dump(data, sort_keys=False), encoding="utf-8")
     return cfg
 
@@ -79,7 +84,7 @@ def job_rows(results: Path) -> list[dict]:
 def one_run(variant: str, env: dict, extra: list[str], cores: int) -> tuple[dict, list[dict]]:
     """A fresh study run once; the run's figures and its jobs' rows."""
     with tempfile.TemporaryDirectory(prefix="lagsieve-demo-") as tmp:
-        cfg = fresh_study(Path(tmp) / "study", pdf=variant == "pdf")
+        cfg = fresh_study(Path(tmp) / "study", pdf=variant != "nopdf", joint=variant != "nojoint")
         cmd = ["lagsieve", "run", str(cfg), "--cores", str(cores), *(["--", *extra] if extra else [])]
         t0 = time.time()
         before = os.times()
@@ -154,7 +159,9 @@ def summary(runs: pd.DataFrame, imports: pd.DataFrame, args, note: str) -> str:
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("--runs", type=int, default=3, help="runs per variant (default 3; the median is reported)")
-    ap.add_argument("--variants", default="pdf,nopdf", help="pdf, nopdf or both (default pdf,nopdf)")
+    ap.add_argument("--variants", default="pdf,nopdf",
+                    help="pdf, nopdf, nojoint (with the PDF, without the demo's joint screen), comma-separated "
+                         "(default pdf,nopdf)")
     ap.add_argument("--cores", type=int, default=2)
     ap.add_argument("--env", action="append", default=[], metavar="KEY=VALUE", help="add to the runs' environment")
     ap.add_argument("--note", default="", help="a few words on the machine and its load, for the table's title")
