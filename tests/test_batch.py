@@ -70,6 +70,14 @@ def test_run_batch_option_bad_value_is_one_line_and_writes_nothing(new_study, tm
     assert not (tmp_path / "res").exists()
 
 
+def test_run_of_two_configs_with_one_study_id_is_one_line_and_writes_nothing(new_study, tmp_path, capsys):
+    shutil.copytree(new_study.parent, tmp_path / "s2")
+    code = cli_main(["run", str(new_study), str(tmp_path / "s2"), "--out", str(tmp_path / "res")])
+    lines = capsys.readouterr().err.strip().splitlines()
+    assert code == 2 and len(lines) == 1 and "is used by two configs; give each study its own id" in lines[0], lines
+    assert lines[0].startswith(str(tmp_path / "s2")) and not (tmp_path / "res").exists()
+
+
 def test_run_config_carries_the_studies_and_the_batch_to_the_plan(tmp_path):
     from snakemake.common.configfile import load_configfile  # how Snakemake reads --configfile
 

@@ -34,7 +34,7 @@ from jinja2 import TemplateNotFound
 
 import lagsieve
 import lagsieve.workflow
-from lagsieve.errors import InputErrors, report_problems
+from lagsieve.errors import InputErrors, InputProblem, report_problems
 from lagsieve.io.lock import RESULTS_FIX, check_folder, claim_results, make_folder
 
 EXIT_USER = 2
@@ -126,6 +126,7 @@ def cmd_run(args, extra: list[str]) -> int:
             raise InputErrors(_batch_problems(args.batch, len(args.config)))
         studies = [_check(c)[0] for c in args.config]
         cfgs = [Path(c).resolve() for c in args.config]
+        _unique_ids(studies, args.config)
         out = Path(args.out).resolve() if args.out else cfgs[0].parent / "results"
         check_folder(out, "the results folder cannot be made", RESULTS_FIX)
         for study in studies:
@@ -143,6 +144,16 @@ def cmd_run(args, extra: list[str]) -> int:
             return _run_workflow(args, extra, studies, cfgs, out, lock)
         except InputErrors as exc:
             return report_problems(exc)
+
+
+def _unique_ids(studies: list, configs: list[str]) -> None:
+    """One problem for a study id that two of the configs given share (their results would meet)."""
+    seen: set[str] = set()
+    for study, path in zip(studies, configs):
+        if study.id in seen:
+            raise InputErrors([InputProblem(what=f"id '{study.id}' is used by two configs", file=path, key="study",
+                                            fix="give each study its own id")])
+        seen.add(study.id)
 
 
 def _batch_problems(value: str, n_studies: int) -> list:
