@@ -26,6 +26,7 @@ from helpers import ar1
 from lagsieve.evidence import vocabulary
 from lagsieve.evidence.grading import collinear_partners, driver_correlations, summary_sentence
 from lagsieve.evidence.rivals import (
+    COMPETITOR_GRADES,
     CONDITIONAL_COLUMNS,
     cap_by_rivals,
     conditional_table,
@@ -190,6 +191,32 @@ def test_keeps_support_rule():
     assert not keeps_support(_cond(p_added_surrogate=0.2), 0.05)
     assert not keeps_support(_cond(p_partial_surrogate=0.06), 0.05)
     assert keeps_support(_cond(added_skill=np.nan, p_added_surrogate=np.nan), 0.05)  # no forecasts: in sample decides
+
+
+def test_keeps_support_needs_clark_west_too_and_the_sign_found_alone():
+    """Both tests of the addition must reject (surrogate p and Clark-West p <= ADDED_P; a CW p
+    that could not be computed is not held against it), and the partial r keeps the sign of the
+    driver's r alone when that sign is given (our own rule)."""
+    assert keeps_support(_cond(p_clark_west=0.04), 0.05)
+    assert not keeps_support(_cond(p_clark_west=0.2), 0.05)
+    assert keeps_support(_cond(p_clark_west=np.nan), 0.05)
+    assert keeps_support(_cond(partial_r=0.4), 0.05, sign=1.0)
+    assert not keeps_support(_cond(partial_r=-0.4), 0.05, sign=1.0)
+    assert keeps_support(_cond(partial_r=-0.4), 0.05, sign=-1.0)
+    assert keeps_support(_cond(partial_r=-0.4), 0.05)  # sign alone unknown: not held against it
+
+
+def test_a_driver_real_in_sample_without_forecast_skill_is_a_competitor():
+    """A decoy graded strong is tested given a true driver set aside as no-forecast-skill (it still
+    explains the years it was fitted to), and the true driver given the decoy (the reverse test);
+    a driver graded none is no competitor."""
+    table = _decoy_world()
+    ev = pd.DataFrame({"response": "R", "driver": ["true", "same", "ahead"],
+                       "grade": ["no-forecast-skill", "strong", "none"], "lag": [0, 0, 1], "flags": ""})
+    drivers = [{"id": d, "expected_sign": "positive"} for d in ("true", "same", "ahead")]
+    cond = conditional_table(ev, table, drivers, {d: [0, 1, 2] for d in ("true", "same", "ahead")}, SCREEN)
+    assert sorted(zip(cond.driver, cond.competitor)) == [("same", "true"), ("true", "same")]
+    assert "no-forecast-skill" in COMPETITOR_GRADES and "none" not in COMPETITOR_GRADES
 
 
 def test_strongest_rival_takes_most_skill_away():

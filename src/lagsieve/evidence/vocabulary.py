@@ -19,9 +19,10 @@ GRADE_RULES = {
                 "with surrogate p of skill <= 0.10, the sign stated beforehand, and not trend-shared; or strong, "
                 "but collinear with a driver that is also strong and forecasts the same response better. Strong "
                 "and moderate also require support kept given the strongest rival (the other driver of the "
-                "response graded weak or better given which this one adds least forecast skill): added skill "
-                "> 0 with surrogate p <= 0.10 and partial correlation with surrogate p <= alpha, both against "
-                "residual surrogates; a driver that loses it given a rival that keeps its own support given this "
+                "response graded weak or better or no-forecast-skill given which this one adds least forecast "
+                "skill): added skill > 0 with surrogate p <= 0.10 and Clark-West p <= 0.10, and partial "
+                "correlation of the sign found alone with surrogate p <= alpha, against residual surrogates; a "
+                "driver that loses it given a rival that keeps its own support given this "
                 "driver (or that neither survives, with the larger |r| alone) is weak and flagged "
                 "explained-by-rival.",
     "weak": "some support (autocorrelation-adjusted p <= alpha, surrogate p <= 0.10, or positive skill "
