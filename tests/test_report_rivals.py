@@ -77,6 +77,23 @@ def test_matrix_full_and_in_summary_form():
     assert m["rows"][0]["cells"][0]["who"] == "c0"  # the competitor given which it adds least
 
 
+def test_matrix_cells_are_shaded_by_their_band_with_a_legend():
+    """Each cell's class is the band of its added skill (edges belong to the lower band); a cell
+    without a skill is not shaded; the legend names every band in order (our own bands)."""
+    assert [rv.skill_band(v) for v in (-0.3, 0.0, 0.05, 0.10, 0.2, 0.25, 0.9, np.nan)] == [
+        "sk-none", "sk-none", "sk-low", "sk-low", "sk-mid", "sk-mid", "sk-high", ""]
+    cond = _cond([dict(driver="oxy", competitor="temp", added_skill=-0.02, keeps_support=False),
+                  dict(driver="temp", competitor="oxy", added_skill=0.3, keeps_support=True),
+                  dict(driver="prey", competitor="temp", added_skill=np.nan, keeps_support=True)])
+    sec = rv.section({"conditional": cond, "models": _models()}, ["m"], label)
+    html = render("rivals.html", rivals=sec, figs={})
+    assert '<td class="sk-none"><b>-0.02</b>' in html and '<td class="sk-high"><b>+0.30</b>' in html
+    assert "<td><b>n/a</b>" in html  # no skill, no shade
+    legend = html[html.index("Shading:"):]
+    assert [legend.index(f'swatch {c}') for _, c, _ in rv.SKILL_BANDS] == sorted(
+        legend.index(f'swatch {c}') for _, c, _ in rv.SKILL_BANDS)
+
+
 def test_top_pair_and_the_partition_figure():
     out = {"conditional": _cond([]), "models": _models()}
     assert rv.top_pair(out["models"])["model"] == "temp+oxy"

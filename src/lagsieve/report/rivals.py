@@ -25,6 +25,10 @@ __all__ = ["MATRIX_MAX_COMPETITORS", "MODELS_SHOWN", "PARTITION_MAX_FIGURES", "p
 MATRIX_MAX_COMPETITORS = 10  # columns of a response's added-skill matrix (a table row must stay readable)
 MODELS_SHOWN = 8             # rows of a response's model table on the page
 PARTITION_MAX_FIGURES = 30   # partition figures in one report (one small panel each)
+#: Shading of the added-skill matrix: (upper edge of the band, CSS class, words of the legend),
+#: lowest band first; a cell without a skill is not shaded. Colours in templates/grades.css.
+SKILL_BANDS = ((0.0, "sk-none", "nothing added (0 or less)"), (0.10, "sk-low", "up to 0.10"),
+               (0.25, "sk-mid", "0.10 to 0.25"), (float("inf"), "sk-high", "more than 0.25"))
 
 
 def read_outputs(evidence_csv) -> dict | None:
@@ -100,6 +104,13 @@ def mutual(cond: pd.DataFrame, label) -> list[str]:
     return out
 
 
+def skill_band(added) -> str:
+    """The CSS class of an added skill's band (``SKILL_BANDS``); '' when there is no skill."""
+    if is_missing(added):
+        return ""
+    return next(cls for top, cls, _ in SKILL_BANDS if float(added) <= top)
+
+
 def matrix(cond: pd.DataFrame, label) -> dict:
     """The added-skill matrix (drivers x competitors) of one response, or each driver's strongest
     rival only beyond ``MATRIX_MAX_COMPETITORS`` competitors."""
@@ -118,10 +129,11 @@ def matrix(cond: pd.DataFrame, label) -> dict:
             line.append(None if r is None else {
                 "text": number(r.get("added_skill"), "{:+.2f}") or "n/a", "p": p_text(r.get("p_added_surrogate")),
                 "who": _names(label, r["competitor"]) if summary else "",
-                "kept": r.get("keeps_support") in (True, "True", "true", 1)})
+                "kept": r.get("keeps_support") in (True, "True", "true", 1), "band": skill_band(r.get("added_skill"))})
         rows.append({"driver": label(d), "cells": line})
     return {"columns": [c if summary else _names(label, c) for c in comps], "rows": rows, "summary": summary,
-            "n_competitors": len(set(cond["competitor"])) if not summary else None}
+            "n_competitors": len(set(cond["competitor"])) if not summary else None,
+            "bands": [{"cls": cls, "words": words} for _, cls, words in SKILL_BANDS]}
 
 
 def model_rows(models: pd.DataFrame, label) -> list[dict]:
