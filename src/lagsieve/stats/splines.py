@@ -44,7 +44,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from lagsieve.stats.distributions import f_sf
-from lagsieve.stats.linalg import spd_inverse, symmetric_eigh
+from lagsieve.stats.linalg import spd_inverse, spd_solve, symmetric_eigh
 
 __all__ = [
     "DEFAULT_LAM_GRID",
@@ -378,14 +378,16 @@ def smooth_gain(x, y, *, trend=None, weights=None, mask=None, n_basis: int | Non
     W = bspline_basis(np.where(rows.ok_x, rows.x, lo[:, None]), n_basis, degree, lo, hi)  # (m, n, K)
     if rows.trend is not None:
         W = np.concatenate([_centred_trend(rows)[0][..., None], W], axis=-1)
-    W = np.where(rows.active[..., None], W, 0.0)
+    if not rows.active.all():  # rows left out of the fit (where() copies the whole design)
+        W = np.where(rows.active[..., None], W, 0.0)
     P = penalty_block(difference_penalty(n_basis, penalty_order), n_fixed - 1)
     sw = rows.w.sum(axis=1)
     yc = rows.y0 - (np.einsum("mn,mn->m", rows.w, rows.y0) / sw)[:, None] * rows.active
-    Ww = W * rows.w[..., None]
+    Ww = W if np.all(rows.w == rows.active) else W * rows.w[..., None]  # unit weights: W itself
     A = np.swapaxes(Ww, 1, 2) @ W
     A[:, range(A.shape[-1]), range(A.shape[-1])] += (_RIDGE * np.trace(A, axis1=1, axis2=2) / A.shape[-1])[:, None]
-    form = _subspace_form(A[:, None], (yc[:, None, :] @ Ww), np.einsum("mn,mn->m", rows.w, yc * yc)[:, None], P)
+    form = _subspace_form(A[:, None], (yc[:, None, :] @ Ww), np.einsum("mn,mn->m", rows.w, yc * yc)[:, None], P,
+                          inverse=False)
     grid = _check_grid(DEFAULT_LAM_GRID if lam_grid is None else lam_grid)
     rss_g, edf_g = form.grid(grid)  # (m, 1, L)
     gcv = _gcv_score(rows.n_used[:, None, None], rss_g, edf_g, gamma)
@@ -946,7 +948,7 @@ def penalised_window_fit(
     W = np.asarray(W, float)
     y = np.asarray(y, float)
     w = np.ones(len(y)) if weights is None else np.asarray(weights, float)
-    form = _subspace_form(*_tuning_equations(W, y, w, np.array([int(n_train)]))[:3], P)
+    form = _subspace_form(*_tuning_equations(W, y, w, np.array([int(n_train)]))[:3], P, inverse=False)
     rss, edf = form.grid(lam)  # (..., 1, L), (..., 1, L)
     gcv = _gcv_score(float(n_train), rss, edf, gamma, floor=1e-9)
     best = _best_on_grid(gcv)  # (..., 1)
@@ -997,7 +999,7 @@ class _SubspaceForm:
     """
 
     mu: np.ndarray      # (..., R)
-    c_inv: np.ndarray   # (..., R, q, q) C^-1
+    c_inv: np.ndarray | None  # (..., R, q, q) C^-1 (None when built without it)
     H: np.ndarray       # (..., R, q, r)
     theta: np.ndarray   # (..., R, r), mu theta in [0, 1]
     hb: np.ndarray      # (..., R, r) H'b
@@ -1008,18 +1010,19 @@ class _SubspaceForm:
     def grid(self, lam: np.ndarray):
         """(RSS, edf) for every grid value: (..., R, L), (..., R, L).
 
-        The grid is the second-to-last axis of every temporary (..., R, L, r), and the sums
-        over the r eigen-directions are matrix-vector products."""
-        shift = lam[:, None] - self.mu[..., None, None]  # (..., R, L, 1)
-        s = shift * self.theta[..., None, :]
+        The grid is the last axis of every temporary (..., R, r, L), so the elementwise steps run
+        along rows of L values and the sums over the r eigen-directions are stacked (1 x r) and
+        (2 x r) by (r x L) matrix products."""
+        shift = lam - self.mu[..., None]  # (..., R, L)
+        s = self.theta[..., :, None] * shift[..., None, :]  # (..., R, r, L)
         s += 1.0
         np.reciprocal(s, out=s)  # the factors 1 / (1 + (lambda - mu) theta)
-        mt = self.mu[..., None] * self.theta  # (..., R, r)
-        edf = self.n_null + (s @ (1.0 - mt)[..., None])[..., 0]
+        keep = 1.0 - self.mu[..., None] * self.theta  # (..., R, r)
+        edf = self.n_null + (keep[..., None, :] @ s)[..., 0, :]
         ee = self.hb * self.hb
         s *= s
-        both = s @ np.stack([ee * self.theta, ee * self.mu[..., None]], axis=-1)  # (..., R, L, 2)
-        rss = self.rss_mu[..., None] + shift[..., 0] ** 2 * both[..., 0] - both[..., 1]
+        both = np.stack([ee * self.theta, ee * self.mu[..., None]], axis=-2) @ s  # (..., R, 2, L)
+        rss = self.rss_mu[..., None] + shift * shift * both[..., 0, :] - both[..., 1, :]
         return np.maximum(rss, 0.0), edf
 
     def solution(self, lam_b: np.ndarray, inverse: bool = True):
@@ -1031,19 +1034,28 @@ class _SubspaceForm:
         return self.c_inv - (self.H * f[..., None, :]) @ np.swapaxes(self.H, -1, -2), beta
 
 
-def _subspace_form(At: np.ndarray, bt: np.ndarray, yt: np.ndarray, P: np.ndarray) -> _SubspaceForm:
-    """The decomposition of :class:`_SubspaceForm` for every system of the batch."""
+def _subspace_form(At: np.ndarray, bt: np.ndarray, yt: np.ndarray, P: np.ndarray,
+                   inverse: bool = True) -> _SubspaceForm:
+    """The decomposition of :class:`_SubspaceForm` for every system of the batch. Without
+    ``inverse`` (fits that need no C^-1 afterwards: ``c_inv`` is None) C^-1 [R', b] is solved from
+    C's Cholesky factor (:func:`lagsieve.stats.linalg.spd_solve`) rather than through C^-1."""
     pe, pv = np.linalg.eigh(0.5 * (P + P.T))
     pos = pe > 1e-10 * max(float(pe.max()), 0.0)
     R = (pv[:, pos] * np.sqrt(pe[pos])).T  # (r, q)
     mu = _penalty_shift(At, P)  # (..., R)
-    Ci = spd_inverse(At + mu[..., None, None] * P)  # symmetric by construction
-    RC = np.swapaxes(_times(Ci, R.T), -1, -2)  # (..., R, r, q) = R C^-1
+    C = At + mu[..., None, None] * P
+    if inverse:
+        Ci = spd_inverse(C)  # symmetric by construction
+        RC = np.swapaxes(_times(Ci, R.T), -1, -2)  # (..., R, r, q) = R C^-1
+        Cib = (Ci @ bt[..., None])[..., 0]
+    else:
+        rhs = np.concatenate([np.broadcast_to(R.T, C.shape[:-1] + R.shape[:1]), bt[..., None]], axis=-1)
+        sol = spd_solve(C, rhs)  # (..., R, q, r + 1) = C^-1 [R', b]
+        Ci, RC, Cib = None, np.swapaxes(sol[..., :-1], -1, -2), sol[..., -1]
     N = RC @ R.T
     theta, V = symmetric_eigh(0.5 * (N + np.swapaxes(N, -1, -2)))
     theta = np.clip(theta, 0.0, 1.0 / mu[..., None])
     H = np.swapaxes(RC, -1, -2) @ V  # (..., R, q, r)
-    Cib = (Ci @ bt[..., None])[..., 0]
     return _SubspaceForm(mu=mu, c_inv=Ci, H=H, theta=theta, hb=(bt[..., None, :] @ H)[..., 0, :],
                          cib=Cib, rss_mu=yt - np.sum(bt * Cib, axis=-1),
                          n_null=P.shape[-1] - R.shape[0])
@@ -1068,39 +1080,46 @@ def _carry_forward(W, y, w, origins, tune, fits, penalty):
     n_o, ends = len(origins), np.r_[tune[1:], len(origins)]
     fc = np.empty(W.shape[:-2] + (n_o,))
     rss_o = np.empty(W.shape[:-2] + (n_o,))
-    fc[..., tune] = np.sum(W[..., origins[tune], :] * beta, axis=-1)
+    fc[..., tune] = _dot(W[..., origins[tune], :], beta)
     rss_o[..., tune] = rss
     n_steps = int((ends - tune).max()) - 1
     if n_steps <= 0:
         return fc, rss_o
-    rows = np.minimum(origins[tune][:, None] + np.arange(n_steps)[None, :], origins[-1])  # (R, M)
+    # the rows of every step and, one further, the row each step forecasts (clipped where no block is live)
+    rows = np.minimum(origins[tune][:, None] + np.arange(n_steps + 1)[None, :], origins[-1])  # (R, M + 1)
     live = tune[:, None] + np.arange(1, n_steps + 1)[None, :] < ends[:, None]  # (R, M)
-    X = W[..., rows, :]  # (..., R, M, q)
-    U0 = X @ h0  # (..., R, M, q): H_0 x of every step (H symmetric)
+    X = W[..., rows, :]  # (..., R, M + 1, q)
+    U0 = X[..., :n_steps, :] @ h0  # (..., R, M, q): H_0 x of every step (H symmetric)
     us, ks = [], []
     for j in range(n_steps):
         x, r = X[..., j, :], rows[:, j]
         u = U0[..., j, :]
         for ui, ki in zip(us, ks):
-            u = u - ki * np.sum(ui * x, axis=-1, keepdims=True)
+            u = u - ki * _dot(ui, x)[..., None]
         wr = w[r] * live[:, j]
-        den = 1.0 + wr * np.sum(x * u, axis=-1)
-        e = y[r] - np.sum(x * beta, axis=-1)
+        den = 1.0 + wr * _dot(x, u)
+        e = y[r] - _dot(x, beta)
         k = (wr / den)[..., None] * u
         d = k * e[..., None]
         Qd = lam_b[..., None] * _times(d, P) + ridge[..., None] * d
         Qb = lam_b[..., None] * _times(beta, P) + ridge[..., None] * beta
-        rss = rss + np.sum(d * ((wr * e / den)[..., None] * x - Qd - 2.0 * Qb), axis=-1)
+        rss = rss + _dot(d, (wr * e / den)[..., None] * x - Qd - 2.0 * Qb)
         beta = beta + d
-        rss = rss + wr * (y[r] - np.sum(x * beta, axis=-1)) ** 2
+        rss = rss + wr * (y[r] - _dot(x, beta)) ** 2
         us.append(u)
         ks.append(k)
         at = tune[live[:, j]] + j + 1
         rss_o[..., at] = rss[..., live[:, j]]
-        fc[..., at] = np.sum(W[..., origins[at], :] * beta[..., live[:, j], :], axis=-1)
+        fc[..., at] = _dot(X[..., j + 1, :], beta)[..., live[:, j]]  # row origins[at]
     return fc, rss_o
 
 
 def _times(a: np.ndarray, P: np.ndarray) -> np.ndarray:
     """a @ P for a stack a (..., q) and one matrix P (q, m), as one matrix product."""
     return (a.reshape(-1, a.shape[-1]) @ P).reshape(a.shape[:-1] + P.shape[-1:])
+
+
+def _dot(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """sum(a * b, axis=-1) for stacks of short vectors (..., q), as stacked (1 x q) (q x 1) matrix
+    products: numpy's reduction along a short last axis runs several times slower."""
+    return (a[..., None, :] @ b[..., :, None])[..., 0, 0]
