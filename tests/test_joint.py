@@ -38,7 +38,7 @@ from lagsieve.stats.joint import (
     reml_loglik,
     window_fits,
 )
-from lagsieve.stats.multiplicity import family_qvalues
+from lagsieve.stats.multiplicity import family_qvalues, simes_p
 
 GROUPS = ["m:age2", "m:age3-4", "m:age5plus"]
 
@@ -252,14 +252,31 @@ def test_family_qvalues_reduce_to_bh_and_follow_two_stages():
     assert q[1:4] == pytest.approx(np.maximum(fam_q[1], within))
 
 
+def test_simes_p_is_the_smallest_bh_q_value():
+    """Simes (1986): min_k m p_(k) / k, which is the smallest of statsmodels' fdr_bh q-values."""
+    multipletests = pytest.importorskip("statsmodels.stats.multitest").multipletests
+    rng = np.random.default_rng(3)
+    for m in (1, 2, 3, 7):
+        p = rng.uniform(size=m) ** 2
+        assert simes_p(p) == pytest.approx(multipletests(p, method="fdr_bh")[1].min())
+    assert simes_p(np.array([0.001, 0.4, 0.9])) == pytest.approx(0.003)  # by hand: 3 x 0.001 / 1
+    assert simes_p(np.array([0.02, np.nan, 0.03])) == pytest.approx(0.03)  # NaN left out: min(0.04, 0.03)
+    assert np.isnan(simes_p(np.array([np.nan])))
+
+
 def test_study_qvalues_use_the_families():
-    """grade_hypotheses' q-values: one joint test per series x driver enters the study's control."""
+    """grade_hypotheses' q-values: one Simes p per series x driver family enters the study's control
+    (Benjamini & Bogomolov 2014, by hand)."""
     ev = pd.DataFrame({"response": ["m:a1", "m:a2", "x"], "driver": ["d", "d", "d"], "p_surrogate": [0.03, 0.5, 0.01]})
-    fams = pd.DataFrame({"response": ["m:a1", "m:a2"], "driver": ["d", "d"], "family": ["m:*~d"] * 2,
-                         "family_p": [0.002, 0.002]})
+    fams = pd.DataFrame({"response": ["m:a1", "m:a2"], "driver": ["d", "d"], "family": ["m:*~d"] * 2})
     q = study_qvalues(ev, 0.1, fams)
-    assert q[2] == pytest.approx(0.01 * 2 / 2)  # two families: the joint one (0.002) and x (0.01)
-    assert q[0] == pytest.approx(max(0.004, 0.06))  # within-family BH 0.06, R = m = 2
+    # family p = Simes(0.03, 0.5) = min(0.06, 0.5) = 0.06; families {0.06, 0.01}: BH q 0.06 and 0.02, R = m = 2
+    assert q[2] == pytest.approx(0.02)
+    assert q[0] == pytest.approx(max(0.06, 0.06))  # within-family BH of (0.03, 0.5): 0.06, 0.5; times m / R = 1
+    assert q[1] == pytest.approx(0.5)
+    # an effect in one group alone keeps its family: p 0.001 beside 0.8 gives the family 0.002
+    one = ev.assign(p_surrogate=[0.001, 0.8, 0.01])
+    assert study_qvalues(one, 0.1, fams)[0] == pytest.approx(0.004)  # family q 0.002 x 2 / 1 (within: 0.002)
 
 
 def _with_joint(cfg, joint) -> None:
@@ -308,8 +325,7 @@ def test_evidence_and_report_stages_write_the_joint_screen(tmp_path):
     assert len(groups) == 2 * len(joint) and set(groups["group"]) == {"age2", "age5plus"}
     ev = pd.read_csv(res / "evidence.csv")
     fams = pd.DataFrame({"response": groups["response"], "driver": groups["driver"],
-                         "family": groups["series"] + ":*~" + groups["driver"],
-                         "family_p": groups["driver"].map(dict(zip(joint["driver"], joint["p_any"])))})
+                         "family": groups["series"] + ":*~" + groups["driver"]})
     assert ev["q_value"].to_numpy() == pytest.approx(study_qvalues(ev, 0.1, fams), nan_ok=True)
     make_report(cfg, res)
     html = (res / "report.html").read_text(encoding="utf-8")

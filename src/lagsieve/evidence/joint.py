@@ -64,7 +64,7 @@ JOINT_COLUMNS = ["series", "driver", "groups", "age_order", "expected_sign", "la
                  "oos_p_surrogate", "words", "note"]
 JOINT_GROUP_COLUMNS = ["series", "driver", "group", "response", "age_rank", "lag", "slope_own", "p_own", "slope",
                        "slope_low", "slope_high", "oos_skill"]
-FAMILY_COLUMNS = ["response", "driver", "family", "family_p"]
+FAMILY_COLUMNS = ["response", "driver", "family"]
 
 
 def age_order(groups: list[str], condition: dict | None = None) -> tuple[list[int], str]:
@@ -275,8 +275,9 @@ def series_groups(study: Study, series: str, driver: str) -> tuple[list[str], st
 def joint_table(study: Study, table: pd.DataFrame) -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame]:
     """(joint.csv rows, joint_groups.csv rows, families) of every series of ``joint:`` and every
     driver paired with two or more of its groups; ``families`` (``FAMILY_COLUMNS``) names, for
-    every group response x driver of a joint fit with a surrogate p, its family and the
-    family's p for :func:`lagsieve.stats.multiplicity.family_qvalues`."""
+    every group response x driver of a joint fit with a surrogate p, its false-discovery family
+    (whose p is Simes' combination of its members' own p-values,
+    :func:`lagsieve.evidence.grading.family_labels`)."""
     rows, groups, families = [], [], []
     for series in study.joint:
         for d in study.drivers:
@@ -288,8 +289,8 @@ def joint_table(study: Study, table: pd.DataFrame) -> tuple[pd.DataFrame, pd.Dat
             rows.append({**row, "age_order": how})
             groups.append(grp)
             if not np.isnan(row.get("p_any", np.nan)):
-                families += [{"response": r, "driver": d["id"], "family": family_name(series, d["id"]),
-                              "family_p": row["p_any"]} for r in responses]
+                families += [{"response": r, "driver": d["id"], "family": family_name(series, d["id"])}
+                             for r in responses]
     joint = pd.DataFrame(rows, columns=JOINT_COLUMNS)
     grp_df = pd.concat(groups, ignore_index=True) if groups else pd.DataFrame(columns=JOINT_GROUP_COLUMNS)
     return joint, grp_df, pd.DataFrame(families, columns=FAMILY_COLUMNS)
@@ -301,9 +302,9 @@ def family_name(series: str, driver: str) -> str:
 
 
 def joint_qvalues(joint: pd.DataFrame, ev: pd.DataFrame, families: pd.DataFrame) -> pd.DataFrame:
-    """joint.csv rows with ``q_value``: the Benjamini-Hochberg q-value of each joint test among
-    all the study's families (every other hypothesis a family of one), the first stage of
-    :func:`lagsieve.stats.multiplicity.family_qvalues`."""
+    """joint.csv rows with ``q_value``: the Benjamini-Hochberg q-value of each series x driver
+    family (its Simes p) among all the study's families (every other hypothesis a family of
+    one), the first stage of :func:`lagsieve.stats.multiplicity.family_qvalues`."""
     joint = joint.copy()
     if not len(joint) or not len(families):
         return joint

@@ -105,6 +105,8 @@ REF = {
                    "J. Am. Stat. Assoc. 70:311-319.",
     "bogomolov": "Benjamini, Y. & Bogomolov, M. (2014) Selective inference on multiple families of hypotheses. "
                  "J. R. Stat. Soc. B 76:297-318.",
+    "simes": "Simes, R.J. (1986) An improved Bonferroni procedure for multiple tests of significance. "
+             "Biometrika 73:751-754.",
     "wood": "Wood, S.N. (2017) Generalized Additive Models: An Introduction with R, 2nd ed. "
             "Chapman & Hall/CRC, Boca Raton.",
 }
@@ -247,7 +249,7 @@ def cited(facts: dict) -> list[str]:
                  "peresneto"]
     refs += ["andrews", "bai", "litzow"] if facts.get("breaks") else []
     refs += ["durbin", "seabold"] if facts.get("state_space") else []
-    refs += ["gelman", "harville", "bates", "selflang", "holm", "efronmorris", "bogomolov"] if facts.get("joint") else []
+    refs += ["gelman", "harville", "bates", "selflang", "holm", "efronmorris", "bogomolov", "simes"] if facts.get("joint") else []
     refs += ["rubin"] if facts.get("draws") else []
     refs += ["mohn"] if facts.get("vintages") else []
     refs += (["lecren", "huber", "froese", "kish", "raowu"] if facts.get("condition") else [])
