@@ -192,7 +192,9 @@ def test_constant_response_recorded_and_the_rest_screened(degenerate):
     # a hypothesis that never reached the stability checks carries none of their flags
     assert not m2["flags"].fillna("").str.contains("unstable|influential-year|failed").any()
     m5 = ev[(ev["response"] == "m:age5plus") & (ev["driver"] == "forage_biomass")].iloc[0]
-    assert m5["status"] == "ok" and m5["grade"] in ("strong", "moderate", "weak", "none", "spurious-trend")
+    # screened and graded like any hypothesis (with this test's few surrogates and the demo's
+    # cold-pool effect on ages 5+ the grade may be a set-aside one; what matters is that it ran)
+    assert m5["status"] == "ok" and m5["grade"] != "insufficient-data" and np.isfinite(m5["p_surrogate"])
     assert abs(m5["r"]) > 0.3
 
 
