@@ -85,6 +85,10 @@ REF = {
                "Proceedings of the 9th Python in Science Conference, 92-96.",
     "andrews": "Andrews, D.W.K. (1993) Tests for parameter instability and structural change with unknown "
                "change point. Econometrica 61:821-856.",
+    "schreiber": "Schreiber, T. & Schmitz, A. (1996) Improved surrogate data for nonlinearity tests. Phys. Rev. "
+                 "Lett. 77:635-638.",
+    "berger": "Berger, R.L. (1982) Multiparameter hypothesis testing and acceptance sampling. Technometrics "
+              "24:295-300.",
     "bai": "Bai, J. (1997) Estimation of a change point in multiple regression models. Rev. Econ. Stat. "
            "79:551-563.",
     "litzow": "Litzow, M.A. et al. (2018) Proc. R. Soc. B 285 (moving-window correlations of non-stationary "
@@ -247,7 +251,8 @@ def cited(facts: dict) -> list[str]:
     if facts.get("rivals"):
         refs += ["freedman", "anderson", "clarkwest", "beach", "hurvich", "burnham", "borcard",
                  "peresneto"]
-    refs += ["andrews", "bai", "litzow"] if facts.get("breaks") else []
+    if facts.get("breaks"):
+        refs += ["andrews", "berger", "schreiber"] + ([] if "freedman" in refs else ["freedman"]) + ["bai", "litzow"]
     refs += ["durbin", "seabold"] if facts.get("state_space") else []
     refs += ["gelman", "harville", "bates", "selflang", "holm", "efronmorris", "bogomolov", "simes"] if facts.get("joint") else []
     refs += ["rubin"] if facts.get("draws") else []
