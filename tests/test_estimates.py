@@ -13,7 +13,8 @@ from statsmodels.imputation.mice import MICE
 from lagsieve.errors import InputErrors
 from lagsieve.evidence.draws import FRAGILE_SHARE, add_draws
 from lagsieve.io.estimates import read_draws, read_vintages, wide
-from lagsieve.stats.draws import best_lag_stats, draw_slopes, pick_draws, rubin
+from lagsieve.stats.backtest import rolling_origin
+from lagsieve.stats.draws import best_lag_stats, draw_skills, draw_slopes, member_windows, pick_draws, rubin
 from lagsieve.stats.retro import first_release, mohn_rho, realtime_forecasts
 
 
@@ -81,6 +82,45 @@ def test_best_lag_statistic_equals_a_loop_of_ols_fits():
             fit = sm.OLS(Y[d, ok], sm.add_constant(x_lags[li, ok])).fit()
             assert r[d, li] == pytest.approx(np.sign(fit.params[1]) * np.sqrt(fit.rsquared), rel=1e-10)
         assert best[d] == pytest.approx(np.max(-r[d]))
+
+
+def _draw_world(D=12, T=34, seed=3):
+    """Draws of a trending response that follows a driver at lag 1 (invented, for the checks)."""
+    rng = np.random.default_rng(seed)
+    lags = np.array([0, 1, 2])
+    x = np.cumsum(rng.normal(size=T + 2)) * 0.3 + rng.normal(size=T + 2)
+    X = np.stack([x[2 - k: 2 - k + T] for k in lags])  # (L, T): row t holds x_{t - lag}
+    mean = 0.6 * X[1] + np.linspace(0.0, 2.0, T + 1)[1:] + rng.normal(size=T)
+    Yall = np.concatenate([rng.normal(size=(D, 1)), mean[None, :] + 0.4 * rng.normal(size=(D, T))], 1)
+    return Yall[:, 1:], Yall[:, :-1], np.arange(T) + 1990.0, X, lags
+
+
+def test_member_windows_equal_statsmodels_ols_window_by_window():
+    """Every draw's own design and response, every expanding window: training RSS and the
+    one-step forecast equal statsmodels OLS fitted on the window's rows (reference library)."""
+    Y, Ylag, year, _, _ = _draw_world(D=3)
+    Z = np.stack([np.column_stack([np.ones(len(year)), Ylag[d], year - 2000.0]) for d in range(3)])
+    origins = np.arange(15, len(year))
+    fit = member_windows(Z, Y, origins)
+    for d in range(3):
+        for i, o in enumerate(origins[::6]):
+            ref = sm.OLS(Y[d, :o], Z[d, :o]).fit()
+            # to 1e-7: the solver's ridge (1e-10 tr(Z'Z) / p against rank deficiency) moves the fit a little
+            assert fit.rss[d, 6 * i] == pytest.approx(ref.ssr, rel=1e-7)
+            assert fit.forecast[d, 6 * i] == pytest.approx(float(Z[d, o] @ ref.params), rel=1e-7)
+
+
+@pytest.mark.parametrize("models", [("linear",), ("linear", "gam")])
+def test_draw_skills_in_one_batch_equal_the_rolling_origin_draw_by_draw(models):
+    """The batched rolling origin of all draws gives the skills of rolling_origin run on each
+    draw alone (whose linear windows tests/test_backtest.py checks against statsmodels and
+    scikit-learn), the spline's GCV choices included."""
+    Y, Ylag, year, X, lags = _draw_world()
+    got = draw_skills(Y, Ylag, year, X, lags, 15, models)
+    for d in range(len(Y)):
+        ro = rolling_origin(Y[d], Ylag[d], year, X[None], lags, 15, models=models)
+        for b, s in ro.skill.items():
+            assert got[b][d] == pytest.approx(float(s[0]), rel=1e-9, abs=1e-12)
 
 
 def test_draws_are_chosen_from_the_seed():

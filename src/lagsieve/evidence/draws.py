@@ -15,7 +15,9 @@ hypothesis is graded again by the study's rules (:func:`lagsieve.evidence.gradin
 * the q-value: Benjamini-Hochberg over the study with the other hypotheses' p-values fixed;
 * out of sample: the rolling origin of the screen (:func:`lagsieve.stats.backtest.rolling_origin`,
   lag, baseline and form chosen at every origin) for the real driver on every draw, the skill
-  against every baseline and its surrogate p against the hypothesis's out-of-sample null.
+  against every baseline and its surrogate p against the hypothesis's out-of-sample null; all
+  draws in one batch (:func:`lagsieve.stats.draws.draw_skills`), or draw by draw when the fits
+  are weighted (each draw's inverse-variance weights are its own).
 
 Held fixed at the response's values: the detrended and differenced correlations, the trend
 tests, the effective sample size, leave-one-out, the re-test on the latest years, the break
@@ -37,7 +39,7 @@ from lagsieve.prep.align import apply_transform, forecast_frame, inverse_varianc
 from lagsieve.screen.hypothesis import surrogate_p
 from lagsieve.stats import correlation as st
 from lagsieve.stats.backtest import BASELINES, rolling_origin
-from lagsieve.stats.draws import best_lag_stats, draw_slopes, pick_draws, rubin
+from lagsieve.stats.draws import best_lag_stats, draw_skills, draw_slopes, pick_draws, rubin
 from lagsieve.stats.multiplicity import bh_qvalues
 
 DRAW_COLUMNS = ["draw_n", "draw_grade_share", "draw_slope", "draw_slope_se", "draw_between_share", "draw_fragile"]
@@ -89,16 +91,17 @@ def _out_of_sample(row: dict, table: pd.DataFrame, Y: np.ndarray, lags: list[int
     x = table[did].to_numpy(float)[None, :]
     X = np.stack([shift_batch(x, k)[:, ff.rows] for k in lags], axis=1)  # (1, L, T)
     models = tuple(m for m in ("linear", "gam") if m in screen["models"])
-    skills = {b: [] for b in BASELINES}
-    for y_all in Y:
-        y, ylag = y_all[ff.rows], y_all[ff.rows - 1]
-        w = None
-        if screen.get("weights") == "inverse-variance" and se is not None:
+    if screen.get("weights") == "inverse-variance" and se is not None:  # each draw weighs its years its own way
+        skills = {b: [] for b in BASELINES}
+        for y_all in Y:
+            y, ylag = y_all[ff.rows], y_all[ff.rows - 1]
             w = inverse_variance_weights(se[ff.rows], n_ref=initial, y=y)
-        ro = rolling_origin(y, ylag, ff.years, X, np.asarray(lags), initial, models=models, weights=w)
-        for b, s in ro.skill.items():
-            skills[b].append(float(s[0]))
-    out = {f"oos_skill_{b}": np.asarray(v) for b, v in skills.items()}
+            ro = rolling_origin(y, ylag, ff.years, X, np.asarray(lags), initial, models=models, weights=w)
+            for b, s in ro.skill.items():
+                skills[b].append(float(s[0]))
+    else:  # unweighted: every draw in one batch
+        skills = draw_skills(Y[:, ff.rows], Y[:, ff.rows - 1], ff.years, X[0], lags, initial, models)
+    out = {f"oos_skill_{b}": np.asarray(v, float) for b, v in skills.items()}
     out["oos_skill"] = np.min(np.stack(list(out.values())), axis=0)
     out["oos_p_surrogate"] = _p_against(out["oos_skill"], null)
     return out

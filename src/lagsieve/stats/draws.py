@@ -8,6 +8,9 @@ series) as a batch dimension on the response side, as the surrogates are on the 
 * :func:`draw_slopes`: the OLS slope and its Newey-West standard error for every draw at once
   (:func:`lagsieve.stats.correlation.hac_slope` broadcast over the draws).
 * :func:`rubin`: estimates of the draws combined by Rubin's rules.
+* :func:`draw_skills`: the screen's rolling origin (:func:`lagsieve.stats.backtest.rolling_origin`)
+  of the real driver run for every draw at once: the skill of the candidate against every
+  baseline, draw by draw.
 
 References
 ----------
@@ -17,10 +20,20 @@ from __future__ import annotations
 
 import hashlib
 from dataclasses import dataclass
+from types import SimpleNamespace
 
 import numpy as np
 
 from lagsieve.stats import correlation as st
+from lagsieve.stats.backtest import BASELINES, _CandidatePool, _scale_from_start, baseline_design, skill_score
+from lagsieve.stats.linalg import RIDGE, window_cross, window_mask
+from lagsieve.stats.splines import (
+    bspline_basis,
+    default_n_basis,
+    difference_penalty,
+    expanding_penalised,
+    penalty_block,
+)
 
 
 @dataclass(frozen=True)
@@ -108,3 +121,101 @@ def draw_slopes(x: np.ndarray, Y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     intercept and its Newey-West (1987) standard error, as the screen's ``slope`` and
     ``slope_se`` (:func:`lagsieve.stats.correlation.hac_slope`, one call for every draw)."""
     return st.hac_slope(np.asarray(x, float)[None, :], np.asarray(Y, float))
+
+
+@dataclass(frozen=True)
+class MemberWindows:
+    """Expanding-window least squares of every member's own response on its own design."""
+
+    mask: np.ndarray      # (O, T) window weights
+    ginv: np.ndarray      # (..., O, p, p) (Z'Z + ridge)^-1 of every window
+    beta: np.ndarray      # (..., O, p) coefficients for y minus its level
+    rss: np.ndarray       # (..., O) training RSS
+    forecast: np.ndarray  # (..., O) forecast of the row at every origin
+    yc: np.ndarray        # (..., T) y minus its first window's mean
+    trace: np.ndarray     # (..., O) tr(Z'Z)
+
+
+def member_windows(Z: np.ndarray, y: np.ndarray, origins: np.ndarray) -> MemberWindows:
+    """:func:`lagsieve.stats.linalg.expanding_shared` for a batch whose members each have their
+    own response y (..., T) and design Z (..., T, p) (column 0 the intercept): y centred on its
+    first window's mean, the ridge ``RIDGE`` tr(Z'Z) / p, the same numbers member by member."""
+    Z, y = np.asarray(Z, float), np.asarray(y, float)
+    mask = window_mask(origins, y.shape[-1])
+    yc = y - y[..., : origins[0]].mean(-1, keepdims=True)
+    G = window_cross(Z, Z, mask)  # (..., O, p, p)
+    trace = np.trace(G, axis1=-2, axis2=-1)
+    ginv = np.linalg.inv(G + (RIDGE * trace / Z.shape[-1])[..., None, None] * np.eye(Z.shape[-1]))
+    b = window_cross(Z, yc[..., None], mask)[..., 0]  # (..., O, p)
+    beta = (ginv @ b[..., None])[..., 0]
+    rss = (yc * yc) @ mask.T - np.sum(beta * b, -1)
+    forecast = (y - yc)[..., :1] + np.sum(Z[..., origins, :] * beta, -1)
+    return MemberWindows(mask=mask, ginv=ginv, beta=beta, rss=rss, forecast=forecast, yc=yc, trace=trace)
+
+
+def with_driver(fit: MemberWindows, Z: np.ndarray, Xs: np.ndarray, origins: np.ndarray):
+    """(training RSS, forecast), each (D, L, O): the fits of ``fit`` (members D, design Z (D, T, p))
+    with the driver at every lag Xs (L, T) added as one column, by the partitioned normal
+    equations of :func:`lagsieve.stats.linalg.expanding_added` (its Schur complement and ridge)."""
+    mask, p = fit.mask, Z.shape[-1]
+    C = window_cross(Z[:, None], Xs[..., None], mask)[..., 0]  # (D, L, O, p) = Z'x
+    GC = (fit.ginv[:, None] @ C[..., None])[..., 0]
+    xx = (Xs * Xs) @ mask.T  # (L, O)
+    schur = xx - np.sum(C * GC, -1) + RIDGE * (fit.trace[:, None] + xx) / (p + 1)
+    s = (fit.yc[:, None] * Xs) @ mask.T - np.sum(fit.beta[:, None] * C, -1)
+    g = s / schur
+    lead = Xs[:, origins] - np.sum(Z[:, None][..., origins, :] * GC, -1)
+    return fit.rss[:, None] - s * g, fit.forecast[:, None] + lead * g
+
+
+def _draw_gam(Z: np.ndarray, Xs: np.ndarray, Y: np.ndarray, origins: np.ndarray, n_basis: int, retune_every: int):
+    """(forecast, GCV), each (D, L, O): the spline candidate of
+    :func:`lagsieve.stats.backtest.gam_candidate` of every draw, on its own baseline's design
+    ``Z`` (D, T, p) (the baseline's terms beside the B-splines of the driver ``Xs`` (L, T),
+    whose knots span the first window) and its own response Y (D, T), centred on its first
+    window's mean."""
+    head = Xs[..., : origins[0]]
+    B = bspline_basis(Xs, n_basis, lo=head.min(-1), hi=head.max(-1))  # (L, T, K)
+    D, L = Y.shape[0], Xs.shape[0]
+    others = np.broadcast_to(Z[:, None, :, 1:], (D, L) + Z.shape[1:2] + (Z.shape[2] - 1,))
+    W = np.concatenate([others, np.broadcast_to(B, (D,) + B.shape)], axis=-1)
+    P = penalty_block(difference_penalty(n_basis, 2), Z.shape[2] - 1)
+    level = np.sum(Y[:, : origins[0]], -1, keepdims=True) / origins[0]
+    yc = np.broadcast_to((Y - level)[:, None, :], (D, L, Y.shape[1]))
+    fc, gcv, _ = expanding_penalised(W, P, yc, origins, retune_every=retune_every)
+    return fc + level[:, None], gcv
+
+
+def draw_skills(Y: np.ndarray, Ylag: np.ndarray, year: np.ndarray, X: np.ndarray, lags, initial: int,
+                models: tuple[str, ...] = ("linear",), retune_every: int = 5) -> dict[str, np.ndarray]:
+    """baseline -> (D,) skill of the candidate against that baseline, for every draw Y (D, T)
+    (Ylag (D, T) its previous years) of the real driver X (L, T) at every lag: the numbers of
+    :func:`lagsieve.stats.backtest.rolling_origin` run draw by draw (unweighted; its ``skill``),
+    in one batch. Every draw makes its own choices at every origin (baseline + driver at a lag,
+    or the spline on its own first window's AIC baseline, by GCV on the training years), and
+    its scaling of the previous year is its own first window's."""
+    Y = np.asarray(Y, float)
+    D, T = Y.shape
+    origins = np.arange(initial, T)
+    Xs = _scale_from_start(np.asarray(X, float), initial)
+    yl, yr = _scale_from_start(np.asarray(Ylag, float), initial), _scale_from_start(np.asarray(year, float), initial)
+    pool, base_fc, aic, designs = _CandidatePool(origins.astype(float)), {}, [], []
+    for i, b in enumerate(BASELINES):
+        Z = np.stack([baseline_design(b, yl[d], yr) for d in range(D)])  # (D, T, p): the previous year is the draw's
+        fit = member_windows(Z, Y, origins)
+        base_fc[b] = fit.forecast
+        rss, fc = with_driver(fit, Z, Xs, origins)  # (D, L, O)
+        pool.add_linear(SimpleNamespace(n_params=Z.shape[2] + 1, rss=rss, fc=fc), np.asarray(lags), i)
+        aic.append(initial * np.log(np.maximum(fit.rss[:, 0], 1e-300) / initial) + 2 * Z.shape[2])
+        designs.append(Z)
+    if "gam" in models:
+        cand0 = np.argmin(np.stack(aic), axis=0)  # (D,) each draw's spline baseline (first window's AIC)
+        fc_gam, gcv_gam = np.empty((D, len(Xs), len(origins))), np.empty((D, len(Xs), len(origins)))
+        for i in np.unique(cand0):
+            on = cand0 == i
+            fc_gam[on], gcv_gam[on] = _draw_gam(designs[i][on], Xs, Y[on], origins, default_n_basis(initial),
+                                                retune_every)
+        pool.add(gcv_gam, fc_gam, np.asarray(lags), 0)  # the baseline index is bookkeeping only
+    _, cand_fc = pool.choose()
+    mse_c = np.mean((Y[:, origins] - cand_fc) ** 2, -1)
+    return {b: skill_score(mse_c, np.mean((Y[:, origins] - f) ** 2, -1)) for b, f in base_fc.items()}

@@ -875,7 +875,8 @@ def expanding_penalised(
     smoothing parameter chosen by GCV inside the training window.
 
     W : (..., T, q) design (fixed across origins), P : (q, q) penalty (zero rows/columns for
-    unpenalised terms), y : (T,), ``origins`` consecutive integers. At a tuning origin one
+    unpenalised terms), y : (T,), or (..., T) with the batch axes of W (a response per member:
+    the draws of a response), ``origins`` consecutive integers. At a tuning origin one
     eigen-decomposition gives RSS, edf and GCV = n RSS / (n - gamma edf)^2 (Craven & Wahba
     1979; gamma = :data:`GCV_GAMMA` = 1.4 by default) for the whole grid of lambda: the
     Demmler-Reinsch form (Wood 2017, section 5.4 — section number from memory), here shifted to C = A + mu P, A = W'W, so that it stays
@@ -906,7 +907,7 @@ def expanding_penalised(
     origins = np.asarray(origins, int)
     if origins.size > 1 and np.any(np.diff(origins) != 1):
         raise ValueError("origins must be consecutive integers")
-    w = np.ones(len(y)) if weights is None else np.asarray(weights, float)
+    w = np.ones(y.shape[-1]) if weights is None else np.asarray(weights, float)
     tune = np.arange(0, len(origins), max(1, int(retune_every)))
     o_t = origins[tune]
     At, bt, yt, ridge = _tuning_equations(W, y, w, o_t)
@@ -962,7 +963,8 @@ def penalised_window_fit(
 
 def _tuning_equations(W: np.ndarray, y: np.ndarray, w: np.ndarray, o_t: np.ndarray):
     """Normal equations (A + ridge, b, y'Wy) of the tuning windows [0, o) for every o in
-    ``o_t``, accumulated block by block: (..., R, q, q), (..., R, q), (R,); and the ridge
+    ``o_t``, accumulated block by block: (..., R, q, q), (..., R, q), (R,) or (..., R) for a
+    response per member; and the ridge
     (...,): 1e-11 tr(A) / q with A of the first window."""
     q = W.shape[-1]
     Ww = W * w[:, None]
@@ -971,12 +973,13 @@ def _tuning_equations(W: np.ndarray, y: np.ndarray, w: np.ndarray, o_t: np.ndarr
     b_run = np.zeros(W.shape[:-2] + (q,))
     for o in o_t:
         A_run = A_run + np.swapaxes(Ww[..., lo:o, :], -1, -2) @ W[..., lo:o, :]
-        b_run = b_run + (y[lo:o] @ Ww[..., lo:o, :])
+        yw = y[lo:o] @ Ww[..., lo:o, :] if y.ndim == 1 else (y[..., None, lo:o] @ Ww[..., lo:o, :])[..., 0, :]
+        b_run = b_run + yw
         A_parts.append(A_run)
         b_parts.append(b_run)
         lo = o
     At, bt = np.stack(A_parts, axis=-3), np.stack(b_parts, axis=-2)
-    yt = np.cumsum(w * y * y)[o_t - 1]
+    yt = np.cumsum(w * y * y, axis=-1)[..., o_t - 1]
     ridge = 1e-11 * np.trace(At[..., 0, :, :], axis1=-2, axis2=-1) / q  # (...,)
     At[..., range(q), range(q)] += ridge[..., None, None]
     return At, bt, yt, ridge
@@ -1098,14 +1101,14 @@ def _carry_forward(W, y, w, origins, tune, fits, penalty):
             u = u - ki * _dot(ui, x)[..., None]
         wr = w[r] * live[:, j]
         den = 1.0 + wr * _dot(x, u)
-        e = y[r] - _dot(x, beta)
+        e = y[..., r] - _dot(x, beta)
         k = (wr / den)[..., None] * u
         d = k * e[..., None]
         Qd = lam_b[..., None] * _times(d, P) + ridge[..., None] * d
         Qb = lam_b[..., None] * _times(beta, P) + ridge[..., None] * beta
         rss = rss + _dot(d, (wr * e / den)[..., None] * x - Qd - 2.0 * Qb)
         beta = beta + d
-        rss = rss + wr * (y[r] - _dot(x, beta)) ** 2
+        rss = rss + wr * (y[..., r] - _dot(x, beta)) ** 2
         us.append(u)
         ks.append(k)
         at = tune[live[:, j]] + j + 1
