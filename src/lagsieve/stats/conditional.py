@@ -45,7 +45,7 @@ from lagsieve.stats.backtest import (
     clark_west,
     skill_score,
 )
-from lagsieve.stats.linalg import expanding_added
+from lagsieve.stats.linalg import expanding_added, expanding_shared
 from lagsieve.stats.splines import GCV_GAMMA
 from lagsieve.stats.surrogates import make_surrogates
 
@@ -180,23 +180,20 @@ def nested_rolling_origin(y: np.ndarray, ylag: np.ndarray, year: np.ndarray, C: 
     origins = np.arange(initial, T)
     Xs, yl, yr = (_scale_from_start(np.asarray(a, float), initial) for a in (X, ylag, year))
     Cs = _scale_from_start(np.asarray(C, float).reshape(T, -1).T, initial).T  # (T, q)
-    S, L, _ = Xs.shape
     n_tr = origins.astype(float)
-    gcv, fc_r, fc_f, lag_f = [], [], [], []
-    for b in BASELINES:  # four baselines: the design shared by the batch, the driver an added column
-        Z = np.column_stack([baseline_design(b, yl, yr), Cs])
-        fit = expanding_added(Z, Xs[..., None], y, origins, weights)  # (S, L, O)
-        fc_r.append(fit.shared.forecast)
-        gcv.append(n_tr * fit.shared.rss / np.maximum(n_tr - GCV_GAMMA * Z.shape[1], 1e-9) ** 2)
-        pick = np.argmin(fit.rss, axis=1)  # (S, O)
-        fc_f.append(np.take_along_axis(fit.forecast, pick[:, None, :], axis=1)[:, 0, :])
-        lag_f.append(np.asarray(lags)[pick])
+    designs = [np.column_stack([baseline_design(b, yl, yr), Cs]) for b in BASELINES]
+    shared = [expanding_shared(Z, y, origins, weights) for Z in designs]  # the smaller model of each baseline
+    gcv = [n_tr * sh.rss / np.maximum(n_tr - GCV_GAMMA * Z.shape[1], 1e-9) ** 2 for sh, Z in zip(shared, designs)]
     bi = np.argmin(np.stack(gcv), axis=0)  # (O,) baseline of least training GCV
-    cols = np.arange(len(origins))
+    full, lag = np.empty((Xs.shape[0], len(origins))), np.empty((Xs.shape[0], len(origins)), int)
+    for i in np.unique(bi):  # the driver added only where baseline i is the one chosen
+        at = np.flatnonzero(bi == i)
+        fit = expanding_added(designs[i], Xs[..., None], y, origins[at], weights)  # (S, L, O_i)
+        pick = np.argmin(fit.rss, axis=1)  # (S, O_i): the lag of least training RSS
+        full[:, at] = np.take_along_axis(fit.forecast, pick[:, None, :], axis=1)[:, 0, :]
+        lag[:, at] = np.asarray(lags)[pick]
     return NestedResult(
         years=np.asarray(year)[origins], observed=y[origins],
-        restricted=np.stack(fc_r)[bi, cols],
-        full=np.stack(fc_f)[bi, :, cols].T,
-        lag=np.stack(lag_f)[bi, :, cols].T,
-        baseline=np.asarray(BASELINES)[bi],
+        restricted=np.stack([sh.forecast for sh in shared])[bi, np.arange(len(origins))],
+        full=full, lag=lag, baseline=np.asarray(BASELINES)[bi],
     )
