@@ -105,6 +105,23 @@ def test_closed_form_with_level_and_trend_agrees_with_mixedlm(sleepstudy):
     assert fit.sigma2 == pytest.approx(ref.scale, rel=1e-4)
     ours = mixed_fit(design(x, False), Y, trend)
     assert ours.group_coef[:, 0] == pytest.approx(fit.shrunken()[:, 0], rel=1e-4)
+    # started from the closed form, MixedLM stays at it: the REML estimate of balanced data (Searle et al. 1992)
+    assert ours.sigma[0, 0] == pytest.approx(fit.sigma[0, 0], rel=1e-6)
+    assert ours.sigma2 == pytest.approx(fit.sigma2, rel=1e-6)
+
+
+def test_one_slope_null_in_closed_form_is_the_numerical_maximum(sleepstudy):
+    """With the slope the only random coefficient, the null is a linear model: its REML
+    variance RSS / (N - k) (Harville 1977) gives the largest REML likelihood, the one scipy's
+    bounded search over sigma^2 finds (reference optimiser), on sleepstudy with x = sin(day)."""
+    from scipy.optimize import minimize_scalar
+
+    days, Y = sleepstudy
+    D, trend = design(np.sin(days), False), level_and_trend(days)
+    best = minimize_scalar(lambda v: -reml_loglik(D, Y, np.zeros((1, 1)), np.exp(v), trend), bounds=(0.0, 12.0),
+                           method="bounded", options={"xatol": 1e-10})
+    assert one_slope_loglik(D, Y, trend) == pytest.approx(-best.fun, abs=1e-7)
+    assert one_slope_loglik(D, Y, trend) >= -best.fun - 1e-12
 
 
 def test_batch_members_are_separate_fits(sleepstudy):

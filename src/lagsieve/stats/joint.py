@@ -50,6 +50,7 @@ import numpy as np
 from scipy import stats as _st
 
 from lagsieve.stats.backtest import BASELINES, baseline_design, skill_score
+from lagsieve.stats.linalg import window_mask
 from lagsieve.stats.modelset import aicc
 
 
@@ -244,10 +245,17 @@ def one_slope_loglik(D: np.ndarray, Y: np.ndarray, nuisance: np.ndarray | None =
     """The largest REML log-likelihood with the slope shared (its variance and covariances
     zero) and the other random coefficients free (variances >= 0, no covariance), maximised
     numerically: the null of the heterogeneity likelihood-ratio test. (statsmodels' MixedLM
-    reports an infinite likelihood when a variance ends at zero, so it is not used here.)"""
+    reports an infinite likelihood when a variance ends at zero, so it is not used here.)
+    With the slope the only random coefficient the null has no random effect left: a linear
+    model, whose REML variance is RSS / (N - k) in closed form (Harville 1977)."""
+    p = D.shape[1]
+    if p == 1:
+        X, _ = _stacked(D, Y.shape[0], nuisance)
+        y = Y.reshape(-1)
+        r = y - X @ np.linalg.lstsq(X, y, rcond=None)[0]
+        return reml_loglik(D, Y, np.zeros((1, 1)), float(r @ r) / (len(y) - np.linalg.matrix_rank(X)), nuisance)
     # imported here: only the one real fit of each joint hypothesis optimises
     from scipy.optimize import minimize
-    p = D.shape[1]
 
     def neg(theta):  # theta = (log sigma^2, variances of the other coefficients / sigma^2)
         s2 = float(np.exp(theta[0]))
@@ -258,29 +266,39 @@ def one_slope_loglik(D: np.ndarray, Y: np.ndarray, nuisance: np.ndarray | None =
     return float(-best.fun)
 
 
-#: statsmodels' optimisers tried for every real fit; the fit of the largest REML likelihood is
-#: kept (its L-BFGS has been seen to stop at a random-effects variance of zero with the fixed
-#: effects at zero and report convergence, where BFGS and Powell agree on the closed form).
+#: statsmodels' optimisers tried for every real fit, in turn, each from the closed form of
+#: :func:`balanced_fit`; the first that converges to at least the closed form's REML likelihood is
+#: kept, else the fit of the largest REML likelihood (its L-BFGS has been seen to stop at a
+#: random-effects variance of zero with the fixed effects at zero and report convergence, where
+#: BFGS and Powell agree on the closed form).
 OPTIMISERS = ("bfgs", "powell")
 
 
 def _mixed_model(D: np.ndarray, Y: np.ndarray, nuisance: np.ndarray | None):
     """statsmodels MixedLM of the stacked groups (fixed [group nuisance, D], random D by group),
-    the best of :data:`OPTIMISERS` by :func:`reml_loglik`."""
+    started from the closed form (on balanced data the REML estimate itself when it is inside the
+    parameter space), by the first of :data:`OPTIMISERS` that reaches the closed form's REML
+    likelihood, else the best of them by :func:`reml_loglik`."""
     # imported here: statsmodels costs 1-3 s, paid only by studies that screen groups jointly
-    from statsmodels.regression.mixed_linear_model import MixedLM
+    from statsmodels.regression.mixed_linear_model import MixedLM, MixedLMParams
     G, T = Y.shape
     X, Z = _stacked(D, G, nuisance)
     model = MixedLM(Y.reshape(-1), X, groups=np.repeat(np.arange(G), T), exog_re=Z)
+    closed = balanced_fit(D, Y, nuisance)
+    rel = closed.sigma / closed.sigma2 + 1e-12 * np.eye(D.shape[1])  # cov_re / scale as statsmodels has it (PD)
+    start = MixedLMParams.from_components(np.zeros(X.shape[1]), cov_re=rel)
+    target = reml_loglik(D, Y, closed.sigma, float(closed.sigma2), nuisance)
     fits = []
     for method in OPTIMISERS:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")  # boundary and convergence warnings: convergence is reported
             try:
-                fit = model.fit(reml=True, method=method)
+                fit = model.fit(reml=True, method=method, start_params=start)
             except (np.linalg.LinAlgError, ValueError):
                 continue
         fits.append((reml_loglik(D, Y, np.asarray(fit.cov_re, float), float(fit.scale), nuisance), fit))
+        if fit.converged and fits[-1][0] >= target - 1e-9 * abs(target):
+            break
     if not fits:
         raise np.linalg.LinAlgError("no optimiser fitted the mixed model")
     return max(fits, key=lambda f: f[0])[1]
@@ -342,19 +360,24 @@ class _WindowFits:
 def window_fits(Z: np.ndarray, X: np.ndarray, y: np.ndarray, origins: np.ndarray) -> _WindowFits:
     """Least squares on rows [0, o) of y on Z (T, p) and of y on [Z, x] for every member x of
     X (..., T) and origin o, the driver's coefficient by the Frisch-Waugh-Lovell partial
-    regression (the driver after the baseline), all windows at once by cumulative sums."""
+    regression (the driver after the baseline), all windows at once: every window sum of the
+    batch is one matrix product with the window mask (:func:`lagsieve.stats.linalg.window_mask`)."""
     last = origins - 1
+    mask = window_mask(origins, len(y))  # (O, T)
     ZZ = np.cumsum(Z[:, :, None] * Z[:, None, :], 0)[last]
     ginv = np.linalg.pinv(ZZ)  # (O, p, p)
     d0 = (ginv @ np.cumsum(Z * y[:, None], 0)[last][..., None])[..., 0]  # (O, p)
     rss0 = np.cumsum(y * y)[last] - np.sum(np.cumsum(Z * y[:, None], 0)[last] * d0, -1)
-    Zx = np.cumsum(X[..., :, None] * Z, -2)[..., last, :]  # (..., O, p)
-    q = np.einsum("opr,...or->...op", ginv, Zx)
-    sxx = np.cumsum(X * X, -1)[..., last] - np.sum(Zx * q, -1)
-    sxy = np.cumsum(X * y, -1)[..., last] - np.sum(Zx * d0, -1)
-    ok = sxx > 1e-12 * np.cumsum(X * X, -1)[..., last]
+    # the batch's arrays one column of Z at a time (p <= 4): (..., O) each, no stacks of tiny products
+    cols = range(Z.shape[1])
+    Zx = [X @ (mask * Z[:, j]).T for j in cols]  # Z'x
+    q = [sum(ginv[:, j, r] * Zx[r] for r in cols) for j in cols]  # (Z'Z)^+ Z'x
+    xx = (X * X) @ mask.T
+    sxx = xx - sum(Zx[j] * q[j] for j in cols)
+    sxy = X @ (mask * y).T - sum(Zx[j] * d0[:, j] for j in cols)
+    ok = sxx > 1e-12 * xx
     coef = np.where(ok, sxy / np.where(ok, sxx, 1.0), 0.0)
-    lead = X[..., origins] - np.sum(Z[origins] * q, -1)
+    lead = X[..., origins] - sum(Z[origins, j] * q[j] for j in cols)
     return _WindowFits(fc0=np.sum(Z[origins] * d0, -1), coef=coef, sxx=np.where(ok, sxx, 0.0), lead=lead,
                        rss=rss0 - coef * sxy)
 
