@@ -11,7 +11,7 @@ from scipy import stats as sps
 from statsmodels.imputation.mice import MICE
 
 from lagsieve.errors import InputErrors
-from lagsieve.evidence.draws import FRAGILE_SHARE, add_draws
+from lagsieve.evidence.draws import FRAGILE_SHARE, add_draws, draw_qvalues
 from lagsieve.io.estimates import read_draws, read_vintages, wide
 from lagsieve.stats.backtest import rolling_origin
 from lagsieve.stats.draws import best_lag_stats, draw_skills, draw_slopes, member_windows, pick_draws, rubin
@@ -121,6 +121,24 @@ def test_draw_skills_in_one_batch_equal_the_rolling_origin_draw_by_draw(models):
         ro = rolling_origin(Y[d], Ylag[d], year, X[None], lags, 15, models=models)
         for b, s in ro.skill.items():
             assert got[b][d] == pytest.approx(float(s[0]), rel=1e-9, abs=1e-12)
+
+
+def test_draw_qvalues_equal_statsmodels_fdr_bh_draw_by_draw():
+    """Each draw's q-value of one hypothesis, the study's other p-values fixed (NaN among them
+    left out), equals statsmodels' multipletests(method="fdr_bh") on that draw's p-values."""
+    from statsmodels.stats.multitest import multipletests
+
+    rng = np.random.default_rng(2)
+    study_p = rng.uniform(0, 0.3, size=12)
+    study_p[[2, 7]] = np.nan
+    p_draws = np.r_[rng.uniform(0, 0.2, size=5), np.nan, study_p[4]]  # a tie with another p too
+    q = draw_qvalues(study_p, 4, p_draws)
+    assert np.isnan(q[5])
+    for d in (0, 1, 2, 3, 4, 6):
+        p = study_p.copy()
+        p[4] = p_draws[d]
+        ok = ~np.isnan(p)
+        assert q[d] == pytest.approx(multipletests(p[ok], method="fdr_bh")[1][np.sum(ok[:4])], rel=1e-12)
 
 
 def test_draws_are_chosen_from_the_seed():

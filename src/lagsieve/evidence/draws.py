@@ -32,6 +32,7 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
+from scipy import stats as _sps
 
 from lagsieve.evidence.grading import flags_for, grade_row
 from lagsieve.evidence.vocabulary import GRADE_ORDER
@@ -40,7 +41,6 @@ from lagsieve.screen.hypothesis import surrogate_p
 from lagsieve.stats import correlation as st
 from lagsieve.stats.backtest import BASELINES, rolling_origin
 from lagsieve.stats.draws import best_lag_stats, draw_skills, draw_slopes, pick_draws, rubin
-from lagsieve.stats.multiplicity import bh_qvalues
 
 DRAW_COLUMNS = ["draw_n", "draw_grade_share", "draw_slope", "draw_slope_se", "draw_between_share", "draw_fragile"]
 #: A grade that holds in fewer than this share of the draws depends on the draw taken (our own
@@ -114,18 +114,33 @@ def _capped_at(row: dict, screen: dict) -> str | None:
     return row["grade"] if GRADE_ORDER[rules] < GRADE_ORDER[row["grade"]] else None
 
 
+def draw_qvalues(study_p: np.ndarray, index: int, p_draws: np.ndarray) -> np.ndarray:
+    """(D,) the Benjamini-Hochberg q-value of hypothesis ``index`` with its p in each draw and
+    every other p of the study fixed: :func:`lagsieve.stats.multiplicity.bh_qvalues` of each
+    draw's p-values, all draws in one call of scipy's ``false_discovery_control`` along rows."""
+    p_draws = np.asarray(p_draws, float)
+    ok = ~np.isnan(study_p)
+    ok[index] = True
+    P = np.tile(study_p[ok], (len(p_draws), 1))
+    at = int(np.sum(ok[:index]))
+    P[:, at] = p_draws
+    q = np.full(len(p_draws), np.nan)
+    real = ~np.isnan(p_draws)
+    if real.any():
+        q[real] = _sps.false_discovery_control(P[real], axis=-1, method="bh")[:, at]
+    return q
+
+
 def draw_grades(row: dict, per_draw: dict, study_p: np.ndarray, index: int, screen: dict) -> list[str]:
     """The grade of the hypothesis in every draw: its row with the per-draw values in place."""
     alpha, fdr = screen["alpha"], screen["fdr"]
     cap = _capped_at(row, screen)
+    per = dict(per_draw, p_naive=st.correlation_p(per_draw["r"], row["n"]),
+               p_adjusted=st.correlation_p(per_draw["r"], row["n_eff"]),
+               q_value=draw_qvalues(study_p, index, per_draw["p_surrogate"]))
     grades = []
     for d in range(len(per_draw["r"])):
-        new = dict(row, **{k: v[d] for k, v in per_draw.items() if isinstance(v, np.ndarray)})
-        new["p_naive"] = float(st.correlation_p(new["r"], row["n"]))
-        new["p_adjusted"] = float(st.correlation_p(new["r"], row["n_eff"]))
-        p = study_p.copy()
-        p[index] = new["p_surrogate"]
-        new["q_value"] = float(bh_qvalues(p)[index])
+        new = dict(row, **{k: v[d] for k, v in per.items() if isinstance(v, np.ndarray)})
         g = grade_row(new, flags_for(new, alpha, fdr), alpha, fdr, screen["min_overlap"])
         if cap is not None and GRADE_ORDER[g] < GRADE_ORDER[cap]:
             g = cap

@@ -26,7 +26,7 @@ import numpy as np
 
 from lagsieve.stats import correlation as st
 from lagsieve.stats.backtest import BASELINES, _CandidatePool, _scale_from_start, baseline_design, skill_score
-from lagsieve.stats.linalg import RIDGE, window_cross, window_mask
+from lagsieve.stats.linalg import RIDGE, window_mask
 from lagsieve.stats.splines import (
     bspline_basis,
     default_n_basis,
@@ -143,10 +143,12 @@ def member_windows(Z: np.ndarray, y: np.ndarray, origins: np.ndarray) -> MemberW
     Z, y = np.asarray(Z, float), np.asarray(y, float)
     mask = window_mask(origins, y.shape[-1])
     yc = y - y[..., : origins[0]].mean(-1, keepdims=True)
-    G = window_cross(Z, Z, mask)  # (..., O, p, p)
+    p = Z.shape[-1]
+    outer = (Z[..., :, :, None] * Z[..., :, None, :]).reshape(Z.shape[:-1] + (p * p,))
+    G = (mask @ outer).reshape(Z.shape[:-2] + (len(mask), p, p))  # window sums: products with the mask
     trace = np.trace(G, axis1=-2, axis2=-1)
-    ginv = np.linalg.inv(G + (RIDGE * trace / Z.shape[-1])[..., None, None] * np.eye(Z.shape[-1]))
-    b = window_cross(Z, yc[..., None], mask)[..., 0]  # (..., O, p)
+    ginv = np.linalg.inv(G + (RIDGE * trace / p)[..., None, None] * np.eye(p))
+    b = mask @ (Z * yc[..., None])  # (..., O, p)
     beta = (ginv @ b[..., None])[..., 0]
     rss = (yc * yc) @ mask.T - np.sum(beta * b, -1)
     forecast = (y - yc)[..., :1] + np.sum(Z[..., origins, :] * beta, -1)
@@ -158,7 +160,8 @@ def with_driver(fit: MemberWindows, Z: np.ndarray, Xs: np.ndarray, origins: np.n
     with the driver at every lag Xs (L, T) added as one column, by the partitioned normal
     equations of :func:`lagsieve.stats.linalg.expanding_added` (its Schur complement and ridge)."""
     mask, p = fit.mask, Z.shape[-1]
-    C = window_cross(Z[:, None], Xs[..., None], mask)[..., 0]  # (D, L, O, p) = Z'x
+    L, O = len(Xs), len(mask)
+    C = ((mask[None] * Xs[:, None, :]).reshape(L * O, -1) @ Z).reshape(len(Z), L, O, p)  # Z'x of every window
     GC = (fit.ginv[:, None] @ C[..., None])[..., 0]
     xx = (Xs * Xs) @ mask.T  # (L, O)
     schur = xx - np.sum(C * GC, -1) + RIDGE * (fit.trace[:, None] + xx) / (p + 1)
