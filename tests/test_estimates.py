@@ -182,6 +182,17 @@ def test_a_grade_that_holds_in_every_draw_is_not_fragile():
     assert row["draw_between_share"] < 0.05
 
 
+def test_draws_are_judged_against_their_own_response_null_only():
+    """The evidence job reads the nulls of every response: a null of another response with the
+    same driver (here one that would make every draw insignificant) changes nothing."""
+    ev, table, Y, nulls, screen = _study_frames(noise=0.3)
+    other = nulls.assign(response="other", value=nulls["value"] + 100.0)
+    alone = add_draws(ev, table, {"m": Y}, nulls, {"d": [0, 1]}, screen)
+    mixed = add_draws(ev, table, {"m": Y}, pd.concat([other, nulls], ignore_index=True), {"d": [0, 1]}, screen)
+    assert alone["draw_grade_share"].iloc[0] > 0
+    assert mixed["draw_grade_share"].iloc[0] == alone["draw_grade_share"].iloc[0]
+
+
 def test_a_grade_that_depends_on_the_draw_is_fragile():
     ev, table, Y, nulls, screen = _study_frames(noise=1.5)
     out = add_draws(ev, table, {"m": Y}, nulls, {"d": [0, 1]}, screen)

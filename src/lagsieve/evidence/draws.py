@@ -37,7 +37,6 @@ from scipy import stats as _sps
 from lagsieve.evidence.grading import flags_for, grade_row
 from lagsieve.evidence.vocabulary import GRADE_ORDER
 from lagsieve.prep.align import apply_transform, forecast_frame, inverse_variance_weights, shift_batch
-from lagsieve.screen.hypothesis import surrogate_p
 from lagsieve.stats import correlation as st
 from lagsieve.stats.backtest import BASELINES, rolling_origin
 from lagsieve.stats.draws import best_lag_stats, draw_skills, draw_slopes, pick_draws, rubin
@@ -56,14 +55,20 @@ def draw_matrix(draws: pd.DataFrame, table: pd.DataFrame, transform: str, n_want
     return apply_transform(w.reindex(columns=table.index).to_numpy(float), transform)
 
 
-def _null(nulls: pd.DataFrame, driver: str, test: str) -> np.ndarray:
-    n = nulls[(nulls["driver"] == driver) & (nulls["test"] == test)]
+def _null(nulls: pd.DataFrame, response: str, driver: str, test: str) -> np.ndarray:
+    """The screen's null sample of one hypothesis (its response and driver) and test."""
+    n = nulls[(nulls["response"] == response) & (nulls["driver"] == driver) & (nulls["test"] == test)]
     return n["value"].to_numpy(float)
 
 
 def _p_against(obs: np.ndarray, null: np.ndarray) -> np.ndarray:
-    """Surrogate p of every observed value against one null sample."""
-    return np.array([surrogate_p(np.r_[o, null]) for o in obs])
+    """Surrogate p of every observed value against one null sample: as
+    :func:`lagsieve.screen.hypothesis.surrogate_p`, (1 + #{null >= obs}) / (B + 1) over the
+    null's non-missing values, all values at once (NaN where the value is missing)."""
+    null = np.sort(null[~np.isnan(null)])
+    obs = np.asarray(obs, float)
+    above = len(null) - np.searchsorted(null, obs, side="left")
+    return np.where(np.isnan(obs), np.nan, (1.0 + above) / (len(null) + 1))
 
 
 def _in_sample(row: dict, table: pd.DataFrame, Y: np.ndarray, lags: list[int], null: np.ndarray) -> dict:
@@ -153,13 +158,13 @@ def judge_hypothesis(row: dict, index: int, study_p: np.ndarray, table: pd.DataF
     """The draw columns of one hypothesis (empty when it has no lag or no forecasts)."""
     if pd.isna(row.get("lag")) or not str(row.get("status", "")).startswith("ok"):
         return {}
-    per = _in_sample(row, table, Y, lags, _null(nulls, row["driver"], "in-sample"))
+    per = _in_sample(row, table, Y, lags, _null(nulls, row["response"], row["driver"], "in-sample"))
     pooled = rubin(per["slope"], per["slope_se"] ** 2)
     out = {"draw_n": len(Y), "draw_slope": float(pooled.estimate), "draw_slope_se": float(pooled.se),
            "draw_between_share": float(pooled.between_share)}
     if pd.isna(row.get("oos_skill")) or pd.isna(row.get("oos_initial")):
         return out
-    per.update(_out_of_sample(row, table, Y, lags, screen, se, _null(nulls, row["driver"], "out-of-sample")))
+    per.update(_out_of_sample(row, table, Y, lags, screen, se, _null(nulls, row["response"], row["driver"], "out-of-sample")))
     per.pop("n")
     grades = draw_grades(row, per, study_p, index, screen)
     share = float(np.mean([g == row["grade"] for g in grades]))

@@ -80,7 +80,9 @@ def run_evidence(config_path, annual_csv, work_dir, out_screen, out_evidence) ->
     annual = pd.read_csv(annual_csv)
     se = se_table(annual, study.transforms())
     ev = add_state_space(ev, table, se, study.screen)
-    nulls = pd.concat([pd.read_csv(d / "nulls.csv") for d in dirs.values()], ignore_index=True)
+    drawn = [dirs[r["id"]] / "nulls.csv" for r in study.responses if r.get("draws")]  # the draws' own nulls
+    nulls = (pd.concat([pd.read_csv(f) for f in drawn], ignore_index=True) if drawn
+             else pd.DataFrame(columns=["response", "driver", "test", "value"]))
     ev = add_estimates(ev, study, table, annual, nulls, se)  # a response's draws and vintages
     models = by_response(ev, study, lambda e, c: model_table(e, table, study.screen, c), MODEL_COLUMNS)
     ev = resummarize(view.restore(ev, {"lag": "driver"}), study.screen, view.series)  # driver ids, lags in seasons
