@@ -34,6 +34,7 @@ Litzow, M.A. et al. (2018) Proc. R. Soc. B 285 (from memory: moving-window corre
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 from scipy import optimize
@@ -174,10 +175,19 @@ def iaaft(e: np.ndarray, n_surrogates: int, rng: np.random.Generator, rounds: in
     amp = np.abs(np.fft.rfft(e - e.mean()))
     s = phase_randomised(e - e.mean(), n_surrogates, rng)
     for _ in range(rounds + 1):
-        s = srt[np.argsort(np.argsort(s, axis=-1), axis=-1)]
+        s = _in_rank_order(srt, s)
         spec = np.fft.rfft(s - s.mean(-1, keepdims=True), axis=-1)
         s = np.fft.irfft(amp * np.exp(1j * np.angle(spec)), n=n, axis=-1)
-    return srt[np.argsort(np.argsort(s, axis=-1), axis=-1)]
+    return _in_rank_order(srt, s)
+
+
+def _in_rank_order(srt: np.ndarray, s: np.ndarray) -> np.ndarray:
+    """The sorted values ``srt`` (n,) rearranged in the rank order of every row of ``s`` (B, n):
+    srt[rank of s_t] at t, by one sort of each row and a scatter (the same rearrangement as
+    ``srt[argsort(argsort(s))]``, with one sort instead of two)."""
+    out = np.empty(s.shape)
+    np.put_along_axis(out, np.argsort(s, axis=-1), np.broadcast_to(srt, s.shape), axis=-1)
+    return out
 
 
 def slope_break_residual_test(x: np.ndarray, y: np.ndarray, n_surrogates: int, rng: np.random.Generator,
@@ -229,6 +239,7 @@ def argmax_cdf(x: np.ndarray) -> np.ndarray:
     return np.where(x >= 0, g, 1.0 - g)
 
 
+@lru_cache(maxsize=8)
 def argmax_quantile(level: float) -> float:
     """The ``level`` quantile of the argmax of W(s) - |s|/2 (about 11.0 at 0.975, Bai 1997,
     from memory)."""
