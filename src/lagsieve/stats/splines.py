@@ -1077,44 +1077,72 @@ def _carry_forward(W, y, w, origins, tune, fits, penalty):
     new coefficients changes by d'Ad - 2 d'Qb (their gradient is Q b by the normal equations,
     and A d = (w e / den) x - Q d), and the new row adds w (y - x'b_new)^2: increments only,
     so no cancellation against the whole penalty builds up. A block that has run out of
-    steps takes weight 0, which leaves it unchanged."""
+    steps takes weight 0, which leaves it unchanged.
+
+    Layout: the systems (batch members x tuning origins) are the last, contiguous axis of every
+    array, vectors (q, members, R) and scalars (members, R), so each step is a few elementwise
+    operations and sums over the q rows across all systems, and the penalty product one 2-D
+    product (P a); stacks of (1 x q) (q x 1) products with the systems first took 1.4x as long
+    (0.24 s against 0.17 s for the 20 spline backtests of one demo response, load 5-7)."""
     h0, beta, rss = fits
     lam_b, P, ridge = penalty
-    n_o, ends = len(origins), np.r_[tune[1:], len(origins)]
-    fc = np.empty(W.shape[:-2] + (n_o,))
-    rss_o = np.empty(W.shape[:-2] + (n_o,))
-    fc[..., tune] = _dot(W[..., origins[tune], :], beta)
-    rss_o[..., tune] = rss
+    batch, (T, q) = W.shape[:-2], W.shape[-2:]
+    nb, R, n_o = int(np.prod(batch, dtype=int)), len(tune), len(origins)
+    ends = np.r_[tune[1:], n_o]
+    Wf, beta_f = W.reshape(nb, T, q), beta.reshape(nb, R, q)
+    fc, rss_o = np.empty((nb, n_o)), np.empty((nb, n_o))
+    fc[:, tune] = _dot(Wf[:, origins[tune], :], beta_f)
+    rss_o[:, tune] = rss.reshape(nb, R)
     n_steps = int((ends - tune).max()) - 1
-    if n_steps <= 0:
-        return fc, rss_o
-    # the rows of every step and, one further, the row each step forecasts (clipped where no block is live)
-    rows = np.minimum(origins[tune][:, None] + np.arange(n_steps + 1)[None, :], origins[-1])  # (R, M + 1)
-    live = tune[:, None] + np.arange(1, n_steps + 1)[None, :] < ends[:, None]  # (R, M)
-    X = W[..., rows, :]  # (..., R, M + 1, q)
-    U0 = X[..., :n_steps, :] @ h0  # (..., R, M, q): H_0 x of every step (H symmetric)
+    if n_steps > 0:
+        # the rows of every step and, one further, the row each step forecasts (clipped where no block is live)
+        rows = np.minimum(origins[tune][:, None] + np.arange(n_steps + 1)[None, :], origins[-1])  # (R, M + 1)
+        live = tune[:, None] + np.arange(1, n_steps + 1)[None, :] < ends[:, None]  # (R, M)
+        X = np.ascontiguousarray(Wf[:, rows, :].transpose(2, 3, 0, 1))  # (M + 1, q, nb, R)
+        H = np.ascontiguousarray(h0.reshape(nb, R, q, q).transpose(2, 3, 0, 1))  # (q, q, nb, R)
+        U0 = np.einsum("iknr,jknr->jinr", H, X[:n_steps])  # (M, q, nb, R): H_0 x of every step
+        Y = (np.broadcast_to(y, batch + (T,)).reshape(nb, T) if y.ndim > 1 else y)[..., rows]  # (R, M + 1) or (nb, R, M + 1)
+        state = (np.ascontiguousarray(beta_f.transpose(2, 0, 1)), rss.reshape(nb, R).copy())
+        penalty_nr = (lam_b.reshape(nb, R), P, np.broadcast_to(ridge, batch + (1,)).reshape(nb, 1))
+        for j, (b, rs) in enumerate(_sherman_morrison_steps(X, U0, Y, w[rows[:, :n_steps]] * live, state,
+                                                            penalty_nr)):
+            at = tune[live[:, j]] + j + 1
+            rss_o[:, at] = rs[:, live[:, j]]
+            fc[:, at] = _sum_rows(X[j + 1], b)[:, live[:, j]]  # row origins[at]
+    return fc.reshape(batch + (n_o,)), rss_o.reshape(batch + (n_o,))
+
+
+def _sherman_morrison_steps(X, U0, Y, wr, state, penalty):
+    """The steps of :func:`_carry_forward`, the systems last: yields (coefficients (q, nb, R),
+    training RSS (nb, R)) after every step j. X (M + 1, q, nb, R), U0 (M, q, nb, R), Y (R, M + 1)
+    or (nb, R, M + 1), wr (R, M) the step's weight (0 where a block has run out)."""
+    b, rs = state
+    lam, P, ridge = penalty
+    q = P.shape[0]
+
+    def q_times(a):  # (lambda P + ridge) a: the penalty shared by every system, one 2-D product
+        return lam * (P @ a.reshape(q, -1)).reshape(a.shape) + ridge * a
+
     us, ks = [], []
-    for j in range(n_steps):
-        x, r = X[..., j, :], rows[:, j]
-        u = U0[..., j, :]
+    for j in range(U0.shape[0]):
+        x, u, yj, wj = X[j], U0[j], Y[..., j], wr[:, j]
         for ui, ki in zip(us, ks):
-            u = u - ki * _dot(ui, x)[..., None]
-        wr = w[r] * live[:, j]
-        den = 1.0 + wr * _dot(x, u)
-        e = y[..., r] - _dot(x, beta)
-        k = (wr / den)[..., None] * u
-        d = k * e[..., None]
-        Qd = lam_b[..., None] * _times(d, P) + ridge[..., None] * d
-        Qb = lam_b[..., None] * _times(beta, P) + ridge[..., None] * beta
-        rss = rss + _dot(d, (wr * e / den)[..., None] * x - Qd - 2.0 * Qb)
-        beta = beta + d
-        rss = rss + wr * (y[..., r] - _dot(x, beta)) ** 2
+            u = u - ki * _sum_rows(ui, x)
+        den = 1.0 + wj * _sum_rows(x, u)
+        e = yj - _sum_rows(x, b)
+        k = (wj / den) * u
+        d = k * e
+        rs = rs + _sum_rows(d, (wj * e / den) * x - q_times(d) - 2.0 * q_times(b))
+        b = b + d
+        rs = rs + wj * (yj - _sum_rows(x, b)) ** 2
         us.append(u)
         ks.append(k)
-        at = tune[live[:, j]] + j + 1
-        rss_o[..., at] = rss[..., live[:, j]]
-        fc[..., at] = _dot(X[..., j + 1, :], beta)[..., live[:, j]]  # row origins[at]
-    return fc, rss_o
+        yield b, rs
+
+
+def _sum_rows(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """sum(a * b, axis=0) for vectors stored down the first axis, (q, nb, R) (the systems last)."""
+    return np.einsum("qnr,qnr->nr", a, b)
 
 
 def _times(a: np.ndarray, P: np.ndarray) -> np.ndarray:
