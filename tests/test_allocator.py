@@ -56,3 +56,21 @@ def test_the_jobs_of_a_run_inherit_the_setting(demo_run):
     prov = json.loads((results / "provenance.json").read_text())
     expected = allocator_variables(os.environ) or allocator_environment(os.environ)
     assert prov["allocator"] == expected
+
+
+def test_the_objects_alive_at_a_stages_end_are_left_to_the_exit(tmp_path):
+    """gc.freeze (Python's gc module documentation): the frozen objects leave every later
+    collection, the one at the interpreter's exit included; a job's log ends the stage."""
+    import gc
+    from types import SimpleNamespace
+
+    from lagsieve.stages.common import logged
+
+    gc.unfreeze()
+    try:
+        with logged(SimpleNamespace(log=[str(tmp_path / "stage.log")])):
+            pass
+        assert gc.get_freeze_count() > 0
+    finally:
+        gc.unfreeze()
+    assert gc.get_freeze_count() == 0

@@ -137,3 +137,35 @@ def test_a_batch_writes_what_the_stage_jobs_write_and_reruns_only_a_changed_stud
     assert [r["ran"] for r in yaml.safe_load(record.read_text())["studies"]] == [False, True]
     assert (tmp_path / "batched" / "one" / "report.html").stat().st_mtime_ns == kept
     assert "Another title" in (tmp_path / "batched" / "two" / "report.html").read_text()
+
+
+def test_a_failed_study_leaves_the_others_of_its_chunk_to_run(new_study, tmp_path, monkeypatch):
+    """A stage that fails ends in SystemExit(1) (stages.common.logged); the chunk runs its other
+    studies, names the failed one at the end, and gives the objects its stages froze for an
+    exit back to the collector after each study (gc.unfreeze)."""
+    import gc
+
+    from lagsieve.stages import batch
+    from lagsieve.stages.plan import plan_studies
+
+    shutil.copytree(new_study.parent, tmp_path / "s2")
+    cfg2 = tmp_path / "s2" / "config.yaml"
+    cfg2.write_text(cfg2.read_text().replace("study: caldrin_shelf_demo", "study: second"))
+    planned = list(plan_studies({"studies": [str(new_study), str(cfg2)]}, check=False).values())
+    ran = []
+
+    def fake_study(p, out, threads):
+        ran.append((p.study.id, gc.get_freeze_count()))
+        gc.freeze()  # as the stages' logs do
+        if p.study.id == "caldrin_shelf_demo":
+            raise SystemExit(1)
+        (out / p.study.id).mkdir(parents=True)
+
+    monkeypatch.setattr(batch, "run_study", fake_study)
+    with pytest.raises(RuntimeError, match="1 of 2 studies of this batch failed: caldrin_shelf_demo"):
+        batch.run_batch(planned, tmp_path / "out", tmp_path / "out" / "batches" / "0001.json")
+    assert ran == [("caldrin_shelf_demo", 0), ("second", 0)] and gc.get_freeze_count() == 0
+    assert (tmp_path / "out" / "second" / "work" / "batch_stamp.json").is_file()
+    monkeypatch.setattr(batch, "run_study", lambda p, out, threads: (_ for _ in ()).throw(SystemExit(130)))
+    with pytest.raises(SystemExit):  # Ctrl-C stops the chunk
+        batch.run_batch(planned[:1], tmp_path / "out", tmp_path / "out" / "batches" / "0001.json")

@@ -172,6 +172,16 @@ def test_python_dash_m_lagsieve(tmp_path):
     assert proc.stdout.startswith("lagsieve ")
 
 
+def test_the_ledger_check_of_run_imports_the_store_alone():
+    """`lagsieve run` checks the ledger (lagsieve.ledger.store) before Snakemake starts; the
+    package's entry points are imported on first use (PEP 562), not with the store."""
+    code = ("import sys, lagsieve.ledger.store; print(sorted(m for m in ('lagsieve.ledger.cli', "
+            "'lagsieve.ledger.update', 'scipy.stats') if m in sys.modules)); "
+            "from lagsieve.ledger import print_track_record, update_ledger; print(update_ledger.__module__)")
+    proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
+    assert proc.stdout.split() == ["[]", "lagsieve.ledger.update"], proc.stderr
+
+
 def test_ledger_before_any_run_is_one_line(study):
     proc = lagsieve("ledger", study)
     assert proc.returncode == 2 and "Traceback" not in proc.stderr

@@ -36,6 +36,7 @@ import lagsieve
 import lagsieve.workflow
 from lagsieve.errors import InputErrors, InputProblem, report_problems
 from lagsieve.io.lock import RESULTS_FIX, check_folder, claim_results, make_folder
+from lagsieve.stages.allocator import spare_final_collection
 
 EXIT_USER = 2
 EXIT_INTERRUPTED = 130  # 128 + SIGINT, the shell's convention
@@ -124,7 +125,8 @@ def cmd_run(args, extra: list[str]) -> int:
     try:
         if args.batch is not None and _batch_problems(args.batch, len(args.config)):
             raise InputErrors(_batch_problems(args.batch, len(args.config)))
-        studies = [_check(c)[0] for c in args.config]
+        checks = [_check(c) for c in args.config]
+        studies = [c[0] for c in checks]
         cfgs = [Path(c).resolve() for c in args.config]
         _unique_ids(studies, args.config)
         out = Path(args.out).resolve() if args.out else cfgs[0].parent / "results"
@@ -141,7 +143,7 @@ def cmd_run(args, extra: list[str]) -> int:
             print(f"note: the run that held {out} has stopped ({lock.took_over.describe()}); "
                   f"this run continues where it stopped", file=sys.stderr)
         try:
-            return _run_workflow(args, extra, studies, cfgs, out, lock)
+            return _run_workflow(args, extra, checks, cfgs, out, lock)
         except InputErrors as exc:
             return report_problems(exc)
 
@@ -232,11 +234,15 @@ def _wait_quietly(proc: subprocess.Popen) -> None:
             continue
 
 
-def _run_workflow(args, extra: list[str], studies: list, cfgs: list[Path], out: Path, lock) -> int:
+def _run_workflow(args, extra: list[str], checks: list, cfgs: list[Path], out: Path, lock) -> int:
     """Snakemake on the locked results folder ``out``: a stale Snakemake lock is cleared and
-    the jobs a killed run left half done are redone, so a plain rerun continues a run."""
+    the jobs a killed run left half done are redone, so a plain rerun continues a run. What
+    the check of each study (``checks``) found goes to the workflow's plan in the run config,
+    so that Snakemake does not check the same files again."""
     from lagsieve.io.config import WORKFLOW  # lazy: see the module docstring
+    from lagsieve.stages.plan import checked_entry, write_run_config  # lazy: see the module docstring
 
+    studies = [c[0] for c in checks]
     snakefile = WORKFLOW / "Snakefile"
     _require(snakefile)
     dry = bool(DRY_RUN & set(extra))
@@ -245,10 +251,9 @@ def _run_workflow(args, extra: list[str], studies: list, cfgs: list[Path], out: 
         work = Path(scratch) if dry else out / studies[0].id / "work"
         if not dry:
             make_folder(work, "the study's results folder cannot be made", RESULTS_FIX)
-        from lagsieve.pipeline import write_run_config  # lazy: see the module docstring
-
         # the paths go in a YAML file: `--config key=value` would cut a folder name at its commas
-        run_config = write_run_config(cfgs, out, work / "run_config.yaml", batch=args.batch)
+        checked = {str(cfg): checked_entry(study, annual) for cfg, (study, annual, _, _) in zip(cfgs, checks)}
+        run_config = write_run_config(cfgs, out, work / "run_config.yaml", batch=args.batch, checked=checked)
         cmd = [sys.executable, "-m", "snakemake", "--snakefile", str(snakefile), "--configfile", str(run_config),
                "--directory", str(out), "--cores", str(args.cores), *extra]
         env = dict(os.environ)
@@ -257,6 +262,7 @@ def _run_workflow(args, extra: list[str], studies: list, cfgs: list[Path], out: 
             # a killed run leaves Snakemake's lock behind; this run holds the folder, so it is stale
             subprocess.run(cmd + ["--unlock"], env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
         cmd.append("--rerun-incomplete")  # and the jobs it left half done are done again
+        spare_final_collection()  # this process only waits from here on (see lagsieve.stages.allocator)
         proc = subprocess.Popen(cmd, env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
                                 errors="replace")
         returncode = _wait(proc, lock)

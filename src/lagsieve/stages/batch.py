@@ -12,6 +12,7 @@ redoes that study only, although Snakemake reruns its whole chunk.
 """
 from __future__ import annotations
 
+import gc
 import json
 import sys
 import time
@@ -19,10 +20,9 @@ from pathlib import Path
 from types import SimpleNamespace
 
 from lagsieve.errors import InputErrors, InputProblem, report_problems, show
-from lagsieve.io.files import sha256_file, sha256_text, write_json
-from lagsieve.io.provenance import tool_version
+from lagsieve.io.files import write_json
 from lagsieve.stages.common import logged
-from lagsieve.stages.plan import PlannedStudy
+from lagsieve.stages.plan import PlannedStudy, files_stamp, study_files
 
 CONDITION_OUTPUTS = ("condition.csv", "condition_sensitivity.csv", "work/condition_fish.csv", "work/condition_fit.json")
 
@@ -58,9 +58,8 @@ def plan_batches(config: dict, studies: dict[str, PlannedStudy]) -> dict[str, li
 
 def study_stamp(planned: PlannedStudy) -> str:
     """A digest of what a study's results are made from: its config file, its input and sample
-    files, and the tool's version."""
-    files = [planned.config_path, *planned.input_paths, *planned.sample_paths]
-    return sha256_text(json.dumps([tool_version(), *[[f, sha256_file(f)] for f in files]]))
+    files (:func:`~lagsieve.stages.plan.study_files`), and the tool's version."""
+    return files_stamp(study_files(planned.study))
 
 
 def _log(folder: Path, name: str) -> SimpleNamespace:
@@ -114,9 +113,13 @@ def run_batch(studies: list[PlannedStudy], out: str | Path, record: str | Path, 
         t0 = time.perf_counter()
         try:
             run_study(planned, out, threads)
-        except Exception:  # noqa: BLE001 - the traceback is in the study's stage log; the others go on
-            failed.append(planned.study.id)
+        except (Exception, SystemExit) as exc:  # noqa: BLE001 - the traceback is in the study's stage log
+            if isinstance(exc, SystemExit) and exc.code != 1:  # logged: 1 a failed stage, 130 Ctrl-C
+                raise
+            failed.append(planned.study.id)  # the others go on
             continue
+        finally:
+            gc.unfreeze()  # the stages froze their objects for an exit that has not come (stages.allocator)
         write_json(stamp, stamp_file)
         rows.append({"study": planned.study.id, "ran": True, "seconds": round(time.perf_counter() - t0, 3)})
     if failed:

@@ -19,6 +19,7 @@ from lagsieve.errors import InputErrors, InputProblem
 from lagsieve.io.config import Study
 from lagsieve.io.names import slug
 from lagsieve.prep.align import annual_table
+from lagsieve.stages.allocator import spare_final_collection
 
 SCREEN_COLUMNS = ["response", "driver", "lag", "model", "n", "first_year", "last_year", "r", "p_naive",
                   "n_eff", "p_adjusted", "r_detrended", "p_detrended", "r_diff", "p_differenced",
@@ -97,6 +98,7 @@ def logged(smk):
         finally:
             package.removeHandler(progress)
         fh.write(stage_timing(*start) + "\n")
+    spare_final_collection()  # the job's process ends with its stage (see stages.allocator)
 
 
 def process_age() -> float | None:
