@@ -186,16 +186,25 @@ def spd_inverse(A: np.ndarray) -> np.ndarray:
     factor L (A = L L') and A^-1 = L^-T L^-1 (Golub & Van Loan 2013, Matrix Computations,
     4th ed., section 4.2; from memory), vectorised across the stack, up to :data:`SPD_MAX` x
     :data:`SPD_MAX`; larger matrices, and the whole stack where a factor fails (a matrix not
-    numerically positive definite), by numpy.linalg.inv."""
+    numerically positive definite), by numpy.linalg.inv. The stack is moved last for
+    :func:`spd_inverse_last` and back."""
     A = np.asarray(A, float)
     q = A.shape[-1]
     if q > SPD_MAX or A.ndim == 2 or A.size == 0:
         return np.linalg.inv(A)
     last = np.ascontiguousarray(np.moveaxis(A.reshape(-1, q, q), 0, -1))  # (q, q, N): the stack last
-    out = _inverse_from_factor(_cholesky_last(last))
-    if not np.all(np.isfinite(out)):
-        return np.linalg.inv(A)
-    return np.moveaxis(out, -1, 0).reshape(A.shape)
+    return np.moveaxis(spd_inverse_last(last), -1, 0).reshape(A.shape)
+
+
+def spd_inverse_last(A: np.ndarray) -> np.ndarray:
+    """:func:`spd_inverse` of a stack held last, (q, q, N) -> (q, q, N), for kernels that keep their
+    systems on the last axis (no copies to and from the stack-first layout)."""
+    q = A.shape[0]
+    if q <= SPD_MAX and A.shape[-1]:
+        out = _inverse_from_factor(_cholesky_last(A))
+        if np.all(np.isfinite(out)):
+            return out
+    return np.ascontiguousarray(np.moveaxis(np.linalg.inv(np.moveaxis(A, -1, 0)), 0, -1))
 
 
 def spd_solve(A: np.ndarray, B: np.ndarray) -> np.ndarray:
@@ -273,12 +282,21 @@ def symmetric_eigh(A: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     if r > JACOBI_MAX or A.ndim == 2 or A.size == 0:
         return np.linalg.eigh(A)
     a = np.array(np.moveaxis(A.reshape(-1, r, r), 0, -1), order="C")  # (r, r, N): a copy, the stack last
-    vals, vecs = _jacobi_last(a)
-    order = np.argsort(vals, axis=0)
-    vals = np.take_along_axis(vals, order, axis=0)
-    vecs = np.take_along_axis(vecs, order[None, :, :], axis=1)
+    vals, vecs = symmetric_eigh_last(a)
     return (np.moveaxis(vals, -1, 0).reshape(A.shape[:-1]),
             np.moveaxis(vecs, -1, 0).reshape(A.shape))
+
+
+def symmetric_eigh_last(a: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`symmetric_eigh` of a stack held last, (r, r, N), which it overwrites: eigenvalues
+    (r, N), ascending, and eigenvectors (r, r, N) (columns)."""
+    r = a.shape[0]
+    if r > JACOBI_MAX or not a.shape[-1]:
+        vals, vecs = np.linalg.eigh(np.moveaxis(a, -1, 0))
+        return np.moveaxis(vals, 0, -1), np.moveaxis(vecs, 0, -1)
+    vals, vecs = _jacobi_last(a)
+    order = np.argsort(vals, axis=0)
+    return np.take_along_axis(vals, order, axis=0), np.take_along_axis(vecs, order[None, :, :], axis=1)
 
 
 def _jacobi_last(a: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

@@ -44,7 +44,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from lagsieve.stats.distributions import f_sf
-from lagsieve.stats.linalg import spd_inverse, spd_solve, symmetric_eigh
+from lagsieve.stats.linalg import spd_inverse_last, spd_solve, symmetric_eigh, symmetric_eigh_last
 
 __all__ = [
     "DEFAULT_LAM_GRID",
@@ -999,11 +999,14 @@ class _SubspaceForm:
     * RSS = y'y - b'C^-1 b + sum h^2 s^2 ((lambda - mu)^2 theta - mu),   h = H'b,
 
     so only an r x r eigen-problem is solved per system (r = q - 2 - unpenalised columns).
+    The per-system matrices C^-1 and H are held with the systems last, (q, q, N) and (q, r, N),
+    N the systems of the batch (..., R) in order; the vectors and scalars the grid reads with the
+    systems first.
     """
 
     mu: np.ndarray      # (..., R)
-    c_inv: np.ndarray | None  # (..., R, q, q) C^-1 (None when built without it)
-    H: np.ndarray       # (..., R, q, r)
+    c_inv: np.ndarray | None  # (q, q, N) C^-1 (None when built without it)
+    H: np.ndarray       # (q, r, N)
     theta: np.ndarray   # (..., R, r), mu theta in [0, 1]
     hb: np.ndarray      # (..., R, r) H'b
     cib: np.ndarray     # (..., R, q) C^-1 b
@@ -1029,12 +1032,16 @@ class _SubspaceForm:
         return np.maximum(rss, 0.0), edf
 
     def solution(self, lam_b: np.ndarray, inverse: bool = True):
-        """((A + lambda P)^-1 or None, coefficients) at the chosen lambda (..., R)."""
+        """((A + lambda P)^-1 (q, q, N), the systems last, or None; coefficients (..., R, q)) at the
+        chosen lambda (..., R)."""
         f = (lam_b - self.mu)[..., None] * _dr_factors(lam_b[..., None], self.mu, self.theta)[..., 0, :]
-        beta = self.cib - (self.H @ (f * self.hb)[..., None])[..., 0]
+        r = f.shape[-1]
+        f_last = np.ascontiguousarray(f.reshape(-1, r).T)  # (r, N)
+        hb_last = (f * self.hb).reshape(-1, r).T
+        beta = self.cib - np.einsum("kjn,jn->nk", self.H, hb_last).reshape(self.cib.shape)
         if not inverse:
             return None, beta
-        return self.c_inv - (self.H * f[..., None, :]) @ np.swapaxes(self.H, -1, -2), beta
+        return self.c_inv - np.einsum("kjn,ljn->kln", self.H * f_last, self.H), beta
 
 
 def _subspace_form(At: np.ndarray, bt: np.ndarray, yt: np.ndarray, P: np.ndarray,
@@ -1046,22 +1053,42 @@ def _subspace_form(At: np.ndarray, bt: np.ndarray, yt: np.ndarray, P: np.ndarray
     pos = pe > 1e-10 * max(float(pe.max()), 0.0)
     R = (pv[:, pos] * np.sqrt(pe[pos])).T  # (r, q)
     mu = _penalty_shift(At, P)  # (..., R)
-    C = At + mu[..., None, None] * P
     if inverse:
-        Ci = spd_inverse(C)  # symmetric by construction
-        RC = np.swapaxes(_times(Ci, R.T), -1, -2)  # (..., R, r, q) = R C^-1
-        Cib = (Ci @ bt[..., None])[..., 0]
-    else:
-        rhs = np.concatenate([np.broadcast_to(R.T, C.shape[:-1] + R.shape[:1]), bt[..., None]], axis=-1)
-        sol = spd_solve(C, rhs)  # (..., R, q, r + 1) = C^-1 [R', b]
-        Ci, RC, Cib = None, np.swapaxes(sol[..., :-1], -1, -2), sol[..., -1]
+        return _subspace_form_last(At, bt, yt, P, R, mu)
+    C = At + mu[..., None, None] * P
+    rhs = np.concatenate([np.broadcast_to(R.T, C.shape[:-1] + R.shape[:1]), bt[..., None]], axis=-1)
+    sol = spd_solve(C, rhs)  # (..., R, q, r + 1) = C^-1 [R', b]
+    RC, Cib = np.swapaxes(sol[..., :-1], -1, -2), sol[..., -1]
     N = RC @ R.T
     theta, V = symmetric_eigh(0.5 * (N + np.swapaxes(N, -1, -2)))
     theta = np.clip(theta, 0.0, 1.0 / mu[..., None])
     H = np.swapaxes(RC, -1, -2) @ V  # (..., R, q, r)
-    return _SubspaceForm(mu=mu, c_inv=Ci, H=H, theta=theta, hb=(bt[..., None, :] @ H)[..., 0, :],
-                         cib=Cib, rss_mu=yt - np.sum(bt * Cib, axis=-1),
+    return _SubspaceForm(mu=mu, c_inv=None, H=np.moveaxis(H.reshape((-1,) + H.shape[-2:]), 0, -1), theta=theta,
+                         hb=(bt[..., None, :] @ H)[..., 0, :], cib=Cib, rss_mu=yt - np.sum(bt * Cib, axis=-1),
                          n_null=P.shape[-1] - R.shape[0])
+
+
+def _subspace_form_last(At, bt, yt, P, R, mu) -> _SubspaceForm:
+    """:func:`_subspace_form` with C^-1 (the expanding-window fits): every step with the systems
+    as the last, contiguous axis, C (q, q, N), so that the Cholesky inverse and the Jacobi sweeps
+    (:func:`lagsieve.stats.linalg.spd_inverse_last`, :func:`~lagsieve.stats.linalg.symmetric_eigh_last`)
+    need no copies between layouts, and the products with R, shared by every system, are 2-D
+    products (``tensordot``); measured 0.19 s against 0.26 s with the systems first for the 20
+    spline backtests of a demo response (load 10-13)."""
+    q, r, shape = P.shape[-1], R.shape[0], mu.shape
+    C = np.ascontiguousarray(At.reshape(-1, q, q).transpose(1, 2, 0))  # (q, q, N)
+    C += P[:, :, None] * mu.reshape(-1)
+    Ci = spd_inverse_last(C)  # symmetric by construction
+    b = np.ascontiguousarray(bt.reshape(-1, q).T)  # (q, N)
+    RC = np.tensordot(R, Ci, axes=(1, 0))  # (r, q, N) = R C^-1
+    Cib = np.einsum("ikn,kn->in", Ci, b)
+    N = np.tensordot(R, RC, axes=(1, 1))  # (r, r, N) = R C^-1 R' (transposed: symmetrised below)
+    theta, V = symmetric_eigh_last(0.5 * (N + N.transpose(1, 0, 2)))
+    theta = np.clip(theta.T.reshape(shape + (r,)), 0.0, 1.0 / mu[..., None])
+    H = np.einsum("ikn,ijn->kjn", RC, V)  # (q, r, N) = C^-1 R' V
+    return _SubspaceForm(mu=mu, c_inv=Ci, H=H, theta=theta, hb=np.einsum("kjn,kn->nj", H, b).reshape(shape + (r,)),
+                         cib=Cib.T.reshape(shape + (q,)), rss_mu=yt - np.einsum("kn,kn->n", b, Cib).reshape(shape),
+                         n_null=q - r)
 
 
 def _carry_forward(W, y, w, origins, tune, fits, penalty):
@@ -1069,7 +1096,8 @@ def _carry_forward(W, y, w, origins, tune, fits, penalty):
     origin, carried forward within its block one training row at a time by the
     Sherman-Morrison update of H = (A + Q)^-1 at the held penalty Q = lambda P + ridge.
 
-    ``fits`` = (H (..., R, q, q) or None without steps, coefficients (..., R, q), RSS (..., R))
+    ``fits`` = (H (q, q, N), the systems (..., R) last, or None without steps, coefficients
+    (..., R, q), RSS (..., R))
     of the tuning origins; ``penalty`` = (lambda (..., R), P (q, q), ridge (..., 1)).
     H itself is never updated: after rows x_1..x_m, H x = H_0 x - sum_i k_i (u_i'x), so one
     product H_0 [x_1..x_M] serves every step. Adding row x with prior residual e moves the
@@ -1099,7 +1127,7 @@ def _carry_forward(W, y, w, origins, tune, fits, penalty):
         rows = np.minimum(origins[tune][:, None] + np.arange(n_steps + 1)[None, :], origins[-1])  # (R, M + 1)
         live = tune[:, None] + np.arange(1, n_steps + 1)[None, :] < ends[:, None]  # (R, M)
         X = np.ascontiguousarray(Wf[:, rows, :].transpose(2, 3, 0, 1))  # (M + 1, q, nb, R)
-        H = np.ascontiguousarray(h0.reshape(nb, R, q, q).transpose(2, 3, 0, 1))  # (q, q, nb, R)
+        H = h0.reshape(q, q, nb, R)  # the systems last
         U0 = np.einsum("iknr,jknr->jinr", H, X[:n_steps])  # (M, q, nb, R): H_0 x of every step
         Y = (np.broadcast_to(y, batch + (T,)).reshape(nb, T) if y.ndim > 1 else y)[..., rows]  # (R, M + 1) or (nb, R, M + 1)
         state = (np.ascontiguousarray(beta_f.transpose(2, 0, 1)), rss.reshape(nb, R).copy())
