@@ -966,22 +966,24 @@ def _tuning_equations(W: np.ndarray, y: np.ndarray, w: np.ndarray, o_t: np.ndarr
     ``o_t``, accumulated block by block: (..., R, q, q), (..., R, q), (R,) or (..., R) for a
     response per member; and the ridge
     (...,): 1e-11 tr(A) / q with A of the first window."""
-    q = W.shape[-1]
-    Ww = W * w[:, None]
-    A_parts, b_parts, lo = [], [], 0
-    A_run = np.zeros(W.shape[:-2] + (q, q))
-    b_run = np.zeros(W.shape[:-2] + (q,))
-    for o in o_t:
-        A_run = A_run + np.swapaxes(Ww[..., lo:o, :], -1, -2) @ W[..., lo:o, :]
+    q, batch = W.shape[-1], W.shape[:-2]
+    Ww = W if np.all(w == 1.0) else W * w[:, None]  # unit weights (no weights given): W itself, no copy
+    At = np.empty(batch + (len(o_t), q, q))  # filled in place, block by block (no stacking copy)
+    b_parts, lo = [], 0
+    b_run = np.zeros(batch + (q,))
+    for i, o in enumerate(o_t):
+        block = np.swapaxes(Ww[..., lo:o, :], -1, -2) @ W[..., lo:o, :]
+        if i:
+            block += At[..., i - 1, :, :]
+        At[..., i, :, :] = block
         yw = y[lo:o] @ Ww[..., lo:o, :] if y.ndim == 1 else (y[..., None, lo:o] @ Ww[..., lo:o, :])[..., 0, :]
         b_run = b_run + yw
-        A_parts.append(A_run)
         b_parts.append(b_run)
         lo = o
-    At, bt = np.stack(A_parts, axis=-3), np.stack(b_parts, axis=-2)
+    bt = np.stack(b_parts, axis=-2)
     yt = np.cumsum(w * y * y, axis=-1)[..., o_t - 1]
     ridge = 1e-11 * np.trace(At[..., 0, :, :], axis1=-2, axis2=-1) / q  # (...,)
-    At[..., range(q), range(q)] += ridge[..., None, None]
+    At.reshape(At.shape[:-2] + (q * q,))[..., :: q + 1] += ridge[..., None, None]  # the diagonals, as a view
     return At, bt, yt, ridge
 
 
