@@ -47,7 +47,7 @@ ARGS = ["--no-sandbox", "--disable-gpu", "--disable-background-networking", "--d
 @pytest.fixture(scope="module")
 def report_file(tmp_path_factory):
     base = tmp_path_factory.mktemp("browser")
-    cfg = tiny_config(base, report={"top": 1, "pdf": False},
+    cfg = tiny_config(base, report={"top": 1, "pdf": False, "svg": True},  # the SVGs give the text sizes below
                       screen={"lags": [0, 1], "models": ["linear"], "surrogates": 29, "seed": 3,
                               "validation": {"initial_years": 15, "holdout_years": 5}})
     res = run_study(cfg, base / "results")

@@ -13,6 +13,7 @@ import json
 import shutil
 
 import numpy as np
+import pandas as pd
 import pytest
 import yaml
 from PIL import Image
@@ -148,6 +149,23 @@ def test_workers_write_every_format_and_the_embedded_copy_is_the_file(tmp_path):
         assert "</svg>" in (tmp_path / f"{name}.svg").read_text(encoding="utf-8")
 
 
+def test_svg_only_when_asked(tmp_path):
+    """Our own rule: a report that asks for no SVG (``report.svg`` false, the default) gets the PNG
+    alone; asking later draws the figures again, since their stored copies lack the SVG."""
+    assert fg.study_formats({}) == fg.study_formats({"svg": False}) == ("png",)
+    assert fg.study_formats({"svg": True}) == ("png", "svg")
+    with fg.FigureRenderer(tmp_path, 2, formats=fg.RASTER) as r:
+        r.draw(_jobs())
+    assert sorted(p.name for p in tmp_path.iterdir()) == sorted(f"{n}.{e}" for n in "abc" for e in ("png", "key"))
+    assert r.drawn == ["a", "b", "c"]
+    with fg.FigureRenderer(tmp_path, 1, formats=fg.RASTER) as r:
+        r.draw(_jobs())
+    assert r.drawn == []
+    with fg.FigureRenderer(tmp_path, 1, formats=fg.FORMATS) as r:
+        r.draw(_jobs())
+    assert r.drawn == ["a", "b", "c"] and all((tmp_path / f"{n}.svg").is_file() for n in "abc")
+
+
 def test_prune_removes_figures_no_longer_planned(tmp_path):
     _draw(tmp_path, _jobs())
     (tmp_path / "table.csv").write_text("x\n1\n")
@@ -171,6 +189,9 @@ def _stamps(folder):
 def test_a_report_rerun_redraws_only_the_figures_whose_inputs_changed(tmp_path):
     cfg = tiny_config(tmp_path / "cfg", report={"top": 1, "pdf": False, "docx": False})
     res = run_study(cfg, tmp_path / "results")
+    ev = pd.read_csv(res / "evidence.csv")
+    ev.loc[ev["lag"].notna(), "grade"] = "weak"  # every leading hypothesis with its panels (plan.PANEL_GRADES)
+    ev.to_csv(res / "evidence.csv", index=False)
     make_report(cfg, res)
     cache = res / "work" / "figures"
     first = _stamps(cache)

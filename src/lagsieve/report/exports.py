@@ -42,5 +42,6 @@ def write_tables(ctx: Context, plan: Plan, figures_dir: Path) -> None:
     jobs = plan.jobs
     write_csv(pd.DataFrame({"figure": [j.name for j in jobs], "kind": [j.builder for j in jobs],
                             "shows": [FIGURE_WORDS.get(j.builder, "") for j in jobs],
-                            "png": [f"{j.name}.png" for j in jobs], "svg": [f"{j.name}.svg" for j in jobs]}),
+                            "png": [f"{j.name}.png" for j in jobs],
+                            "svg": [f"{j.name}.svg" if ctx.study.report.get("svg") else "" for j in jobs]}),
               figures_dir / "figures.csv")

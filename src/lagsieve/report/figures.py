@@ -3,9 +3,9 @@
 Every figure builder is a plain function of arrays and strings that returns a Figure. The
 report describes each figure as a :class:`FigureJob` (builder name + arguments) and
 :func:`render_jobs` draws them, in worker processes when more than one is allowed. Each
-figure is written as PNG (``PNG_DPI``) and SVG under ``figures/`` by the process that draws it,
-with its content key beside it, so an unchanged figure is reused on a rerun; the report embeds
-the PNG as a data URI.
+figure is written as PNG (``PNG_DPI``), and as SVG when the study asks for it, under ``figures/``
+by the process that draws it, with its content key beside it, so an unchanged figure is reused
+on a rerun; the report embeds the PNG as a data URI.
 
 Colours are a palette of our own: grades run from deep blue (most support) through pale
 blue to grey, with orange reserved for the grades of a trend (spurious-trend, trend-confounded). The blue-orange contrast and the
@@ -88,9 +88,17 @@ RC = {
 
 #: One raster per figure, the exported PNG and the page's embedded copy alike: figures are
 #: shown at their size in inches (96 CSS px per inch), so 150 dpi gives about 1.5 device pixels
-#: per CSS pixel, and the PDF's half-width panels about 200 dpi. The SVG is the copy for print.
+#: per CSS pixel, and the PDF's half-width panels about 200 dpi. The SVG, a copy for print or
+#: editing, is written only when asked (config ``report.svg``; FigureRenderer's ``formats``): on
+#: the demo it was a fifth to a quarter of the figures' CPU.
 PNG_DPI = 150
-FORMATS = ("png", "svg")   # written for every figure, by the process that draws it
+FORMATS = ("png", "svg")   # every format a figure can have, each written by the process that draws it
+RASTER = ("png",)          # the formats of a report that asked for no SVG
+
+
+def study_formats(report_settings: dict) -> tuple[str, ...]:
+    """The figure formats a study's ``report`` settings ask for: PNG, and SVG with ``svg: true``."""
+    return FORMATS if report_settings.get("svg") else RASTER
 KEY_SUFFIX = ".key"        # the content key stored beside a figure (see content_key)
 KEY_FORMAT = 1             # raise when the key's meaning changes, so no stored figure matches
 INVENTED_NOTE = "invented data"
@@ -683,9 +691,10 @@ def _key_path(d: Path, name: str) -> Path:
     return d / f"{name}{KEY_SUFFIX}"
 
 
-def stored(d: str | Path, name: str, key: str | None) -> tuple[int, int] | None:
-    """The display size of figure ``name`` stored in ``d`` under ``key``; None when there is no
-    such figure (absent, drawn from other inputs, or written only in part)."""
+def stored(d: str | Path, name: str, key: str | None, formats=FORMATS) -> tuple[int, int] | None:
+    """The display size of figure ``name`` stored in ``d`` under ``key`` in every one of
+    ``formats``; None when there is no such figure (absent, drawn from other inputs, or written
+    only in part)."""
     if key is None:
         return None
     d = Path(d)
@@ -693,7 +702,7 @@ def stored(d: str | Path, name: str, key: str | None) -> tuple[int, int] | None:
         meta = json.loads(_key_path(d, name).read_text(encoding="utf-8"))
     except (OSError, ValueError):
         return None
-    if meta.get("key") != key or not all((d / f"{name}.{ext}").is_file() for ext in FORMATS):
+    if meta.get("key") != key or not all((d / f"{name}.{ext}").is_file() for ext in formats):
         return None
     return tuple(meta["size"])
 
@@ -715,10 +724,10 @@ def prune(d: str | Path, keep) -> None:
                 path.unlink(missing_ok=True)
 
 
-def write_figure(fig, d: str | Path, name: str) -> tuple[int, int]:
+def write_figure(fig, d: str | Path, name: str, formats=FORMATS) -> tuple[int, int]:
     """Lay the figure out and draw it once at ``PNG_DPI``; write ``name``.png (the exported file
-    and the page's embedded copy are one raster) and ``name``.svg from the same frozen layout.
-    Returns the display size in CSS pixels (96 per inch)."""
+    and the page's embedded copy are one raster) and, when ``formats`` has it, ``name``.svg from
+    the same frozen layout. Returns the display size in CSS pixels (96 per inch)."""
     d = Path(d)
     d.mkdir(parents=True, exist_ok=True)
     width_in, height_in = fig.get_size_inches()
@@ -728,20 +737,21 @@ def write_figure(fig, d: str | Path, name: str) -> tuple[int, int]:
     im = Image.fromarray(np.asarray(fig.canvas.buffer_rgba()), "RGBA").convert("RGB")
     with atomic_path(d / f"{name}.png") as tmp:
         im.save(tmp, format="PNG", dpi=(PNG_DPI, PNG_DPI), compress_level=1)
-    with atomic_path(d / f"{name}.svg") as tmp:
-        fig.savefig(tmp, format="svg", metadata={"Date": None, "Creator": None})
+    if "svg" in formats:
+        with atomic_path(d / f"{name}.svg") as tmp:
+            fig.savefig(tmp, format="svg", metadata={"Date": None, "Creator": None})
     return round(width_in * 96), round(height_in * 96)
 
 
-def _draw_job(job: FigureJob, d: str, key: str | None):
-    """Draw one job and write every format of it into ``d``, then its key; returns (name, size).
+def _draw_job(job: FigureJob, d: str, key: str | None, formats=FORMATS):
+    """Draw one job and write each of ``formats`` into ``d``, then its key; returns (name, size).
     A figure that cannot be drawn gives (name, None) and its traceback in the log (stderr):
     the page leaves it out, and the rest of the report is still made."""
     forget(d, job.name)  # the old key goes first: a figure written in part is never reused
     with plt.rc_context(RC):
         try:
             fig = BUILDERS[job.builder](**job.kwargs)
-            size = write_figure(fig, d, job.name)
+            size = write_figure(fig, d, job.name, formats)
         except Exception:  # noqa: BLE001 - one figure never stops the report
             sys.stderr.write(f"lagsieve: figure {job.name} could not be drawn; left out of the report\n")
             traceback.print_exc(file=sys.stderr)
@@ -770,8 +780,8 @@ def _fork_pool(workers: int):
 
 class FigureRenderer:
     """Draws figure jobs into ``figures_dir``, in ``workers`` forked processes when there is more
-    than one figure to draw. Each worker draws a figure and writes all its formats (PNG, SVG)
-    itself: no figure crosses a process boundary.
+    than one figure to draw. Each worker draws a figure and writes all its ``formats`` (PNG, and
+    SVG when asked) itself: no figure crosses a process boundary.
 
     ``cache_dir`` (default ``figures_dir``) keeps every figure with its content key
     (:func:`content_key`, in ``name.key``): a job whose key is stored there is not drawn again.
@@ -780,7 +790,9 @@ class FigureRenderer:
     figures of ``cache_dir`` that no job asked for are removed. Use as a context manager.
     """
 
-    def __init__(self, figures_dir: str | Path, workers: int = 1, cache_dir: str | Path | None = None):
+    def __init__(self, figures_dir: str | Path, workers: int = 1, cache_dir: str | Path | None = None,
+                 formats=FORMATS):
+        self.formats = tuple(formats)
         self.figures_dir = Path(figures_dir)
         self.cache_dir = Path(cache_dir) if cache_dir is not None else self.figures_dir
         self.workers = max(1, int(workers))
@@ -806,15 +818,15 @@ class FigureRenderer:
         return [_draw_job(*a) for a in todo]
 
     def draw(self, jobs: list[FigureJob]) -> dict:
-        """Write every job's PNG and SVG (drawn, or reused when its key is stored); returns
+        """Write every job's formats (drawn, or reused when its key is stored); returns
         name -> (base64 PNG, (width, height) in CSS px)."""
         self.cache_dir.mkdir(parents=True, exist_ok=True)
         self.figures_dir.mkdir(parents=True, exist_ok=True)
         self._asked = (self._asked or set()) | {j.name for j in jobs}
         keys = {j.name: content_key(j) for j in jobs}
-        sizes = {j.name: stored(self.cache_dir, j.name, keys[j.name]) for j in jobs}
-        todo = [(j, str(self.cache_dir), keys[j.name]) for j in jobs if sizes[j.name] is None]
-        self.drawn = [j.name for j, _, _ in todo]
+        sizes = {j.name: stored(self.cache_dir, j.name, keys[j.name], self.formats) for j in jobs}
+        todo = [(j, str(self.cache_dir), keys[j.name], self.formats) for j in jobs if sizes[j.name] is None]
+        self.drawn = [t[0].name for t in todo]
         sizes.update(self._run(todo))
         out = {}
         for j in jobs:
@@ -822,7 +834,7 @@ class FigureRenderer:
                 continue
             png = (self.cache_dir / f"{j.name}.png").read_bytes()
             if self.cache_dir != self.figures_dir:
-                for ext in FORMATS:
+                for ext in self.formats:
                     with atomic_path(self.figures_dir / f"{j.name}.{ext}") as tmp:
                         shutil.copyfile(self.cache_dir / f"{j.name}.{ext}", tmp)
             out[j.name] = (base64.b64encode(png).decode("ascii"), tuple(sizes[j.name]))
@@ -837,8 +849,8 @@ class FigureRenderer:
 
 
 def render_jobs(jobs: list[FigureJob], figures_dir: str | Path, workers: int = 1,
-                cache_dir: str | Path | None = None) -> dict:
-    """Draw every job (PNG and SVG under ``figures_dir``; see :class:`FigureRenderer`);
+                cache_dir: str | Path | None = None, formats=FORMATS) -> dict:
+    """Draw every job (its ``formats`` under ``figures_dir``; see :class:`FigureRenderer`);
     returns name -> (base64 PNG, (width, height) in CSS px)."""
-    with FigureRenderer(figures_dir, workers, cache_dir) as r:
+    with FigureRenderer(figures_dir, workers, cache_dir, formats) as r:
         return r.draw(jobs)

@@ -200,6 +200,7 @@ def _panel(ctx: Context, key: str, info: dict) -> dict:
             "effect": effect_phrase(row, ctx.units.get(rid, ""), ctx.label(rid)),
             "allowed": allowed_phrase(row, ctx.units.get(rid, ""), ctx.label(rid)),
             "shape": text(gam_row.get("shape")) if gam_row is not None else "", "figures": figures,
+            "set_aside": bool(info.get("set_aside")),
             "scatter_smooth": info.get("scatter_smooth"), "smooth_trend": info.get("smooth_trend"),
             "forecast_n": info.get("forecast_n", ""), "null_n": info.get("null_n", ""),
             "hardest": text(row.get("oos_hardest")), "keep_trend": sc.get("surrogate_keep_trend", True),
