@@ -142,6 +142,50 @@ def _page_with_labels(tiny, label: str) -> str:
     return render_page(ctx, {}, plan_figures(ctx))
 
 
+def _tiny_plan(tiny, grades: dict):
+    """The tiny study's context and figure plan, with the grades of some hypotheses replaced
+    (``grades``: rank within each response -> grade)."""
+    res, study = tiny["res"], load_study(tiny["cfg"])
+    ev = pd.read_csv(res / "evidence.csv")
+    for rank, grade in grades.items():
+        ev.loc[ev["rank"] == rank, "grade"] = grade
+    ctx = Context.of(study, stages.load_table(study, res / "work" / "annual.csv"), pd.read_csv(res / "screen.csv"),
+                     ev, pd.DataFrame(), pd.DataFrame(), pd.read_csv(res / "work" / "notes.csv"),
+                     {"tool_version": "t", "versions": {}, "config": {"study": "tiny"}})
+    return ctx, plan_figures(ctx)
+
+
+def test_panels_only_for_leading_hypotheses_graded_weak_or_better(tiny):
+    """Our own rule (plan.PANEL_GRADES): a set-aside leading hypothesis keeps its entry (words,
+    numbers, lag table) and gets no figure; one graded weak or better gets its panels."""
+    ctx, plan = _tiny_plan(tiny, {1: "strong", 2: "none"})
+    names = [j.name for j in plan.jobs]
+    for key, info in plan.panels.items():
+        rank = info["row"]["rank"]
+        assert info["set_aside"] == (rank == 2)
+        own = [n for n in names if n.startswith(key + "__")]
+        assert (own == [] and info["names"] == []) if rank == 2 else (len(own) >= 3 and own == info["names"])
+        assert "lag_table" in info  # the lag profile is exported either way
+    page = render_page(ctx, {n: ("", (1, 1)) for n in names}, plan)
+    assert page.count("Set aside: no panels are drawn for it.") == sum(i["set_aside"] for i in plan.panels.values())
+
+
+def test_print_copy_leaves_out_panels_rows_below_weak_and_the_config_text(tiny):
+    """Our own rule: the page the PDF is made from keeps the study-wide figures and the rows
+    graded weak or better; the panels, the other rows and the configuration's text stay in the HTML."""
+    ctx, plan = _tiny_plan(tiny, {1: "strong", 2: "none", 3: "weak"})
+    figs = {j.name: ("", (1, 1)) for j in plan.jobs}
+    page, printed = render_page(ctx, figs, plan), render_page(ctx, figs, plan, print_copy=True)
+    panels = [n for info in plan.panels.values() for n in info["names"]]
+    assert panels and all(f'data-name="{n}"' in page and f'data-name="{n}"' not in printed for n in panels)
+    assert 'data-name="evidence_map"' in page and 'data-name="evidence_map"' in printed
+    kept = ctx.evidence["grade"].isin(["strong", "moderate", "weak"]).sum()
+    assert 0 < kept < len(ctx.evidence)
+    assert page.count("<tr data-response=") == len(ctx.evidence) and printed.count("<tr data-response=") == kept
+    assert f"lists the {kept} hypotheses graded weak or better; all {len(ctx.evidence)} are in report.html" in printed
+    assert "Configuration as given" in page and "Configuration as given" not in printed
+
+
 @pytest.mark.parametrize("label, escaped", [
     (HOSTILE, "&lt;script&gt;alert(1)&lt;/script&gt;"),
     ('x" onmouseover="alert(4)', "x&#34; onmouseover=&#34;alert(4)"),
@@ -215,8 +259,10 @@ def test_panels_of_top_hypotheses(demo_report):
         for row in ev[ev.response == rid].sort_values("rank").head(top).to_dict("records"):
             key = f"{slug(rid)}__{slug(row['driver'])}"
             assert f'id="h-{key}"' in h
+            drawn = row["grade"] in ("strong", "moderate", "weak")  # plan.PANEL_GRADES
             for kind in ("overlay", "scatter", "lags", "forecasts", "nulls"):
-                assert (demo_report["res"] / "figures" / f"{key}__{kind}.png").is_file()
+                assert (demo_report["res"] / "figures" / f"{key}__{kind}.png").is_file() == drawn
+            assert (demo_report["res"] / "figures" / f"{key}__lags.csv").is_file()
     for alt in ("standardised overlay", "lag profile of r", "out-of-sample forecasts", "surrogate null"):
         assert f'alt="{alt}' in h
     for name in ("evidence_map", "coverage", "driver_correlation"):
@@ -261,10 +307,10 @@ def test_figure_and_table_exports(demo_report):
     assert len(manifest) >= 10
     for name in manifest["figure"]:
         with Image.open(figs / f"{name}.png") as im:
-            # one raster at PNG_DPI, the smallest figure 4 inches wide (the SVG is the print copy)
+            # one raster at PNG_DPI, the smallest figure 4 inches wide
             assert round(im.info["dpi"][0]) == PNG_DPI and im.width >= 4 * PNG_DPI
-        svg = (figs / f"{name}.svg").read_text(encoding="utf-8")
-        assert "<svg" in svg and "</svg>" in svg
+        assert not (figs / f"{name}.svg").exists()  # SVG copies only with report.svg: true
+    assert manifest["svg"].isna().all()
     for table in ("evidence_table", "summary", "coverage", "driver_correlations", "evidence_map"):
         assert len(pd.read_csv(figs / f"{table}.csv")) > 0
     assert len(pd.read_csv(figs / "evidence_table.csv")) == len(demo_report["evidence"])
@@ -373,11 +419,12 @@ def test_report_survives_missing_pieces(tiny, tmp_path):
     study = load_study(cfg)
     table = stages.load_table(study, res / "work" / "annual.csv")
     ev = pd.read_csv(res / "evidence.csv")
+    ev.loc[ev["lag"].notna(), "grade"] = "weak"  # panels are drawn for leading hypotheses graded weak or better
     i = ev.index[ev["rank"] == 1][0]
     ev.loc[i, ["lag", "r", "oos_skill", "q_value"]] = np.nan
     ev.loc[i, ["grade", "flags", "status"]] = ["insufficient-data", "failed", "failed: singular matrix"]
     ev.loc[i, "summary"] = np.nan
-    html_text, figs = build_report(study, table, pd.read_csv(res / "screen.csv"), ev, pd.DataFrame(),
+    html_text, figs, _ = build_report(study, table, pd.read_csv(res / "screen.csv"), ev, pd.DataFrame(),
                                    pd.DataFrame(), pd.read_csv(res / "work" / "notes.csv"),
                                    {"tool_version": "test", "inputs_sha256": {}, "versions": {}, "config": {}},
                                    tmp_path / "figures", workers=2)

@@ -37,10 +37,34 @@ from lagsieve.report.plan import plan_figures
 from lagsieve.report.render import content_security_policy, render, script, stylesheet
 
 
-def render_page(ctx: Context, figs: dict, plan, since: LedgerSection | None = None) -> str:
-    """The page's HTML from the context, the drawn figures and the plan of panels."""
+def render_page(ctx: Context, figs: dict, plan, since: LedgerSection | None = None,
+                print_copy: bool = False) -> str:
+    """The page's HTML from the context, the drawn figures and the plan of panels; with
+    ``print_copy``, the copy the PDF is made from (:func:`print_copy_of`)."""
+    words = page_context(ctx, figs, plan, since)
+    return print_copy_of(words, plan) if print_copy else render("page.html", **words, print_copy=False) + "\n"
+
+
+def print_copy_of(words: dict, plan) -> str:
+    """The page rendered again from the same words (:func:`page_context`) for the PDF: the
+    figures of :func:`print_figures`, and the templates leave out what only the screen needs
+    (``print_copy``: the ranked table's rows below weak, the configuration's full text)."""
+    return render("page.html", **{**words, "figs": print_figures(words["figs"], plan)}, print_copy=True) + "\n"
+
+
+def print_figures(figs: dict, plan) -> dict:
+    """The figures of the PDF copy: the study-wide ones, the condition, variance partitions and
+    moving windows; the panels of each leading hypothesis and the joint screen's slope figures
+    stay in the HTML page (on the demo they were two thirds of the PDF's pages)."""
+    left_out = {n for info in plan.panels.values() for n in info["names"]}
+    left_out |= {j.name for j in plan.jobs if j.builder == "joint_slopes"}
+    return {n: v for n, v in figs.items() if n not in left_out}
+
+
+def page_context(ctx: Context, figs: dict, plan, since: LedgerSection | None = None) -> dict:
+    """Every value the page's templates read."""
     css, js = stylesheet(), script()
-    return render("page.html", **sections.page_words(ctx), csp=content_security_policy(css, js), css=css, js=js,
+    return dict(**sections.page_words(ctx), csp=content_security_policy(css, js), css=css, js=js,
                   figs=figs, shortened=plan.shortened, summary=sections.summary(ctx), table=sections.evidence_table(ctx),
                   hypotheses=sections.hypotheses(ctx, plan.panels), data=sections.data(ctx), since=since,
                   methods=sections.methods(ctx, plan.tables), provenance=sections.provenance(ctx),
@@ -49,7 +73,7 @@ def render_page(ctx: Context, figs: dict, plan, since: LedgerSection | None = No
                   statespace=ssp.section(ctx.evidence, ctx.label),
                   estimates=est.section(ctx.evidence, ctx.label),
                   stability=stab.section(ctx.evidence, ctx.windows, ctx.label),
-                  joint=jnt.section(ctx.joint, ctx.label)) + "\n"
+                  joint=jnt.section(ctx.joint, ctx.label))
 
 
 def write_document(ctx: Context, figs: dict, path: Path) -> bool:
@@ -77,10 +101,12 @@ def build_report(study, table, screen, evidence, forecasts, nulls, notes, proven
                  annual: pd.DataFrame | None = None, workers: int = 1,
                  renderer: fg.FigureRenderer | None = None, since: LedgerSection | None = None,
                  docx_path: Path | None = None, condition: dict | None = None, rivals: dict | None = None,
-                 windows: pd.DataFrame | None = None, joint: tuple | None = None) -> tuple[str, dict]:
-    """Render the report HTML; write its figures (PNG and SVG, drawn or reused by their content
-    keys) and tables (CSV) under ``figures_dir``. Returns (html, figures) where figures maps
-    name -> (base64 PNG, size).
+                 windows: pd.DataFrame | None = None, joint: tuple | None = None,
+                 print_copy: bool = False) -> tuple[str, dict, str | None]:
+    """Render the report HTML (and, with ``print_copy``, the copy the PDF is made from); write its
+    figures (PNG, and SVG when ``report.svg`` asks; drawn or reused by their content keys) and
+    tables (CSV) under ``figures_dir``. Returns (html, figures, print copy or None) where figures
+    maps name -> (base64 PNG, size).
 
     The figures are drawn by ``renderer`` (a :class:`figures.FigureRenderer` on ``figures_dir``,
     perhaps with a cache folder of its own), else by one made here with ``workers`` processes;
@@ -102,10 +128,13 @@ def build_report(study, table, screen, evidence, forecasts, nulls, notes, proven
     plan.jobs += rv.plan_rivals(rivals, ctx.label, ctx.invented)
     plan.jobs += jnt.plan_joint(joint, ctx.label, ctx.invented)
     plan.jobs += stab.plan_stability(evidence, windows, ctx.label, ctx.invented)
-    figs = fg.render_jobs(plan.jobs, figures_dir, workers=workers) if renderer is None else renderer.draw(plan.jobs)
+    figs = (fg.render_jobs(plan.jobs, figures_dir, workers=workers, formats=fg.study_formats(study.report))
+            if renderer is None else renderer.draw(plan.jobs))
     fg.prune(figures_dir, figs)
     write_tables(ctx, plan, figures_dir)
     if docx_path is not None:
         write_document(ctx, figs, docx_path)
     provenance.setdefault("finished", time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()))
-    return render_page(ctx, figs, plan, since), figs
+    words = page_context(ctx, figs, plan, since)
+    page = render("page.html", **words, print_copy=False) + "\n"
+    return page, figs, (print_copy_of(words, plan) if print_copy else None)

@@ -16,6 +16,7 @@ from lagsieve.evidence.vocabulary import FLAGS, GRADE_RULES
 from lagsieve.ledger.section import LedgerSection, ledger_section
 from lagsieve.report import figures as fg
 from lagsieve.report.context import flag_list, lead_words
+from lagsieve.report.plan import PANEL_GRADES
 from lagsieve.formats import lag_range, number, p_text, text
 
 GRADE_CLASS = {g: f"g-{i}" for i, g in enumerate(fg.GRADE_STYLE)}  # CSS class of each grade's badge
@@ -31,7 +32,8 @@ def environment() -> Environment:
                       undefined=StrictUndefined, trim_blocks=True, lstrip_blocks=True)
     env.filters.update(num=number, p=p_text, text=text, lead=lead_words, flags=flag_list, range_words=lag_range,
                        g=lambda v: f"{v:g}")
-    env.globals.update(GRADE_CLASS=GRADE_CLASS, GRADE_RULES=GRADE_RULES, FLAGS=FLAGS)
+    env.globals.update(GRADE_CLASS=GRADE_CLASS, GRADE_RULES=GRADE_RULES, FLAGS=FLAGS, PANEL_GRADES=PANEL_GRADES,
+                       print_copy=False)  # print_copy: True in the page the PDF is made from
     return env
 
 

@@ -17,7 +17,7 @@ from lagsieve.ledger.section import ledger_section
 from lagsieve.ledger.store import resolve_ledger_path
 from lagsieve.ledger.update import input_hashes
 from lagsieve.report.condition import read_outputs
-from lagsieve.report.figures import FigureRenderer
+from lagsieve.report.figures import FigureRenderer, study_formats
 from lagsieve.report.html import build_report
 from lagsieve.report.joint import read_joint
 from lagsieve.report.pdf import write_report_pdf
@@ -93,16 +93,17 @@ def run_report(config_path, annual_csv, notes_csv, work_dir, screen_csv, evidenc
     docx_path = Path(out_report).with_name("report.docx")
     if docx_path.is_file():  # written again below when wanted; a copy left by an earlier run would be stale
         docx_path.unlink()
-    with FigureRenderer(figures_dir, workers, cache_dir=Path(work_dir) / "figures") as renderer:
+    with FigureRenderer(figures_dir, workers, cache_dir=Path(work_dir) / "figures",
+                        formats=study_formats(study.report)) as renderer:
         since = ledger_section(resolve_ledger_path(study, Path(out_report).parent), study, evidence)
-        html, figs = build_report(study, table, screen, evidence, forecasts, nulls, notes, prov, figures_dir,
-                                  annual=annual, renderer=renderer, since=since,
-                                  docx_path=docx_path if study.report["docx"] else None,
-                                  condition=read_outputs(condition), rivals=read_rivals(evidence_csv),
-                                  windows=read_windows(evidence_csv), joint=read_joint(evidence_csv))
+        html, figs, print_html = build_report(
+            study, table, screen, evidence, forecasts, nulls, notes, prov, figures_dir, annual=annual,
+            renderer=renderer, since=since, docx_path=docx_path if study.report["docx"] else None,
+            condition=read_outputs(condition), rivals=read_rivals(evidence_csv), windows=read_windows(evidence_csv),
+            joint=read_joint(evidence_csv), print_copy=pdf_wanted(study))
         write_text(html, out_report)
         if pdf_wanted(study):
-            prov["pdf"] = write_report_pdf(html, pdf_path, study, evidence, figs, figures_dir=figures_dir)
+            prov["pdf"] = write_report_pdf(print_html, pdf_path, study, evidence, figs, figures_dir=figures_dir)
         else:
             prov["pdf"] = None
             if out_pdf is None and pdf_path.is_file():  # a copy left by an earlier run would be stale
