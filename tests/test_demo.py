@@ -87,6 +87,7 @@ def test_config_agrees_with_the_world():
         assert (got["category"], got["expected_sign"], got["transform"], got["label"], got["unit"]) == (
             category, sign, transform, label, unit), d_id
     assert f"(starts {world.CLIMATE_YEARS[0]})" in demo_config_text()
+    assert cfg["screen"]["validation"]["holdout_years"] == world.HOLDOUT_YEARS
 
 
 # ----------------------------------------------------------------------------- the data
@@ -163,6 +164,39 @@ def test_cold_pool_stream_leaves_everything_else_alone(monkeypatch, data):
     assert moved.get_level_values("year").max() <= 2004 and len(moved) >= 15
 
 
+def test_late_collapse_reaches_the_retest_years(data):
+    """The late forage collapse lies in the forage years the re-test reads at lag 1 (the last
+    HOLDOUT_YEARS response years, one year earlier), so there the prey effect is planted: forage
+    below the 85 kt threshold and a positive prey part of M for ages 3-4 and 5+ (TRUTH.md)."""
+    last = int(world.RESPONSE_YEARS[-1])
+    retest = np.arange(last - world.HOLDOUT_YEARS + 1, last + 1)
+    forage = data.drivers.set_index("year")["forage_biomass"]
+    start, stop = world.LATE_DIP_WINDOW
+    y0 = data.parameters["derived"]["forage_dips"][-1][0]
+    assert start <= y0 <= stop and retest[0] - 1 <= y0 <= retest[-1] - 1
+    assert forage.loc[y0] < 85.0 and forage.loc[y0] == forage.loc[retest - 1].min()
+    for rid in ("m:age3-4", "m:age5plus"):  # forage fell to 44.8 kt in 2020: a shortfall of 0.64 log units
+        prey = data.components.set_index(["response", "year"]).loc[rid, "prey"]
+        assert prey.loc[retest].max() > 0.5 * world.PARAMETERS[rid]["prey_beta"] > 0
+
+
+def test_late_collapse_stream_leaves_everything_else_alone(monkeypatch, data):
+    """The late collapse came last, from a stream of its own: moving its window changes the forage
+    index only from the window's first year on, M only from the year after (lag 1) and only for
+    the two older groups, and no driver but forage and the shrimp index that echoes it."""
+    monkeypatch.setattr(world, "LATE_DIP_WINDOW", (2022, 2023))
+    changed = world.simulate_demo()
+    old, new = data.drivers.set_index("year"), changed.drivers.set_index("year")
+    moved = old.index[old["forage_biomass"] != new["forage_biomass"]]
+    assert len(moved) >= 2 and moved.min() >= 2020
+    others = [c for c in old.columns if c not in ("forage_biomass", "shrimp_index")]
+    pd.testing.assert_frame_equal(new[others], old[others], check_exact=True)
+    old_m, new_m = (d.mortality.set_index(["group", "year"])["value"] for d in (data, changed))
+    moved_m = old_m.index[old_m.to_numpy() != new_m.to_numpy()]
+    assert set(moved_m.get_level_values("group")) == {"age3-4", "age5plus"}
+    assert moved_m.get_level_values("year").min() >= 2021
+
+
 def test_truth_table(data):
     tt = data.truth
     effects = tt[tt["true_effect"]]
@@ -191,7 +225,8 @@ def test_association_check_against_scipy(data):
     table = annual_as_written(data)
     y_all = data.mortality[data.mortality["group"] == "age5plus"].set_index("year")["value"]
     row = chk.loc[("m:age5plus", "forage_biomass")]
-    # -0.80 before the cold pool's effect (1985-2004) entered M of ages 5+; -0.53 with it
+    # -0.80 before the cold pool's effect (1985-2004) entered M of ages 5+; -0.53 with it; -0.54
+    # with the late forage collapse (2020-2021)
     assert row["detrended_lag"] == 1 and row["detrended_r"] < -0.5
     x = table["forage_biomass"].reindex(y_all.index - 1).to_numpy()
     ok = np.isfinite(x)
@@ -221,6 +256,8 @@ def test_truth_markdown_states_the_truth(data):
     # the switch and what the joint screen should say
     assert "* [t <= 2004]" in text and "| `m:age5plus` | 0.24 | +0.20 | 0.32 | 0.000 | 0.013 |" in text
     assert "break year within a few years of 2005" in text
+    assert "one late collapse at a random year of 2020-2022" in text and "2020 (depth 1.21, 2 yr)." in text
+    assert "built to show the tool's verdicts" in text
     older = chk.xs("m:age5plus", level="response").loc[["jellyfish_index", "zooplankton_index", "pinniped_abundance",
                                                          "fishing_mortality", "shelf_climate_index"], "detrended_r"]
     assert f"is now {older.loc[older.abs().idxmax()]:+.2f}, `{older.abs().idxmax()}`" in text

@@ -8,7 +8,9 @@ The study is built to test a driver screen honestly. Its responses are the natur
 M of three age groups of the invented predator; its ten candidate drivers include three true
 effects and seven decoys:
 
-* a true lagged, threshold-shaped (hockey-stick) prey effect on the two older groups;
+* a true lagged, threshold-shaped (hockey-stick) prey effect on the two older groups (the
+  forage fish collapse once a decade, and once more in the final years, so the re-test on the
+  last years can see the effect);
 * a true linear spring-temperature effect on the youngest group only;
 * a true linear cold-pool effect on the oldest group that switches off after an invented regime
   shift halfway through the record (present 1985-2004, zero from 2005);
@@ -33,9 +35,12 @@ from lagsieve.demo.fish import fish_samples
 
 __all__ = [
     "DEFAULT_SEED",
+    "DIP_WINDOWS",
     "DRIVERS",
     "DRIVER_IDS",
     "GROUPS",
+    "HOLDOUT_YEARS",
+    "LATE_DIP_WINDOW",
     "PARAMETERS",
     "RESPONSE_IDS",
     "ROLES",
@@ -99,6 +104,14 @@ PARAMETERS: dict[str, dict[str, float]] = {
     "assessment": {"cv_low": 0.07, "cv_high": 0.13},
 }
 
+#: The windows of the forage collapses: one collapse per decade, at a random year in the window.
+DIP_WINDOWS = ((1986, 1992), (1996, 2002), (2006, 2012), (2016, 2021))
+#: The final response years the demo config keeps back for the re-test (validation.holdout_years).
+HOLDOUT_YEARS = 5
+#: One more, late collapse, added later from a stream of its own: it falls in the forage years
+#: the re-test on the last five response years reads at lag 1 (2019-2023), so the re-test can
+#: see the planted prey effect (without it those forage years stayed above the threshold).
+LATE_DIP_WINDOW = (2020, 2022)
 #: Gaps written as empty cells (decoy series only, so no gap touches a true effect).
 GAPS = {"shrimp_index": (1991, 2009), "jellyfish_index": (1996,)}
 #: Monthly temperature rows missing from the file; April 1993 leaves two spring months.
@@ -181,10 +194,14 @@ RESPONSE_IDS = tuple(f"m:{g}" for g in GROUPS)
 #: cold pool's effect, added later, changed M of ages 5+ in 1985-2004 and with it the chance
 #: correlations of the decoys with that group (TRUTH.md gives the largest).
 #: Other seeds give other realisations, where decoys can show chance associations. The cold
-#: pool came later: its stream is spawned last, so every earlier stream is the child it was
-#: and every other driver's series is unchanged.
+#: pool came later: its stream is spawned after the others, so every earlier stream is the child it
+#: was and every other driver's series is unchanged. The late forage collapse came last, from the
+#: last stream: it changes the forage index from LATE_DIP_WINDOW's first year on, M of the two
+#: older groups from the year after, and (through the mean of log forage they are centred on) the
+#: shrimp index and the fish samples a little in every year; nothing else.
 _STREAMS = ("shrimp", "m:age3-4", "m:age5plus", "pinniped", "zooplankton", "forage",
-            "fishing", "jellyfish", "temperature", "climate", "m:age2", "oxygen", "cold_pool")
+            "fishing", "jellyfish", "temperature", "climate", "m:age2", "oxygen", "cold_pool",
+            "forage_late")
 
 
 def _ar1(rng: np.random.Generator, n: int, phi: float, innov_sd: float) -> np.ndarray:
@@ -197,15 +214,16 @@ def _ar1(rng: np.random.Generator, n: int, phi: float, innov_sd: float) -> np.nd
     return x
 
 
-def _forage_dips(rng: np.random.Generator, years: np.ndarray, p: dict) -> tuple[np.ndarray, list]:
-    """Episodic collapses of the forage fish: one per decade, at a random year in it.
+def _forage_dips(rng: np.random.Generator, years: np.ndarray, p: dict,
+                 windows: tuple = DIP_WINDOWS) -> tuple[np.ndarray, list]:
+    """Episodic collapses of the forage fish: one per window, at a random year in it.
 
     A dip of depth d lowers log biomass by d in its first year, then by d*0.55 and d*0.2
     in the next years when it lasts 2 or 3 years.
     """
     dips = np.zeros(years.size)
     events = []
-    for start, stop in ((1986, 1992), (1996, 2002), (2006, 2012), (2016, 2021)):
+    for start, stop in windows:
         y0 = int(rng.integers(start, stop + 1))
         depth = float(rng.uniform(p["dip_depth_min"], p["dip_depth_max"]))
         length = int(rng.integers(1, 4))
@@ -226,12 +244,14 @@ def _streams(seed: int) -> dict[str, np.random.Generator]:
 
 # --------------------------------------------------------------------------- the drivers
 
-def _forage(rng: np.random.Generator, years: np.ndarray, p: dict) -> tuple[np.ndarray, list]:
+def _forage(rng: np.random.Generator, late_rng: np.random.Generator, years: np.ndarray,
+            p: dict) -> tuple[np.ndarray, list]:
     """Forage fish biomass as written (kt): AR(1) around a constant level plus one big dip
-    per decade (no trend); also the dip events."""
+    per decade and the late dip (``late_rng``, LATE_DIP_WINDOW); no trend. Also the dip events."""
     dips, events = _forage_dips(rng, years, p)
     log_forage = p["log_mean"] + _ar1(rng, years.size, p["phi"], p["innov_sd"]) + dips
-    return np.round(np.exp(log_forage), 1), events
+    late, late_events = _forage_dips(late_rng, years, p, (LATE_DIP_WINDOW,))
+    return np.round(np.exp(log_forage + late), 1), events + late_events
 
 
 def _temperature_monthly(rng: np.random.Generator, years: np.ndarray, p: dict) -> pd.DataFrame:
@@ -326,7 +346,7 @@ class _Drivers:
 def _simulate_drivers(streams: dict[str, np.random.Generator]) -> _Drivers:
     P = PARAMETERS
     yrs = DRIVER_YEARS
-    forage, dip_events = _forage(streams["forage"], yrs, P["forage"])
+    forage, dip_events = _forage(streams["forage"], streams["forage_late"], yrs, P["forage"])
     monthly = _temperature_monthly(streams["temperature"], yrs, P["temperature"])
     spring = _spring_mean_by_year(monthly, yrs)
     climate = _climate(streams["climate"], P["climate"])
