@@ -47,8 +47,10 @@ gam.expanding_penalised) and centre the response on its first-window mean first,
 ridge does not act in proportion to the response's level; the responses here have level 10
 (``--level``) so that a level-dependent difference would show.
 
-Timings are medians over repeats (batched) or over hypotheses / fits (loops), all in one
-run. The last line printed is ``speedup_linear=<x> speedup_gam=<y> speedup_conditional=<z>``.
+Timings are CPU seconds of the process (user + system, :func:`cpu_seconds`; BLAS on one thread),
+medians over repeats (batched) or over hypotheses / fits (loops), all in one run; the demo's
+end-to-end run alone is wall time. The last line printed is
+``speedup_linear=<x> speedup_gam=<y> speedup_conditional=<z>``.
 
 Machine limit: the one-core matrix-product rate of the same run (a 2000 x 2000 float64
 product under ``threadpool_limits(1)``, 2 n^3 flops, best of 3), and beside it the rate each
@@ -60,7 +62,10 @@ time, and the share of the peak.
 Then the whole demo study (``lagsieve init`` + ``lagsieve run --cores 2``: 999 surrogates,
 linear and gam) is timed end to end, and every demo response is screened again in this process
 (``screen_response``, BLAS on one thread, one worker, as a screen job does) to report its CPU
-time (median of ``--demo-repeats``) against the target of 2 s (``--no-demo`` skips both).
+time (median of ``--demo-repeats``) against the target of 2 s (``--no-demo`` skips both). With
+``--study CONFIG`` (a study already run, such as a private ``lagsieve init`` copy of the demo) the
+end-to-end run is skipped and that study's responses are screened, so that figures before and
+after a change use the same data.
 """
 from __future__ import annotations
 
@@ -133,12 +138,19 @@ def make_hypotheses(seed: int, n_hyp: int = N_HYP, n_surr: int = N_SURR, level: 
     return hyps
 
 
+def cpu_seconds() -> float:
+    """The CPU time of this process (user + system): the timings below are CPU seconds, so that on a
+    machine shared with other work the time spent waiting for a core does not count (BLAS runs on
+    one thread; on a quiet machine CPU and wall time agree)."""
+    return time.process_time()
+
+
 def timed(fn, repeats: int) -> tuple[float, object]:
     ts, out = [], None
     for _ in range(repeats):
-        t0 = time.perf_counter()
+        t0 = cpu_seconds()
         out = fn()
-        ts.append(time.perf_counter() - t0)
+        ts.append(cpu_seconds() - t0)
     return float(np.median(ts)), out
 
 
@@ -319,13 +331,13 @@ def pygam_fits(h, hardest, lam, pairs):
         q0 = Zraw.shape[1]
         fc = np.empty(len(origins))
         for j, o in enumerate(origins):
-            t0 = time.perf_counter()
+            t0 = cpu_seconds()
             smooth = spl(q0, n_splines=K, spline_order=3, lam=float(lam[si, li, j]), penalties="derivative",
                          basis="ps", edge_knots=edge)
             terms = (l(0, lam=0.0) + smooth) if q0 else smooth
             g = LinearGAM(terms).fit(data[:o], y[:o])
             fc[j] = g.predict(data[o:o + 1])[0]
-            times.append(time.perf_counter() - t0)
+            times.append(cpu_seconds() - t0)
         out[(si, li)] = fc
     return out, np.asarray(times)
 
@@ -403,6 +415,17 @@ def time_demo(repeats: int) -> tuple[float, dict[str, float]]:
         print(f"demo: {len(ev)} hypotheses graded: {ev['grade'].value_counts().to_dict()}")
         cpu = screen_cpu(f"{d}/study/config.yaml", f"{d}/study/results/caldrin_shelf_demo/work/annual.csv", repeats)
     return wall, cpu
+
+
+def study_annual(config: str) -> Path:
+    """The aligned table (``work/annual.csv``) of a study already run, from its config."""
+    from lagsieve.io.config import load_study
+
+    study = load_study(config)
+    found = sorted(Path(config).resolve().parent.glob(f"results/{study.id}/work/annual.csv"))
+    if not found:
+        raise SystemExit(f"{config}: no results/{study.id}/work/annual.csv; run the study first (lagsieve run)")
+    return found[0]
 
 
 def screen_cpu(config: str, annual_csv: str, repeats: int) -> dict[str, float]:
@@ -528,9 +551,9 @@ def conditional_entry(pairs: list[dict], loop_pairs: int, repeats: int) -> tuple
           f"per pair = {fits} OLS fits")
     loop_t, worst = [], dict(partial_r=0.0, restricted=0.0, full=0.0, skill=0.0, lag_mismatch=0)
     for i in range(min(loop_pairs, len(pairs))):
-        t0 = time.perf_counter()
+        t0 = cpu_seconds()
         r_loop, nl = loop_partial_r(pairs[i]), loop_nested(pairs[i])
-        loop_t.append(time.perf_counter() - t0)
+        loop_t.append(cpu_seconds() - t0)
         assert nl["fits"] + L * (S + 1) == fits
         r, nr = outs[i]
         skill = 1 - np.mean((nr.observed - nl["full"]) ** 2, axis=-1) / np.mean((nr.observed - nl["restricted"]) ** 2)
@@ -565,6 +588,9 @@ def main(argv=None) -> int:
                     help="(surrogate, lag) pairs of hypothesis 0 fitted with pygam at every origin")
     ap.add_argument("--no-demo", action="store_true",
                     help="skip the end-to-end demo timing and the demo's per-response screen CPU")
+    ap.add_argument("--study", default=None, metavar="CONFIG",
+                    help="a demo study already run (its config.yaml): screen its responses for their CPU time "
+                         "and skip the end-to-end run, so that before/after figures use the same data")
     ap.add_argument("--demo-repeats", type=int, default=3,
                     help="screens of every demo response for its CPU time (median)")
     ap.add_argument("--strict", action="store_true",
@@ -603,9 +629,9 @@ def main(argv=None) -> int:
     # ---- linear, loop
     loop_t, worst = [], None
     for i in range(min(args.loop_hyps, len(hyps))):
-        t0 = time.perf_counter()
+        t0 = cpu_seconds()
         lp = loop_linear(hyps[i])
-        loop_t.append(time.perf_counter() - t0)
+        loop_t.append(cpu_seconds() - t0)
         assert lp["fits"] == fits_lin
         w = compare_linear(ros[i], lp)
         worst = w if worst is None else {k: max(worst[k], w[k]) for k in w}
@@ -639,9 +665,9 @@ def main(argv=None) -> int:
     dense_t, dense_worst, dense_rel, ridge_rel, lams = [], 0.0, 0.0, 0.0, {}
     for i in range(min(args.loop_hyps, len(hyps))):
         lams[i] = chosen_lambda(hyps[i], hardest[i], gams[i][0], gams[i][2])
-        t0 = time.perf_counter()
+        t0 = cpu_seconds()
         fc = dense_gam_loop(hyps[i], hardest[i], lams[i])
-        dense_t.append(time.perf_counter() - t0)
+        dense_t.append(cpu_seconds() - t0)
         if i == 0:
             fc0 = fc
         dense_worst = max(dense_worst, float(np.max(np.abs(fc - gams[i][0]))))
@@ -686,12 +712,15 @@ def main(argv=None) -> int:
              dict(kernel="gam", method="pygam loop (extrapolated from median per fit)", seconds_per_hypothesis=t_pygam,
                   fits_per_hypothesis=fits_gam, max_abs_diff=pg_diff, fits_run=len(pg_times))]
 
-    if not args.no_demo:
+    if args.study:
+        cpu = screen_cpu(args.study, str(study_annual(args.study)), args.demo_repeats)
+    elif not args.no_demo:
         demo, cpu = time_demo(args.demo_repeats)
         print(f"demo study wall time (lagsieve run, --cores 2, 999 surrogates, linear+gam): {demo:.1f} s "
               f"(target < 60 s)")
         rows.append(dict(kernel="demo", method="lagsieve run --cores 2", seconds_per_hypothesis=np.nan,
                          wall_seconds=demo))
+    if args.study or not args.no_demo:
         for rid, c in cpu.items():
             print(f"demo screen CPU {rid}: {c:.2f} s (median of {args.demo_repeats}; target <= 2 s)")
             rows.append(dict(kernel="demo screen", method=rid, cpu_seconds=c))
