@@ -21,8 +21,14 @@ run (Snakemake and every job, user + system) is reported beside the wall time. A
 as such, with the number of studies finished by then.
 
 Then planning alone is timed: ``snakemake -n --quiet`` over 5,000 such studies (default
-``--plan-n 5000``). plan.py loads every config at parse time and, for up to 50 studies,
-also reads and checks every input file; beyond 50 it checks the configs only.
+``--plan-n 5000``; with ``--batch K`` as the runs have it), wall and CPU. plan.py loads every
+config at parse time and, for up to 50 studies, also reads and checks every input file; beyond
+50 it checks the configs only.
+
+Per study, the median CPU of each stage comes from the last line of the stage's log (written
+by ``lagsieve.stages.common.logged``), so that the cost of a small study can be read by stage;
+the load average of the machine at the start and end of each run is printed beside it (the
+machine may be shared: compare CPU seconds).
 
 Why ``--configfile`` and not ``--config studies=[...]``: the list of 5,000 paths is one
 command-line argument of about 300 kB, beyond Linux's 128 kB limit for a single argument.
@@ -33,11 +39,13 @@ from __future__ import annotations
 
 import argparse
 import os
+import re
 import signal
 import subprocess
 import sys
 import tempfile
 import time
+from datetime import datetime
 from pathlib import Path
 
 import numpy as np
@@ -145,14 +153,33 @@ def run_measured(cmd: list[str], env: dict, max_seconds: float, log: Path) -> di
                 peak_snakemake_mb=peak_own / 2**20, peak_job_mb=peak_job / 2**20, stopped=stopped)
 
 
+STAGE_TIMING = re.compile(r"lagsieve: stage took ([\d.]+) s wall, ([\d.]+) s CPU, ([\d.]+) s CPU in workers")
+
+
+def stage_cpu(results: Path) -> dict[str, float]:
+    """Median CPU seconds (the process's and its workers') per study of each stage, from the
+    last line of every stage log under ``results/<study>/logs``."""
+    by_stage: dict[str, list[float]] = {}
+    for log in results.glob("*/logs/**/*.log"):
+        m = STAGE_TIMING.search(log.read_text(encoding="utf-8", errors="replace"))
+        if m:
+            stage = "screen" if log.parent.name == "screen" else log.stem
+            by_stage.setdefault(stage, []).append(float(m.group(2)) + float(m.group(3)))
+    return {k: float(np.median(v)) for k, v in sorted(by_stage.items())}
+
+
+def children_cpu() -> float:
+    t = os.times()
+    return t.children_user + t.children_system
+
+
 def jobs_done(log: Path) -> dict[str, int]:
     """Finished jobs per rule, from the Snakemake log ('Finished jobid: 7 (Rule: screen)')."""
-    import re
-
     counts: dict[str, int] = {}
     for rule in re.findall(r"Finished jobid: \d+ \(Rule: (\w+)\)", log.read_text(errors="replace")):
         counts[rule] = counts.get(rule, 0) + 1
-    counts.pop("all", None)
+    for rule in ("all", "default"):  # the targets' rules run no work
+        counts.pop(rule, None)
     return counts
 
 
@@ -183,7 +210,8 @@ def job_durations(log: Path) -> dict[str, float]:
         m = re.match(r"^Finished jobid: (\d+)", line)
         if m and m.group(1) in start and stamp is not None:
             dur.setdefault(rule_of[m.group(1)], []).append((stamp - start[m.group(1)]).total_seconds())
-    dur.pop("all", None)
+    for rule in ("all", "default"):
+        dur.pop(rule, None)
     return {k: float(np.median(v)) for k, v in sorted(dur.items())}
 
 
@@ -214,7 +242,9 @@ def main(argv=None) -> int:
             if plan.returncode != 0:
                 raise SystemExit(f"dry run failed for N={n}:\n{plan.stderr[-3000:]}")
             print(f"N={n}: planning (snakemake -n --quiet) {t_plan:.1f} s; running ...", flush=True)
+            load0 = os.getloadavg()[0]
             m = run_measured(snakemake_cmd(root, batch, args.cores), env, args.max_seconds, root / "snakemake.log")
+            load1, stages = os.getloadavg()[0], stage_cpu(root / "results")
             done = sum((root / "results" / f"s{i:05d}" / "report.html").exists() for i in range(n))
             per_rule = jobs_done(root / "snakemake.log")
             durations = job_durations(root / "snakemake.log")
@@ -232,11 +262,14 @@ def main(argv=None) -> int:
                              median_job_s=" ".join(f"{k}={v:.0f}" for k, v in durations.items()),
                              peak_tree_rss_mb=m["peak_tree_mb"], peak_snakemake_rss_mb=m["peak_snakemake_mb"],
                              peak_job_rss_mb=m["peak_job_mb"],
+                             stage_cpu=" ".join(f"{k}={v:.2f}" for k, v in stages.items()),
+                             load=f"{load0:.1f}-{load1:.1f}",
                              plan_s=t_plan, status="ok" if ok else ("stopped at --max-seconds" if m["stopped"] else f"failed rc={m['rc']}")))
             r = rows[-1]
             print(f"N={n}: {r['status']}, {done}/{n} studies complete, {n_jobs}/{jobs} jobs "
                   f"({r['jobs_by_rule']}) in {r['wall_s']:.0f} s ({r['s_per_job']:.2f} s per job, "
-                  f"{r['s_per_study']:.2f} s wall and {r['cpu_per_study']:.2f} s CPU per study); median job wall s by rule: {r['median_job_s']}; "
+                  f"{r['s_per_study']:.2f} s wall and {r['cpu_per_study']:.2f} s CPU per study; median CPU s per study by "
+                  f"stage: {r['stage_cpu']}; load {r['load']}); median job wall s by rule: {r['median_job_s']}; "
                   f"peak RSS tree {r['peak_tree_rss_mb']:.0f} MB, snakemake alone {r['peak_snakemake_rss_mb']:.0f} MB, "
                   f"one job {r['peak_job_rss_mb']:.0f} MB", flush=True)
             # free the disk between sizes
@@ -245,19 +278,21 @@ def main(argv=None) -> int:
         if args.plan_n:
             root = Path(tmp) / f"plan{args.plan_n}"
             t0 = time.perf_counter()
-            batch = write_batch(root, args.plan_n, args.seed, args.pdf)
+            batch = write_batch(root, args.plan_n, args.seed, args.pdf, args.batch)
             t_write = time.perf_counter() - t0
-            t0 = time.perf_counter()
+            t0, cpu0, load0 = time.perf_counter(), children_cpu(), os.getloadavg()[0]
             try:
                 plan = subprocess.run(snakemake_cmd(root, batch, args.cores, ["-n", "--quiet"]), env=env,
                                       capture_output=True, text=True, timeout=args.plan_max_seconds)
                 status = "ok" if plan.returncode == 0 else f"failed rc={plan.returncode}: {plan.stderr[-500:]}"
             except subprocess.TimeoutExpired:
                 status = f"not finished after {args.plan_max_seconds:.0f} s (stopped)"
-            t_plan = time.perf_counter() - t0
-            plan_row = dict(studies=args.plan_n, plan_s=t_plan, status=status, write_s=t_write)
-            print(f"planning only, {args.plan_n} studies ({JOBS_PER_STUDY * args.plan_n} jobs): {t_plan:.1f} s ({status}); "
-                  f"target < 60 s", flush=True)
+            t_plan, plan_cpu = time.perf_counter() - t0, children_cpu() - cpu0
+            plan_jobs = -(-args.plan_n // args.batch) if args.batch else JOBS_PER_STUDY * args.plan_n
+            plan_row = dict(studies=args.plan_n, jobs=plan_jobs, plan_s=t_plan, plan_cpu_s=plan_cpu, status=status,
+                            write_s=t_write, load=f"{load0:.1f}-{os.getloadavg()[0]:.1f}")
+            print(f"planning only, {args.plan_n} studies ({plan_jobs} jobs): {t_plan:.1f} s wall, {plan_cpu:.1f} s CPU "
+                  f"({status}; load {plan_row['load']}); target < 30 s", flush=True)
     df = pd.DataFrame(rows)
     out = Path(args.out)
     out.parent.mkdir(parents=True, exist_ok=True)
@@ -268,12 +303,13 @@ def main(argv=None) -> int:
           + (f"batch {args.batch}: one job runs every stage of {args.batch} studies" if args.batch else
              f"{JOBS_PER_STUDY} jobs (screen, evidence, report)") + f"; --cores {args.cores}.", "",
           "| studies | jobs | jobs finished | studies complete | wall (s) | s per study | CPU s per study "
-          "| median job wall (s) by rule "
+          "| median CPU s per study by stage | load | median job wall (s) by rule "
           "| peak RSS, tree (MB) | peak RSS, snakemake (MB) | peak RSS, one job (MB) | planning -n (s) | status |",
-          "| ---: | ---: | ---: | ---: | ---: | ---: | ---: | --- | ---: | ---: | ---: | ---: | --- |"]
+          "| ---: | ---: | ---: | ---: | ---: | ---: | ---: | --- | --- | --- | ---: | ---: | ---: | ---: | --- |"]
     for r in rows:
         md.append(f"| {r['studies']} | {r['jobs']} | {r['jobs_done']} ({r['jobs_by_rule']}) | {r['finished']} | "
-                  f"{r['wall_s']:.0f} | {r['s_per_study']:.2f} | {r['cpu_per_study']:.2f} | {r['median_job_s']} | "
+                  f"{r['wall_s']:.0f} | {r['s_per_study']:.2f} | {r['cpu_per_study']:.2f} | {r['stage_cpu']} | "
+                  f"{r['load']} | {r['median_job_s']} | "
                   f"{r['peak_tree_rss_mb']:.0f} | {r['peak_snakemake_rss_mb']:.0f} | {r['peak_job_rss_mb']:.0f} | "
                   f"{r['plan_s']:.1f} | {r['status']} |")
     complete = [r for r in rows if r["status"] == "ok"]
@@ -290,8 +326,9 @@ def main(argv=None) -> int:
                    "total grows no faster than linearly)."]
     if plan_row:
         md += ["", f"Planning only (`snakemake -n --quiet`), {plan_row['studies']} studies, "
-                   f"{JOBS_PER_STUDY * plan_row['studies']} jobs: {plan_row['plan_s']:.1f} s ({plan_row['status']}; "
-                   "target < 60 s). Configs only are checked beyond 50 studies."]
+                   f"{plan_row['jobs']} jobs: {plan_row['plan_s']:.1f} s wall, {plan_row['plan_cpu_s']:.1f} s CPU "
+                   f"({plan_row['status']}; load {plan_row['load']}; target < 30 s). Configs only are checked beyond "
+                   "50 studies."]
         pd.DataFrame([plan_row]).to_csv(out.parent / (out.name + "_plan.csv"), index=False, float_format="%.3f")
     text = "\n".join(md) + "\n"
     out.with_suffix(".md").write_text(text, encoding="utf-8")
