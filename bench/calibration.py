@@ -49,6 +49,13 @@ decoys (``--decoys``: worlds of three drivers, graded with the rival check as th
   u, v white; n = 40. Reported: P(strong or moderate) of each driver, and how often a decoy
   is capped with the true driver named as its rival.
 
+two genuine drivers (``--genuine``: the rival check must not cost a study with two real effects)
+  g1 and g2, AR(1) (phi 0.5) with correlation 0 or 0.5 (a shared AR(1) component), both act at
+  lag 1: y_t = k (g1_{t-1} + g2_{t-1}) + e_t, k chosen so that together they explain 60% of the
+  response's variance (r about 0.55-0.67 each alone); beside them an unrelated AR(1) driver;
+  n = 40. Reported: P(strong or moderate) of each after the rival check, and of both graded
+  alone and after the check (each should keep its grade when each survives the other).
+
 Every driver is screened with expected_sign 'any' (no sign stated beforehand), so nothing
 is gained from a known direction.
 
@@ -64,6 +71,8 @@ Usage::
     python bench/calibration.py --quick                 # ~40 worlds per cell
     python bench/calibration.py --reps 200 --models linear
     python bench/calibration.py --reps 100 --models linear,gam --n 40   # only n = 40 cells
+    python bench/calibration.py --decoys --reps 400      # echoes of the true driver (rival check)
+    python bench/calibration.py --genuine --reps 400     # two genuine drivers (rival check)
 
 Results go to bench/out/ (not tracked) unless --out names a stem; the committed tables in
 bench/results/ are copies of runs that the README quotes.
@@ -236,6 +245,7 @@ def _stability_entries(ev: pd.Series, table: pd.DataFrame, scr: dict) -> dict:
 
 DECOY_CS = (0.5, 0.8)
 DECOY_IDS = ("drv", "echo_same", "echo_shift")
+GENUINE_R2 = 0.6  # share of the response's variance the two genuine drivers explain together
 
 
 def simulate_decoys(n: int, rng: np.random.Generator, c: float, trending: bool):
@@ -260,20 +270,71 @@ def run_decoy_world(task: tuple) -> dict:
     cell_id, rep, seed, c, trending, n, surrogates = task
     data_seed, surr_seed = np.random.SeedSequence([seed, 1000 + cell_id, rep]).generate_state(2)
     table = simulate_decoys(n, np.random.default_rng(data_seed), c, trending)
+    return {"cell": cell_id, "rep": rep, **_rival_grades(table, DECOY_IDS, surr_seed, surrogates)}
+
+
+def _rival_grades(table: pd.DataFrame, ids: tuple, surr_seed, surrogates: int) -> dict:
+    """Every driver of ``table`` screened against ``resp`` and graded with the rival check as the
+    pipeline does: each driver's grade alone, its grade after the check and the rival named."""
     scr = screen_settings(["linear"], surrogates)
     scr["seed"] = int(surr_seed)
-    drivers = [{"id": d, "expected_sign": "any"} for d in DECOY_IDS]
-    out = {"cell": cell_id, "rep": rep}
+    drivers = [{"id": d, "expected_sign": "any"} for d in ids]
+    out = {}
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         hyps = [screen_hypothesis(table, {"id": "resp"}, d, LAGS, scr)[1] for d in drivers]
         graded = grade_hypotheses(pd.DataFrame(hyps), table, scr)
-        cond = conditional_table(graded, table, drivers, {d: LAGS for d in DECOY_IDS}, scr)
+        cond = conditional_table(graded, table, drivers, {d: LAGS for d in ids}, scr)
         ev = finish_evidence(cap_by_rivals(graded, cond), table, scr).set_index("driver")
-    for d in DECOY_IDS:
+    alone = graded.set_index("driver")["grade"]
+    for d in ids:
         out[f"grade_{d}"] = ev.loc[d, "grade"]
         out[f"rival_{d}"] = str(ev.loc[d].get("rival", "") or "")
+        out[f"alone_{d}"] = alone[d]
     return out
+
+
+GENUINE_RHOS = (0.0, 0.5)
+GENUINE_IDS = ("g1", "g2", "unrelated")
+
+
+def simulate_genuine(n: int, rng: np.random.Generator, rho: float) -> pd.DataFrame:
+    """One world of two genuine drivers (see the module docstring)."""
+    m = n + LEAD
+    shared, a, b = (ar1(rng, m, DRIVER_PHI) for _ in range(3))
+    x1 = np.sqrt(rho) * shared + np.sqrt(1.0 - rho) * a
+    x2 = np.sqrt(rho) * shared + np.sqrt(1.0 - rho) * b
+    k = np.sqrt(GENUINE_R2 / (1.0 - GENUINE_R2) / (2.0 + 2.0 * rho))
+    y = np.full(m, np.nan)
+    y[1:] = k * (x1[:-1] + x2[:-1]) + rng.normal(size=m - 1)
+    y[:LEAD] = np.nan
+    years = pd.Index(np.arange(1970, 1970 + m), name="year")
+    return pd.DataFrame({"resp": y, "g1": x1, "g2": x2, "unrelated": ar1(rng, m, DRIVER_PHI)}, index=years)
+
+
+def run_genuine_world(task: tuple) -> dict:
+    """Screen the drivers of one world of two genuine drivers, grade them with the rival check."""
+    cell_id, rep, seed, rho, n, surrogates = task
+    data_seed, surr_seed = np.random.SeedSequence([seed, 3000 + cell_id, rep]).generate_state(2)
+    table = simulate_genuine(n, np.random.default_rng(data_seed), rho)
+    return {"cell": cell_id, "rep": rep, **_rival_grades(table, GENUINE_IDS, surr_seed, surrogates)}
+
+
+def summarise_genuine(tasks: list[tuple], results: pd.DataFrame) -> list[str]:
+    """Markdown rows: per cell, P(strong or moderate) of each genuine driver after the rival
+    check, of both alone and of both after it, and of the unrelated driver."""
+    rows = ["| corr(g1, g2) | n | worlds | g1 | g2 | both, graded alone | both, after the rival check | unrelated |",
+            "| ---: | ---: | ---: | --- | --- | --- | --- | --- |"]
+    for cell_id, rho, n in sorted({(t[0], t[3], t[4]) for t in tasks}):
+        r = results[results["cell"] == cell_id]
+        m = len(r)
+        sm = {k: r[k].isin(["strong", "moderate"]) for k in r.columns if k.startswith(("grade_", "alone_"))}
+        rows.append(f"| {rho:.1f} | {n} | {m} | {fmt(*rate(int(sm['grade_g1'].sum()), m))} | "
+                    f"{fmt(*rate(int(sm['grade_g2'].sum()), m))} | "
+                    f"{fmt(*rate(int((sm['alone_g1'] & sm['alone_g2']).sum()), m))} | "
+                    f"{fmt(*rate(int((sm['grade_g1'] & sm['grade_g2']).sum()), m))} | "
+                    f"{fmt(*rate(int(sm['grade_unrelated'].sum()), m))} |")
+    return rows
 
 
 def summarise_decoys(tasks: list[tuple], results: pd.DataFrame) -> list[str]:
@@ -458,12 +519,16 @@ def main(argv=None) -> int:
                          "calibration_decoys with --decoys; bench/out/ is not tracked)")
     ap.add_argument("--decoys", action="store_true",
                     help="only the decoy worlds (three drivers each, graded with the rival check), n = 40")
+    ap.add_argument("--genuine", action="store_true",
+                    help="only the worlds of two genuine drivers (graded with the rival check), n = 40")
     ap.add_argument("--stability", action="store_true",
                     help="only the break-test worlds: steady relationships and planted switches, n = 25, 40, 60")
     args = ap.parse_args(argv)
     reps = 40 if args.quick else args.reps
     if args.decoys:
         return main_decoys(args, reps)
+    if args.genuine:
+        return main_genuine(args, reps)
     if args.stability:
         return main_stability(args, reps)
     models = [m.strip() for m in args.models.split(",") if m.strip()]
@@ -609,18 +674,30 @@ def _write_run(stem: Path, md: str, res: pd.DataFrame) -> int:
 
 def main_decoys(args, reps: int) -> int:
     """The decoy worlds: echoes of the true driver must not be carried forward (issue 16)."""
-    stem = Path(args.out) if args.out else Path(__file__).resolve().parent / "out" / "calibration_decoys"
-    stem.parent.mkdir(parents=True, exist_ok=True)
     cl = [(c, trending) for trending in (False, True) for c in DECOY_CS]
     tasks = [(i, rep, args.seed, c, trending, 40, args.surrogates) for i, (c, trending) in enumerate(cl)
              for rep in range(reps)]
-    res, wall = _timed_run(run_decoy_world, tasks, args.processes)
-    md = "\n".join([f"## lagsieve calibration: decoys that echo the true driver, {reps} worlds per cell", "",
+    return _rival_run(args, "calibration_decoys", "decoys that echo the true driver", run_decoy_world, tasks,
+                      summarise_decoys)
+
+
+def main_genuine(args, reps: int) -> int:
+    """Two genuine drivers: the rival check should leave both their grades (issue 16)."""
+    tasks = [(i, rep, args.seed, rho, 40, args.surrogates) for i, rho in enumerate(GENUINE_RHOS) for rep in range(reps)]
+    return _rival_run(args, "calibration_genuine", "two genuine drivers", run_genuine_world, tasks, summarise_genuine)
+
+
+def _rival_run(args, name: str, title: str, fn, tasks: list, summarise) -> int:
+    """Run the worlds of ``tasks`` graded with the rival check; write and print their table."""
+    stem = Path(args.out) if args.out else Path(__file__).resolve().parent / "out" / name
+    stem.parent.mkdir(parents=True, exist_ok=True)
+    res, wall = _timed_run(fn, tasks, args.processes)
+    reps = len(tasks) // len({t[0] for t in tasks})
+    md = "\n".join([f"## lagsieve calibration: {title}, {reps} worlds per cell", "",
                      f"linear; lags {LAGS}; {args.surrogates} surrogates; rival check as in the pipeline; seed "
                      f"{args.seed}. Cells are P(strong or moderate) with {CI}. Wall time {wall:.0f} s on "
-                     f"{args.processes} processes.", "", *summarise_decoys(tasks, res), ""])
+                     f"{args.processes} processes.", "", *summarise(tasks, res), ""])
     return _write_run(stem, md, res)
-
 
 if __name__ == "__main__":
     sys.exit(main())
