@@ -206,6 +206,17 @@ def test_keeps_support_needs_clark_west_too_and_the_sign_found_alone():
     assert keeps_support(_cond(partial_r=-0.4), 0.05)  # sign alone unknown: not held against it
 
 
+def test_keeps_support_in_sample_only_at_the_lag_graded():
+    """Support in sample is support for the relation graded: the partial r's best lag must be the
+    driver's own lag (our own rule; the surrogate p stays the one paid for the choice among lags,
+    so the condition only makes the test stricter). Missing lags are not held against it."""
+    assert keeps_support(_cond(driver_lag=1, partial_lag=1), 0.05)
+    assert not keeps_support(_cond(driver_lag=1, partial_lag=0), 0.05)
+    assert keeps_support(_cond(driver_lag=1, partial_lag=0, p_partial_surrogate=np.nan), 0.05)  # no partial r
+    assert keeps_support(_cond(driver_lag=1, partial_lag=np.nan), 0.05)
+    assert keeps_support(_cond(driver_lag=2, partial_lag=2.0), 0.05)  # as read back from conditional.csv
+
+
 def test_a_driver_real_in_sample_without_forecast_skill_is_a_competitor():
     """A decoy graded strong is tested given a true driver set aside as no-forecast-skill (it still
     explains the years it was fitted to), and the true driver given the decoy (the reverse test);

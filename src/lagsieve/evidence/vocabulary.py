@@ -21,7 +21,8 @@ GRADE_RULES = {
                 "and moderate also require support kept given the strongest rival (the other driver of the "
                 "response graded weak or better or no-forecast-skill given which this one adds least forecast "
                 "skill): added skill > 0 with surrogate p <= 0.10 and Clark-West p <= 0.10, and partial "
-                "correlation of the sign found alone with surrogate p <= alpha, against residual surrogates; a "
+                "correlation of the sign and at the lag found alone with surrogate p <= alpha, against residual "
+                "surrogates; a "
                 "driver that loses it given a rival that keeps its own support given this "
                 "driver (or that neither survives, with the larger |r| alone) is weak and flagged "
                 "explained-by-rival.",
