@@ -32,12 +32,12 @@ from typing import NamedTuple
 
 import numpy as np
 import pandas as pd
-from scipy import stats as _st
 
 from lagsieve.ledger.fingerprint import training_hash, used_values
 from lagsieve.ledger.scores import ar1_coefficient, ar1_inflation
 from lagsieve.prep.align import forecast_frame, inverse_variance_weights
 from lagsieve.stats.backtest import BASELINES, baseline_design
+from lagsieve.stats.distributions import t_ppf
 from lagsieve.stats.splines import fit_pspline, predict_pspline
 
 LEVEL = 0.80
@@ -106,7 +106,7 @@ def ols_forecast(W: np.ndarray, y: np.ndarray, w0: np.ndarray, level: float,
     k = ar1_inflation(ar1_coefficient(resid, np.arange(n) if years is None else years))
     se = s * float(np.sqrt(1.0 + k * (lev @ lev)))
     fc = float(w0 @ beta)
-    t = float(_st.t.ppf(0.5 + level / 2.0, df))
+    t = float(t_ppf(0.5 + level / 2.0, df))
     return Prediction(fc, fc - t * se, fc + t * se, s)
 
 
@@ -126,7 +126,7 @@ def gam_forecast(x: np.ndarray, y: np.ndarray, Z: np.ndarray, x0: float, z0: np.
     resid = (np.asarray(y, float) - np.ravel(fit.fitted)) * (1.0 if weights is None else np.sqrt(weights))
     ok = np.isfinite(resid)
     k = ar1_inflation(ar1_coefficient(resid[ok], (np.arange(len(resid)) if years is None else years)[ok]))
-    half = float(_st.t.ppf(0.5 + level / 2.0, df)) * s * float(np.sqrt(1.0 + k * edf / n))
+    half = float(t_ppf(0.5 + level / 2.0, df)) * s * float(np.sqrt(1.0 + k * edf / n))
     return Prediction(fc, fc - half, fc + half, s)
 
 

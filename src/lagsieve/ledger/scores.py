@@ -16,7 +16,8 @@
 from __future__ import annotations
 
 import numpy as np
-from scipy import stats as _st
+
+from lagsieve.stats.distributions import norm_cdf, norm_pdf, norm_ppf
 
 INV_SQRT_PI = 1.0 / np.sqrt(np.pi)
 
@@ -32,12 +33,12 @@ def crps_normal(mu, sigma, observed) -> np.ndarray:
     """CRPS of the normal forecast N(mu, sigma^2) at ``observed`` (closed form)."""
     mu, sigma, y = (np.asarray(a, float) for a in (mu, sigma, observed))
     z = (y - mu) / sigma
-    return sigma * (z * (2.0 * _st.norm.cdf(z) - 1.0) + 2.0 * _st.norm.pdf(z) - INV_SQRT_PI)
+    return sigma * (z * (2.0 * norm_cdf(z) - 1.0) + 2.0 * norm_pdf(z) - INV_SQRT_PI)
 
 
 def gaussian_sd(lower, upper, level) -> np.ndarray:
     """The sd of the normal whose central ``level`` interval is [lower, upper]."""
-    return (np.asarray(upper, float) - np.asarray(lower, float)) / (2.0 * _st.norm.ppf(0.5 + np.asarray(level, float) / 2.0))
+    return (np.asarray(upper, float) - np.asarray(lower, float)) / (2.0 * norm_ppf(0.5 + np.asarray(level, float) / 2.0))
 
 
 def ar1_coefficient(resid, years) -> float:
