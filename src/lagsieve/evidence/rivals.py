@@ -21,7 +21,8 @@ driver; a rival given which the driver loses wins if it keeps its own support gi
 or if neither survives the other and the rival has the larger |r| alone (in sample, over all its
 years: steadier than the skill of some 25 forecasts). Rivals are weighed strongest first and the
 first that wins is named. Two drivers that each keep their support given the other both keep
-their grades.
+their grades. A competitor graded weak or no-forecast-skill that, by the same rule, a driver still
+strong or moderate explains keeps its grade (nothing to cap) but is flagged and names that driver.
 
 Why, measured with ``bench/calibration.py --decoys`` (n = 40, a true driver at r = 0.7 and two
 echoes of it at c = 0.5 and 0.8, stationary and trending). Capping on the driver's test given
@@ -254,7 +255,9 @@ def _winning_rival(rows: pd.DataFrame, support: dict, strength: dict, rid: str, 
 def cap_by_rivals(ev: pd.DataFrame, cond: pd.DataFrame) -> pd.DataFrame:
     """Grades that survive their rivals: a strong or moderate driver that a rival explains
     (:func:`_winning_rival`) becomes weak, gains the flag ``explained-by-rival``, and its
-    ``rival`` and ``rival_added_skill`` are recorded (empty / NaN otherwise)."""
+    ``rival`` and ``rival_added_skill`` are recorded (empty / NaN otherwise). A weaker competitor
+    (weak or no-forecast-skill) that a driver still strong or moderate explains keeps its grade
+    but gains the flag and names that driver (:func:`_name_rivals_of_weaker`)."""
     ev = ev.copy()
     ev["rival"], ev["rival_added_skill"] = "", np.nan
     alone = ev["r"].abs() if "r" in ev else pd.Series(np.nan, index=ev.index)
@@ -263,11 +266,35 @@ def cap_by_rivals(ev: pd.DataFrame, cond: pd.DataFrame) -> pd.DataFrame:
     for (rid, did), rows in cond.groupby(["response", "driver"], sort=False):
         hit = (ev["response"] == rid) & (ev["driver"] == did) & ev["grade"].isin(TESTED_GRADES)
         top = _winning_rival(rows, support, strength, rid, did) if hit.any() else None
-        if top is None:
-            continue
-        ev.loc[hit, "grade"] = "weak"
-        ev.loc[hit, "rival"] = top["competitor"]
-        ev.loc[hit, "rival_added_skill"] = top["added_skill"]
-        ev.loc[hit, "flags"] = [";".join([f for f in str(v or "").split(";") if f] + ["explained-by-rival"])
-                                for v in ev.loc[hit, "flags"].fillna("")]
+        if top is not None:
+            _name_rival(ev, hit, top, grade="weak")
+    return _name_rivals_of_weaker(ev, cond, support, strength)
+
+
+def _name_rival(ev: pd.DataFrame, hit: pd.Series, top: dict, grade: str | None) -> None:
+    """Flag ``explained-by-rival`` on the rows ``hit``, name the rival and its added skill, and
+    set the grade when one is given (in place)."""
+    if grade is not None:
+        ev.loc[hit, "grade"] = grade
+    ev.loc[hit, "rival"] = top["competitor"]
+    ev.loc[hit, "rival_added_skill"] = top["added_skill"]
+    ev.loc[hit, "flags"] = [";".join([f for f in str(v or "").split(";") if f] + ["explained-by-rival"])
+                            for v in ev.loc[hit, "flags"].fillna("")]
+
+
+def _name_rivals_of_weaker(ev: pd.DataFrame, cond: pd.DataFrame, support: dict, strength: dict) -> pd.DataFrame:
+    """A competitor graded weak or no-forecast-skill (not itself capped) that loses its support given
+    a driver still graded strong or moderate, by the same rule as the cap (:func:`_winning_rival`,
+    on the reverse tests :func:`_pairs` already runs), keeps its grade (nothing to cap) but gains
+    ``explained-by-rival`` and names that driver: a reader sees why a decoy that echoes a true
+    driver carries some support of its own."""
+    top_grades = ev[ev["grade"].isin(TESTED_GRADES)]
+    kept = set(zip(top_grades["response"], top_grades["driver"]))
+    weaker = ev["grade"].isin(tuple(g for g in COMPETITOR_GRADES if g not in TESTED_GRADES)) & (ev["rival"] == "")
+    for (rid, did), rows in cond.groupby(["response", "driver"], sort=False):
+        hit = weaker & (ev["response"] == rid) & (ev["driver"] == did)
+        rows = rows[[(rid, c) in kept for c in rows["competitor"]]]
+        top = _winning_rival(rows, support, strength, rid, did) if hit.any() and not rows.empty else None
+        if top is not None:
+            _name_rival(ev, hit, top, grade=None)
     return ev

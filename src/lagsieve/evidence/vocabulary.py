@@ -71,7 +71,8 @@ FLAGS = {
     "explained-by-rival": "Another driver of the same response explains the same signal: given that rival "
                           "(named in the rival column) this driver no longer adds forecast skill that its "
                           "residual surrogates rarely reach, or its partial correlation does not survive them; "
-                          "capped at weak.",
+                          "a strong or moderate driver is capped at weak, a weak or no-forecast-skill one keeps "
+                          "its grade and names the rival that is still strong or moderate.",
     "failed": "The computation failed for this hypothesis; see its status.",
 }
 
