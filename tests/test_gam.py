@@ -222,13 +222,16 @@ def test_gcv_grid_equals_dense_craven_wahba_when_the_design_is_ill_conditioned()
     assert max(conds) > 1e8  # the case is as hard as it claims
 
 
-@pytest.mark.parametrize("with_trend", [False, True])
-def test_smooth_gain_equals_dense_gcv_choice_with_trend_and_weights(with_trend):
+@pytest.mark.parametrize("with_trend,block", [(False, None), (True, None), (True, 7)])
+def test_smooth_gain_equals_dense_gcv_choice_with_trend_and_weights(with_trend, block, monkeypatch):
     """smooth_gain (the statistics-only batch fit of the screen's surrogates) against dense
     solves at every grid value (numpy.linalg.solve of the unconstrained penalised system, GCV
     by Craven & Wahba 1979 with gamma 1.4, hat-matrix trace): the same lambda, its edf and RSS,
     and the null model's RSS by ordinary least squares (numpy.linalg.lstsq), on drivers that
-    leave B-splines nearly without data, with weights."""
+    leave B-splines nearly without data, with weights. ``block``: the GCV grid taken over the
+    20 fits in blocks of 7 (7, 7, 6) rather than in one."""
+    if block:
+        monkeypatch.setattr(gam, "GRID_BLOCK", block)
     x = _clustered_drivers(9, m=20)
     n = x.shape[1]
     rng = np.random.default_rng(10)
@@ -255,13 +258,16 @@ def test_smooth_gain_equals_dense_gcv_choice_with_trend_and_weights(with_trend):
         assert res.rss_null[j] == pytest.approx(np.sum(w * (y - Z @ coef) ** 2), rel=1e-10)
 
 
-@pytest.mark.parametrize("retune", [1, 3, 100])
-def test_expanding_fits_equal_dense_solves_and_gcv_when_ill_conditioned(retune):
+@pytest.mark.parametrize("retune,block", [(1, None), (3, 5), (100, None)])
+def test_expanding_fits_equal_dense_solves_and_gcv_when_ill_conditioned(retune, block, monkeypatch):
     """expanding_penalised (tuning every ``retune`` origins: every origin, every 3rd, only the
     first; recursive updates in between) against a
     fresh dense solve and a dense GCV (Craven & Wahba 1979, with the default inflation
     gamma = 1.4) at every origin, for every grid value, on nearly singular designs:
-    forecasts to 1e-9, GCV to 1e-8, same lambda."""
+    forecasts to 1e-9, GCV to 1e-8, same lambda. With ``block`` the GCV grid is taken over the
+    12 x 8 tuning systems in blocks of 5 (the last one short)."""
+    if block:
+        monkeypatch.setattr(gam, "GRID_BLOCK", block)
     x = _clustered_drivers(7, m=12)
     n = x.shape[1]
     y = 10.0 + np.cos(x[0]) + np.random.default_rng(8).normal(0.0, 0.3, n)

@@ -1018,20 +1018,20 @@ class _SubspaceForm:
     def grid(self, lam: np.ndarray):
         """(RSS, edf) for every grid value: (..., R, L), (..., R, L).
 
-        The grid is the last axis of every temporary (..., R, r, L), so the elementwise steps run
+        The grid is the last axis of every temporary (systems, r, L), so the elementwise steps run
         along rows of L values and the sums over the r eigen-directions are stacked (1 x r) and
-        (2 x r) by (r x L) matrix products."""
-        shift = lam - self.mu[..., None]  # (..., R, L)
-        s = self.theta[..., :, None] * shift[..., None, :]  # (..., R, r, L)
-        s += 1.0
-        np.reciprocal(s, out=s)  # the factors 1 / (1 + (lambda - mu) theta)
-        keep = 1.0 - self.mu[..., None] * self.theta  # (..., R, r)
-        edf = self.n_null + (keep[..., None, :] @ s)[..., 0, :]
-        ee = self.hb * self.hb
-        s *= s
-        both = np.stack([ee * self.theta, ee * self.mu[..., None]], axis=-2) @ s  # (..., R, 2, L)
-        rss = self.rss_mu[..., None] + shift * shift * both[..., 0, :] - both[..., 1, :]
-        return np.maximum(rss, 0.0), edf
+        (2 x r) by (r x L) matrix products. The systems go through in blocks of
+        :data:`GRID_BLOCK` whose temporaries stay in the processor's cache (each system's
+        numbers are computed by the same operations as in one pass over all of them)."""
+        lam = np.asarray(lam, float)
+        shape, r = self.mu.shape, self.theta.shape[-1]
+        mu, theta, hb = self.mu.reshape(-1), self.theta.reshape(-1, r), self.hb.reshape(-1, r)
+        rss_mu = np.broadcast_to(self.rss_mu, shape).reshape(-1)
+        rss, edf = np.empty((mu.size, lam.size)), np.empty((mu.size, lam.size))
+        for lo in range(0, mu.size, GRID_BLOCK):
+            part = slice(lo, lo + GRID_BLOCK)
+            rss[part], edf[part] = _grid_block(lam, mu[part], theta[part], hb[part], rss_mu[part], self.n_null)
+        return rss.reshape(shape + lam.shape), edf.reshape(shape + lam.shape)
 
     def solution(self, lam_b: np.ndarray, inverse: bool = True):
         """((A + lambda P)^-1 (q, q, N), the systems last, or None; coefficients (..., R, q)) at the
@@ -1044,6 +1044,28 @@ class _SubspaceForm:
         if not inverse:
             return None, beta
         return self.c_inv - np.einsum("kjn,ljn->kln", self.H * f_last, self.H), beta
+
+
+#: Systems per block of :meth:`_SubspaceForm.grid`: temporaries of 512 x r x L values (300 kB at
+#: r = 3 and the 25 default lambdas) stay in the cache. Measured on the spline backtest's shape of
+#: a demo response (512 x 5 x 5 systems, r = 3; CPU seconds, shared 2 cores): 23 ms per call in
+#: one pass, 8-13 ms in blocks of 512, 10-11 ms in blocks of 128, 11-25 ms in blocks of 2048-4096.
+GRID_BLOCK = 512
+
+
+def _grid_block(lam, mu, theta, hb, rss_mu, n_null):
+    """:meth:`_SubspaceForm.grid` of a block of systems: mu (N,), theta and hb (N, r), rss_mu (N,)."""
+    shift = lam - mu[:, None]  # (N, L)
+    s = theta[:, :, None] * shift[:, None, :]  # (N, r, L)
+    s += 1.0
+    np.reciprocal(s, out=s)  # the factors 1 / (1 + (lambda - mu) theta)
+    keep = 1.0 - mu[:, None] * theta  # (N, r)
+    edf = n_null + (keep[:, None, :] @ s)[:, 0, :]
+    ee = hb * hb
+    s *= s
+    both = np.stack([ee * theta, ee * mu[:, None]], axis=-2) @ s  # (N, 2, L)
+    rss = rss_mu[:, None] + shift * shift * both[:, 0, :] - both[:, 1, :]
+    return np.maximum(rss, 0.0), edf
 
 
 def _subspace_form(At: np.ndarray, bt: np.ndarray, yt: np.ndarray, P: np.ndarray,
