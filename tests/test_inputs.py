@@ -1074,7 +1074,7 @@ def test_screen_defaults_come_from_the_schema():
         "draws": 100, "real_time": False, "season_lags": [0, 1, 2, 3],
     }
     assert screen_defaults() == SCREEN_DEFAULTS and screen_defaults() is not SCREEN_DEFAULTS
-    assert report_defaults() == {"top": 3, "pdf": True, "docx": True}
+    assert report_defaults() == {"top": 3, "pdf": True, "docx": True, "svg": False}
 
 
 def test_fill_defaults_keeps_given_values_and_the_original():
@@ -1086,7 +1086,7 @@ def test_fill_defaults_keeps_given_values_and_the_original():
     assert raw == before  # not modified
     assert full["screen"] == dict(SCREEN_DEFAULTS, seed=7, lags=[2])
     assert list(full["screen"]) == list(SCREEN_DEFAULTS)  # schema order, as the report shows it
-    assert full["report"] == {"top": 3, "pdf": True, "docx": True}
+    assert full["report"] == {"top": 3, "pdf": True, "docx": True, "svg": False}
     assert full["responses"] == [{"kind": "other", "transform": "none", "id": "m", "unit": "1/yr"}]
     assert full["drivers"][0] == {"category": "other", "expected_sign": "any", "transform": "none",
                                   "id": "x", "aggregate": {"how": "mean", "months": [1, 2]},
