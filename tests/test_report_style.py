@@ -140,6 +140,33 @@ def test_heatmap_and_forecast_legend_whole(rc):
     assert "\u2026" not in legend_text and "five-year mean" in legend_text  # the driver named whole
 
 
+def test_fixed_layout_panels_whole_and_sized_to_their_labels(rc):
+    """Panels laid out by ``figures.fit_layout`` (one measuring pass, no constrained layout) keep
+    every text inside the figure, and their margins follow their labels (our own rule, no published
+    source). The partition figure with long names cut its x label at both edges under constrained
+    layout, and a share above 100% ran past the right edge."""
+    fig = fg.variance_fractions([0.05, 0.12, -0.02, 1.03], [LONG, LONG], LONG, invented=True)
+    assert isinstance(fig.get_layout_engine(), fg.FitLayout)
+    assert _cut(fig) == []
+    rng = np.random.default_rng(20261203)
+    panels = [{"values": rng.normal(size=300), "observed": 2.5, "label": "best-lag r (directed)", "p": 0.01,
+               "title": "In sample"},
+              {"values": np.r_[rng.normal(size=299), -40.0], "observed": 0.3, "label": "skill vs hardest baseline",
+               "p": 0.2, "title": "Out of sample"}]
+    fig = fg.null_distributions(panels, invented=True)
+    assert _cut(fig) == []
+    left, right = (a.get_position() for a in fig.axes)
+    assert left.x1 < right.x0  # the second panel's tick labels clear the first panel
+    years = np.arange(1990, 2015)
+    short = fg.overlay(years, np.sin(years), np.cos(years), 1, "M", "T")
+    noted = fg.overlay(years, np.sin(years), np.cos(years), 1, LONG, LONG, invented=True)
+    for f in (short, noted):
+        assert _cut(f) == []
+    # short tick labels leave the axes most of the width; the invented-data note takes height below
+    assert short.axes[0].get_position().width > 0.8
+    assert noted.axes[0].get_position().y0 > short.axes[0].get_position().y0 + 0.03
+
+
 def test_every_text_at_least_8_pt(rc):
     years = np.arange(1990, 2015)
     fig = fg.overlay(years, np.sin(years), np.cos(years), 1, LONG, LONG, invented=True)

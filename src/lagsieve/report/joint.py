@@ -37,7 +37,7 @@ def joint_slopes(groups, slope, low, high, own, shared, shared_low, shared_high,
     """The groups' shrunken slopes with their 95% intervals (filled) and their own least-squares
     slopes (open), youngest first, beside the shared slope and its 95% interval (line and band)."""
     pos = np.arange(len(groups))
-    fig, ax = plt.subplots(figsize=fg.PANEL_SIZE, layout="constrained")
+    fig, ax = plt.subplots(figsize=fg.PANEL_SIZE, layout=fg.FitLayout())
     if not is_missing(shared):
         if not is_missing(shared_low) and not is_missing(shared_high):
             ax.axhspan(float(shared_low), float(shared_high), color=fg.SMOOTH_COLOUR, alpha=0.12, linewidth=0,
