@@ -95,14 +95,14 @@ RC = {
 PNG_DPI = 150
 FORMATS = ("png", "svg")   # every format a figure can have, each written by the process that draws it
 RASTER = ("png",)          # the formats of a report that asked for no SVG
+KEY_SUFFIX = ".key"        # the content key stored beside a figure (see content_key)
+KEY_FORMAT = 1             # raise when the key's meaning changes, so no stored figure matches
+INVENTED_NOTE = "invented data"
 
 
 def study_formats(report_settings: dict) -> tuple[str, ...]:
     """The figure formats a study's ``report`` settings ask for: PNG, and SVG with ``svg: true``."""
     return FORMATS if report_settings.get("svg") else RASTER
-KEY_SUFFIX = ".key"        # the content key stored beside a figure (see content_key)
-KEY_FORMAT = 1             # raise when the key's meaning changes, so no stored figure matches
-INVENTED_NOTE = "invented data"
 
 
 def mpl_text(s, width: int | None = None) -> str:

@@ -42,7 +42,12 @@ def render_page(ctx: Context, figs: dict, plan, since: LedgerSection | None = No
     """The page's HTML from the context, the drawn figures and the plan of panels; with
     ``print_copy``, the copy the PDF is made from (:func:`print_copy_of`)."""
     words = page_context(ctx, figs, plan, since)
-    return print_copy_of(words, plan) if print_copy else render("page.html", **words, print_copy=False) + "\n"
+    return print_copy_of(words, plan) if print_copy else page_of(words)
+
+
+def page_of(words: dict) -> str:
+    """The page for the screen, rendered from its words (:func:`page_context`)."""
+    return render("page.html", **words, print_copy=False) + "\n"
 
 
 def print_copy_of(words: dict, plan) -> str:
@@ -136,5 +141,4 @@ def build_report(study, table, screen, evidence, forecasts, nulls, notes, proven
         write_document(ctx, figs, docx_path)
     provenance.setdefault("finished", time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()))
     words = page_context(ctx, figs, plan, since)
-    page = render("page.html", **words, print_copy=False) + "\n"
-    return page, figs, (print_copy_of(words, plan) if print_copy else None)
+    return page_of(words), figs, (print_copy_of(words, plan) if print_copy else None)

@@ -148,12 +148,11 @@ def plan_studies(config: dict, check: bool = True) -> dict[str, PlannedStudy]:
 def _load(path: str, full: bool, handed: dict | None) -> tuple[Study, dict | None]:
     """A study and each response's input files (None: not known without the inputs read):
     from its check (``full``), or the check handed over by `lagsieve run` while its stamp holds."""
-    if handed is not None:
-        st = load_study(path)
-        if handed.get("stamp") == files_stamp(study_files(st)):
-            return st, handed["response_inputs"]
+    st = load_study(path) if handed is not None or not full else None
+    if handed is not None and handed.get("stamp") == files_stamp(study_files(st)):
+        return st, handed["response_inputs"]
     if not full:
-        return load_study(path), None
+        return st, None
     st, annual, _, _ = check_study(path)
     inputs = [str(p) for p in st.input_paths()]
     return st, _response_inputs(st, annual, inputs)
