@@ -91,7 +91,7 @@ from threadpoolctl import threadpool_limits
 from lagsieve.stats import splines as lgam
 from lagsieve.prep.align import forecast_frame, shift_batch
 from lagsieve.screen.hypothesis import backtest_windows, driver_batch
-from lagsieve.stats.backtest import BASELINES, _scale_from_start, baseline_design, gam_candidate, rolling_origin
+from lagsieve.stats.backtest import BASELINES, baseline_design, gam_candidate, rolling_origin, scale_from_start
 from lagsieve.stats.conditional import nested_rolling_origin, partial_r_lags, residual_surrogates, shift_rows
 from lagsieve.stats.splines import GCV_GAMMA
 
@@ -216,9 +216,9 @@ def gam_inputs(h, hardest: str):
     training window, ``default_n_basis(initial)``, as rolling_origin chooses it)."""
     initial = h["initial"]
     T = len(h["y"])
-    Xs = _scale_from_start(np.asarray(h["X"], float), initial)
-    yl = _scale_from_start(h["ylag"], initial)
-    yr = _scale_from_start(h["years"], initial)
+    Xs = scale_from_start(np.asarray(h["X"], float), initial)
+    yl = scale_from_start(h["ylag"], initial)
+    yr = scale_from_start(h["years"], initial)
     Z = baseline_design(hardest, yl, yr)
     return Z, Xs, np.arange(initial, T), lgam.default_n_basis(initial)
 

@@ -1,5 +1,5 @@
 """Tests for lagsieve.stats.linalg: the expanding-window normal equations shared by the backtest,
-the conditional tests and the model sets.
+the conditional tests, the model sets and the draws of a response.
 
 Outside source beside each check: every window's fit is recomputed with statsmodels
 (``statsmodels.api.WLS`` on the training rows: coefficients, ssr and the forecast of the next
@@ -53,6 +53,51 @@ def test_added_columns_equal_statsmodels_wls_at_every_window(k):
         ssr, fc = _wls_window(y, Z, w, o)
         assert fit.shared.rss[i] == pytest.approx(ssr, rel=1e-8)
         assert fit.shared.forecast[i] == pytest.approx(fc, rel=1e-8)
+
+
+@pytest.mark.parametrize("k", [1, 2])
+def test_members_with_their_own_design_and_response_equal_statsmodels_wls(k):
+    """expanding_shared and expanding_added for a batch whose members each have their own
+    response and design (draws of a response, each with its own previous year), weighted: every
+    member's shared fit and every member crossed with every added column set against one
+    statsmodels WLS fit per window: ssr and forecast to 1e-8 relative (the ridge, 1e-10 of the
+    trace, moves the fit a little)."""
+    rng = np.random.default_rng(8)
+    T, initial, D = 32, 13, 3
+    Z = np.stack([_design(rng, T) for _ in range(D)])  # (D, T, p): each member's own previous year
+    X = rng.normal(size=(2, T, k)) + np.linspace(0, 1, T)[:, None]  # (L, T, k), shared by the members
+    y = 4.0 + 0.6 * Z[:, :, 1] + 0.5 * X[0, :, 0] + rng.normal(0, 0.5, (D, T))  # (D, T)
+    w = rng.uniform(0.5, 2.0, T)
+    origins = np.arange(initial, T)
+    shared = linalg.expanding_shared(Z, y, origins, weights=w)
+    fit = linalg.expanding_added(Z, X, y, origins, weights=w)
+    assert shared.rss.shape == fit.shared.rss.shape == (D, len(origins))
+    assert fit.rss.shape == fit.forecast.shape == (D, 2, len(origins))
+    for d in range(D):
+        for i, o in enumerate(origins):
+            ssr, fc = _wls_window(y[d], Z[d], w, o)
+            assert shared.rss[d, i] == pytest.approx(ssr, rel=1e-8)
+            assert shared.forecast[d, i] == pytest.approx(fc, rel=1e-8)
+            for li in range(2):
+                ssr, fc = _wls_window(y[d], np.column_stack([Z[d], X[li]]), w, o)
+                assert fit.rss[d, li, i] == pytest.approx(ssr, rel=1e-8)
+                assert fit.forecast[d, li, i] == pytest.approx(fc, rel=1e-8)
+
+
+def test_members_sharing_one_design_broadcast_their_responses():
+    """One design with a response per member (y (D, T), Z (T, p)), nothing added: each member's
+    fit is statsmodels OLS of its own response on the window's rows."""
+    rng = np.random.default_rng(9)
+    T = 28
+    Z = _design(rng, T)
+    y = rng.normal(size=(4, T)) + 3.0
+    fit = linalg.expanding_added(Z, np.zeros((2, T, 0)), y, np.arange(11, T))
+    assert fit.rss.shape == (4, 2, T - 11)
+    for d in range(4):
+        for i, o in enumerate(range(11, T)):
+            res = sm.OLS(y[d, :o], Z[:o]).fit()
+            assert np.allclose(fit.rss[d, :, i], res.ssr, rtol=1e-9)
+            assert np.allclose(fit.forecast[d, :, i], Z[o] @ res.params, rtol=1e-9)
 
 
 def test_no_added_columns_is_the_shared_fit():

@@ -80,11 +80,14 @@ def baseline_design(baseline: str, ylag: np.ndarray, year: np.ndarray) -> np.nda
     raise ValueError(f"unknown baseline {baseline!r}")
 
 
-def _scale_from_start(a: np.ndarray, n_start: int) -> np.ndarray:
+def scale_from_start(a: np.ndarray, n_start: int) -> np.ndarray:
     """Centre and scale along the last axis with statistics of the first n_start rows only.
 
     The rows before the first forecast origin are training years for every origin, so this
-    conditioning step carries no information from later years into any forecast.
+    conditioning step carries no information from later years into any forecast. Every
+    rolling origin of the package scales its columns this way (the screen's, the draws' in
+    :mod:`lagsieve.stats.draws`, the nested one of :mod:`lagsieve.stats.conditional`, the
+    model sets' of :mod:`lagsieve.stats.modelset`).
     """
     head = a[..., :n_start]
     mu = head.mean(-1, keepdims=True)
@@ -201,16 +204,16 @@ def rolling_origin(
         raise ValueError("initial window must leave at least one forecast")
     origins = np.arange(initial, T)
     lags = np.asarray(lags)
-    Xs, yl, yr = (_scale_from_start(np.asarray(a, float), initial) for a in (X, ylag, year))
+    Xs, yl, yr = (scale_from_start(np.asarray(a, float), initial) for a in (X, ylag, year))
     fits = {b: _baseline_fits(b, y, yl, yr, Xs, lags, origins, weights) for b in BASELINES}
     hardest = min(BASELINES, key=lambda b: fits[b].mse)
     cand0 = min(BASELINES, key=lambda b: fits[b].aic_first)  # the spline is built on this baseline
     # the pool of candidate forms at every origin: every baseline + the driver at every lag,
     # (and the spline on the first window's AIC baseline); the least GCV on the training
     # years wins, for the real driver and every surrogate alike
-    pool = _CandidatePool(origins.astype(float))
+    pool = CandidatePool(origins.astype(float))
     for i, b in enumerate(BASELINES):
-        pool.add_linear(fits[b], lags, i)
+        pool.add_linear(fits[b].n_params, fits[b].rss, fits[b].fc, lags, i)
     extra = {}
     if "gam" in models:
         K = n_basis or default_n_basis(initial)  # fixed by the first training window, not by later years
@@ -282,9 +285,12 @@ def _baseline_fits(b: str, y, yl, yr, Xs, lags, origins, weights) -> _BaselineFi
     )
 
 
-class _CandidatePool:
+class CandidatePool:
     """Candidate forms (baseline + driver at a lag, linear or spline) competing by GCV on the
-    training years at every origin."""
+    training years at every origin: the choice :func:`rolling_origin` makes at every origin,
+    shared with :func:`lagsieve.stats.draws.draw_skills` (every draw of a response its own
+    choice). Add the forms of every kind (:meth:`add`, :meth:`add_linear`), then :meth:`choose`.
+    Arrays are (S, L, O): members of the batch, lags, origins."""
 
     def __init__(self, n_train: np.ndarray):
         self.n_train = n_train  # (O,) training rows at every origin
@@ -299,11 +305,12 @@ class _CandidatePool:
         self.lag = np.r_[self.lag, lags]
         self.baseline_index = np.r_[self.baseline_index, np.full(len(lags), baseline)]
 
-    def add_linear(self, fits: _BaselineFits, lags: np.ndarray, baseline: int) -> None:
-        """Linear forms, scored by the splines' GCV (gamma 1.4, edf = number of coefficients)."""
+    def add_linear(self, n_params: int, rss: np.ndarray, fc: np.ndarray, lags: np.ndarray, baseline: int) -> None:
+        """Linear forms with ``n_params`` coefficients, training RSS and forecasts ``rss``, ``fc``
+        (S, L, O), scored by the splines' GCV (gamma 1.4, edf = number of coefficients)."""
         n_tr = self.n_train
-        den = np.maximum(n_tr - GCV_GAMMA * fits.n_params, 1e-9)
-        self.add(n_tr * fits.rss / den**2, fits.fc, lags, baseline)
+        den = np.maximum(n_tr - GCV_GAMMA * n_params, 1e-9)
+        self.add(n_tr * rss / den**2, fc, lags, baseline)
 
     def choose(self) -> tuple[np.ndarray, np.ndarray]:
         """(pick, forecast), each (S, O): the form of least GCV at every origin."""
@@ -487,9 +494,9 @@ def retest(
     y = np.asarray(y, float)
     T = len(y)
     n_train = T - holdout
-    Xs = _scale_from_start(np.asarray(X, float), n_train)
-    yl = _scale_from_start(np.asarray(ylag, float), n_train)
-    yr = _scale_from_start(np.asarray(year, float), n_train)
+    Xs = scale_from_start(np.asarray(X, float), n_train)
+    yl = scale_from_start(np.asarray(ylag, float), n_train)
+    yr = scale_from_start(np.asarray(year, float), n_train)
     sw = np.sqrt(np.ones(T) if weights is None else np.asarray(weights, float))[:n_train]
     mse_b = {}
     for b in BASELINES:

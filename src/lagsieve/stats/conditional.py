@@ -40,9 +40,9 @@ import numpy as np
 
 from lagsieve.stats.backtest import (
     BASELINES,
-    _scale_from_start,
     baseline_design,
     clark_west,
+    scale_from_start,
     skill_score,
 )
 from lagsieve.stats.linalg import expanding_added, expanding_shared
@@ -178,8 +178,8 @@ def nested_rolling_origin(y: np.ndarray, ylag: np.ndarray, year: np.ndarray, C: 
     if initial < 3 or initial >= T:
         raise ValueError("initial window must leave at least one forecast")
     origins = np.arange(initial, T)
-    Xs, yl, yr = (_scale_from_start(np.asarray(a, float), initial) for a in (X, ylag, year))
-    Cs = _scale_from_start(np.asarray(C, float).reshape(T, -1).T, initial).T  # (T, q)
+    Xs, yl, yr = (scale_from_start(np.asarray(a, float), initial) for a in (X, ylag, year))
+    Cs = scale_from_start(np.asarray(C, float).reshape(T, -1).T, initial).T  # (T, q)
     n_tr = origins.astype(float)
     designs = [np.column_stack([baseline_design(b, yl, yr), Cs]) for b in BASELINES]
     shared = [expanding_shared(Z, y, origins, weights) for Z in designs]  # the smaller model of each baseline

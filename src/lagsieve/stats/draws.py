@@ -20,13 +20,12 @@ from __future__ import annotations
 
 import hashlib
 from dataclasses import dataclass
-from types import SimpleNamespace
 
 import numpy as np
 
 from lagsieve.stats import correlation as st
-from lagsieve.stats.backtest import BASELINES, _CandidatePool, _scale_from_start, baseline_design, skill_score
-from lagsieve.stats.linalg import RIDGE, window_mask
+from lagsieve.stats.backtest import BASELINES, CandidatePool, baseline_design, scale_from_start, skill_score
+from lagsieve.stats.linalg import expanding_added
 from lagsieve.stats.splines import (
     bspline_basis,
     default_n_basis,
@@ -123,54 +122,6 @@ def draw_slopes(x: np.ndarray, Y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return st.hac_slope(np.asarray(x, float)[None, :], np.asarray(Y, float))
 
 
-@dataclass(frozen=True)
-class MemberWindows:
-    """Expanding-window least squares of every member's own response on its own design."""
-
-    mask: np.ndarray      # (O, T) window weights
-    ginv: np.ndarray      # (..., O, p, p) (Z'Z + ridge)^-1 of every window
-    beta: np.ndarray      # (..., O, p) coefficients for y minus its level
-    rss: np.ndarray       # (..., O) training RSS
-    forecast: np.ndarray  # (..., O) forecast of the row at every origin
-    yc: np.ndarray        # (..., T) y minus its first window's mean
-    trace: np.ndarray     # (..., O) tr(Z'Z)
-
-
-def member_windows(Z: np.ndarray, y: np.ndarray, origins: np.ndarray) -> MemberWindows:
-    """:func:`lagsieve.stats.linalg.expanding_shared` for a batch whose members each have their
-    own response y (..., T) and design Z (..., T, p) (column 0 the intercept): y centred on its
-    first window's mean, the ridge ``RIDGE`` tr(Z'Z) / p, the same numbers member by member."""
-    Z, y = np.asarray(Z, float), np.asarray(y, float)
-    mask = window_mask(origins, y.shape[-1])
-    yc = y - y[..., : origins[0]].mean(-1, keepdims=True)
-    p = Z.shape[-1]
-    outer = (Z[..., :, :, None] * Z[..., :, None, :]).reshape(Z.shape[:-1] + (p * p,))
-    G = (mask @ outer).reshape(Z.shape[:-2] + (len(mask), p, p))  # window sums: products with the mask
-    trace = np.trace(G, axis1=-2, axis2=-1)
-    ginv = np.linalg.inv(G + (RIDGE * trace / p)[..., None, None] * np.eye(p))
-    b = mask @ (Z * yc[..., None])  # (..., O, p)
-    beta = (ginv @ b[..., None])[..., 0]
-    rss = (yc * yc) @ mask.T - np.sum(beta * b, -1)
-    forecast = (y - yc)[..., :1] + np.sum(Z[..., origins, :] * beta, -1)
-    return MemberWindows(mask=mask, ginv=ginv, beta=beta, rss=rss, forecast=forecast, yc=yc, trace=trace)
-
-
-def with_driver(fit: MemberWindows, Z: np.ndarray, Xs: np.ndarray, origins: np.ndarray):
-    """(training RSS, forecast), each (D, L, O): the fits of ``fit`` (members D, design Z (D, T, p))
-    with the driver at every lag Xs (L, T) added as one column, by the partitioned normal
-    equations of :func:`lagsieve.stats.linalg.expanding_added` (its Schur complement and ridge)."""
-    mask, p = fit.mask, Z.shape[-1]
-    L, O = len(Xs), len(mask)
-    C = ((mask[None] * Xs[:, None, :]).reshape(L * O, -1) @ Z).reshape(len(Z), L, O, p)  # Z'x of every window
-    GC = (fit.ginv[:, None] @ C[..., None])[..., 0]
-    xx = (Xs * Xs) @ mask.T  # (L, O)
-    schur = xx - np.sum(C * GC, -1) + RIDGE * (fit.trace[:, None] + xx) / (p + 1)
-    s = (fit.yc[:, None] * Xs) @ mask.T - np.sum(fit.beta[:, None] * C, -1)
-    g = s / schur
-    lead = Xs[:, origins] - np.sum(Z[:, None][..., origins, :] * GC, -1)
-    return fit.rss[:, None] - s * g, fit.forecast[:, None] + lead * g
-
-
 def _draw_gam(Z: np.ndarray, Xs: np.ndarray, Y: np.ndarray, origins: np.ndarray, n_basis: int, retune_every: int):
     """(forecast, GCV), each (D, L, O): the spline candidate of
     :func:`lagsieve.stats.backtest.gam_candidate` of every draw, on its own baseline's design
@@ -200,16 +151,15 @@ def draw_skills(Y: np.ndarray, Ylag: np.ndarray, year: np.ndarray, X: np.ndarray
     Y = np.asarray(Y, float)
     D, T = Y.shape
     origins = np.arange(initial, T)
-    Xs = _scale_from_start(np.asarray(X, float), initial)
-    yl, yr = _scale_from_start(np.asarray(Ylag, float), initial), _scale_from_start(np.asarray(year, float), initial)
-    pool, base_fc, aic, designs = _CandidatePool(origins.astype(float)), {}, [], []
+    Xs = scale_from_start(np.asarray(X, float), initial)
+    yl, yr = scale_from_start(np.asarray(Ylag, float), initial), scale_from_start(np.asarray(year, float), initial)
+    pool, base_fc, aic, designs = CandidatePool(origins.astype(float)), {}, [], []
     for i, b in enumerate(BASELINES):
         Z = np.stack([baseline_design(b, yl[d], yr) for d in range(D)])  # (D, T, p): the previous year is the draw's
-        fit = member_windows(Z, Y, origins)
-        base_fc[b] = fit.forecast
-        rss, fc = with_driver(fit, Z, Xs, origins)  # (D, L, O)
-        pool.add_linear(SimpleNamespace(n_params=Z.shape[2] + 1, rss=rss, fc=fc), np.asarray(lags), i)
-        aic.append(initial * np.log(np.maximum(fit.rss[:, 0], 1e-300) / initial) + 2 * Z.shape[2])
+        fit = expanding_added(Z, Xs[..., None], Y, origins)  # each draw's own baseline, the driver at every lag added
+        base_fc[b] = fit.shared.forecast  # (D, O)
+        pool.add_linear(Z.shape[2] + 1, fit.rss, fit.forecast, np.asarray(lags), i)  # (D, L, O)
+        aic.append(initial * np.log(np.maximum(fit.shared.rss[:, 0], 1e-300) / initial) + 2 * Z.shape[2])
         designs.append(Z)
     if "gam" in models:
         cand0 = np.argmin(np.stack(aic), axis=0)  # (D,) each draw's spline baseline (first window's AIC)

@@ -56,22 +56,27 @@ def _ridged_inverse(A: np.ndarray) -> np.ndarray:
 
 @dataclass(frozen=True)
 class SharedFit:
-    """Expanding-window least squares of the shared design alone (O origins, p columns)."""
+    """Expanding-window least squares of the shared design alone (O origins, p columns), for one
+    design or for every member of a batch (leading axes ``...``, each member its own)."""
 
-    level: float          # first window's (weighted) mean of y, taken out before the sums
+    level: np.ndarray     # (...) first window's (weighted) mean of y, taken out before the sums
     mask: np.ndarray      # (O, T) window weights
-    ginv: np.ndarray      # (O, p, p) (Z'WZ + ridge)^-1 of every window
-    beta: np.ndarray      # (O, p) coefficients for y minus the level
-    rss: np.ndarray       # (O,) training (weighted) residual sum of squares
-    forecast: np.ndarray  # (O,) forecast of the row at every origin
-    yc: np.ndarray        # (T,) y minus the level
-    trace: np.ndarray     # (O,) tr(Z'WZ), for the ridge of the added block
+    ginv: np.ndarray      # (..., O, p, p) (Z'WZ + ridge)^-1 of every window
+    beta: np.ndarray      # (..., O, p) coefficients for y minus the level
+    rss: np.ndarray       # (..., O) training (weighted) residual sum of squares
+    forecast: np.ndarray  # (..., O) forecast of the row at every origin
+    yc: np.ndarray        # (..., T) y minus the level
+    trace: np.ndarray     # (..., O) tr(Z'WZ), for the ridge of the added block
+    Z: np.ndarray         # (..., T, p) the design, broadcast to the batch
 
 
 def expanding_shared(Z: np.ndarray, y: np.ndarray, origins: np.ndarray,
                      weights: np.ndarray | None = None) -> SharedFit:
-    """Least squares of y (T,) on Z (T, p) over rows [0, o) for every origin o.
+    """Least squares of y (..., T) on Z (..., T, p) over rows [0, o) for every origin o.
 
+    One design and response, (T, p) and (T,), or a batch of members each with its own response
+    or design or both (leading axes broadcast against each other: draws of a response, each with
+    its own previous year in the design); ``weights`` (T,) are the same for every member.
     Column 0 of Z must be the intercept. y is centred on the (weighted) mean of the rows before
     the first origin (training rows of every window) and that mean is added back to the
     intercept: exact with an intercept in the design, and it keeps the ridge (``RIDGE``
@@ -79,20 +84,22 @@ def expanding_shared(Z: np.ndarray, y: np.ndarray, origins: np.ndarray,
     """
     Z, y = np.asarray(Z, float), np.asarray(y, float)
     origins = np.asarray(origins, int)
-    if not np.all(Z[:, 0] == 1.0):
+    if not np.all(Z[..., 0] == 1.0):
         raise ValueError("column 0 of the design must be the intercept")
-    mask = window_mask(origins, len(y), weights)
+    batch = np.broadcast_shapes(Z.shape[:-2], y.shape[:-1])
+    Z, y = np.broadcast_to(Z, batch + Z.shape[-2:]), np.broadcast_to(y, batch + y.shape[-1:])
+    mask = window_mask(origins, y.shape[-1], weights)
     o0 = int(origins[0])
-    level = float(mask[0, :o0] @ y[:o0] / mask[0, :o0].sum())
-    yc = y - level
-    A = window_cross(Z, Z, mask)  # (O, p, p)
+    level = y[..., :o0] @ mask[0, :o0] / mask[0, :o0].sum()
+    yc = y - level[..., None]
+    A = window_cross(Z, Z, mask)  # (..., O, p, p)
     ginv = _ridged_inverse(A)
-    b = mask @ (Z * yc[:, None])  # (O, p)
-    beta = np.einsum("opq,oq->op", ginv, b)
-    rss = mask @ (yc * yc) - np.einsum("op,op->o", beta, b)
+    b = mask @ (Z * yc[..., None])  # (..., O, p)
+    beta = np.einsum("...opq,...oq->...op", ginv, b)
+    rss = (yc * yc) @ mask.T - np.einsum("...op,...op->...o", beta, b)
     return SharedFit(level=level, mask=mask, ginv=ginv, beta=beta, rss=rss,
-                     forecast=level + np.einsum("op,op->o", Z[origins], beta), yc=yc,
-                     trace=np.trace(A, axis1=-2, axis2=-1))
+                     forecast=level[..., None] + np.einsum("...op,...op->...o", Z[..., origins, :], beta), yc=yc,
+                     trace=np.trace(A, axis1=-2, axis2=-1), Z=Z)
 
 
 @dataclass(frozen=True)
@@ -115,52 +122,63 @@ def expanding_added(Z: np.ndarray, X: np.ndarray, y: np.ndarray, origins: np.nda
     falls by s'g, and the forecast is the shared fit's plus (x_o - z_o'GC) g (partitioned
     normal equations). S carries a ridge of ``RIDGE`` (tr(Z'WZ) + tr(X'WX)) / (p + k).
 
+    The shared part may itself be a batch (Z (A..., T, p) and y (A..., T) as in
+    :func:`expanding_shared`: each draw of a response with its own design); every one of its
+    fits is then crossed with every member of X, and the results are (A..., ..., O).
+
     Layout: the members are the last axis of every product (N = members, O = origins), so
-    each step is one matrix product over all members: C (O, p, N k) = (mask Z)' X.
+    each step is one matrix product over all members: C (O, p, N k) = (mask Z)' X (one such
+    product per fit of the shared part).
     """
-    Z, X = np.asarray(Z, float), np.asarray(X, float)
+    X = np.asarray(X, float)
     origins = np.asarray(origins, int)
     sh = expanding_shared(Z, y, origins, weights)
-    T, p = Z.shape
+    shared = sh.rss.shape[:-1]  # the shared part's batch (A...), () for one design
+    T, p = sh.Z.shape[-2:]
     k, O = X.shape[-1], len(origins)
     batch = X.shape[:-2]
+    out = shared + batch + (O,)
     if k == 0:  # nothing added: every member is the shared fit
-        return AddedFit(shared=sh, coef=np.zeros(batch + (O, 0)), rss=np.broadcast_to(sh.rss, batch + (O,)),
-                        forecast=np.broadcast_to(sh.forecast, batch + (O,)))
-    N = int(np.prod(batch, dtype=int))
+        def spread(a):  # (A..., O) -> (A..., ..., O)
+            return np.broadcast_to(a.reshape(shared + (1,) * len(batch) + (O,)), out)
+        return AddedFit(shared=sh, coef=np.zeros(out + (0,)), rss=spread(sh.rss), forecast=spread(sh.forecast))
+    M, N = int(np.prod(shared, dtype=int)), int(np.prod(batch, dtype=int))
+    Zm, yc = sh.Z.reshape(M, T, p), sh.yc.reshape(M, 1, T)
     Xt = X.reshape(N, T, k).transpose(1, 0, 2).reshape(T, N * k)  # rows = years
-    mz = (sh.mask[:, None, :] * Z.T[None, :, :]).reshape(O * p, T)
-    C = (mz @ Xt).reshape(O, p, N * k)
-    GC = sh.ginv @ C  # (O, p, N k)
-    e = (sh.mask * sh.yc) @ Xt  # (O, N k)
-    s = (e - (sh.beta[:, None, :] @ C)[:, 0, :]).reshape(O, N, k)
-    lead = (Xt[origins] - (Z[origins][:, None, :] @ GC)[:, 0, :]).reshape(O, N, k)
-    S, trace = _schur(Xt, sh.mask, C, GC, k)  # (O, N, k, k), (O, N)
-    ridge = RIDGE * (sh.trace[:, None] + trace) / (p + k)  # (O, N)
+    Zt = np.ascontiguousarray(Zm.transpose(0, 2, 1))  # (M, p, T): years last, for the products with the mask
+    mz = (sh.mask[None, :, None, :] * Zt[:, None, :, :]).reshape(M, O * p, T)
+    C = (mz @ Xt).reshape(M, O, p, N * k)
+    GC = sh.ginv.reshape(M, O, p, p) @ C  # (M, O, p, N k)
+    e = (sh.mask * yc) @ Xt  # (M, O, N k)
+    s = (e - (sh.beta.reshape(M, O, 1, p) @ C)[..., 0, :]).reshape(M, O, N, k)
+    lead = (Xt[origins] - (Zm[:, origins, None, :] @ GC)[..., 0, :]).reshape(M, O, N, k)
+    S, trace = _schur(Xt, sh.mask, C, GC, k)  # (M, O, N, k, k), (M, O, N)
+    ridge = RIDGE * (sh.trace.reshape(M, O, 1) + trace) / (p + k)  # (M, O, N)
     if k == 1:
         g = s / (S[..., 0] + ridge[..., None])
     else:
         g = np.linalg.solve(S + ridge[..., None, None] * np.eye(k), s[..., None])[..., 0]
-    rss = sh.rss[:, None] - np.sum(s * g, axis=-1)  # (O, N)
-    fc = sh.forecast[:, None] + np.sum(lead * g, axis=-1)
+    rss = sh.rss.reshape(M, O, 1) - np.sum(s * g, axis=-1)  # (M, O, N)
+    fc = sh.forecast.reshape(M, O, 1) + np.sum(lead * g, axis=-1)
 
-    def members_first(a):  # (O, N, ...) -> (..., O, ...)
-        return np.moveaxis(a, 0, 1).reshape(batch + (O,) + a.shape[2:])
+    def members_first(a):  # (M, O, N, ...) -> (A..., ..., O, ...)
+        return np.moveaxis(a, 1, 2).reshape(shared + batch + (O,) + a.shape[3:])
 
     return AddedFit(shared=sh, coef=members_first(g), rss=members_first(rss), forecast=members_first(fc))
 
 
 def _schur(Xt: np.ndarray, mask: np.ndarray, C: np.ndarray, GC: np.ndarray, k: int):
-    """(S, tr X'WX): the Schur complement X'WX - C'GC (O, N, k, k) of every member and window,
-    and the trace of its X'WX (O, N). Xt (T, N k), mask (O, T), C and GC (O, p, N k)."""
-    O, p, Nk = C.shape
+    """(S, tr X'WX): the Schur complement X'WX - C'GC (M, O, N, k, k) of every fit of the shared
+    part, member and window, and the trace of its X'WX (O, N). Xt (T, N k), mask (O, T), C and
+    GC (M, O, p, N k)."""
+    M, O, p, Nk = C.shape
     if k == 1:  # one column: squares times the mask, no outer products
         D = mask @ (Xt * Xt)  # (O, N)
-        return (D - np.sum(C * GC, axis=1))[..., None, None], D
+        return (D - np.sum(C * GC, axis=-2))[..., None, None], D
     T, N = Xt.shape[0], Nk // k
     X3 = Xt.reshape(T, N, k)
     D = (mask @ (X3[:, :, :, None] * X3[:, :, None, :]).reshape(T, N * k * k)).reshape(O, N, k, k)
-    S = D - np.einsum("opnk,opnl->onkl", C.reshape(O, p, N, k), GC.reshape(O, p, N, k))
+    S = D - np.einsum("mopnk,mopnl->monkl", C.reshape(M, O, p, N, k), GC.reshape(M, O, p, N, k))
     return S, np.trace(D, axis1=-2, axis2=-1)
 
 

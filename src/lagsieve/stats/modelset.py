@@ -48,7 +48,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.optimize import minimize_scalar
 
-from lagsieve.stats.backtest import BASELINES, _scale_from_start, baseline_design, skill_score
+from lagsieve.stats.backtest import BASELINES, baseline_design, scale_from_start, skill_score
 from lagsieve.stats.linalg import expanding_added
 from lagsieve.stats.splines import GCV_GAMMA
 
@@ -170,9 +170,9 @@ def model_skill(y: np.ndarray, ylag: np.ndarray, year: np.ndarray, X: np.ndarray
     T = len(y)
     origins = np.arange(initial, T)
     M = X.shape[0]
-    Xs = _scale_from_start(np.moveaxis(np.asarray(X, float), 1, -1), initial)  # (M, k, T)
+    Xs = scale_from_start(np.moveaxis(np.asarray(X, float), 1, -1), initial)  # (M, k, T)
     Xs = np.moveaxis(Xs, -1, 1)  # (M, T, k)
-    yl, yr = (_scale_from_start(np.asarray(a, float), initial) for a in (ylag, year))
+    yl, yr = (scale_from_start(np.asarray(a, float), initial) for a in (ylag, year))
     n_tr = origins.astype(float)
     gcv, fc, base_mse = [], [], []
     for b in BASELINES:  # four baselines: shared by the models, each model's columns added
