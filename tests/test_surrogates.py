@@ -9,6 +9,9 @@ Outside sources named beside each check:
 - AIC overfitting of AR order: Shibata 1976, Biometrika 63:117-126 (AIC is not consistent:
   it picks a too-large order with positive probability even for long series; from memory).
 - Least-squares trend: numpy.polyfit.
+- Monte Carlo p-value p = (1 + #{T* >= t}) / (1 + B): Davison & Hinkley 1997, Bootstrap Methods
+  and their Application, section 4.2 (from memory); scipy.stats.monte_carlo_test (alternative
+  "greater") computes the same p.
 """
 from __future__ import annotations
 
@@ -195,3 +198,44 @@ def test_ar_sieve_fixed_order_recursion():
     s = su.ar_sieve(x, 50, np.random.default_rng(1), order=0)
     allowed = set(np.round(x - x.mean() + x.mean(), 12))
     assert set(np.round(s.ravel(), 12)) <= allowed
+
+
+# ----------------------------------------------------------------- Monte Carlo p-values
+def test_monte_carlo_p_by_hand_from_the_published_definition():
+    """p = (1 + #{T* >= t}) / (1 + B) (Davison & Hinkley 1997, section 4.2, from memory), over the
+    non-missing null values, worked by hand: null (1, 2, 3, NaN, 0.5) has B = 4 values; t = 2
+    is reached by 2 and 3 (a tie counts), so p = 3/5; t = 3.5 by none, p = 1/5; t = 0 by all,
+    p = 5/5; a missing t gives NaN."""
+    null = np.array([1.0, 2.0, 3.0, np.nan, 0.5])
+    p = su.monte_carlo_p(np.array([2.0, 3.5, 0.0, np.nan]), null)
+    np.testing.assert_array_equal(p[:3], [3 / 5, 1 / 5, 1.0])
+    assert np.isnan(p[3])
+    assert su.monte_carlo_p(2.0, null) == 3 / 5
+
+
+def test_monte_carlo_p_equals_the_screen_surrogate_p_and_scipy_monte_carlo_test():
+    """Every observed value at once equals the screen's scalar surrogate_p (observed first, then
+    the surrogates; NaN surrogates and ties included) and scipy.stats.monte_carlo_test with the
+    same null sample (alternative "greater": (1 + #{null >= t}) / (1 + B))."""
+    from scipy import stats as sps
+
+    from lagsieve.screen.hypothesis import surrogate_p
+
+    rng = np.random.default_rng(11)
+    null = np.round(rng.normal(size=199), 1)  # rounded: ties with the observed values
+    null[[3, 50]] = np.nan
+    obs = np.r_[np.round(rng.normal(size=20) * 1.5, 1), np.nan, np.inf, -np.inf]
+    p = su.monte_carlo_p(obs, null)
+    for o, pv in zip(obs, p):
+        ref = surrogate_p(np.r_[o, null])
+        assert (np.isnan(pv) and np.isnan(ref)) or pv == ref
+    kept = null[~np.isnan(null)]
+    off_grid = obs[:5] + 0.05  # no tie within scipy's tolerance of ties
+
+    def first(x, axis):
+        return np.take(x, 0, axis=axis)
+
+    for o, pv in zip(off_grid, su.monte_carlo_p(off_grid, null)):
+        res = sps.monte_carlo_test(np.array([o]), lambda size: kept.reshape(size), first, vectorized=True,
+                                   n_resamples=len(kept), alternative="greater")
+        assert pv == pytest.approx(res.pvalue, rel=1e-12)

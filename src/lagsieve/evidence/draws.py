@@ -40,6 +40,7 @@ from lagsieve.prep.align import apply_transform, forecast_frame, inverse_varianc
 from lagsieve.stats import correlation as st
 from lagsieve.stats.backtest import BASELINES, rolling_origin
 from lagsieve.stats.draws import best_lag_stats, draw_skills, draw_slopes, pick_draws, rubin
+from lagsieve.stats.surrogates import monte_carlo_p
 
 DRAW_COLUMNS = ["draw_n", "draw_grade_share", "draw_slope", "draw_slope_se", "draw_between_share", "draw_fragile"]
 #: A grade that holds in fewer than this share of the draws depends on the draw taken (our own
@@ -61,16 +62,6 @@ def _null(nulls: pd.DataFrame, response: str, driver: str, test: str) -> np.ndar
     return n["value"].to_numpy(float)
 
 
-def _p_against(obs: np.ndarray, null: np.ndarray) -> np.ndarray:
-    """Surrogate p of every observed value against one null sample: as
-    :func:`lagsieve.screen.hypothesis.surrogate_p`, (1 + #{null >= obs}) / (B + 1) over the
-    null's non-missing values, all values at once (NaN where the value is missing)."""
-    null = np.sort(null[~np.isnan(null)])
-    obs = np.asarray(obs, float)
-    above = len(null) - np.searchsorted(null, obs, side="left")
-    return np.where(np.isnan(obs), np.nan, (1.0 + above) / (len(null) + 1))
-
-
 def _in_sample(row: dict, table: pd.DataFrame, Y: np.ndarray, lags: list[int], null: np.ndarray) -> dict:
     """Per draw (arrays (D,)): r, slope and its se at the hypothesis's lag, the surrogate p."""
     x = table[row["driver"]].to_numpy(float)[None, :]
@@ -79,7 +70,7 @@ def _in_sample(row: dict, table: pd.DataFrame, Y: np.ndarray, lags: list[int], n
     li = lags.index(int(row["lag"]))
     ok = ~(np.isnan(x_lags[li]) | np.isnan(Y).any(0))
     slope, se = draw_slopes(x_lags[li, ok], Y[:, ok])
-    p = _p_against(best, null)
+    p = monte_carlo_p(best, null)
     p_lin, p_gam = row.get("p_surrogate_linear"), row.get("p_surrogate_gam")
     if p_gam is not None and np.isfinite(p_gam) and np.isfinite(p_lin):  # spline screened: its p held fixed
         price = row["p_surrogate"] / min(p_lin, p_gam)
@@ -108,7 +99,7 @@ def _out_of_sample(row: dict, table: pd.DataFrame, Y: np.ndarray, lags: list[int
         skills = draw_skills(Y[:, ff.rows], Y[:, ff.rows - 1], ff.years, X[0], lags, initial, models)
     out = {f"oos_skill_{b}": np.asarray(v, float) for b, v in skills.items()}
     out["oos_skill"] = np.min(np.stack(list(out.values())), axis=0)
-    out["oos_p_surrogate"] = _p_against(out["oos_skill"], null)
+    out["oos_p_surrogate"] = monte_carlo_p(out["oos_skill"], null)
     return out
 
 

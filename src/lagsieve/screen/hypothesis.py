@@ -29,7 +29,7 @@ from lagsieve.stats.backtest import (
 )
 from lagsieve.stats.shapes import shape_word
 from lagsieve.stats.splines import fit_pspline, partial_effect, smooth_gain, smooth_p_value
-from lagsieve.stats.surrogates import make_surrogates
+from lagsieve.stats.surrogates import make_surrogates, monte_carlo_p
 
 MIN_YEARS = 6  # overlapping years a lag needs to be screened
 
@@ -59,13 +59,10 @@ def directed(r: np.ndarray, expected_sign: str) -> np.ndarray:
 
 
 def surrogate_p(stat: np.ndarray) -> float:
-    """(1 + #{surrogate >= observed}) / (B + 1); stat[0] is observed, stat[1:] the surrogates."""
+    """(1 + #{surrogate >= observed}) / (B + 1); stat[0] is observed, stat[1:] the surrogates
+    (:func:`lagsieve.stats.surrogates.monte_carlo_p`)."""
     s = np.asarray(stat, float)
-    obs, null = s[0], s[1:]
-    if np.isnan(obs):
-        return np.nan
-    null = null[~np.isnan(null)]
-    return float((1 + np.sum(null >= obs)) / (len(null) + 1))
+    return float(monte_carlo_p(s[0], s[1:]))
 
 
 def min_p_combined(stats: list[np.ndarray]) -> float:

@@ -9,6 +9,8 @@ Ebisuzaki, W. (1997) A method to estimate the statistical significance of a corr
 Theiler, J. et al. (1992) Testing for nonlinearity in time series: the method of surrogate
     data. Physica D 58:77-94.
 Buhlmann, P. (1997) Sieve bootstrap for time series. Bernoulli 3:123-148.
+Davison, A.C. & Hinkley, D.V. (1997) Bootstrap Methods and their Application. Cambridge
+    University Press (section 4.2, from memory).
 """
 from __future__ import annotations
 
@@ -148,3 +150,18 @@ def make_surrogates(
     s = s + trend[None, :]
     s[:, bad] = np.nan
     return s
+
+
+def monte_carlo_p(observed: np.ndarray, null: np.ndarray) -> np.ndarray:
+    """Monte Carlo p-value of every observed statistic against one null sample of B values:
+    p = (1 + #{null >= observed}) / (1 + B) (Davison & Hinkley 1997, section 4.2, from memory:
+    the observed value counted as one of the draws, so p is never 0), over the null's
+    non-missing values; NaN where the observed value is missing. ``observed`` may be a scalar
+    or an array (every value at once, by a sort of the null and a binary search); the screen's
+    :func:`lagsieve.screen.hypothesis.surrogate_p` is this p of the real driver among its
+    surrogates."""
+    null = np.asarray(null, float)
+    null = np.sort(null[~np.isnan(null)])
+    obs = np.asarray(observed, float)
+    above = len(null) - np.searchsorted(null, obs, side="left")  # how many null values reach obs
+    return np.where(np.isnan(obs), np.nan, (1.0 + above) / (len(null) + 1))
