@@ -166,6 +166,11 @@ def test_panels_only_for_leading_hypotheses_graded_weak_or_better(tiny):
         own = [n for n in names if n.startswith(key + "__")]
         assert (own == [] and info["names"] == []) if rank == 2 else (len(own) >= 3 and own == info["names"])
         assert "lag_table" in info  # the lag profile is exported either way
+    _, drawn = _tiny_plan(tiny, {1: "strong", 2: "strong"})  # the same table as when its panels are drawn
+    set_aside = [k for k, info in plan.panels.items() if info["set_aside"]]
+    assert set_aside
+    for key in set_aside:
+        pd.testing.assert_frame_equal(plan.panels[key]["lag_table"], drawn.panels[key]["lag_table"])
     page = render_page(ctx, {n: ("", (1, 1)) for n in names}, plan)
     assert page.count("Set aside: no panels are drawn for it.") == sum(i["set_aside"] for i in plan.panels.values())
 

@@ -214,20 +214,28 @@ def _pair_panels(ctx, key, row, gam_row, gfit, jobs, info) -> None:
     info["smooth_trend"] = bool(smooth and smooth["trend"])
 
 
-def _lag_panel(ctx, key, row, jobs, info) -> None:
+def _lag_table(ctx, row) -> pd.DataFrame | None:
+    """The screen's linear rows of a hypothesis at every lag, with the critical r of each
+    (``r_crit``); None when no lag has an r."""
     sc = ctx.screen
     rid, did = row["response"], row["driver"]
     prof = sc[(sc["response"] == rid) & (sc["driver"] == did) & (sc["model"] == "linear")].sort_values("lag") \
         if len(sc) else sc
     if not (len(prof) >= 1 and prof["r"].notna().any()):
+        return None
+    return prof.assign(r_crit=fg.r_critical(prof["n_eff"].to_numpy(float)))
+
+
+def _lag_panel(ctx, key, row, jobs, info) -> None:
+    prof = _lag_table(ctx, row)
+    if prof is None:
         return
-    rc = fg.r_critical(prof["n_eff"].to_numpy(float))
     jobs.append(fg.FigureJob(f"{key}__lags", "lag_profile", dict(
-        lags=prof["lag"].to_numpy(float), r=prof["r"].to_numpy(float), r_crit=rc, chosen=int(row["lag"]),
-        r_detrended=prof["r_detrended"].to_numpy(float) if "r_detrended" in prof else None,
+        lags=prof["lag"].to_numpy(float), r=prof["r"].to_numpy(float), r_crit=prof["r_crit"].to_numpy(float),
+        chosen=int(row["lag"]), r_detrended=prof["r_detrended"].to_numpy(float) if "r_detrended" in prof else None,
         invented=ctx.invented)))
     info["names"].append(f"{key}__lags")
-    info["lag_table"] = prof.assign(r_crit=rc)
+    info["lag_table"] = prof
 
 
 def _forecast_panel(ctx, key, row, jobs, info) -> None:
@@ -315,9 +323,9 @@ def _plan_hypothesis(ctx: Context, row: dict, plan: Plan) -> None:
     gam_row = None if in_seasons else _pick_gam_row(ctx, rid, did, lag)
     if info["set_aside"]:  # words, numbers and its lag table on the page; no figures
         info["gam_row"] = gam_row
-        if not in_seasons:
-            _lag_panel(ctx, key, row, [], info)
-        info["names"] = []
+        lag_table = None if in_seasons else _lag_table(ctx, row)
+        if lag_table is not None:
+            info["lag_table"] = lag_table
         return
     gfit = gam_fit(ctx, rid, did, int(gam_row["lag"])) if gam_row is not None else None
     if not in_seasons:
