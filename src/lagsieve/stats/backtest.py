@@ -23,8 +23,9 @@ MSPE test; comparisons of models that are not nested use Diebold-Mariano with th
 Harvey-Leybourne-Newbold correction.
 
 Everything is batched: the driver axis (the real driver first, then its surrogates), the
-lag axis and the origin axis are stacked and the normal equations are accumulated with
-cumulative sums, so a whole rolling-origin evaluation is a handful of array operations.
+lag axis and the origin axis are stacked and the normal equations of every training window are
+one product with the window mask (:mod:`lagsieve.stats.linalg`), so a whole rolling-origin
+evaluation is a handful of array operations.
 
 References
 ----------
