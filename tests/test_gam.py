@@ -91,6 +91,24 @@ def test_basis_default_range_is_per_batch_and_extrapolation_is_linear():
     assert np.abs(np.diff(far, axis=0)).max() > 0.1  # but not constant
 
 
+def test_basis_with_leading_columns_is_pygam_basis_behind_zeros():
+    """``lead`` columns of zeros in front (room for the caller's unpenalised columns): behind
+    them, batched rows of several segments, the extrapolated ends and a NaN row, the basis
+    equals pygam 0.12's b_spline_basis (same knots) exactly as without ``lead``."""
+    x, _ = _data(3)
+    rows = np.stack([np.linspace(-0.5, 3.5, 40), x, np.r_[np.nan, x[1:]]])  # (3, 40)
+    for k, lead in ((5, 1), (10, 2)):
+        out = gam.bspline_basis(rows, k, lo=x.min(), hi=x.max(), lead=lead)
+        assert out.shape == (3, 40, lead + k)
+        np.testing.assert_array_equal(out[..., lead:], gam.bspline_basis(rows, k, lo=x.min(), hi=x.max()))
+        assert not out[:, 1:, :lead].any() and not out[:2, :, :lead].any()
+        assert np.isnan(out[2, 0]).all()
+        for i in range(2):
+            ref = pygam_basis(rows[i], edge_knots=np.r_[x.min(), x.max()], n_splines=k, spline_order=3,
+                              sparse=False, periodic=False, verbose=False)
+            np.testing.assert_allclose(out[i, :, lead:], ref, rtol=0, atol=1e-12)
+
+
 def test_difference_penalty_equals_hand_written_and_pygam():
     """Second-order differences (Eilers & Marx 1996, eq. 6) = pygam 'derivative'."""
     d = np.array([[1, -2, 1, 0, 0], [0, 1, -2, 1, 0], [0, 0, 1, -2, 1]], dtype=float)

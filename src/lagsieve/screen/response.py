@@ -3,11 +3,9 @@ see :mod:`lagsieve.screen.hypothesis`), optionally in several processes."""
 from __future__ import annotations
 
 import logging
-import multiprocessing as mp
 import sys
 import time
 import traceback
-from concurrent.futures import ProcessPoolExecutor, as_completed
 from dataclasses import dataclass
 
 import numpy as np
@@ -71,6 +69,11 @@ def _run_parallel(tasks: list[tuple], table: pd.DataFrame, workers: int, progres
     Longest first (years observed x lags, a proxy of the work), so that the last task to
     start is a short one and the workers finish close together.
     """
+    # imported here: the workflow's screen jobs run one process each (threads: 1), so only a
+    # screen with workers > 1 (a call from Python) pays for the process pool's imports
+    import multiprocessing as mp
+    from concurrent.futures import ProcessPoolExecutor, as_completed  # (the same reason)
+
     cost = [int(table[t[2]["id"]].notna().sum()) * len(t[3]) for t in tasks]
     order = sorted(range(len(tasks)), key=lambda i: -cost[i])
     results = [None] * len(tasks)

@@ -6,7 +6,6 @@ from pathlib import Path
 import pandas as pd
 from threadpoolctl import threadpool_limits
 
-from lagsieve.condition.series import input_frame
 from lagsieve.io.config import Study, load_study
 from lagsieve.io.files import write_csv
 from lagsieve.io.names import slug
@@ -40,6 +39,9 @@ def response_long(study: Study, response_id: str, files: list[str] | None = None
     from_condition = set(table["series"]) & wanted if table is not None else set()
     long, _ = read_inputs(specs, study.base_dir, wanted - from_condition)
     if table is not None:
+        # imported here: only a response with a condition series needs the condition package
+        from lagsieve.condition.series import input_frame
+
         long = pd.concat([long, input_frame(table, from_condition)], ignore_index=True)
     return long, wanted
 

