@@ -29,6 +29,18 @@ def initialised_study(tmp_path_factory):
 
 
 @pytest.fixture
+def rc():
+    """matplotlib under the report's rc settings (``figures.RC``); every figure closed afterwards."""
+    import matplotlib.pyplot as plt  # here, not at the top: only the figure tests pay for matplotlib
+
+    from lagsieve.report import figures as fg
+
+    with plt.rc_context(fg.RC):
+        yield
+    plt.close("all")
+
+
+@pytest.fixture
 def new_study(initialised_study, tmp_path):
     """A private copy of the study `lagsieve init` writes, in ``tmp_path / "s"``; its config path.
     (The config names its data folder relative to itself, so the copy is self-contained.)"""

@@ -117,15 +117,6 @@ def _cut(fig) -> list[float]:
 LONG = "Spring (March to May) bottom temperature of the inner shelf, five-year mean"
 
 
-@pytest.fixture
-def rc():
-    import matplotlib.pyplot as plt
-
-    with plt.rc_context(fg.RC):
-        yield
-    plt.close("all")
-
-
 def test_heatmap_and_forecast_legend_whole(rc):
     k = 8
     corr = np.eye(k) + 0.3 * (1 - np.eye(k))

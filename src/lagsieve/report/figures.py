@@ -25,7 +25,6 @@ import shutil
 import sys
 import textwrap
 import traceback
-import warnings
 from concurrent.futures import ProcessPoolExecutor
 from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass, field
@@ -37,9 +36,12 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 from matplotlib.layout_engine import LayoutEngine  # noqa: E402
+from matplotlib.collections import PolyCollection  # noqa: E402
 from matplotlib.colors import LinearSegmentedColormap, ListedColormap  # noqa: E402
 from matplotlib.patches import Patch, Rectangle  # noqa: E402
-from matplotlib.ticker import FixedLocator, MaxNLocator  # noqa: E402
+from matplotlib.ticker import FixedFormatter, FixedLocator, MaxNLocator  # noqa: E402
+from matplotlib.text import Text  # noqa: E402
+from matplotlib.transforms import Bbox  # noqa: E402
 from PIL import Image  # noqa: E402
 from lagsieve.io.files import atomic_path, sha256_file, write_text  # noqa: E402
 from lagsieve.io.provenance import tool_version  # noqa: E402
@@ -96,7 +98,7 @@ PNG_DPI = 150
 FORMATS = ("png", "svg")   # every format a figure can have, each written by the process that draws it
 RASTER = ("png",)          # the formats of a report that asked for no SVG
 KEY_SUFFIX = ".key"        # the content key stored beside a figure (see content_key)
-KEY_FORMAT = 1             # raise when the key's meaning changes, so no stored figure matches
+KEY_FORMAT = 2             # raise when the key's meaning changes, so no stored figure matches
 INVENTED_NOTE = "invented data"
 
 
@@ -161,26 +163,91 @@ def _mark_invented(fig, invented: bool) -> None:
 LAYOUT_PAD_PT = 4.0
 
 
+def _fix_ticks(axis) -> bool:
+    """Fix an axis' major ticks where its locator put them, and, when its formatter needs no
+    offset text, their labels as the formatter wrote them: a narrower axes would otherwise choose
+    other ticks and other label widths, and every later pass (the draw runs two per axis) formats
+    fixed strings instead of working out a format again. Ticks outside the view, which are never
+    drawn, are left out. True when the labels were fixed (the axis can be measured by
+    :func:`_axis_boxes`)."""
+    locs = np.asarray(axis.get_majorticklocs(), float)
+    formatter = axis.get_major_formatter()
+    labels = formatter.format_ticks(locs)  # as the draw would write them: every loc, view or not
+    if formatter.get_offset():
+        axis.set_major_locator(FixedLocator(locs))
+        return False
+    lo, hi = sorted(axis.get_view_interval())
+    slack = 1e-6 * (hi - lo)  # generous: a tick kept outside the view is still not drawn
+    inside = (locs >= lo - slack) & (locs <= hi + slack)
+    axis.set_major_locator(FixedLocator(locs[inside]))
+    axis.set_major_formatter(FixedFormatter([t for t, keep in zip(labels, inside) if keep]))
+    return True
+
+
+def _axis_boxes(axis, spine, renderer) -> list:
+    """What :meth:`matplotlib.axis.Axis.get_tightbbox` measures for layout (tick labels; the axis
+    label placed below or left of them, counted for its height or width only), measured once: the
+    matplotlib method works out the ticks and their label boxes twice. For an x axis at the bottom
+    or a y axis at the left whose labels :func:`_fix_ticks` fixed (no offset text)."""
+    boxes = [t.get_window_extent(renderer) for t in axis.get_ticklabels() if t.get_text()]
+    label = axis.label
+    if not (label.get_visible() and label.get_text()):
+        return boxes
+    edge = Bbox.union(boxes + [spine.get_window_extent(renderer)])
+    x, y = label.get_position()
+    shift = axis.labelpad * axis.get_figure(root=True).dpi / 72.0
+    label.set_position((x, edge.y0 - shift) if axis.axis_name == "x" else (edge.x0 - shift, y))
+    box = label.get_window_extent(renderer).frozen()  # where the draw puts it (its own placement rule)
+    if axis.axis_name == "x":
+        box.x0 = box.x1 = (box.x0 + box.x1) / 2
+    else:
+        box.y0 = box.y1 = (box.y0 + box.y1) / 2
+    return boxes + [box]
+
+
+def _tight_box(ax, renderer, fixed: bool):
+    """The axes' box for layout, as ``ax.get_tightbbox(renderer, for_layout_only=True)`` gives it, at
+    about half the cost for an axes with ticks fixed by :func:`_fix_ticks`, x ticks and label at the
+    bottom and y at the left (every fixed-layout figure of the report); any other axes is measured
+    by matplotlib."""
+    plain = (fixed and ax.xaxis.get_ticks_position() == "bottom" and ax.xaxis.get_label_position() == "bottom"
+             and ax.yaxis.get_ticks_position() == "left" and ax.yaxis.get_label_position() == "left")
+    if not plain:
+        return ax.get_tightbbox(renderer, for_layout_only=True)
+    ax.apply_aspect()
+    boxes = [ax.get_window_extent(renderer)]
+    for axis, side in ((ax.xaxis, "bottom"), (ax.yaxis, "left")):
+        if axis.get_visible() and axis.get_in_layout():
+            boxes += _axis_boxes(axis, ax.spines.get(side, ax), renderer)
+    for title in (c for c in ax.get_children() if isinstance(c, Text) and c not in ax.texts):  # the titles
+        if title.get_visible() and title.get_text():
+            box = title.get_window_extent(renderer).frozen()
+            box.x0 = box.x1 = (box.x0 + box.x1) / 2  # a title counts for its height only
+            boxes.append(box)
+    boxes += [a.get_tightbbox(renderer) for a in ax.get_default_bbox_extra_artists()]
+    return Bbox.union([b for b in boxes if b is not None and np.isfinite(b.bounds).all() and (b.width or b.height)])
+
+
 def fit_layout(fig, pad_pt: float = LAYOUT_PAD_PT) -> None:
     """A fixed layout (the :class:`FitLayout` engine's): the figure's axes (one row) are placed
     once, with margins measured from their own text (tick labels, axis labels, titles, an axes
     legend), the figure's legends above them and its notes below, and ``pad_pt`` to spare. The
-    ticks are fixed where they were measured (a narrower axes would otherwise choose other ticks,
-    and other label widths). One measuring pass and ``subplots_adjust``: matplotlib's constrained
-    layout measures every axes twice per draw, about 40% of drawing a panel (cProfile over the
-    demo's figures). Centred axis labels and titles are measured for their height only, as
-    constrained layout does: a builder keeps them narrower than its figure."""
+    ticks are fixed where they were measured (:func:`_fix_ticks`: a narrower axes would otherwise
+    choose other ticks, and other label widths). One measuring pass (:func:`_tight_box`) and
+    ``subplots_adjust``: matplotlib's constrained layout measures every axes twice per draw, about
+    40% of drawing a panel (cProfile over the demo's figures). Centred axis labels and titles are
+    measured for their height only, as constrained layout does: a builder keeps them narrower than
+    its figure."""
     axes = fig.axes
     if not axes:
         return
-    for axis in (a for ax in axes for a in (ax.xaxis, ax.yaxis)):
-        axis.set_major_locator(FixedLocator(axis.get_majorticklocs()))
+    fixed = {ax: all([_fix_ticks(ax.xaxis), _fix_ticks(ax.yaxis)]) for ax in axes}
     renderer = fig.canvas.get_renderer()
     pad = pad_pt * fig.dpi / 72.0
     w, h = fig.bbox.width, fig.bbox.height
     top = min([h] + [leg.get_window_extent(renderer).y0 for leg in fig.legends]) - pad
     bottom = max([0.0] + [t.get_window_extent(renderer).y1 for t in fig.texts]) + pad
-    boxes = [(ax.get_window_extent(renderer), ax.get_tightbbox(renderer, for_layout_only=True)) for ax in axes]
+    boxes = [(ax.get_window_extent(renderer), _tight_box(ax, renderer, fixed[ax])) for ax in axes]
     below = max(p.y0 - t.y0 for p, t in boxes)
     above = max(t.y1 - p.y1 for p, t in boxes)
     x0 = pad + boxes[0][0].x0 - boxes[0][1].x0
@@ -307,15 +374,17 @@ def driver_correlation(corr: np.ndarray, labels: list[str], threshold: float = 0
     hidden = np.triu(np.ones((m, m), bool), k=1) | np.isnan(corr)
     side = max(3.6, 0.5 * m + 2.4)
     fig, ax = plt.subplots(figsize=capped_size(side + 1.2, side), layout="constrained")
-    import seaborn as sns  # here, not at the top: 0.5 s of CPU to import, and one figure uses it
-
-    with warnings.catch_warnings():  # seaborn 0.13 calls a colormap method matplotlib plans to rename
-        warnings.simplefilter("ignore", PendingDeprecationWarning)
-        sns.heatmap(corr, mask=hidden, cmap=CORR_CMAP, vmin=-1, vmax=1, center=0, annot=False, square=True,
-                    linewidths=0.6, linecolor="white", cbar_kws={"label": "Pearson r (same year)", "shrink": 0.7},
-                    ax=ax)
-    # the numbers are written here rather than by seaborn's annot, whose switch between dark and
-    # light text at luminance 0.408 left white on mid blues at 2.7:1: ink_on picks by WCAG contrast
+    # cells as one mesh, white lines between them, row 0 at the top, square cells, a colour bar without
+    # an outline (a heatmap as seaborn draws it, without importing seaborn: 0.5 s of CPU in a worker)
+    mesh = ax.pcolormesh(np.ma.masked_array(corr, hidden), cmap=CORR_CMAP, vmin=-1, vmax=1, edgecolors="white",
+                         linewidth=0.6)
+    ax.set(xlim=(0, m), ylim=(m, 0), aspect="equal")
+    for spine in ax.spines.values():
+        spine.set_visible(False)
+    bar = fig.colorbar(mesh, ax=ax, shrink=0.7, label="Pearson r (same year)")
+    bar.outline.set_linewidth(0)
+    # ink_on picks dark or light text by WCAG contrast (seaborn's annot, used before, switched at
+    # luminance 0.408 and left white on mid blues at 2.7:1)
     for i, j in zip(*np.nonzero(~hidden)):
         v = corr[i, j]
         ax.text(j + 0.5, i + 0.5, f"{v:.2f}*" if abs(v) > threshold else f"{v:.2f}", ha="center", va="center",
@@ -496,6 +565,18 @@ def null_limits(values: np.ndarray, observed: float) -> tuple[float, float]:
     return float(lo - 0.05 * span), float(top + 0.05 * span)
 
 
+def _histogram(ax, values, bins: int, label: str) -> None:
+    """The bars of ``np.histogram(values, bins)`` as one collection (what ``ax.hist`` draws, the same
+    bars, edges and y range from 0: one artist instead of one Rectangle per bar, which cost a null
+    panel about a third of its CPU)."""
+    counts, edges = np.histogram(values, bins=bins)
+    verts = np.stack([np.column_stack([edges[:-1], np.zeros_like(counts)]), np.column_stack([edges[:-1], counts]),
+                      np.column_stack([edges[1:], counts]), np.column_stack([edges[1:], np.zeros_like(counts)])], axis=1)
+    ax.add_collection(PolyCollection(verts, facecolors="#b8d4ec", edgecolors="white", linewidths=0.4, label=label),
+                      autolim=False)
+    ax.set_ylim(0, 1.05 * max(1, counts.max(initial=0)))  # hist's range: from 0 (its sticky edge), 5% above
+
+
 def null_distributions(panels: list[dict], invented: bool = False):
     """Histograms of the statistic over the surrogate drivers with the real driver's value.
     ``panels``: dicts with values, observed, label, p, title."""
@@ -507,7 +588,7 @@ def null_distributions(panels: list[dict], invented: bool = False):
         obs = float(p["observed"])
         lo, hi = null_limits(v, obs)
         shown = v[v >= lo]
-        ax.hist(shown, bins=int(np.clip(len(shown) // 10, 8, 30)), color="#b8d4ec", edgecolor="white", linewidth=0.4, label="surrogates")
+        _histogram(ax, shown, int(np.clip(len(shown) // 10, 8, 30)), "surrogates")
         if np.isfinite(obs):  # a statistic that could not be computed has no line to draw
             ax.axvline(obs, color=DRIVER_COLOUR, lw=2, label="real driver")
         ax.set_xlim(lo, hi)
