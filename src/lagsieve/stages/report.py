@@ -3,7 +3,6 @@ PDF copy, the editable annex document and provenance. The report modules (matplo
 figure code) are imported by this module only."""
 from __future__ import annotations
 
-import importlib.metadata as md
 import os
 import time
 from pathlib import Path
@@ -51,17 +50,12 @@ def _report_provenance(study: Study, annual_csv, dirs: dict, t0: float) -> dict:
         "inputs_sha256": inputs,
         "seed": study.screen["seed"],
         "tool_version": tool_version(),
-        "versions": package_versions(),
+        "versions": package_versions("pillow", "weasyprint"),  # with the report's own libraries
         "inputs_prepared": _iso(Path(annual_csv).stat().st_mtime),
         "screened": _iso(max(screened)) if screened else None,
         "started": _iso(t0),
         "allocator": allocator_variables(os.environ),
     }
-    for name in ("pillow", "weasyprint"):  # the report's own libraries
-        try:
-            prov["versions"].setdefault(name, md.version(name))
-        except md.PackageNotFoundError:
-            prov["versions"].setdefault(name, "not installed")
     return prov
 
 
