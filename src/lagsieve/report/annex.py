@@ -15,7 +15,7 @@ import pandas as pd
 from lagsieve.evidence.effects import _fmt, effect_cell
 from lagsieve.evidence.vocabulary import GRADE_RULES, GRADE_WORDS, SUPPORTED
 from lagsieve.formats import is_missing, number, skill_percent, text
-from lagsieve.report.context import Context, flag_list, row_lead, set_aside_reason
+from lagsieve.report.context import Context, flag_list, missing_last, row_lead, set_aside_reason
 
 #: The grade as evidence in words (the grade codes themselves stay in the evidence table).
 EVIDENCE_WORDS = {
@@ -110,10 +110,15 @@ def annex_row(ctx: Context, row: dict) -> dict:
 
 def annex_frame(ctx: Context) -> pd.DataFrame:
     """The annex summary as a table (``figures/summary.csv``): one row per hypothesis, by
-    response in the study's order and rank within it."""
+    response in the study's order and rank within it. Made once per context (the page, the
+    tables and the document show it; :meth:`Context.once`): do not change it."""
+    return ctx.once("annex_frame", _annex_frame)
+
+
+def _annex_frame(ctx: Context) -> pd.DataFrame:
     order = {rid: i for i, rid in enumerate(ctx.study.response_ids)}
-    ev = ctx.evidence.assign(_o=ctx.evidence["response"].map(order)).sort_values(["_o", "rank"])
-    return pd.DataFrame([annex_row(ctx, row) for row in ev.drop(columns="_o").to_dict("records")])
+    rows = sorted(ctx.rows, key=lambda r: (missing_last(order.get(r["response"])), missing_last(r.get("rank"))))
+    return pd.DataFrame([annex_row(ctx, row) for row in rows])
 
 
 def cells(r: dict) -> list[str]:
@@ -139,7 +144,12 @@ def _others(rows: list[dict]) -> list[tuple[str, list[str]]]:
 
 def section(ctx: Context) -> dict:
     """The data of ``templates/annex.html`` and of the document's summary: per response the
-    drivers graded weak or better in a table, the others named on one line per reason."""
+    drivers graded weak or better in a table, the others named on one line per reason. Made once
+    per context (:meth:`Context.once`): do not change it."""
+    return ctx.once("annex_section", _section)
+
+
+def _section(ctx: Context) -> dict:
     frame = annex_frame(ctx)
     responses = []
     for rid in ctx.study.response_ids:

@@ -9,7 +9,7 @@ import pandas as pd
 from lagsieve.evidence.effects import allowed_phrase, effect_cell, effect_phrase
 from lagsieve.evidence.vocabulary import COLLINEAR_R, FLAGS, GRADES, SUPPORTED
 from lagsieve.report import figures as fg
-from lagsieve.report.context import Context, not_computed, row_lead, set_aside_reason, summary_line
+from lagsieve.report.context import Context, not_computed, ranked, row_lead, set_aside_reason, summary_line
 from lagsieve.formats import is_missing, lag_range, number, p_text, text
 from lagsieve.stats.backtest import BASELINES
 from lagsieve.report.methods import methods_paragraphs, reference_list
@@ -85,9 +85,9 @@ def _with_condition(nav: list) -> list:
     return nav[:at] + [("condition", "Condition")] + nav[at:]
 
 
-def _aside_groups(ctx: Context, aside: pd.DataFrame) -> list[tuple[str, list[dict]]]:
+def _aside_groups(ctx: Context, aside: list[dict]) -> list[tuple[str, list[dict]]]:
     groups: dict[str, list[dict]] = {}
-    for row in aside.to_dict("records"):
+    for row in aside:
         groups.setdefault(set_aside_reason(row, ctx.label), []).append(
             {"summary": summary_line(row), "driver": ctx.label(row["driver"]),
              "lead": row_lead(row)})
@@ -95,12 +95,13 @@ def _aside_groups(ctx: Context, aside: pd.DataFrame) -> list[tuple[str, list[dic
 
 
 def _response_summary(ctx: Context, rid) -> dict:
-    sub = ctx.evidence[ctx.evidence["response"] == rid].sort_values("rank")
+    sub = ranked(ctx.rows, rid)
     supported = [{"grade": row["grade"], "driver": ctx.label(row["driver"]), "summary": summary_line(row),
                   "partners": [ctx.label(p) for p in text(row.get("collinear_with")).split(";") if p]}
-                 for row in sub[sub["grade"].isin(SUPPORTED)].to_dict("records")]
+                 for row in sub if row["grade"] in SUPPORTED]
     return {"id": rid, "label": ctx.label(rid), "supported": supported,
-            "aside": _aside_groups(ctx, sub[~sub["grade"].isin(SUPPORTED)]), "by_season": by_season(ctx, rid)}
+            "aside": _aside_groups(ctx, [row for row in sub if row["grade"] not in SUPPORTED]),
+            "by_season": by_season(ctx, rid)}
 
 
 def summary(ctx: Context) -> dict:
@@ -158,7 +159,7 @@ def evidence_table(ctx: Context) -> dict:
                 "cls": f"c-{key.replace('_', '-')}" + (" num" if kind in ("num", "p", "rank") else "")}
                for key, name, tip, kind, _ in TABLE_COLS]
     order = {r: i for i, r in enumerate(ctx.study.response_ids)}
-    rows = [_table_row(ctx, row, order) for row in ctx.evidence.to_dict("records")]
+    rows = [_table_row(ctx, row, order) for row in ctx.rows]
     present = {c for row in rows for c in row["flags"].split()}
     return {"columns": columns, "rows": rows, "grades": list(GRADES), "effect_note": EFFECT_NOTE,
             "flags": [c for c in FLAGS if c in present],
@@ -243,8 +244,14 @@ def _series_row(ctx: Context, role: str, s: dict, cov: pd.DataFrame | None) -> l
             s.get("expected_sign", "") if driver else "", yrs]
 
 
+def methods_text(ctx: Context) -> tuple[list[str], list]:
+    """The methods' paragraphs and references (report.methods), made once per context: the page
+    and the document both show them (:meth:`Context.once`)."""
+    return ctx.once("methods", methods_paragraphs)
+
+
 def methods(ctx: Context, tables: dict) -> dict:
-    paragraphs, refs = methods_paragraphs(ctx)
+    paragraphs, refs = methods_text(ctx)
     cov = tables.get("coverage")
     cov = cov.set_index("series") if cov is not None and len(cov) else None
     series = [_series_row(ctx, role, s, cov)
