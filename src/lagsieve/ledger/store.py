@@ -57,7 +57,6 @@ import pandas as pd
 from lagsieve.errors import fail, show
 from lagsieve.io.config import Study
 from lagsieve.io.lock import unusable_folder
-from lagsieve.stats.backtest import BASELINES
 
 DEFAULT_NAME = "ledger.sqlite"
 SCHEMA_VERSION = "3"
@@ -421,6 +420,10 @@ def forecasts_frame(con: sqlite3.Connection, study: str) -> pd.DataFrame:
                          "JOIN forecasts f USING (forecast_id) WHERE f.study = ?", (study,))
     if f.empty:
         return f
+    # imported here: stats.backtest brings scipy.special (0.3 s of CPU), which `lagsieve run`'s
+    # check_ledger would pay before Snakemake starts; only the track record reads the baselines
+    from lagsieve.stats.backtest import BASELINES
+
     for bl in BASELINES:
         m = b[b["baseline"] == bl].set_index("forecast_id")["forecast"]
         f[f"fc_{bl}"] = f["forecast_id"].map(m)
