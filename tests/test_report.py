@@ -16,7 +16,13 @@ import hashlib
 import html as hh
 import io
 import json
+import os
 import re
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -31,7 +37,9 @@ from lagsieve.report.context import Context
 from lagsieve.report.figures import PNG_DPI, mpl_text, r_critical
 from lagsieve.report.html import build_report, render_page
 from lagsieve.report.methods import methods_paragraphs
-from lagsieve.report.pdf import pdf_engine, with_figure_files, write_pdf
+from lagsieve.report import figures as fg
+from lagsieve.report import pdf as rpdf
+from lagsieve.report.pdf import pdf_engine, start_pdf, with_figure_files, write_pdf
 from lagsieve.report.render import GRADE_CLASS
 from lagsieve.report.plan import plan_figures
 from lagsieve.report.render import static_text, stylesheet
@@ -368,6 +376,133 @@ def test_pdf_reads_the_same_figure_bytes_from_their_files(tiny, tmp_path):
         reader = PdfReader(tmp_path / name)
         pages.append([(p.extract_text(), sorted(i.data for i in p.images)) for p in reader.pages])
     assert pages[0] == pages[1]
+
+
+def _one_figure_page(tiny, paragraphs: int = 1) -> tuple[str, dict, object]:
+    """A small page naming one of the tiny report's figures: (html, figs, figures folder)."""
+    folder = tiny["res"] / "figures"
+    name = sorted(p.stem for p in folder.glob("*.png"))[0]
+    b64 = base64.b64encode((folder / f"{name}.png").read_bytes()).decode()
+    text = "<p>" + "Natural mortality against a driver, every year screened. " * 40 + "</p>"
+    html = (f'<html><body><h1>tiny</h1><img data-name="{name}" src="data:image/png;base64,{b64}">'
+            + text * paragraphs + "</body></html>")
+    return html, {name: (b64, (1, 1))}, folder
+
+
+def test_pdf_of_the_forked_process_is_the_pdf_written_here(tiny, tmp_path):
+    """Our own rule: the PDF written in a forked process (report.pdf.PdfJob) is byte for byte the
+    PDF this process writes from the same print copy, so it does not depend on when it ends."""
+    if pdf_engine() != "weasyprint":
+        pytest.skip("WeasyPrint is not installed")
+    html, figs, folder = _one_figure_page(tiny)
+    study, ev = load_study(tiny["cfg"]), pd.read_csv(tiny["res"] / "evidence.csv")
+    assert start_pdf(html, tmp_path / "forked.pdf", figs, folder).finish(study, ev, figs) == "weasyprint"
+    write_pdf(with_figure_files(html, figs, folder), tmp_path / "here.pdf", study_id="tiny", title="t",
+              summary=[], figures=[], invented=True)
+    assert (tmp_path / "forked.pdf").read_bytes() == (tmp_path / "here.pdf").read_bytes()
+
+
+def test_pdf_falls_back_to_matplotlib_with_every_figure_when_weasyprint_fails(tiny, tmp_path, monkeypatch):
+    """A WeasyPrint that fails in the forked process: the PDF is written by matplotlib in this one,
+    from every figure handed to finish (two per page after the text pages), as write_pdf does."""
+    from pypdf import PdfReader
+
+    def broken(html_text, path):
+        raise OSError("no pango here")
+
+    monkeypatch.setattr(rpdf, "_write_weasyprint", broken)
+    html, figs, folder = _one_figure_page(tiny)
+    every = {p.stem: (base64.b64encode(p.read_bytes()).decode(), (1, 1)) for p in sorted(folder.glob("*.png"))[:5]}
+    study, ev = load_study(tiny["cfg"]), pd.read_csv(tiny["res"] / "evidence.csv")
+    out = tmp_path / "report.pdf"
+    assert start_pdf(html, out, figs, folder).finish(study, ev, every) == "matplotlib"
+    reader = PdfReader(out)
+    assert "tiny_escape" in reader.pages[0].extract_text()
+    captions = "".join(p.extract_text() for p in reader.pages[-3:]).replace("\n", "")
+    assert all(n.replace("__", " / ") in captions for n in every)  # five figures, two per page
+    assert not list(tmp_path.glob(".report.pdf.*"))
+
+
+def test_cancelled_pdf_leaves_no_file(tiny, tmp_path):
+    """Our own rule: a report that fails stops its PDF: neither the unfinished temporary file (the
+    process is stopped while it writes, here once its file exists) nor a PDF of an earlier run is left."""
+    if pdf_engine() != "weasyprint":
+        pytest.skip("WeasyPrint is not installed")
+    html, figs, folder = _one_figure_page(tiny, paragraphs=400)
+    out = tmp_path / "report.pdf"
+    out.write_bytes(b"%PDF of an earlier run")
+    job = start_pdf(html, out, figs, folder)
+    for _ in range(2000):  # until WeasyPrint's temporary file exists (or the PDF is done)
+        if list(tmp_path.glob(".report.pdf.*.tmp")) or job._process.exitcode is not None:
+            break
+        job._process.join(0.005)
+    job.cancel()
+    assert sorted(p.name for p in tmp_path.iterdir()) == []
+
+
+KILLED_PARENT = """
+import os, signal, sys, time
+from pathlib import Path
+from lagsieve.report.pdf import start_pdf
+out = Path(sys.argv[2])
+job = start_pdf(Path(sys.argv[1]).read_text(), out, {}, out.parent)
+while not list(out.parent.glob(".report.pdf.*.tmp")) and job._process.exitcode is None:
+    time.sleep(0.005)
+print(job._process.pid, flush=True)
+os.kill(os.getpid(), signal.SIGKILL)
+"""
+
+
+def _ended(pid: int) -> bool:
+    try:
+        return Path(f"/proc/{pid}/status").read_text().split("State:")[1].split()[0] in ("Z", "X")
+    except (FileNotFoundError, IndexError):
+        return True
+
+
+@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="the parent-death signal is Linux's")
+def test_pdf_process_ends_with_a_killed_report_job(tiny, tmp_path):
+    """Our own rule: a report job killed (SIGKILL) while its PDF is written leaves no PDF and no
+    temporary file: the forked process is told by the kernel (PR_SET_PDEATHSIG) and removes its file."""
+    if pdf_engine() != "weasyprint":
+        pytest.skip("WeasyPrint is not installed")
+    html, _figs, _folder = _one_figure_page(tiny, paragraphs=400)
+    (tmp_path / "page.html").write_text(html, encoding="utf-8")
+    out = tmp_path / "pdf" / "report.pdf"
+    out.parent.mkdir()
+    done = subprocess.run([sys.executable, "-c", KILLED_PARENT, str(tmp_path / "page.html"), str(out)],
+                          capture_output=True, text=True, env={**os.environ, "PYTHONPATH": str(REPO / "src")})
+    assert done.returncode == -signal.SIGKILL, done.stderr
+    pid = int(done.stdout.split()[0])
+    for _ in range(6000):  # a bound, not a timing: the process ends once told
+        if _ended(pid):
+            break
+        time.sleep(0.01)
+    assert _ended(pid) and list(out.parent.iterdir()) == []
+
+
+def test_print_copy_handed_over_before_the_other_figures(tiny, tmp_path):
+    """build_report with on_print_copy: the print copy is the one print_copy=True renders, handed
+    over with exactly its figures while the figure folder holds no other figure yet; the page and
+    every figure are the same as without it."""
+    res, study = tiny["res"], load_study(tiny["cfg"])
+    args = (study, stages.load_table(study, res / "work" / "annual.csv"), pd.read_csv(res / "screen.csv"),
+            pd.read_csv(res / "evidence.csv"), pd.DataFrame(), pd.DataFrame(), pd.read_csv(res / "work" / "notes.csv"))
+
+    def report(out, **kw):
+        prov = {"tool_version": "t", "inputs_sha256": {}, "versions": {}, "config": {}, "finished": "then"}
+        with fg.FigureRenderer(out, 1, cache_dir=tmp_path / "cache") as r:
+            return build_report(*args, prov, out, renderer=r, print_copy=True, **kw)
+
+    page, figs, printed = report(tmp_path / "a")
+    handed = []
+    page2, figs2, none = report(tmp_path / "b", on_print_copy=lambda text, f: handed.append(
+        (text, f, sorted(p.stem for p in (tmp_path / "b").glob("*.png")))))
+    [(text, first, present)] = handed
+    assert none is None and page2 == page and figs2 == figs and list(figs2) == list(figs)
+    assert text == printed and first == {n: figs[n] for n in first}
+    assert set(first) == set(re.findall(r'<img data-name="([^"]+)"', printed))  # the print copy's figures
+    assert present == sorted(first) and 0 < len(first) < len(figs)
 
 
 # ----------------------------------------------------------------------------- options

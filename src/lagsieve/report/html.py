@@ -66,6 +66,21 @@ def print_figures(figs: dict, plan) -> dict:
     return {n: v for n, v in figs.items() if n not in left_out}
 
 
+def _draw_print_first(plan, renderer: fg.FigureRenderer, ctx: Context, since, provenance: dict,
+                      on_print_copy) -> tuple[dict, dict]:
+    """The figures of the print copy drawn first, the print copy rendered and handed to
+    ``on_print_copy`` (print copy, its figures), then the other figures drawn: the PDF is made
+    while they are. Returns (every figure in the plan's order, the page's words)."""
+    printed = print_figures({j.name: None for j in plan.jobs}, plan)
+    figs = renderer.draw([j for j in plan.jobs if j.name in printed])
+    provenance.setdefault("finished", time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()))
+    words = page_context(ctx, figs, plan, since)
+    on_print_copy(print_copy_of(words, plan), dict(figs))
+    figs.update(renderer.draw([j for j in plan.jobs if j.name not in printed]))
+    figs = {j.name: figs[j.name] for j in plan.jobs if j.name in figs}
+    return figs, {**words, "figs": figs}
+
+
 def page_context(ctx: Context, figs: dict, plan, since: LedgerSection | None = None) -> dict:
     """Every value the page's templates read."""
     css, js = stylesheet(), script()
@@ -107,7 +122,7 @@ def build_report(study, table, screen, evidence, forecasts, nulls, notes, proven
                  renderer: fg.FigureRenderer | None = None, since: LedgerSection | None = None,
                  docx_path: Path | None = None, condition: dict | None = None, rivals: dict | None = None,
                  windows: pd.DataFrame | None = None, joint: tuple | None = None,
-                 print_copy: bool = False) -> tuple[str, dict, str | None]:
+                 print_copy: bool = False, on_print_copy=None) -> tuple[str, dict, str | None]:
     """Render the report HTML (and, with ``print_copy``, the copy the PDF is made from); write its
     figures (PNG, and SVG when ``report.svg`` asks; drawn or reused by their content keys) and
     tables (CSV) under ``figures_dir``. Returns (html, figures, print copy or None) where figures
@@ -122,7 +137,10 @@ def build_report(study, table, screen, evidence, forecasts, nulls, notes, proven
     conditional.csv and models.csv (:func:`lagsieve.report.rivals.read_outputs`), the competing
     explanations after the leading hypotheses. ``windows``: windows.csv
     (:func:`lagsieve.report.stability.read_windows`), the relationships that change. ``joint``:
-    joint.csv and joint_groups.csv (:func:`lagsieve.report.joint.read_joint`), groups screened jointly."""
+    joint.csv and joint_groups.csv (:func:`lagsieve.report.joint.read_joint`), groups screened jointly.
+    ``on_print_copy`` (with ``renderer``): called with (print copy, its figures) as soon as the print
+    copy exists, before the other figures, the tables and the document are made (the caller starts
+    the PDF there); the print copy is then not returned."""
     figures_dir = Path(figures_dir)
     _clear_tables(figures_dir)
     ctx = Context.of(study, table, screen, evidence, forecasts, nulls, notes, provenance, annual=annual)
@@ -133,12 +151,18 @@ def build_report(study, table, screen, evidence, forecasts, nulls, notes, proven
     plan.jobs += rv.plan_rivals(rivals, ctx.label, ctx.invented)
     plan.jobs += jnt.plan_joint(joint, ctx.label, ctx.invented)
     plan.jobs += stab.plan_stability(evidence, windows, ctx.label, ctx.invented)
-    figs = (fg.render_jobs(plan.jobs, figures_dir, workers=workers, formats=fg.study_formats(study.report))
-            if renderer is None else renderer.draw(plan.jobs))
+    if on_print_copy is not None and renderer is not None:
+        figs, words = _draw_print_first(plan, renderer, ctx, since, provenance, on_print_copy)
+    else:
+        figs = (fg.render_jobs(plan.jobs, figures_dir, workers=workers, formats=fg.study_formats(study.report))
+                if renderer is None else renderer.draw(plan.jobs))
+        words = None
     fg.prune(figures_dir, figs)
     write_tables(ctx, plan, figures_dir)
     if docx_path is not None:
         write_document(ctx, figs, docx_path)
+    if words is not None:  # the print copy was handed to on_print_copy
+        return page_of(words), figs, None
     provenance.setdefault("finished", time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()))
     words = page_context(ctx, figs, plan, since)
     return page_of(words), figs, (print_copy_of(words, plan) if print_copy else None)

@@ -3,9 +3,14 @@ writes the title, cautions and summary as text pages followed by the figures."""
 from __future__ import annotations
 
 import base64
+import importlib.util
 import io
 import logging
+import multiprocessing as mp
+import os
 import re
+import signal
+import sys
 import textwrap
 from pathlib import Path
 
@@ -48,6 +53,12 @@ def pdf_engine() -> str:
     except Exception:  # ImportError, or OSError when its system libraries are missing
         return "matplotlib"
     return "weasyprint"
+
+
+def weasyprint_found() -> bool:
+    """Whether WeasyPrint is installed: found, not imported (the process that writes the PDF
+    imports it; when it cannot, :meth:`PdfJob.finish` falls back to matplotlib)."""
+    return importlib.util.find_spec("weasyprint") is not None
 
 
 def _write_weasyprint(html_text: str, path: str | Path) -> None:
@@ -148,8 +159,96 @@ def pdf_summary_lines(study, evidence: pd.DataFrame) -> list[str]:
     return out
 
 
+class PdfJob:
+    """The PDF copy written by WeasyPrint in a forked process (:func:`start_pdf`) while this
+    process goes on with the report; :meth:`finish` waits for it. The PDF depends only on the print
+    copy and the figure files it names, which exist before the fork, so it is the same file
+    whenever the process ends. Where the platform cannot fork, it is written at once."""
+
+    def __init__(self, html_text: str, path: str | Path, figs: dict, figures_dir: str | Path):
+        self.path = Path(path)
+        self.error: str | None = None
+        self._process = self._conn = None
+        if "fork" not in mp.get_all_start_methods():
+            self.error = _weasyprint_or_error(html_text, self.path, figs, figures_dir)
+            return
+        self._conn, child = mp.get_context("fork").Pipe(duplex=False)
+        sys.stdout.flush()
+        sys.stderr.flush()
+        self._process = mp.get_context("fork").Process(
+            target=_pdf_process, args=(child, html_text, self.path, figs, figures_dir, os.getpid()), daemon=True)
+        self._process.start()
+        child.close()
+
+    def _wait(self) -> None:
+        if self._process is None:
+            return
+        try:
+            self.error = self._conn.recv()
+        except EOFError:  # ended without a word: killed, or out of memory
+            self.error = f"its process ended with exit code {self._process.exitcode}"
+        self._process.join()
+        self._conn.close()
+        self._process = None
+
+    def finish(self, study, evidence: pd.DataFrame, figs: dict) -> str:
+        """Wait for the PDF; returns the engine used. When WeasyPrint failed, the PDF is written by
+        matplotlib here, from every figure of ``figs`` (as :func:`write_pdf` does)."""
+        self._wait()
+        if self.error is None:
+            return "weasyprint"
+        logging.getLogger(__name__).warning("weasyprint failed (%s); writing the PDF with matplotlib", self.error)
+        return write_report_pdf("", self.path, study, evidence, figs, engine="matplotlib")
+
+    def cancel(self) -> None:
+        """Stop the PDF (the report failed): the process is ended, and neither its temporary file
+        nor its PDF is left."""
+        if self._process is not None:
+            self._process.terminate()  # SIGTERM: the process leaves atomic_path, which removes its file
+            self._process.join(10)
+            if self._process.is_alive():
+                self._process.kill()
+                self._process.join()
+            self._conn.close()
+            self._process = None
+        for left in self.path.parent.glob(f".{self.path.name}.*.tmp"):
+            left.unlink(missing_ok=True)
+        self.path.unlink(missing_ok=True)
+
+
+def _weasyprint_or_error(html_text: str, path: Path, figs: dict, figures_dir) -> str | None:
+    """The print copy written by WeasyPrint (figures read from their files); None, or why not."""
+    try:
+        _write_weasyprint(with_figure_files(html_text, figs, figures_dir), path)
+    except Exception as exc:  # a broken installation: the caller falls back to matplotlib
+        return f"{type(exc).__name__}: {exc}"
+    return None
+
+
+def _pdf_process(conn, html_text: str, path: Path, figs: dict, figures_dir, parent: int) -> None:
+    """The forked process of :class:`PdfJob`: SIGTERM becomes SystemExit, so that atomic_path
+    removes the unfinished file, and on Linux the process gets SIGTERM when its parent ends (a
+    report job killed before it waits); sends None or the error's text."""
+    signal.signal(signal.SIGTERM, lambda *_: sys.exit(1))
+    if sys.platform.startswith("linux"):
+        import ctypes  # Linux only: prctl(PR_SET_PDEATHSIG = 1, SIGTERM)
+
+        ctypes.CDLL(None, use_errno=True).prctl(1, int(signal.SIGTERM), 0, 0, 0)
+    if os.getppid() != parent:  # the parent ended before the signal was asked for
+        sys.exit(1)
+    conn.send(_weasyprint_or_error(html_text, path, figs, figures_dir))
+    conn.close()
+
+
+def start_pdf(html_text: str, path: str | Path, figs: dict, figures_dir: str | Path) -> PdfJob:
+    """Start writing the PDF copy of the print copy ``html_text`` with WeasyPrint in a forked
+    process; ``figs`` (name -> (base64 PNG, size)) are read from their PNG files in
+    ``figures_dir``. Returns the job; call :meth:`PdfJob.finish` (or :meth:`PdfJob.cancel`)."""
+    return PdfJob(html_text, path, figs, figures_dir)
+
+
 def write_report_pdf(html_text: str, path: str | Path, study, evidence: pd.DataFrame, figs: dict,
-                     figures_dir: str | Path | None = None) -> str:
+                     figures_dir: str | Path | None = None, engine: str | None = None) -> str:
     """The study's PDF copy: the evidence map first, then the hypotheses' panels, then coverage
     and collinearity (for the matplotlib fallback). Returns the engine used. With ``figures_dir``
     (where the figures' PNG files are) WeasyPrint reads the figures from their files
@@ -161,4 +260,4 @@ def write_report_pdf(html_text: str, path: str | Path, study, evidence: pd.DataF
     return write_pdf(html_text, path, study_id=study.id, title=study.raw.get("title") or study.id,
                      summary=pdf_summary_lines(study, evidence),
                      figures=[(n.replace("__", " / "), figs[n][0]) for n in order if n in figs],
-                     invented=bool(study.raw.get("invented")))
+                     invented=bool(study.raw.get("invented")), engine=engine)

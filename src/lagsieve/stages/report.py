@@ -19,7 +19,7 @@ from lagsieve.report.condition import read_outputs
 from lagsieve.report.figures import FigureRenderer, study_formats
 from lagsieve.report.html import build_report
 from lagsieve.report.joint import read_joint
-from lagsieve.report.pdf import write_report_pdf
+from lagsieve.report.pdf import PdfJob, start_pdf, weasyprint_found, write_report_pdf
 from lagsieve.report.rivals import read_outputs as read_rivals
 from lagsieve.report.stability import read_windows
 from lagsieve.stages.allocator import allocator_variables
@@ -87,20 +87,41 @@ def run_report(config_path, annual_csv, notes_csv, work_dir, screen_csv, evidenc
     docx_path = Path(out_report).with_name("report.docx")
     if docx_path.is_file():  # written again below when wanted; a copy left by an earlier run would be stale
         docx_path.unlink()
-    with FigureRenderer(figures_dir, workers, cache_dir=Path(work_dir) / "figures",
-                        formats=study_formats(study.report)) as renderer:
-        since = ledger_section(resolve_ledger_path(study, Path(out_report).parent), study, evidence)
-        html, figs, print_html = build_report(
-            study, table, screen, evidence, forecasts, nulls, notes, prov, figures_dir, annual=annual,
-            renderer=renderer, since=since, docx_path=docx_path if study.report["docx"] else None,
-            condition=read_outputs(condition), rivals=read_rivals(evidence_csv), windows=read_windows(evidence_csv),
-            joint=read_joint(evidence_csv), print_copy=pdf_wanted(study))
-        write_text(html, out_report)
-        if pdf_wanted(study):
-            prov["pdf"] = write_report_pdf(print_html, pdf_path, study, evidence, figs, figures_dir=figures_dir)
-        else:
-            prov["pdf"] = None
-            if out_pdf is None and pdf_path.is_file():  # a copy left by an earlier run would be stale
-                pdf_path.unlink()
+    # WeasyPrint writes the PDF in a forked process (report.pdf.PdfJob) as soon as the figures of
+    # the print copy are drawn, while this process draws the others and writes tables and document
+    jobs: list[PdfJob] = []
+    early = pdf_wanted(study) and weasyprint_found()
+    try:
+        with FigureRenderer(figures_dir, workers, cache_dir=Path(work_dir) / "figures",
+                            formats=study_formats(study.report)) as renderer:
+            since = ledger_section(resolve_ledger_path(study, Path(out_report).parent), study, evidence)
+            html, figs, print_html = build_report(
+                study, table, screen, evidence, forecasts, nulls, notes, prov, figures_dir, annual=annual,
+                renderer=renderer, since=since, docx_path=docx_path if study.report["docx"] else None,
+                condition=read_outputs(condition), rivals=read_rivals(evidence_csv), windows=read_windows(evidence_csv),
+                joint=read_joint(evidence_csv), print_copy=pdf_wanted(study),
+                on_print_copy=(lambda text, printed: jobs.append(start_pdf(text, pdf_path, printed, figures_dir)))
+                if early else None)
+            write_text(html, out_report)
+        prov["pdf"] = _finish_pdf(study, evidence, figs, print_html, pdf_path, jobs, figures_dir,
+                                  stale=out_pdf is None)
+    except BaseException:
+        for job in jobs:  # no PDF of a report that failed
+            job.cancel()
+        raise
     prov["report_finished"] = _iso(time.time())
     write_json(prov, out_provenance)
+
+
+def _finish_pdf(study: Study, evidence, figs: dict, print_html, pdf_path: Path, jobs: list, figures_dir,
+                stale: bool) -> str | None:
+    """The PDF's engine: the forked WeasyPrint job waited for, or the PDF written here (matplotlib,
+    or WeasyPrint where no job was started); None without a PDF, when an earlier run's copy
+    (``stale``: the default path) is removed."""
+    if jobs:
+        return jobs[0].finish(study, evidence, figs)
+    if pdf_wanted(study):
+        return write_report_pdf(print_html, pdf_path, study, evidence, figs, figures_dir=figures_dir)
+    if stale and pdf_path.is_file():  # a copy left by an earlier run would be stale
+        pdf_path.unlink()
+    return None
