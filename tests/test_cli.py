@@ -4,12 +4,15 @@ from __future__ import annotations
 import hashlib
 import subprocess
 import sys
+from importlib.metadata import version
 from pathlib import Path
 
 import pytest
 import yaml
 
 from helpers import REPO, lagsieve
+
+from lagsieve import cli
 
 
 @pytest.fixture()
@@ -216,3 +219,45 @@ def test_help_has_examples_and_every_argument_explained(command):
         assert action.help, (command, action.dest)
     if command == "run":
         assert "default: all" in " ".join(text.split()) and "cores of this machine" in " ".join(text.split())
+
+
+# ----------------------------------------------------------------------------- the engine's process
+def test_engine_left_without_arguments_is_stopped_and_reaped():
+    """A refused run: the engine `lagsieve run` starts first is killed when the check fails and
+    waited for (no process is left behind)."""
+    with cli._Engine() as engine:
+        proc = engine.proc
+        assert proc.poll() is None  # still importing, waiting for its arguments
+    assert proc.returncode is not None
+
+
+def test_engine_with_empty_input_does_nothing():
+    """An engine whose input closes empty (the run was refused) ends at once, status 0, silent."""
+    proc = subprocess.run([sys.executable, "-m", "lagsieve.stages.engine"], input="", capture_output=True,
+                          text=True)
+    assert (proc.returncode, proc.stdout, proc.stderr) == (0, "", "")
+
+
+@pytest.mark.slow
+def test_engine_runs_snakemake_with_the_arguments_it_is_handed():
+    """The JSON line is Snakemake's command line: `--version` prints the version of the
+    snakemake package installed beside it."""
+    proc = subprocess.run([sys.executable, "-m", "lagsieve.stages.engine"], input='["--version"]\n',
+                          capture_output=True, text=True)
+    assert proc.returncode == 0, proc.stderr
+    assert proc.stdout.strip() == version("snakemake")
+
+
+@pytest.mark.parametrize("extra, environ, expected", [
+    ([], {}, ["--scheduler", "greedy"]),
+    (["-n"], {}, ["--scheduler", "greedy"]),
+    (["--scheduler", "ilp"], {}, []),
+    (["--scheduler=ilp"], {}, []),
+    (["--profile", "profiles/slurm"], {}, []),
+    ([], {"SNAKEMAKE_PROFILE": "mine"}, []),
+])
+def test_greedy_scheduler_unless_the_user_chose(monkeypatch, extra, environ, expected):
+    monkeypatch.delenv("SNAKEMAKE_PROFILE", raising=False)
+    for key, value in environ.items():
+        monkeypatch.setenv(key, value)
+    assert cli._scheduler(extra) == expected

@@ -20,6 +20,7 @@ from __future__ import annotations
 
 import argparse
 import errno
+import json
 import os
 import shlex
 import signal
@@ -44,6 +45,12 @@ INTERRUPTED = "interrupted; run the same command again to continue where it stop
 CONFIG_NAME = "config.yaml"  # what `lagsieve init` writes, and what a study folder given alone must hold
 REINSTALL = "python -m pip install --force-reinstall lagsieve"
 DRY_RUN = {"-n", "--dry-run", "--dryrun"}  # Snakemake's options for a dry run
+# Snakemake's default job selection solves an integer program with an external solver before
+# every start of a job (about 25-40 ms each, nine times for the demo, plus 45 ms to import
+# pulp); it pays off with temporary files or scarce resources, which the workflow does not
+# have, so a run selects greedily unless the user chose a scheduler or a profile
+GREEDY = ["--scheduler", "greedy"]
+CHOSEN_ELSEWHERE = ("--scheduler", "--profile", "--workflow-profile")
 
 
 def _err(msg: str) -> int:
@@ -116,12 +123,20 @@ def cmd_check(args) -> int:
 
 def cmd_run(args, extra: list[str]) -> int:
     """Check the studies and their ledgers, lock the results folder (:mod:`lagsieve.io.lock`),
-    run the workflow. Every refusal comes before anything is written under the results folder."""
-    from lagsieve.ledger.store import check_ledger, resolve_ledger_path  # lazy: see the module docstring
-
+    run the workflow. Every refusal comes before anything is written under the results folder.
+    The workflow engine's process starts first (:class:`_Engine`): its imports overlap the
+    check, and it runs only when the check has passed."""
     if args.cores < 1:
         return _err(f"--cores {args.cores}: a run needs at least one core; give --cores 1 or more "
                     f"(this machine has {os.cpu_count() or 1})")
+    with _Engine() as engine:
+        return _checked_run(args, extra, engine)
+
+
+def _checked_run(args, extra: list[str], engine: _Engine) -> int:
+    """:func:`cmd_run` from the check on, ``engine`` waiting for Snakemake's arguments."""
+    from lagsieve.ledger.store import check_ledger, resolve_ledger_path  # lazy: see the module docstring
+
     try:
         if args.batch is not None and _batch_problems(args.batch, len(args.config)):
             raise InputErrors(_batch_problems(args.batch, len(args.config)))
@@ -143,7 +158,7 @@ def cmd_run(args, extra: list[str]) -> int:
             print(f"note: the run that held {out} has stopped ({lock.took_over.describe()}); "
                   f"this run continues where it stopped", file=sys.stderr)
         try:
-            return _run_workflow(args, extra, checks, cfgs, out, lock)
+            return _run_workflow(args, extra, checks, cfgs, out, lock, engine)
         except InputErrors as exc:
             return report_problems(exc)
 
@@ -164,6 +179,12 @@ def _batch_problems(value: str, n_studies: int) -> list:
     from lagsieve.stages.batch import batch_problems  # lazy: see the module docstring
 
     return [replace(p, key=None, what=f"--batch {value}: {p.what}") for p in batch_problems(value, n_studies)]
+
+
+def _scheduler(extra: list[str]) -> list[str]:
+    """:data:`GREEDY`, or nothing when ``extra`` or the environment chooses (a profile may)."""
+    chosen = any(a.split("=", 1)[0] in CHOSEN_ELSEWHERE for a in extra) or os.environ.get("SNAKEMAKE_PROFILE")
+    return [] if chosen else GREEDY
 
 
 def _snakemake_locked(out: Path) -> bool:
@@ -204,6 +225,39 @@ class _Relay:
             th.join()
 
 
+class _Engine:
+    """Snakemake's process (:mod:`lagsieve.stages.engine`), started early so that its imports
+    overlap the check; :meth:`run` hands it Snakemake's arguments. Left without them (a refusal,
+    Ctrl-C, a fault) it is stopped when the ``with`` block ends, having written nothing."""
+
+    def __init__(self):
+        env = dict(os.environ)
+        env.setdefault("PYTHONUNBUFFERED", "1")  # its lines reach the relay (a pipe) as they are written
+        self.env = env
+        self.proc = subprocess.Popen([sys.executable, "-m", "lagsieve.stages.engine"], env=env,
+                                     stdin=subprocess.PIPE, stdout=subprocess.PIPE, stderr=subprocess.PIPE,
+                                     text=True, errors="replace")
+        self.running = False
+
+    def run(self, argv: list[str]) -> subprocess.Popen:
+        """Start Snakemake with ``argv`` (its options, as after ``python -m snakemake``)."""
+        self.running = True
+        try:
+            self.proc.stdin.write(json.dumps(argv) + "\n")
+            self.proc.stdin.close()
+        except BrokenPipeError:
+            pass  # it has ended (a broken installation): its output and status say why
+        return self.proc
+
+    def __enter__(self) -> _Engine:
+        return self
+
+    def __exit__(self, *exc) -> None:
+        if not self.running:
+            self.proc.kill()  # it has only imported modules
+            self.proc.communicate()
+
+
 def _wait(proc: subprocess.Popen, lock) -> int:
     """Wait for the workflow engine (its pid joins the lock's record); on Ctrl-C, which reaches
     it and its jobs too (one process group), wait while it stops them, so that the lock is
@@ -234,11 +288,12 @@ def _wait_quietly(proc: subprocess.Popen) -> None:
             continue
 
 
-def _run_workflow(args, extra: list[str], checks: list, cfgs: list[Path], out: Path, lock) -> int:
+def _run_workflow(args, extra: list[str], checks: list, cfgs: list[Path], out: Path, lock,
+                  engine: _Engine) -> int:
     """Snakemake on the locked results folder ``out``: a stale Snakemake lock is cleared and
     the jobs a killed run left half done are redone, so a plain rerun continues a run. What
     the check of each study (``checks``) found goes to the workflow's plan in the run config,
-    so that Snakemake does not check the same files again."""
+    so that Snakemake does not check the same files again; ``engine`` runs it."""
     from lagsieve.io.config import WORKFLOW  # lazy: see the module docstring
     from lagsieve.stages.plan import checked_entry, write_run_config  # lazy: see the module docstring
 
@@ -254,18 +309,15 @@ def _run_workflow(args, extra: list[str], checks: list, cfgs: list[Path], out: P
         # the paths go in a YAML file: `--config key=value` would cut a folder name at its commas
         checked = {str(cfg): checked_entry(study, annual) for cfg, (study, annual, _, _) in zip(cfgs, checks)}
         run_config = write_run_config(cfgs, out, work / "run_config.yaml", batch=args.batch, checked=checked)
-        cmd = [sys.executable, "-m", "snakemake", "--snakefile", str(snakefile), "--configfile", str(run_config),
-               "--directory", str(out), "--cores", str(args.cores), *extra]
-        env = dict(os.environ)
-        env.setdefault("PYTHONUNBUFFERED", "1")  # its lines reach the relay (a pipe) as they are written
+        options = ["--snakefile", str(snakefile), "--configfile", str(run_config), "--directory", str(out),
+                   "--cores", str(args.cores), *extra, *_scheduler(extra)]
         if args.resume or lock.took_over is not None or _snakemake_locked(out):
             # a killed run leaves Snakemake's lock behind; this run holds the folder, so it is stale
-            subprocess.run(cmd + ["--unlock"], env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-        cmd.append("--rerun-incomplete")  # and the jobs it left half done are done again
+            subprocess.run([sys.executable, "-m", "snakemake", *options, "--unlock"], env=engine.env,
+                           stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+        options.append("--rerun-incomplete")  # and the jobs it left half done are done again
         spare_final_collection()  # this process only waits from here on (see lagsieve.stages.allocator)
-        proc = subprocess.Popen(cmd, env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
-                                errors="replace")
-        returncode = _wait(proc, lock)
+        returncode = _wait(engine.run(options), lock)
     if returncode == 0 and not dry:
         for study in studies:
             print(f"results in {out / study.id}")
