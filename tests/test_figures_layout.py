@@ -102,3 +102,46 @@ def test_heatmap_cells_coloured_by_r_upper_triangle_hidden(rc):
     assert np.allclose(data.compressed(), shown[~data.mask.reshape(shown.shape)])
     assert mesh.norm.vmin == -1 and mesh.norm.vmax == 1 and mesh.get_cmap() is fg.CORR_CMAP
     assert [t.get_text() for t in fig.axes[0].texts].count("-0.90*") == 1
+
+
+def _overlay_job(name: str, shift: float) -> fg.FigureJob:
+    years = np.arange(1990, 2015)
+    return fg.FigureJob(name, "overlay", dict(years=years, y=np.sin(years + shift), x=np.cos(years), lag=1,
+                                              response=LONG, driver=f"driver {shift}", invented=True))
+
+
+def test_a_figure_set_aside_draws_what_a_new_figure_draws(rc, tmp_path, monkeypatch):
+    """A figure written by _draw_job is cleared and reused by the next builder of its size; the
+    reference is the same job drawn on a new figure: the PNG files are byte for byte equal."""
+    monkeypatch.setattr(fg, "_SPARE", {})
+    first, second = _overlay_job("a", 0.0), _overlay_job("b", 1.0)
+    fg._draw_job(first, str(tmp_path / "reused"), None, ("png",))
+    (spare,) = fg._SPARE.values()
+    fg._draw_job(second, str(tmp_path / "reused"), None, ("png",))
+    assert list(fg._SPARE.values()) == [spare]  # the second job was drawn on the first one's figure
+    fg._SPARE.clear()
+    fg._draw_job(second, str(tmp_path / "new"), None, ("png",))
+    assert (tmp_path / "reused" / "b.png").read_bytes() == (tmp_path / "new" / "b.png").read_bytes()
+
+
+def test_a_figure_held_by_its_caller_is_never_reused(rc, monkeypatch):
+    monkeypatch.setattr(fg, "_SPARE", {})
+    one, two = (fg.BUILDERS["overlay"](**_overlay_job(n, s).kwargs) for n, s in (("a", 0.0), ("b", 1.0)))
+    assert one is not two and len(one.axes) == 1 and one.axes[0].get_lines()
+    assert fg._SPARE == {}
+
+
+def test_default_y_ticks_at_most_y_bins_intervals_chosen_ticks_kept(rc):
+    """Our own rule (no published source): a fixed-layout panel's y axis on matplotlib's default
+    locator gets at most Y_BINS intervals at 1, 2, 2.5 or 5 times a power of ten; ticks a builder
+    chose stay as they are."""
+    years = np.arange(1990, 2015)
+    fig = fg.overlay(years, np.sin(years), np.cos(years), 1, "M", "T")
+    fig.canvas.draw()
+    ticks = fig.axes[0].get_yticks()
+    assert 3 <= len(ticks) <= fg.Y_BINS + 1
+    step = np.diff(ticks)[0] / 10.0 ** np.floor(np.log10(np.diff(ticks)[0]))
+    assert np.allclose(np.diff(ticks), np.diff(ticks)[0]) and any(np.isclose(step, s) for s in (1, 2, 2.5, 5))
+    fig = fg.lag_profile(np.arange(6), np.linspace(-0.3, 0.4, 6), np.full(6, 0.35), 2)
+    fig.canvas.draw()
+    assert [t.get_text() for t in fig.axes[0].get_xticklabels()] == ["0", "1", "2*", "3", "4", "5"]

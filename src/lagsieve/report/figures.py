@@ -36,10 +36,12 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 from matplotlib.layout_engine import LayoutEngine  # noqa: E402
+from matplotlib.backends.backend_agg import FigureCanvasAgg  # noqa: E402
 from matplotlib.collections import PolyCollection  # noqa: E402
 from matplotlib.colors import LinearSegmentedColormap, ListedColormap  # noqa: E402
+from matplotlib.figure import Figure  # noqa: E402
 from matplotlib.patches import Patch, Rectangle  # noqa: E402
-from matplotlib.ticker import FixedFormatter, FixedLocator, MaxNLocator  # noqa: E402
+from matplotlib.ticker import AutoLocator, FixedFormatter, FixedLocator, MaxNLocator  # noqa: E402
 from matplotlib.text import Text  # noqa: E402
 from matplotlib.transforms import Bbox  # noqa: E402
 from PIL import Image  # noqa: E402
@@ -86,7 +88,7 @@ RC = {
     "axes.spines.right": False, "axes.edgecolor": "#555555", "axes.labelcolor": INK,
     "text.color": INK, "xtick.color": "#444444", "ytick.color": "#444444",
     "axes.grid": True, "grid.color": "#e3e3e3", "grid.linewidth": 0.6,
-    "svg.fonttype": "none", "svg.hashsalt": "lagsieve", "figure.dpi": 100,
+    "svg.fonttype": "none", "svg.hashsalt": "lagsieve",
 }
 
 #: One raster per figure, the exported PNG and the page's embedded copy alike: figures are
@@ -95,10 +97,11 @@ RC = {
 #: editing, is written only when asked (config ``report.svg``; FigureRenderer's ``formats``): on
 #: the demo it was a fifth to a quarter of the figures' CPU.
 PNG_DPI = 150
+RC["figure.dpi"] = PNG_DPI  # figures made at the raster's resolution: one renderer measures and draws
 FORMATS = ("png", "svg")   # every format a figure can have, each written by the process that draws it
 RASTER = ("png",)          # the formats of a report that asked for no SVG
 KEY_SUFFIX = ".key"        # the content key stored beside a figure (see content_key)
-KEY_FORMAT = 2             # raise when the key's meaning changes, so no stored figure matches
+KEY_FORMAT = 3             # raise when the key's meaning changes, so no stored figure matches
 INVENTED_NOTE = "invented data"
 
 
@@ -145,6 +148,39 @@ MAX_FIGURE_INCHES = (16.0, 16.0)
 def capped_size(width: float, height: float) -> tuple[float, float]:
     """``(width, height)`` in inches, each at most ``MAX_FIGURE_INCHES``."""
     return min(float(width), MAX_FIGURE_INCHES[0]), min(float(height), MAX_FIGURE_INCHES[1])
+
+
+#: Figures written by :func:`_draw_job` in this process and set aside for the next builder of the
+#: same size and resolution (:func:`subplots`), by (width, height, dpi).
+_SPARE: dict = {}
+_MARGINS = ("left", "right", "bottom", "top", "wspace", "hspace")
+
+
+def subplots(nrows: int = 1, ncols: int = 1, *, figsize, layout=None, **kwargs):
+    """``plt.subplots`` for the builders, without pyplot: a figure of the same size that
+    :func:`_draw_job` has written and set aside in this process is cleared and used again. Its
+    canvas keeps its renderer and with it matplotlib's cache of text sizes, which the next figure's
+    tick labels, axis labels and legend entries mostly hit (a new figure measures every text anew:
+    about a tenth of the CPU of the demo's figures). A figure returned to a caller is never reused
+    while the caller holds it; the drawn result is the same as on a new figure (tests)."""
+    dpi = float(matplotlib.rcParams["figure.dpi"])
+    fig = _SPARE.pop((float(figsize[0]), float(figsize[1]), dpi), None)
+    if fig is None:
+        fig = Figure(figsize=figsize, dpi=dpi)
+        FigureCanvasAgg(fig)
+    fig.set_layout_engine(layout)
+    return fig, fig.subplots(nrows, ncols, **kwargs)
+
+
+def _set_aside(fig) -> None:
+    """Keep a written figure for the next builder of its size (:func:`subplots`): emptied, with a new
+    figure's margins and resolution and no layout engine."""
+    fig.clear()
+    fig.set_layout_engine(None)
+    fig.subplotpars.update(**{k: matplotlib.rcParams[f"figure.subplot.{k}"] for k in _MARGINS})
+    fig.set_dpi(matplotlib.rcParams["figure.dpi"])
+    w, h = fig.get_size_inches()
+    _SPARE[(float(w), float(h), float(fig.dpi))] = fig
 
 
 def _mark_invented(fig, invented: bool) -> None:
@@ -228,11 +264,18 @@ def _tight_box(ax, renderer, fixed: bool):
     return Bbox.union([b for b in boxes if b is not None and np.isfinite(b.bounds).all() and (b.width or b.height)])
 
 
+#: Intervals between the y ticks of a fixed-layout figure whose builder left matplotlib's default
+#: locator (at most Y_BINS + 1 ticks): the default put 8-9 labels on a 3.1-inch panel, each a text
+#: to lay out and draw, where 4-6 read the values as well.
+Y_BINS = 5
+
+
 def fit_layout(fig, pad_pt: float = LAYOUT_PAD_PT) -> None:
     """A fixed layout (the :class:`FitLayout` engine's): the figure's axes (one row) are placed
     once, with margins measured from their own text (tick labels, axis labels, titles, an axes
-    legend), the figure's legends above them and its notes below, and ``pad_pt`` to spare. The
-    ticks are fixed where they were measured (:func:`_fix_ticks`: a narrower axes would otherwise
+    legend), the figure's legends above them and its notes below, and ``pad_pt`` to spare. A y axis
+    on matplotlib's default locator gets at most ``Y_BINS`` intervals. The ticks are fixed where
+    they were measured (:func:`_fix_ticks`: a narrower axes would otherwise
     choose other ticks, and other label widths). One measuring pass (:func:`_tight_box`) and
     ``subplots_adjust``: matplotlib's constrained layout measures every axes twice per draw, about
     40% of drawing a panel (cProfile over the demo's figures). Centred axis labels and titles are
@@ -241,6 +284,9 @@ def fit_layout(fig, pad_pt: float = LAYOUT_PAD_PT) -> None:
     axes = fig.axes
     if not axes:
         return
+    for ax in axes:
+        if type(ax.yaxis.get_major_locator()) is AutoLocator:  # matplotlib's default: 8-9 labels on a panel
+            ax.yaxis.set_major_locator(MaxNLocator(nbins=Y_BINS, steps=[1, 2, 2.5, 5, 10]))
     fixed = {ax: all([_fix_ticks(ax.xaxis), _fix_ticks(ax.yaxis)]) for ax in axes}
     renderer = fig.canvas.get_renderer()
     pad = pad_pt * fig.dpi / 72.0
@@ -316,7 +362,7 @@ def coverage(series: list[str], labels: list[str], roles: list[str], years, obse
     obs = np.asarray(observed, bool)
     fil = np.asarray(filled, bool)
     k = len(series)
-    fig, ax = plt.subplots(figsize=capped_size(8.2, 0.3 * k + 1.25), layout="constrained")
+    fig, ax = subplots(figsize=capped_size(8.2, 0.3 * k + 1.25), layout="constrained")
     for i in range(k):
         colour = RESPONSE_COLOUR if roles[i] == "response" else DRIVER_COLOUR
         runs, start = [], None
@@ -373,7 +419,7 @@ def driver_correlation(corr: np.ndarray, labels: list[str], threshold: float = 0
     m = k - 1
     hidden = np.triu(np.ones((m, m), bool), k=1) | np.isnan(corr)
     side = max(3.6, 0.5 * m + 2.4)
-    fig, ax = plt.subplots(figsize=capped_size(side + 1.2, side), layout="constrained")
+    fig, ax = subplots(figsize=capped_size(side + 1.2, side), layout="constrained")
     # cells as one mesh, white lines between them, row 0 at the top, square cells, a colour bar without
     # an outline (a heatmap as seaborn draws it, without importing seaborn: 0.5 s of CPU in a worker)
     mesh = ax.pcolormesh(np.ma.masked_array(corr, hidden), cmap=CORR_CMAP, vmin=-1, vmax=1, edgecolors="white",
@@ -419,7 +465,7 @@ def evidence_grid(grades: np.ndarray, lags: np.ndarray, row_labels: list[str], c
         for j in range(nc):
             if g[i, j] in GRADE_STYLE:
                 idx[i, j] = order.index(g[i, j])
-    fig, ax = plt.subplots(figsize=capped_size(max(5.5, 0.95 * nc + 2.6), 0.62 * nr + 1.9), layout="constrained")
+    fig, ax = subplots(figsize=capped_size(max(5.5, 0.95 * nc + 2.6), 0.62 * nr + 1.9), layout="constrained")
     cmap = ListedColormap([GRADE_STYLE[k][0] for k in order]).with_extremes(bad="#ffffff")
     ax.imshow(np.ma.masked_invalid(idx), cmap=cmap, vmin=-0.5, vmax=len(order) - 0.5, aspect="auto")
     for i in range(nr):
@@ -453,7 +499,7 @@ def evidence_grid(grades: np.ndarray, lags: np.ndarray, row_labels: list[str], c
 def overlay(years, y, x, lag: int, response: str, driver: str, invented: bool = False):
     """Both series standardised (mean 0, sd 1) on the response's years, the driver shifted
     by its lag so that what is compared is what the screen compared."""
-    fig, ax = plt.subplots(figsize=PANEL_SIZE, layout=FitLayout())
+    fig, ax = subplots(figsize=PANEL_SIZE, layout=FitLayout())
     ax.axhline(0, color="#bbbbbb", lw=0.8)
     yrs, zy, zx = _gapped(years, _z(y), _z(x))
     ax.plot(yrs, zy, "-o", ms=3, lw=1.4, color=RESPONSE_COLOUR, label=mpl_text(_short(response, 60)))
@@ -474,7 +520,7 @@ def scatter(x, y, lag: int, response: str, driver: str, smooth: dict | None = No
     fit when a GAM was screened for this pair."""
     x = np.asarray(x, float)
     y = np.asarray(y, float)
-    fig, ax = plt.subplots(figsize=PANEL_SIZE, layout=FitLayout())
+    fig, ax = subplots(figsize=PANEL_SIZE, layout=FitLayout())
     ax.scatter(x, y, s=15, color=RESPONSE_COLOUR, alpha=0.85, edgecolors="white", linewidths=0.4,
                label="years")
     if len(x) >= 3 and np.ptp(x) > 0:
@@ -499,7 +545,7 @@ def lag_profile(lags, r, r_crit, chosen: int, r_detrended=None, invented: bool =
     lags = np.asarray(lags, float)
     r = np.asarray(r, float)
     rc = np.asarray(r_crit, float)
-    fig, ax = plt.subplots(figsize=PANEL_SIZE, layout=FitLayout())
+    fig, ax = subplots(figsize=PANEL_SIZE, layout=FitLayout())
     edges = np.concatenate([[lags[0] - 0.5], lags + 0.5])
     band = np.concatenate([rc, rc[-1:]])
     ax.fill_between(edges, -band, band, step="post", color="#d9d9d9", alpha=0.8, lw=0,
@@ -527,7 +573,7 @@ def forecasts(years, observed, baselines: dict, model, hardest: str, response: s
               invented: bool = False):
     """Out-of-sample one-step forecasts: observed, the three baselines, and the hardest
     baseline plus the driver (every forecast made from earlier years only)."""
-    fig, ax = plt.subplots(figsize=PANEL_SIZE, layout=FitLayout())
+    fig, ax = subplots(figsize=PANEL_SIZE, layout=FitLayout())
     names = list(baselines)
     yrs, obs, mod, *base = _gapped(years, observed, model, *[baselines[n] for n in names])
     ax.plot(yrs, obs, "-o", ms=3.2, lw=1.2, color="#111111", label="observed", zorder=4)
@@ -581,7 +627,7 @@ def null_distributions(panels: list[dict], invented: bool = False):
     """Histograms of the statistic over the surrogate drivers with the real driver's value.
     ``panels``: dicts with values, observed, label, p, title."""
     n = len(panels)
-    fig, axes = plt.subplots(1, n, figsize=PANEL_SIZE, layout=FitLayout(), squeeze=False)
+    fig, axes = subplots(1, n, figsize=PANEL_SIZE, layout=FitLayout(), squeeze=False)
     for k, (ax, p) in enumerate(zip(axes[0], panels)):
         v = np.asarray(p["values"], float)
         v = v[np.isfinite(v)]
@@ -611,7 +657,7 @@ def gam_effect(grid, curve, lower, upper, x_obs, driver: str, response: str, sta
                invented: bool = False):
     """Partial effect of the driver from the penalised spline, with its pointwise 95% band
     and a rug of the observed driver values."""
-    fig, ax = plt.subplots(figsize=PANEL_SIZE, layout=FitLayout())
+    fig, ax = subplots(figsize=PANEL_SIZE, layout=FitLayout())
     ax.fill_between(grid, lower, upper, color=SMOOTH_COLOUR, alpha=0.18, lw=0, label="95% band")
     ax.plot(grid, curve, color=SMOOTH_COLOUR, lw=1.8, label="partial effect")
     ax.axhline(0, color="#888888", lw=0.8)
@@ -635,7 +681,7 @@ def condition_fit(log_length, log_weight, log_a: float, b: float, seasons: list[
                   invented: bool = False):
     """The length-weight reference on log-log axes (a sample of the fish and the fitted line),
     and the residuals (log Kn) by season as box plots."""
-    fig, (ax, bx) = plt.subplots(1, 2, figsize=(8.6, 3.6), layout=FitLayout())
+    fig, (ax, bx) = subplots(1, 2, figsize=(8.6, 3.6), layout=FitLayout())
     x = np.asarray(log_length, float)
     ax.scatter(x, np.asarray(log_weight, float), s=3, alpha=0.25, color=RESPONSE_COLOUR, linewidths=0,
                label="fish (a sample)")
@@ -655,7 +701,7 @@ def condition_fit(log_length, log_weight, log_a: float, b: float, seasons: list[
 def condition_indices(panels: list[dict], invented: bool = False):
     """Season-adjusted annual indices by age group with their 95% intervals: one panel per kind
     (``panels``: title, ylabel, lines of group, years, value, low, high)."""
-    fig, axes = plt.subplots(1, len(panels), figsize=(4.4 * len(panels), 3.6), layout=FitLayout(),
+    fig, axes = subplots(1, len(panels), figsize=(4.4 * len(panels), 3.6), layout=FitLayout(),
                              squeeze=False)
     for ax, panel in zip(axes[0], panels):
         for k, line in enumerate(panel["lines"]):
@@ -675,7 +721,7 @@ def condition_indices(panels: list[dict], invented: bool = False):
 def condition_design(seasons: list[str], effects: dict, years, design: dict, invented: bool = False):
     """Season effects on log Kn by age group (``effects``: group -> one value per season) and the
     design effect of the annual condition index by year (``design``: group -> one per year)."""
-    fig, (ax, bx) = plt.subplots(1, 2, figsize=(8.6, 3.4), layout=FitLayout())
+    fig, (ax, bx) = subplots(1, 2, figsize=(8.6, 3.4), layout=FitLayout())
     width = 0.8 / max(1, len(effects))
     for k, (group, vals) in enumerate(effects.items()):
         colour = GROUP_COLOURS[k % len(GROUP_COLOURS)]
@@ -699,7 +745,7 @@ def condition_sensitivity(groups: list[str], thresholds: list[float], years, sha
                           invented: bool = False):
     """The season-adjusted poor-condition share by year at every threshold of the grid, one
     panel per age group (``shares``: group -> array thresholds x years); the chosen threshold bold."""
-    fig, axes = plt.subplots(1, len(groups), figsize=(3.2 * len(groups) + 1, 3.4), layout=FitLayout(),
+    fig, axes = subplots(1, len(groups), figsize=(3.2 * len(groups) + 1, 3.4), layout=FitLayout(),
                              squeeze=False, sharey=True)
     cmap = plt.get_cmap("viridis")
     for ax, group in zip(axes[0], groups):
@@ -724,7 +770,7 @@ def variance_fractions(fractions: list[float], labels: list[str], response: str,
              "unexplained"]
     colours = [DRIVER_COLOUR, SMOOTH_COLOUR, RESPONSE_COLOUR, "#b9bec2"]
     v = np.asarray(fractions, float)
-    fig, ax = plt.subplots(figsize=PANEL_SIZE, layout=FitLayout())
+    fig, ax = subplots(figsize=PANEL_SIZE, layout=FitLayout())
     pos = np.arange(len(v))[::-1]
     ax.barh(pos, np.nan_to_num(v), color=colours, height=0.6)
     for y, x in zip(pos, v):
@@ -894,7 +940,7 @@ def _draw_job(job: FigureJob, d: str, key: str | None, formats=FORMATS):
             plt.close("all")
             forget(d, job.name)
             return job.name, None
-        plt.close(fig)
+        _set_aside(fig)
     if key is not None:
         write_text(json.dumps({"key": key, "size": list(size)}), _key_path(Path(d), job.name))
     return job.name, size

@@ -11,7 +11,6 @@ from __future__ import annotations
 
 from pathlib import Path
 
-import matplotlib.pyplot as plt
 import numpy as np
 import pandas as pd
 
@@ -37,7 +36,7 @@ def joint_slopes(groups, slope, low, high, own, shared, shared_low, shared_high,
     """The groups' shrunken slopes with their 95% intervals (filled) and their own least-squares
     slopes (open), youngest first, beside the shared slope and its 95% interval (line and band)."""
     pos = np.arange(len(groups))
-    fig, ax = plt.subplots(figsize=fg.PANEL_SIZE, layout=fg.FitLayout())
+    fig, ax = fg.subplots(figsize=fg.PANEL_SIZE, layout=fg.FitLayout())
     if not is_missing(shared):
         if not is_missing(shared_low) and not is_missing(shared_high):
             ax.axhspan(float(shared_low), float(shared_high), color=fg.SMOOTH_COLOUR, alpha=0.12, linewidth=0,

@@ -11,7 +11,6 @@ from __future__ import annotations
 
 from pathlib import Path
 
-import matplotlib.pyplot as plt
 import numpy as np
 import pandas as pd
 
@@ -35,7 +34,7 @@ def window_correlation(first_year, last_year, r, band_low, band_high, driver: st
     year and its interval marked."""
     mid = (np.asarray(first_year, float) + np.asarray(last_year, float)) / 2.0
     width = int(last_year[0] - first_year[0] + 1) if len(first_year) else 0
-    fig, ax = plt.subplots(figsize=fg.PANEL_SIZE, layout=fg.FitLayout())
+    fig, ax = fg.subplots(figsize=fg.PANEL_SIZE, layout=fg.FitLayout())
     ax.fill_between(mid, band_low, band_high, color="#b9bec2", alpha=0.6, linewidth=0,
                     label="95% of surrogate drivers")
     ax.plot(mid, r, color=fg.DRIVER_COLOUR, linewidth=1.6, label=f"r in {width}-year windows")
