@@ -241,11 +241,16 @@ def test_engine_with_empty_input_does_nothing():
 @pytest.mark.slow
 def test_engine_runs_snakemake_with_the_arguments_it_is_handed():
     """The JSON line is Snakemake's command line: `--version` prints the version of the
-    snakemake package installed beside it."""
+    snakemake package installed beside it; an option Snakemake refuses gives its message and
+    status 2 (argparse's), which the engine's exit without teardown keeps."""
     proc = subprocess.run([sys.executable, "-m", "lagsieve.stages.engine"], input='["--version"]\n',
                           capture_output=True, text=True)
     assert proc.returncode == 0, proc.stderr
     assert proc.stdout.strip() == version("snakemake")
+    proc = subprocess.run([sys.executable, "-m", "lagsieve.stages.engine"], input='["--no-such-option"]\n',
+                          capture_output=True, text=True)
+    assert proc.returncode == 2
+    assert "unrecognized arguments: --no-such-option" in proc.stderr
 
 
 @pytest.mark.parametrize("extra, environ, expected", [
