@@ -175,6 +175,8 @@ def subplots(nrows: int = 1, ncols: int = 1, *, figsize, layout=None, **kwargs):
 def _set_aside(fig) -> None:
     """Keep a written figure for the next builder of its size (:func:`subplots`): emptied, with a new
     figure's margins and resolution and no layout engine."""
+    for ax in fig.axes:
+        ax.remove()  # not cleared first, as fig.clear() would: that rebuilds each axes' ticks to drop them
     fig.clear()
     fig.set_layout_engine(None)
     fig.subplotpars.update(**{k: matplotlib.rcParams[f"figure.subplot.{k}"] for k in _MARGINS})
