@@ -467,7 +467,7 @@ def evidence_grid(grades: np.ndarray, lags: np.ndarray, row_labels: list[str], c
         for j in range(nc):
             if g[i, j] in GRADE_STYLE:
                 idx[i, j] = order.index(g[i, j])
-    fig, ax = subplots(figsize=capped_size(max(5.5, 0.95 * nc + 2.6), 0.62 * nr + 1.9), layout="constrained")
+    fig, ax = subplots(figsize=capped_size(max(5.5, 0.95 * nc + 2.6), 0.62 * nr + 1.9), layout=FitLayout())
     cmap = ListedColormap([GRADE_STYLE[k][0] for k in order]).with_extremes(bad="#ffffff")
     ax.imshow(np.ma.masked_invalid(idx), cmap=cmap, vmin=-0.5, vmax=len(order) - 0.5, aspect="auto")
     for i in range(nr):
