@@ -24,6 +24,7 @@ import os
 import shutil
 import sys
 import textwrap
+import warnings
 import traceback
 from concurrent.futures import ProcessPoolExecutor
 from concurrent.futures.process import BrokenProcessPool
@@ -427,17 +428,15 @@ def driver_correlation(corr: np.ndarray, labels: list[str], threshold: float = 0
     hidden = np.triu(np.ones((m, m), bool), k=1) | np.isnan(corr)
     side = max(3.6, 0.5 * m + 2.4)
     fig, ax = subplots(figsize=capped_size(side + 1.2, side), layout="constrained")
-    # cells as one mesh, white lines between them, row 0 at the top, square cells, a colour bar without
-    # an outline (a heatmap as seaborn draws it, without importing seaborn: 0.5 s of CPU in a worker)
-    mesh = ax.pcolormesh(np.ma.masked_array(corr, hidden), cmap=CORR_CMAP, vmin=-1, vmax=1, edgecolors="white",
-                         linewidth=0.6)
-    ax.set(xlim=(0, m), ylim=(m, 0), aspect="equal")
-    for spine in ax.spines.values():
-        spine.set_visible(False)
-    bar = fig.colorbar(mesh, ax=ax, shrink=0.7, label="Pearson r (same year)")
-    bar.outline.set_linewidth(0)
-    # ink_on picks dark or light text by WCAG contrast (seaborn's annot, used before, switched at
-    # luminance 0.408 and left white on mid blues at 2.7:1)
+    import seaborn as sns  # here, not at the top: 0.55 s of CPU to import, and one figure uses it
+
+    with warnings.catch_warnings():  # seaborn 0.13 calls a colormap method matplotlib plans to rename
+        warnings.simplefilter("ignore", PendingDeprecationWarning)
+        sns.heatmap(corr, mask=hidden, cmap=CORR_CMAP, vmin=-1, vmax=1, center=0, annot=False, square=True,
+                    linewidths=0.6, linecolor="white", cbar_kws={"label": "Pearson r (same year)", "shrink": 0.7},
+                    ax=ax)
+    # the numbers are written here rather than by seaborn's annot, whose switch between dark and
+    # light text at luminance 0.408 left white on mid blues at 2.7:1: ink_on picks by WCAG contrast
     for i, j in zip(*np.nonzero(~hidden)):
         v = corr[i, j]
         ax.text(j + 0.5, i + 0.5, f"{v:.2f}*" if abs(v) > threshold else f"{v:.2f}", ha="center", va="center",
