@@ -3,6 +3,7 @@ from __future__ import annotations
 
 import hashlib
 import subprocess
+import os
 import sys
 from importlib.metadata import version
 from pathlib import Path
@@ -236,6 +237,19 @@ def test_engine_with_empty_input_does_nothing():
     proc = subprocess.run([sys.executable, "-m", "lagsieve.stages.engine"], input="", capture_output=True,
                           text=True)
     assert (proc.returncode, proc.stdout, proc.stderr) == (0, "", "")
+
+
+def test_engine_without_snakemake_says_so_in_one_line(tmp_path):
+    """A damaged installation (Snakemake's command line cannot be imported; here a stand-in
+    package named snakemake first on the path): one line naming the reinstall command, status 2,
+    no traceback."""
+    (tmp_path / "snakemake").mkdir()
+    (tmp_path / "snakemake" / "__init__.py").write_text("raise ImportError('no module named snakemake.cli')\n")
+    env = {**os.environ, "PYTHONPATH": os.pathsep.join([str(tmp_path), *sys.path])}
+    proc = subprocess.run([sys.executable, "-m", "lagsieve.stages.engine"], input="", capture_output=True,
+                          text=True, env=env)
+    assert proc.returncode == 2 and "Traceback" not in proc.stderr
+    assert proc.stderr.count("\n") == 1 and "pip install --force-reinstall lagsieve" in proc.stderr
 
 
 @pytest.mark.slow

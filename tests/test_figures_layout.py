@@ -127,6 +127,16 @@ def test_a_figure_set_aside_draws_what_a_new_figure_draws(rc, tmp_path, monkeypa
     assert (tmp_path / "reused" / "b.png").read_bytes() == (tmp_path / "new" / "b.png").read_bytes()
 
 
+def test_renderer_lets_go_of_the_figures_set_aside_when_it_closes(rc, tmp_path, monkeypatch):
+    """A batch job draws the reports of many studies in one process, with figures of many sizes: the
+    figures set aside for reuse go with the renderer that drew them, so memory does not grow per study."""
+    monkeypatch.setattr(fg, "_SPARE", {})
+    with fg.FigureRenderer(tmp_path / "figs", workers=1) as renderer:
+        renderer.draw([_overlay_job("a", 0.0)])
+        assert len(fg._SPARE) == 1
+    assert fg._SPARE == {}
+
+
 def test_a_figure_held_by_its_caller_is_never_reused(rc, monkeypatch):
     monkeypatch.setattr(fg, "_SPARE", {})
     one, two = (fg.BUILDERS["overlay"](**_overlay_job(n, s).kwargs) for n, s in (("a", 0.0), ("b", 1.0)))

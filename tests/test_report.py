@@ -436,8 +436,33 @@ def test_cancelled_pdf_leaves_no_file(tiny, tmp_path):
         if list(tmp_path.glob(".report.pdf.*.tmp")) or job._process.exitcode is not None:
             break
         job._process.join(0.005)
+    if job._process.exitcode is None:  # still writing: what cancel() sends first, and the process
+        job._process.terminate()      # itself removes its temporary file
+        job._process.join(120)  # a bound, not a timing: it stops at its next Python instruction
+        assert job._process.exitcode == 1, job._process.exitcode
+        assert not list(tmp_path.glob(".report.pdf.*.tmp"))
     job.cancel()
     assert sorted(p.name for p in tmp_path.iterdir()) == []
+
+
+def test_pdf_process_killed_while_writing_falls_back_and_leaves_no_temporary_file(tiny, tmp_path):
+    """Our own rule: a PDF process that ends without a word (SIGKILL, as the out-of-memory killer
+    sends, once its temporary file exists) gives the matplotlib PDF, and the file it left is removed."""
+    if pdf_engine() != "weasyprint":
+        pytest.skip("WeasyPrint is not installed")
+    html, figs, folder = _one_figure_page(tiny, paragraphs=400)
+    out = tmp_path / "report.pdf"
+    job = start_pdf(html, out, figs, folder)
+    for _ in range(2000):  # until WeasyPrint's temporary file exists (or the PDF is done)
+        if list(tmp_path.glob(".report.pdf.*.tmp")) or job._process.exitcode is not None:
+            break
+        job._process.join(0.005)
+    if job._process.exitcode is not None:
+        pytest.skip("the PDF was finished before it could be killed")
+    os.kill(job._process.pid, signal.SIGKILL)
+    study, ev = load_study(tiny["cfg"]), pd.read_csv(tiny["res"] / "evidence.csv")
+    assert job.finish(study, ev, figs) == "matplotlib"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["report.pdf"]
 
 
 KILLED_PARENT = """

@@ -35,7 +35,7 @@ from jinja2 import TemplateNotFound
 
 import lagsieve
 import lagsieve.workflow
-from lagsieve.errors import InputErrors, InputProblem, report_problems
+from lagsieve.errors import REINSTALL, InputErrors, InputProblem, report_problems
 from lagsieve.io.lock import RESULTS_FIX, check_folder, claim_results, make_folder
 from lagsieve.stages.allocator import spare_final_collection
 
@@ -43,7 +43,6 @@ EXIT_USER = 2
 EXIT_INTERRUPTED = 130  # 128 + SIGINT, the shell's convention
 INTERRUPTED = "interrupted; run the same command again to continue where it stopped"
 CONFIG_NAME = "config.yaml"  # what `lagsieve init` writes, and what a study folder given alone must hold
-REINSTALL = "python -m pip install --force-reinstall lagsieve"
 DRY_RUN = {"-n", "--dry-run", "--dryrun"}  # Snakemake's options for a dry run
 # Snakemake's default job selection solves an integer program with an external solver before
 # every start of a job (about 25-40 ms each, nine times for the demo, plus 45 ms to import

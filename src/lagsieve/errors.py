@@ -10,6 +10,9 @@ import sys
 from dataclasses import dataclass, field
 from typing import Any, Iterable
 
+#: How to mend a damaged installation (a file of the package or a library it needs missing)
+REINSTALL = "python -m pip install --force-reinstall lagsieve"
+
 
 @dataclass(frozen=True)
 class InputProblem:

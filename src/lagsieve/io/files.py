@@ -22,12 +22,22 @@ def _umask() -> int:
     return mask
 
 
+TMP_SUFFIX = ".tmp"  # atomic_path's temporary files: .<name>.<random><TMP_SUFFIX> beside the file
+
+
+def unfinished_copies(path: str | Path) -> list[Path]:
+    """The temporary files :func:`atomic_path` left beside ``path`` (a process killed while it
+    wrote, which removes nothing)."""
+    path = Path(path)
+    return sorted(path.parent.glob(f".{path.name}.*{TMP_SUFFIX}"))
+
+
 @contextmanager
 def atomic_path(path: str | Path):
     """Yield a temporary path beside ``path``; on success rename it into place."""
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=TMP_SUFFIX, dir=path.parent)
     os.close(fd)
     os.chmod(tmp, 0o666 & ~_umask())  # mkstemp makes 0600; a result is as readable as any new file
     try:

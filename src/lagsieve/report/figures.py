@@ -24,8 +24,8 @@ import os
 import shutil
 import sys
 import textwrap
-import warnings
 import traceback
+import warnings
 from concurrent.futures import ProcessPoolExecutor
 from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass, field
@@ -943,8 +943,7 @@ def _draw_job(job: FigureJob, d: str, key: str | None, formats=FORMATS):
         except Exception:  # noqa: BLE001 - one figure never stops the report
             sys.stderr.write(f"lagsieve: figure {job.name} could not be drawn; left out of the report\n")
             traceback.print_exc(file=sys.stderr)
-            plt.close("all")
-            forget(d, job.name)
+            forget(d, job.name)  # the half-built figure (made by subplots, not pyplot) is not set aside
             return job.name, None
         _set_aside(fig)
     if key is not None:
@@ -1028,10 +1027,16 @@ class FigureRenderer:
             out[j.name] = (base64.b64encode(png).decode("ascii"), tuple(sizes[j.name]))
         return out
 
-    def close(self) -> None:
+    def release_workers(self) -> None:
+        """End the drawing processes (the next :meth:`draw` starts new ones): this process then
+        runs no thread of the pool's and may fork safely (the report's PDF process)."""
         if self._pool is not None:
             self._pool.shutdown(wait=True)
             self._pool = None
+
+    def close(self) -> None:
+        self.release_workers()
+        _SPARE.clear()  # the figures set aside in this process (a batch job draws many studies)
         if self._asked is not None:
             prune(self.cache_dir, self._asked)
 

@@ -66,6 +66,12 @@ def print_figures(figs: dict, plan) -> dict:
     return {n: v for n, v in figs.items() if n not in left_out}
 
 
+def stamp_finished(provenance: dict) -> None:
+    """The time the report's content is put together (``finished``, "report written"), once the
+    figures the page and document show first are drawn; kept when already stamped."""
+    provenance.setdefault("finished", time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()))
+
+
 def _draw_print_first(plan, renderer: fg.FigureRenderer, ctx: Context, since, provenance: dict,
                       on_print_copy) -> tuple[dict, dict]:
     """The figures of the print copy drawn first, the print copy rendered and handed to
@@ -73,7 +79,7 @@ def _draw_print_first(plan, renderer: fg.FigureRenderer, ctx: Context, since, pr
     while they are. Returns (every figure in the plan's order, the page's words)."""
     printed = print_figures({j.name: None for j in plan.jobs}, plan)
     figs = renderer.draw([j for j in plan.jobs if j.name in printed])
-    provenance.setdefault("finished", time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()))
+    stamp_finished(provenance)
     words = page_context(ctx, figs, plan, since)
     on_print_copy(print_copy_of(words, plan), dict(figs))
     figs.update(renderer.draw([j for j in plan.jobs if j.name not in printed]))
@@ -157,12 +163,12 @@ def build_report(study, table, screen, evidence, forecasts, nulls, notes, proven
         figs = (fg.render_jobs(plan.jobs, figures_dir, workers=workers, formats=fg.study_formats(study.report))
                 if renderer is None else renderer.draw(plan.jobs))
         words = None
+        stamp_finished(provenance)  # before the document, which shows it, as on the path above
     fg.prune(figures_dir, figs)
     write_tables(ctx, plan, figures_dir)
     if docx_path is not None:
         write_document(ctx, figs, docx_path)
     if words is not None:  # the print copy was handed to on_print_copy
         return page_of(words), figs, None
-    provenance.setdefault("finished", time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()))
     words = page_context(ctx, figs, plan, since)
     return page_of(words), figs, (print_copy_of(words, plan) if print_copy else None)

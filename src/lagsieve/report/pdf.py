@@ -19,7 +19,7 @@ import matplotlib.pyplot as plt
 import pandas as pd
 
 from lagsieve.evidence.vocabulary import SUPPORTED
-from lagsieve.io.files import atomic_path
+from lagsieve.io.files import atomic_path, unfinished_copies
 from lagsieve.report import figures as fg
 from lagsieve.report.context import set_aside_reason, summary_line
 from lagsieve.report.sections import CAUTIONS
@@ -185,8 +185,9 @@ class PdfJob:
             return
         try:
             self.error = self._conn.recv()
-        except EOFError:  # ended without a word: killed, or out of memory
+        except EOFError:  # ended without a word: killed, or out of memory, its file left unfinished
             self.error = f"its process ended with exit code {self._process.exitcode}"
+            _remove_unfinished(self.path)
         self._process.join()
         self._conn.close()
         self._process = None
@@ -211,9 +212,14 @@ class PdfJob:
                 self._process.join()
             self._conn.close()
             self._process = None
-        for left in self.path.parent.glob(f".{self.path.name}.*.tmp"):
-            left.unlink(missing_ok=True)
+        _remove_unfinished(self.path)
         self.path.unlink(missing_ok=True)
+
+
+def _remove_unfinished(path: Path) -> None:
+    """The temporary file a PDF process killed while writing left beside ``path``."""
+    for left in unfinished_copies(path):
+        left.unlink(missing_ok=True)
 
 
 def _weasyprint_or_error(html_text: str, path: Path, figs: dict, figures_dir) -> str | None:
@@ -230,6 +236,7 @@ def _pdf_process(conn, html_text: str, path: Path, figs: dict, figures_dir, pare
     removes the unfinished file, and on Linux the process gets SIGTERM when its parent ends (a
     report job killed before it waits); sends None or the error's text."""
     signal.signal(signal.SIGTERM, lambda *_: sys.exit(1))
+    signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C reaches the report's process, which cancels this one
     if sys.platform.startswith("linux"):
         import ctypes  # Linux only: prctl(PR_SET_PDEATHSIG = 1, SIGTERM)
 

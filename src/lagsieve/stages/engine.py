@@ -19,6 +19,8 @@ import os
 import sys
 from pathlib import Path
 
+from lagsieve.errors import REINSTALL
+
 # modules Snakemake 9 imports only once its command runs, on every run (the report plugins and
 # the source cache's URI parser, 0.3-0.4 s of CPU together); a missing one is skipped
 LATER = ("snakemake.report", "smart_open")
@@ -79,6 +81,10 @@ def main() -> int:
         argv = _wait_for_arguments()
     except KeyboardInterrupt:  # Ctrl-C during the check: `lagsieve run` prints the one line
         return 130
+    except ImportError as exc:  # a damaged installation: one line, as for the package's own files
+        print(f"lagsieve: the workflow engine cannot be imported ({exc}); reinstall the package: {REINSTALL}",
+              file=sys.stderr)
+        return 2
     if argv is None:
         return 0
     # Snakemake names its command in its log by sys.argv: the one `python -m snakemake` would show

@@ -100,7 +100,8 @@ def run_report(config_path, annual_csv, notes_csv, work_dir, screen_csv, evidenc
                 renderer=renderer, since=since, docx_path=docx_path if study.report["docx"] else None,
                 condition=read_outputs(condition), rivals=read_rivals(evidence_csv), windows=read_windows(evidence_csv),
                 joint=read_joint(evidence_csv), print_copy=pdf_wanted(study),
-                on_print_copy=(lambda text, printed: jobs.append(start_pdf(text, pdf_path, printed, figures_dir)))
+                on_print_copy=(lambda text, printed: jobs.append(_start_pdf(renderer, text, pdf_path, printed,
+                                                                            figures_dir)))
                 if early else None)
             write_text(html, out_report)
         prov["pdf"] = _finish_pdf(study, evidence, figs, print_html, pdf_path, jobs, figures_dir,
@@ -111,6 +112,13 @@ def run_report(config_path, annual_csv, notes_csv, work_dir, screen_csv, evidenc
         raise
     prov["report_finished"] = _iso(time.time())
     write_json(prov, out_provenance)
+
+
+def _start_pdf(renderer: FigureRenderer, text: str, pdf_path: Path, printed: dict, figures_dir) -> PdfJob:
+    """The PDF's process forked once the drawing processes have ended: a fork from a process with
+    other threads running (the pool's) may leave the child holding a lock no thread will release."""
+    renderer.release_workers()
+    return start_pdf(text, pdf_path, printed, figures_dir)
 
 
 def _finish_pdf(study: Study, evidence, figs: dict, print_html, pdf_path: Path, jobs: list, figures_dir,
