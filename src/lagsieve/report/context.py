@@ -182,13 +182,18 @@ def not_computed(ctx: Context) -> list[tuple[str, list[str]]]:
     return list(groups.items())
 
 
+def leading(ctx: Context, rid) -> list[dict]:
+    """The hypotheses of the response ``rid`` that have a chosen lag, by rank (:func:`ranked`)."""
+    return [r for r in ranked(ctx.rows, rid) if not is_missing(r.get("lag"))]
+
+
 def top_rows(ctx: Context) -> list[dict]:
     """The ``report.top`` best-ranked hypotheses of each response that have a chosen lag (copies:
     the caller may change them)."""
     top_n = int(ctx.study.report.get("top", 3))
     out = []
     for rid in ctx.study.response_ids:
-        out += [dict(r) for r in ranked(ctx.rows, rid) if not is_missing(r.get("lag"))][:top_n]
+        out += [dict(r) for r in leading(ctx, rid)[:top_n]]
     return out
 
 

@@ -16,11 +16,10 @@ from docx.enum.section import WD_ORIENT
 from docx.enum.style import WD_STYLE_TYPE
 from docx.shared import Cm, Pt
 
-from lagsieve.formats import is_missing
 from lagsieve.io.files import atomic_path
 from lagsieve.io.names import pair_slug
 from lagsieve.report import annex
-from lagsieve.report.context import Context, ranked
+from lagsieve.report.context import Context, leading
 from lagsieve.report.exports import FIGURE_WORDS
 from lagsieve.report.methods import reference_list
 from lagsieve.report.sections import CAUTIONS, methods_text
@@ -59,7 +58,7 @@ def key_figures(figs: dict, ctx: Context) -> list[tuple[str, str]]:
     forecasts of the best-ranked hypothesis of each response."""
     out = [("evidence_map", "Evidence map: " + FIGURE_WORDS["evidence_grid"] + ".")] if "evidence_map" in figs else []
     for rid in ctx.study.response_ids:
-        for row in [r for r in ranked(ctx.rows, rid) if not is_missing(r.get("lag"))][:1]:
+        for row in leading(ctx, rid)[:1]:
             name = f"{pair_slug(rid, row['driver'])}__forecasts"
             if name in figs:
                 out.append((name, f"{ctx.label(rid)} and {ctx.label(row['driver'])}: "
