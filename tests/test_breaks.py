@@ -139,6 +139,33 @@ def test_iaaft_keeps_values_and_spectrum():
     assert np.mean([ac(r) for r in s]) == pytest.approx(ac(e), abs=0.1)
 
 
+def _iaaft_one(e, start, rounds):
+    # Schreiber & Schmitz (1996), Phys. Rev. Lett. 77:635, written as the paper states it for one
+    # surrogate: rank-order the values of e after the start, then `rounds` times impose the
+    # Fourier amplitudes of e with the phases exp(i angle) of the current surrogate and restore
+    # the values by rank (srt[argsort(argsort(s))])
+    srt, amp = np.sort(e), np.abs(np.fft.rfft(e - e.mean()))
+    s = srt[np.argsort(np.argsort(start))]
+    for _ in range(rounds):
+        spec = np.fft.rfft(s - s.mean())
+        s = srt[np.argsort(np.argsort(np.fft.irfft(amp * np.exp(1j * np.angle(spec)), n=len(e))))]
+    return s
+
+
+@pytest.mark.parametrize("n, ties", [(25, False), (40, True), (61, False)])
+def test_iaaft_batch_equals_the_papers_steps_one_surrogate_at_a_time(n, ties):
+    # the batched surrogates (phases as spec / |spec|, ranks by one sort and a scatter) are the
+    # same rearrangements as the paper's steps run for each surrogate alone from the same start
+    # (the phase-randomised draws of lagsieve.stats.surrogates, same seed); with tied values too
+    from lagsieve.stats.surrogates import phase_randomised
+    rng = np.random.default_rng(n)
+    e = np.round(rng.normal(size=n), 1) if ties else rng.standard_t(3, size=n)
+    batch = breaks.iaaft(e, 200, np.random.default_rng(5), rounds=4)
+    starts = phase_randomised(e - e.mean(), 200, np.random.default_rng(5))
+    one = np.stack([_iaaft_one(e, st, 5) for st in starts])
+    np.testing.assert_array_equal(batch, one)
+
+
 def test_residual_test_size_with_heavy_tails():
     # A slope that never changes, Student t3 noise, n = 25 (the bench's liberal cell): the share
     # of break p <= 0.05 over 400 worlds lies within the binomial 99% range of a 5% test
