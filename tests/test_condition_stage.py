@@ -3,6 +3,8 @@ section, the stage's files, its series entering the annual table with their se, 
 planted effect recovered through the screen (slow)."""
 from __future__ import annotations
 
+import json
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -77,6 +79,35 @@ def test_condition_stage_writes_its_table_and_the_series_enter_the_annual_table(
     assert (got["se"] > 0).all()
     # the haul effect: Kish's design effect of the old fish's annual index is well above 1
     assert table[table["series"] == "kn:old"]["design_effect"].median() > 1.5
+
+
+def test_align_takes_the_samples_warnings_from_the_condition_stage_without_reading_the_samples(new_study, tmp_path,
+                                                                                               monkeypatch):
+    # two warnings of the samples (a fish without a weight, a column not used): align's notes.csv
+    # holds them as before, when the samples were read again by the input check
+    fish = new_study.parent / "data" / "fish_samples.csv"
+    lines = fish.read_text(encoding="utf-8").splitlines()
+    lines = [lines[0] + ",observer"] + [ln + ",x" for ln in lines[1:]]
+    lines[7] = ",".join(lines[7].split(",")[:4] + ["", *lines[7].split(",")[5:]])  # no weight on row 8
+    fish.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    d = tmp_path / "res"
+    (d / "work").mkdir(parents=True)
+    pipeline.run_condition(new_study, d / "condition.csv", d / "condition_sensitivity.csv",
+                           d / "work" / "condition_fish.csv", d / "work" / "condition_fit.json")
+    from lagsieve.stages import check
+    with monkeypatch.context() as m:  # the samples are not read again
+        m.setattr(check, "read_samples", lambda *a, **k: pytest.fail("samples read again"))
+        pipeline.run_align(new_study, d / "annual.csv", d / "notes.csv", condition=[d / "condition.csv"])
+    record = d / "work" / "condition_fit.json"
+    fit = json.loads(record.read_text(encoding="utf-8"))
+    del fit["sample_warnings"]  # a record of an earlier version: the samples are read again
+    record.write_text(json.dumps(fit), encoding="utf-8")
+    pipeline.run_align(new_study, d / "annual2.csv", d / "notes2.csv", condition=[d / "condition.csv"])
+    assert (d / "notes.csv").read_bytes() == (d / "notes2.csv").read_bytes()
+    assert (d / "annual.csv").read_bytes() == (d / "annual2.csv").read_bytes()
+    notes = pd.read_csv(d / "notes.csv")
+    reasons = notes.loc[notes["action"] == "warning", "reason"].tolist()
+    assert sum("without a weight" in r for r in reasons) == 1 and sum("not used" in r for r in reasons) == 1, reasons
 
 
 def test_plan_knows_which_responses_read_the_condition_table(new_study):

@@ -18,7 +18,7 @@ n_fish / design_effect.
 from __future__ import annotations
 
 import zlib
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
@@ -51,6 +51,9 @@ class ConditionResult:
     season_effects: pd.DataFrame  # age_group, season, effect (log Kn, mean season = 0)
     warnings: list[InputWarning]
     timings: dict[str, float]
+    #: the warnings of the samples and the reference fit alone, those the input check gives
+    #: (:func:`lagsieve.stages.check.check_samples`): the align stage takes them from here
+    sample_warnings: list[InputWarning] = field(default_factory=list)
 
 
 def condition_rng(seed: int) -> np.random.Generator:
@@ -169,7 +172,8 @@ def condition_series(fish: pd.DataFrame, settings: ConditionSettings, seed: int,
     table = table.astype({"year": "int64", "n_fish": "int64", "n_sets": "int64"})
     return ConditionResult(table=table, sensitivity=sensitivity, reference=reference,
                            fish=fish, season_effects=_effects(fits),
-                           warnings=warnings + _unidentified(fits, file), timings=timings)
+                           warnings=warnings + _unidentified(fits, file), timings=timings,
+                           sample_warnings=list(warnings))
 
 
 def read_condition(settings: ConditionSettings, base_dir: str | Path, seed: int,
@@ -183,7 +187,7 @@ def read_condition(settings: ConditionSettings, base_dir: str | Path, seed: int,
     result = condition_series(fish, settings, seed, file, clock)
     timings = {"read": t1 - t0, **result.timings}
     return ConditionResult(**{**result.__dict__, "warnings": warnings + result.warnings,
-                              "timings": timings})
+                              "sample_warnings": warnings + result.sample_warnings, "timings": timings})
 
 
 def input_frame(table: pd.DataFrame, wanted) -> pd.DataFrame:

@@ -11,7 +11,7 @@ from lagsieve.condition.lengthweight import fit_reference
 from lagsieve.condition.samples import assign_groups, read_samples
 from lagsieve.condition.series import input_frame
 from lagsieve.condition.settings import ConditionSettings, check_condition, series_ids
-from lagsieve.errors import InputErrors, InputProblem, item_key, suggest
+from lagsieve.errors import InputErrors, InputProblem, InputWarning, item_key, suggest
 from lagsieve.io.config import YEAR_CONTROL, Study, load_study
 from lagsieve.io.estimates import estimate_problems
 from lagsieve.io.readers import read_inputs
@@ -24,18 +24,22 @@ from lagsieve.prep.seasons import study_season_problems
 from lagsieve.stages.common import condition_table, raise_any
 
 
-def check_study(config_path: str | Path, condition: str | Path | list | None = None):
+def check_study(config_path: str | Path, condition: str | Path | list | None = None,
+                sample_warnings: list[InputWarning] | None = None):
     """Load the config and every input; return (study, annual, notes, warnings).
 
     ``condition``: the study's condition.csv (stage `condition`); without it the condition
     section and its samples are checked, and the series it makes count as present, but their
-    values (not yet computed) are not. Raises :class:`InputErrors` with one problem per line
+    values (not yet computed) are not. ``sample_warnings``: the samples' warnings as the
+    condition stage recorded them (stage `align`: the samples are not read again); None: the
+    samples are read here. Raises :class:`InputErrors` with one problem per line
     for anything the user must fix, the config's, the inputs' and the samples' together.
     """
     study = load_study(config_path)
     raise_any(pattern_problems([str(p) for p in [study.path, *study.input_paths(), *sample_paths(study)]]))
     raise_any(budget_problems(study))  # a plan over the budget: refused before any input is read
-    cond_ids, warnings, problems = check_samples(study)
+    cond_ids, warnings, problems = (check_samples(study) if sample_warnings is None
+                                    else recorded_samples(study, sample_warnings))
     series = set(study.response_ids) | set(study.driver_ids) | {c["id"] for c in study.control_series}
     wanted = series - cond_ids
     try:
@@ -118,6 +122,18 @@ def check_samples(study: Study) -> tuple[set[str], list, list[InputProblem]]:
     except InputErrors as exc:
         return set(), [], list(exc.problems)
     return set(series_ids(settings.age_groups, settings.seasons)), warnings + more + fit, []
+
+
+def recorded_samples(study: Study, warnings: list[InputWarning]) -> tuple[set[str], list, list[InputProblem]]:
+    """:func:`check_samples` from the condition stage's record: the section checked again (cheap),
+    the samples' ``warnings`` as that stage found them."""
+    if study.condition is None:
+        return set(), [], []
+    try:
+        settings = condition_settings(study)
+    except InputErrors as exc:
+        return set(), [], list(exc.problems)
+    return set(series_ids(settings.age_groups, settings.seasons)), list(warnings), []
 
 
 def _condition_clashes(study: Study, cond_ids: set[str], in_inputs: set[str]) -> list[InputProblem]:

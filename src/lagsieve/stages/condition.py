@@ -23,4 +23,6 @@ def run_condition(config_path, out_table, out_sensitivity, out_fish, out_fit) ->
                 "settings": {"threshold": settings.threshold, "thresholds": list(settings.thresholds),
                              "bootstrap": settings.bootstrap, "age_groups": {k: list(v) for k, v in settings.age_groups.items()},
                              "seasons": {k: list(v) for k, v in settings.seasons.items()}},
-                "warnings": [w.line() for w in res.warnings], "timings": res.timings}, out_fit)
+                "warnings": [w.line() for w in res.warnings], "timings": res.timings,
+                "sample_warnings": [{"what": w.what, "file": w.file, "series": w.series}  # for align's check
+                                    for w in res.sample_warnings]}, out_fit)
