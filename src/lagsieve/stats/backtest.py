@@ -352,10 +352,10 @@ def gam_candidate(Z: np.ndarray, Xs: np.ndarray, y: np.ndarray, origins: np.ndar
     (S, L, n_origins), at the GCV-best smoothing parameter of each training window.
     """
     head = Xs[..., :initial]
-    B = bspline_basis(Xs, n_basis, lo=head.min(-1), hi=head.max(-1))  # (S, L, T, K)
     others = Z[:, 1:]  # baseline terms without the intercept
-    S_, L_ = Xs.shape[:2]
-    W = np.concatenate([np.broadcast_to(others, (S_, L_) + others.shape), B], axis=-1)
+    # (S, L, T, p - 1 + K): room for the baseline terms in front of the B-splines, filled in place
+    W = bspline_basis(Xs, n_basis, lo=head.min(-1), hi=head.max(-1), lead=others.shape[1])
+    W[..., :others.shape[1]] = others
     P = penalty_block(difference_penalty(n_basis, 2), others.shape[1])
     # centred on the first window's mean and shifted back: exact, because constants lie in
     # the span of the basis and in the null space of the penalty; it keeps the solver's tiny
