@@ -5,6 +5,7 @@ import hashlib
 import subprocess
 import os
 import sys
+import threading
 from importlib.metadata import version
 from pathlib import Path
 
@@ -14,6 +15,7 @@ import yaml
 from helpers import REPO, lagsieve
 
 from lagsieve import cli
+from lagsieve.stages.engine import end_timers
 
 
 @pytest.fixture()
@@ -250,6 +252,18 @@ def test_engine_without_snakemake_says_so_in_one_line(tmp_path):
                           text=True, env=env)
     assert proc.returncode == 2 and "Traceback" not in proc.stderr
     assert proc.stderr.count("\n") == 1 and "pip install --force-reinstall lagsieve" in proc.stderr
+
+
+def test_engine_cancels_the_timers_left_waiting():
+    """Snakemake's scheduler leaves a non-daemon threading.Timer behind (DEVELOPERS.md, "Start-up
+    and the allocator"); Python waits for it before the process ends unless it is cancelled.
+    A 60 s timer here: end_timers cancels it, its thread ends at once and its function never runs."""
+    fired = []
+    timer = threading.Timer(60, fired.append, args=[1])
+    timer.start()
+    end_timers()
+    timer.join(10)
+    assert not timer.is_alive() and fired == []
 
 
 @pytest.mark.slow

@@ -17,6 +17,7 @@ import importlib
 import json
 import os
 import sys
+import threading
 from pathlib import Path
 
 from lagsieve.errors import REINSTALL
@@ -43,6 +44,19 @@ def _exit_now() -> None:
         except (OSError, ValueError):
             continue
     os._exit(_STATUS[0])
+
+
+def end_timers() -> None:
+    """Cancel the timers still waiting once Snakemake has run. Its scheduler starts a 1 s
+    ``threading.Timer`` after every pass that starts jobs (to look again when
+    ``--max-jobs-per-timespan``, default 100/1s, allows more), and the pass that starts the
+    target rule ``all`` leaves one behind; a timer is not a daemon thread, so Python waited for
+    it before exiting: 1.0 s after the last job of every run (threads listed at the
+    interpreter's shutdown, demo on this shared 2-core machine). The scheduler has returned by
+    now, so the timers would only release a lock that nothing waits on."""
+    for thread in threading.enumerate():
+        if isinstance(thread, threading.Timer):
+            thread.cancel()
 
 
 def _status(code) -> int:
@@ -93,6 +107,7 @@ def main() -> int:
         snakemake_main(argv)  # exits with Snakemake's status
     except SystemExit as done:
         _STATUS[0] = _status(done.code)
+        end_timers()
         raise
     return 0
 
