@@ -15,7 +15,8 @@ last job end) and its CPU time. Each job's figures come from the last line of it
 the stage writes itself (``lagsieve.stages.common.stage_timing``: start and end to the
 millisecond, CPU of the process and of its worker processes, and the process's start-up
 before the stage began: Python, Snakemake's preamble, the imports); Snakemake's own log
-stamps whole seconds only.
+stamps whole seconds only. The screen is one job per study; the CPU of each response it
+screened comes from the last line of that response's log (``logs/screen/<response>.log``).
 
 Then, per workflow script, the import time of exactly what the script imports (and
 Snakemake's preamble), from ``python -X importtime``: the total, and the largest packages.
@@ -47,6 +48,8 @@ REPO = Path(__file__).resolve().parents[1]
 SCRIPTS = REPO / "workflow" / "scripts"
 TIMING = re.compile(r"lagsieve: stage took ([\d.]+) s wall, ([\d.]+) s CPU, ([\d.]+) s CPU in workers; "
                     r"from ([\d.]+) to ([\d.]+) \(epoch s\); process start-up before it ([\d.]+) s \(([\d.]+) s CPU\)")
+#: the line a response's own log ends with (logs/screen/<response>.log; stages.screen._screen_to_cache)
+RESPONSE = re.compile(r"lagsieve: (\S+) screened in ([\d.]+) s wall, ([\d.]+) s CPU")
 SNAKEMAKE_PREAMBLE = "from snakemake.logging import logger\nfrom snakemake.iocontainers import Snakemake\n"
 RULES = ["condition", "screen", "evidence", "report"]
 
@@ -81,6 +84,14 @@ def job_rows(results: Path) -> list[dict]:
     return rows
 
 
+def response_cpu(results: Path) -> list[float]:
+    """The CPU seconds of each response screened in a run (the study's screen job screens its
+    responses in forked workers; each response's log ends with its own figures)."""
+    found = (RESPONSE.search(log.read_text(encoding="utf-8", errors="replace"))
+             for log in sorted(results.glob("*/logs/screen/*.log")))
+    return [float(m.group(3)) for m in found if m is not None]
+
+
 def one_run(variant: str, env: dict, extra: list[str], cores: int) -> tuple[dict, list[dict]]:
     """A fresh study run once; the run's figures and its jobs' rows."""
     with tempfile.TemporaryDirectory(prefix="lagsieve-demo-") as tmp:
@@ -96,9 +107,11 @@ def one_run(variant: str, env: dict, extra: list[str], cores: int) -> tuple[dict
                       if "Traceback" in log.read_text(errors="replace")]
             sys.exit(f"demo run failed ({variant}):\n{proc.stdout[-1500:]}\n" + "\n".join(failed))
         jobs = job_rows(Path(tmp) / "study" / "results")
+        per_response = response_cpu(Path(tmp) / "study" / "results")
     cpu = after.children_user + after.children_system - before.children_user - before.children_system
     run = {"variant": variant, "wall": t1 - t0, "cpu": cpu, "jobs": len(jobs),
-           "before_first_job": min(j["start"] for j in jobs) - t0, "after_last_job": t1 - max(j["end"] for j in jobs)}
+           "before_first_job": min(j["start"] for j in jobs) - t0, "after_last_job": t1 - max(j["end"] for j in jobs),
+           "response_cpu": float(pd.Series(per_response).median()) if per_response else float("nan")}
     for rule in RULES:
         mine = [j for j in jobs if j["rule"] == rule]
         if mine:
@@ -150,6 +163,8 @@ def summary(runs: pd.DataFrame, imports: pd.DataFrame, args, note: str) -> str:
               "Job start-up (Python, Snakemake's preamble, imports; median per run, summed over a rule's jobs): " +
               "; ".join(f"{v}: " + ", ".join(f"{r} {row[f'{r}_startup']:.2f} s" for r in RULES if f"{r}_startup" in row)
                         for v, row in med.iterrows()), "",
+              "Screen CPU per response (the response's own log; median over a run's responses, then over runs): " +
+              "; ".join(f"{v}: {row['response_cpu']:.2f} s" for v, row in med.iterrows()), "",
               "## Imports per workflow script (`python -X importtime`, self times summed, s)", "",
               "| script | total | largest packages |", "| --- | --- | --- |"]
     lines += [f"| {r.script} | {r.total_s:.2f} | {r.largest} |" for r in imports.itertuples()]

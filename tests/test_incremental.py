@@ -9,10 +9,14 @@ What Snakemake decides, and what these tests pin down:
   grades) must rerun, every job downstream of its outputs is scheduled in the same
   invocation, even if it then writes the same bytes; in a *later* invocation byte-identical
   outputs rerun nothing.
-* Each `screen` job (one per response) depends on the input files that hold its response or
-  one of its drivers, not on the study-wide aligned table; so a year appended to a driver's
-  file reruns the screens of the responses that driver is screened against and the
-  study-wide `evidence` and `report` (which updates the ledger first) — nothing else.
+* The `screen` job (one per study) depends on the input files that hold its responses or
+  their drivers, not on the study-wide aligned table, and reruns when one of them changes.
+  Inside it each response is screened again only when its own content key changed
+  (lagsieve.stages.screen_cache: its settings, the bytes it reads, the code); the others are
+  copied from the cache, byte for byte. So a year appended to a driver's file reruns the
+  screens of the responses that driver is screened against and the study-wide `evidence` and
+  `report` (which updates the ledger first) — nothing else. The screen job's log says which
+  responses it computed and which it reused.
 * The forecast ledger is not a declared output: ``--delete-all-output`` leaves it, and the
   rerun that follows adds nothing to it.
 
@@ -24,6 +28,7 @@ from __future__ import annotations
 
 import json
 import os
+import re
 import re
 import sqlite3
 import subprocess
@@ -97,11 +102,18 @@ class Workflow:
         assert found, text[-2000:]
         return sorted(found)
 
-    def outputs(self) -> dict[str, bytes]:
-        return {r: (self.study / "work" / "responses" / r / "screen.csv").read_bytes() for r in RESPONSES}
+    def outputs(self) -> dict[str, dict[str, bytes]]:
+        """Every table of every response's screen, as bytes."""
+        return {r: {t: (self.study / "work" / "responses" / r / t).read_bytes() for t in TABLES} for r in RESPONSES}
+
+    def screened(self) -> dict[str, str]:
+        """What the last screen job did per response (its log): computed or reused."""
+        text = (self.study / "logs" / "screen.log").read_text()
+        return dict(re.findall(r"screen (\S+): (computed|reused)", text))
 
 
-EVERYTHING = sorted([("evidence", ""), ("report", "")] + [("screen", r) for r in RESPONSES])
+TABLES = ("screen.csv", "hypotheses.csv", "forecasts.csv", "nulls.csv", "paired.csv")
+EVERYTHING = sorted([("evidence", ""), ("report", ""), ("screen", "")])  # one screen job for the study
 
 
 @pytest.fixture(scope="module")
@@ -109,6 +121,7 @@ def wf(tmp_path_factory):
     w = Workflow(tmp_path_factory.mktemp("incremental"))
     assert w.jobs() == EVERYTHING
     w.snakemake("-q")
+    assert w.screened() == {r: "computed" for r in RESPONSES}
     return w
 
 
@@ -140,11 +153,12 @@ def test_appended_year_of_a_driver_reruns_its_dependents(wf):
     before = wf.outputs()
     with open(wf.root / "data" / "local.csv", "a") as fh:
         fh.write("local_index,2023,0.250\n")  # pairs (lag 1) with the response of 2024
-    only_age2 = sorted([("evidence", ""), ("report", ""), ("screen", "m--age2")])
-    assert wf.jobs() == only_age2  # the dry-run job list: one screen, keyed by its response
-    assert wf.run() == only_age2
+    assert wf.jobs() == EVERYTHING  # the dry-run job list: the study's screen job, evidence, report
+    assert wf.run() == EVERYTHING
+    # inside the screen job only the response screened against local_index is screened again
+    assert wf.screened() == {"m--age2": "computed", "m--age3-4": "reused", "m--age5plus": "reused"}
     after = wf.outputs()
-    assert after["m--age2"] != before["m--age2"]  # the only response screened against local_index
+    assert after["m--age2"]["screen.csv"] != before["m--age2"]["screen.csv"]
     assert after["m--age3-4"] == before["m--age3-4"] and after["m--age5plus"] == before["m--age5plus"]
     summary = json.loads((wf.study / "work" / "ledger_update.json").read_text())
     assert summary["status"] == "recorded" and summary["run_id"] == 2  # the data fingerprint changed...
@@ -178,9 +192,9 @@ def test_reruns_follow_what_changed_in_the_config(wf):
     # labels and units: the evidence table's sentences use them; no screen reruns
     assert _edited(wf, lambda c: _driver(c, "bottom_temp").update(label="Bottom water temperature")) == \
         sorted([("evidence", ""), ("report", "")])
-    # one driver's settings: the screens it is screened against, then evidence and report
-    assert _edited(wf, lambda c: _driver(c, "local_index").update(lags=[1, 2])) == \
-        sorted([("evidence", ""), ("report", ""), ("screen", "m--age2")])
+    # one driver's settings: the study's screen job (inside it, the responses that driver is
+    # screened against: tests/test_screen_cache.py), then evidence and report
+    assert _edited(wf, lambda c: _driver(c, "local_index").update(lags=[1, 2])) == EVERYTHING
     # a screen setting: every screen
     assert _edited(wf, lambda c: c["screen"].update(surrogates=29)) == EVERYTHING
     assert wf.jobs() == []  # the config put back: nothing to do
@@ -196,6 +210,8 @@ def test_delete_all_output_keeps_the_ledger(wf):
     assert not (wf.study / "work" / "ledger_update.json").exists()
     assert db.is_file()
     wf.snakemake("-q")
+    # the cache is not a declared output: every response's tables come back from it
+    assert wf.screened() == {r: "reused" for r in RESPONSES}
     summary = json.loads((wf.study / "work" / "ledger_update.json").read_text())
     assert summary["status"] == "unchanged" and summary["new"] == 0
     con = sqlite3.connect(str(db))

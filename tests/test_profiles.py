@@ -66,7 +66,7 @@ def test_dry_run_with_the_slurm_profile(tmp_path):
     # the profile's resources reach the jobs: the screen jobs ask for its memory and time
     screen = _profile()["set-resources"]["screen"]
     blocks = [b for b in log.split("rule ") if b.startswith("screen:")]
-    assert len(blocks) == 6  # one per response of the demo study (three of M, three of condition)
+    assert len(blocks) == 1  # one per study: the demo's six responses in one job
     for b in blocks:
         assert f"mem_mb={screen['mem_mb']}" in b and f"runtime={screen['runtime']}" in b
         assert "slurm_partition=CHANGE_ME" in b

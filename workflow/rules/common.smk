@@ -9,19 +9,35 @@ def cfg(wildcards):
     return STUDIES[wildcards.study].config_path
 
 
-def response_files(name):
-    def inner(wildcards):
-        return [
-            f"{OUT}/{wildcards.study}/work/responses/{r}/{name}"
-            for r in STUDIES[wildcards.study].response_slugs
-        ]
-
-    return inner
+def responses_dir(wildcards):
+    """The screen's output: one folder per response of the study (work/responses/<response>/)."""
+    return f"{OUT}/{wildcards.study}/work/responses"
 
 
-def condition_for_response(wildcards):
-    """condition.csv when a series of this response comes from the condition stage."""
-    if wildcards.response in STUDIES[wildcards.study].condition_responses:
+def screen_reads(wildcards):
+    """Per response slug, what its screen reads: its input files and condition.csv (when a
+    series of the response comes from the condition stage, else none)."""
+    planned = STUDIES[wildcards.study]
+    condition = [f"{OUT}/{wildcards.study}/condition.csv"]
+    return {
+        r: {
+            "inputs": list(planned.response_inputs[r]),
+            "condition": condition if r in planned.condition_responses else [],
+        }
+        for r in planned.response_slugs
+    }
+
+
+def screen_inputs(wildcards):
+    """The input files of the study's screen job: those of its responses, in the config's order."""
+    planned = STUDIES[wildcards.study]
+    used = {f for files in planned.response_inputs.values() for f in files}
+    return [f for f in planned.input_paths if f in used]
+
+
+def condition_for_screen(wildcards):
+    """condition.csv when a series of one of the study's responses comes from the condition stage."""
+    if STUDIES[wildcards.study].condition_responses:
         return [f"{OUT}/{wildcards.study}/condition.csv"]
     return []
 

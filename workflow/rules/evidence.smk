@@ -4,16 +4,14 @@ from lagsieve.io.estimates import estimate_paths as _estimate_paths
 rule evidence:
     """Align every input of the study on one annual axis (stage `align`), then study-wide
     q-values, flags, grades and ranks (stage `evidence`). The two stages share one job so that
-    a study costs one job per response plus two."""
+    a study costs three jobs (four with a condition section)."""
     input:
         data=lambda w: STUDIES[w.study].input_paths,
         estimates=lambda w: _estimate_paths(
             STUDIES[w.study].study.responses, STUDIES[w.study].study.base_dir
         ),
         condition=condition_outputs("condition.csv"),
-        hypotheses=response_files("hypotheses.csv"),
-        screens=response_files("screen.csv"),
-        paired=response_files("paired.csv"),
+        responses=responses_dir,  # the screen's tables: hypotheses, screen and paired.csv
     output:
         annual=f"{OUT}/{{study}}/work/annual.csv",
         notes=f"{OUT}/{{study}}/work/notes.csv",

@@ -19,8 +19,7 @@ REPORT_INPUT = dict(
     joint=f"{OUT}/{{study}}/joint.csv",
     joint_groups=f"{OUT}/{{study}}/joint_groups.csv",
     windows=f"{OUT}/{{study}}/windows.csv",
-    forecasts=response_files("forecasts.csv"),
-    nulls=response_files("nulls.csv"),
+    responses=responses_dir,  # the screen's forecasts and nulls of every response
     condition=condition_outputs(
         "condition.csv",
         "condition_sensitivity.csv",

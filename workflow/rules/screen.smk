@@ -2,34 +2,36 @@ from lagsieve.stages.digest import settings_digest as _settings_digest
 
 
 rule screen:
-    """One response against all its drivers: lags, surrogates, rolling-origin forecasts. The
-    config is a param, with the digest of the settings this screen reads, so that the job
-    reruns when those change, not when a title, a label or another driver does."""
+    """Every response of a study against its drivers: lags, surrogates, rolling-origin
+    forecasts, in one job (lagsieve.stages.screen.run_screens). The job reruns when any of its
+    responses' input files or settings change; inside it, a response whose content key is
+    unchanged (its settings, the bytes it reads, the code) is copied from work/cache/screen/
+    instead of screened again (lagsieve.stages.screen_cache). The config is a param, with the
+    digest of the settings each response's screen reads, so that the job reruns when those
+    change, not when a title or a label does."""
     input:
-        data=lambda w: STUDIES[w.study].response_inputs[w.response],
-        condition=condition_for_response,
+        data=screen_inputs,
+        condition=condition_for_screen,
     output:
-        screen=f"{OUT}/{{study}}/work/responses/{{response}}/screen.csv",
-        hypotheses=f"{OUT}/{{study}}/work/responses/{{response}}/hypotheses.csv",
-        forecasts=f"{OUT}/{{study}}/work/responses/{{response}}/forecasts.csv",
-        nulls=f"{OUT}/{{study}}/work/responses/{{response}}/nulls.csv",
-        paired=f"{OUT}/{{study}}/work/responses/{{response}}/paired.csv",
+        # one folder per response: screen, hypotheses, forecasts, nulls and paired.csv; a
+        # folder, since the number of responses differs between studies
+        responses=directory(f"{OUT}/{{study}}/work/responses"),
     log:
-        f"{OUT}/{{study}}/logs/screen/{{response}}.log",
+        f"{OUT}/{{study}}/logs/screen.log",
     conda:
         "../envs/lagsieve.yaml"
-    # one core per screen job, two jobs at once on two cores, rather than a two-process pool in
-    # each job one after the other: less CPU (no pool to start, no results pickled back;
-    # 18.6 s against 21.0-23.2 s for the demo's six screens) and the next job's start-up runs
-    # beside a job that computes (DEVELOPERS.md, "Start-up and the allocator")
-    threads: 1
+    # the responses to do are screened two at a time in processes forked after the imports:
+    # one job's start and imports for the study, not one per response (DEVELOPERS.md)
+    threads: 2
     resources:
-        mem_mb=1000,
+        mem_mb=2000,
         runtime=30,
     params:
         config=cfg,
-        settings=lambda w: _settings_digest(
-            STUDIES[w.study].study, "screen", w.response
-        ),
+        settings=lambda w: {
+            r: _settings_digest(STUDIES[w.study].study, "screen", r)
+            for r in STUDIES[w.study].response_slugs
+        },
+        reads=screen_reads,
     script:
         "../scripts/screen.py"

@@ -1,10 +1,9 @@
-# Thin wrapper: stage `screen` for one response (see lagsieve.stages.screen.run_screen).
+# Thin wrapper: stage `screen` for every response of a study (see lagsieve.stages.screen.run_screens).
 from pathlib import Path
 
 from lagsieve.stages.common import logged
-from lagsieve.stages.screen import run_screen
+from lagsieve.stages.screen import run_screens
 
 with logged(snakemake):
-    run_screen(snakemake.params.config, None, snakemake.wildcards.response,
-               Path(snakemake.output.screen).parent, threads=snakemake.threads, files=list(snakemake.input.data),
-               condition=list(snakemake.input.condition))
+    run_screens(snakemake.params.config, snakemake.params.reads, snakemake.output.responses,
+                Path(snakemake.log[0]).with_suffix(""), threads=snakemake.threads)
