@@ -334,13 +334,21 @@ def _jacobi_last(a: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
 
 def _rotate(a: np.ndarray, V: np.ndarray, p: int, q: int) -> None:
-    """One Jacobi rotation in the (p, q) plane of every matrix of the stack: a[p, q] -> 0."""
+    """One Jacobi rotation in the (p, q) plane of every matrix of the stack: a[p, q] -> 0. The
+    products and sums are taken in place, in the order of the textbook formulas (a temporary
+    per step would cost an allocation and a pass over memory each)."""
     apq = a[p, q].copy()
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        tau = (a[q, q] - a[p, p]) / (2.0 * apq)
-        t = np.copysign(1.0, tau) / (np.abs(tau) + np.hypot(1.0, tau))
-    np.nan_to_num(t, copy=False)  # apq = 0 on a tie: no rotation (an infinite tau gives t = 0 itself)
-    c = 1.0 / np.sqrt(1.0 + t * t)
+        tau = a[q, q] - a[p, p]
+        tau /= 2.0 * apq
+        t = np.hypot(1.0, tau)
+        t += np.abs(tau)
+        np.divide(np.copysign(1.0, tau), t, out=t)
+    np.copyto(t, 0.0, where=np.isnan(t))  # apq = 0 on a tie: no rotation (an infinite tau gives t = 0 itself)
+    c = t * t
+    c += 1.0
+    np.sqrt(c, out=c)
+    np.divide(1.0, c, out=c)
     s = t * c
     t *= apq
     a[p, p] -= t
@@ -349,8 +357,16 @@ def _rotate(a: np.ndarray, V: np.ndarray, p: int, q: int) -> None:
     for k in range(a.shape[0]):
         if k != p and k != q:
             akp, akq = a[k, p].copy(), a[k, q]
-            a[k, p] = a[p, k] = c * akp - s * akq
-            a[k, q] = a[q, k] = s * akp + c * akq
-    vp = V[:, p].copy()
-    V[:, p] = c * vp - s * V[:, q]
-    V[:, q] = s * vp + c * V[:, q]
+            new = c * akp
+            new -= s * akq
+            akp *= s
+            akp += c * akq
+            a[k, p] = a[p, k] = new
+            a[k, q] = a[q, k] = akp
+    vp, vq = V[:, p].copy(), V[:, q]
+    new = c * vp
+    new -= s * vq
+    vp *= s
+    vp += c * vq
+    V[:, p] = new
+    V[:, q] = vp

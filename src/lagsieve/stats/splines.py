@@ -1180,7 +1180,10 @@ def _sherman_morrison_steps(X, U0, Y, wr, state, penalty):
     q = P.shape[0]
 
     def q_times(a):  # (lambda P + ridge) a: the penalty shared by every system, one 2-D product
-        return lam * (P @ a.reshape(q, -1)).reshape(a.shape) + ridge * a
+        out = (P @ a.reshape(q, -1)).reshape(a.shape)
+        out *= lam
+        out += ridge * a
+        return out
 
     us, ks = [], []
     for j in range(U0.shape[0]):
@@ -1191,7 +1194,12 @@ def _sherman_morrison_steps(X, U0, Y, wr, state, penalty):
         e = yj - _sum_rows(x, b)
         k = (wj / den) * u
         d = k * e
-        rs = rs + _sum_rows(d, (wj * e / den) * x - q_times(d) - 2.0 * q_times(b))
+        g = (wj * e / den) * x  # the old rows' gradient term, then minus Q d and 2 Q b, in place
+        g -= q_times(d)
+        qb = q_times(b)
+        qb *= 2.0
+        g -= qb
+        rs = rs + _sum_rows(d, g)
         b = b + d
         rs = rs + wj * (yj - _sum_rows(x, b)) ** 2
         us.append(u)
