@@ -29,6 +29,7 @@ from lagsieve.io.config import load_study, screen_defaults
 from lagsieve.stats.joint import (
     balanced_fit,
     design,
+    design_part,
     heterogeneity_null,
     joint_rolling_origin,
     mixed_fit,
@@ -230,6 +231,29 @@ def test_heterogeneity_null_keeps_the_real_ratio():
     fit = balanced_fit(D[0], Y, trend)
     ratio = fit.between[-1, -1] / (fit.sigma2 * fit.W[-1, -1])
     assert heterogeneity_null(D, Y, trend)[0] == pytest.approx(ratio, rel=1e-9)
+
+
+def test_fits_that_share_the_designs_part_equal_fits_made_alone():
+    """A batch fit given the designs' part made for another response (design_part), the
+    heterogeneity null given it, and the mixed fit given the caller's closed form give exactly
+    what each gives when it makes its own (the evidence stage reuses them; the fits themselves
+    are checked against statsmodels' MixedLM above)."""
+    t = _world(6, [0.2, 0.5, 0.8])
+    x = t["drv"].shift(1).to_numpy()[1:]
+    Y = t[GROUPS].to_numpy().T[:, 1:]
+    rng = np.random.default_rng(6)
+    D = design(np.vstack([x, rng.permuted(np.tile(x, (30, 1)), axis=1)]), False)
+    trend = level_and_trend(t.index.to_numpy()[1:])
+    part = design_part(D, trend)
+    alone, shared = balanced_fit(D, Y, trend), balanced_fit(D, Y, trend, part)
+    for name in ("coef", "shared", "sigma2", "between", "W"):
+        np.testing.assert_array_equal(getattr(shared, name), getattr(alone, name))
+    np.testing.assert_array_equal(heterogeneity_null(D, Y, trend, part), heterogeneity_null(D, Y, trend))
+    closed = balanced_fit(D[0], Y, trend)
+    given, made = mixed_fit(D[0], Y, trend, closed), mixed_fit(D[0], Y, trend)
+    for name in ("shared", "shared_se", "sigma", "group_coef", "group_se"):
+        np.testing.assert_array_equal(getattr(given, name), getattr(made, name))
+    assert given.lrt == made.lrt and given.sigma2 == made.sigma2
 
 
 def test_words_rule_order():

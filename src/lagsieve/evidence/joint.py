@@ -50,6 +50,7 @@ from lagsieve.stats.joint import (
     any_group_stat,
     balanced_fit,
     design,
+    design_part,
     heterogeneity_null,
     joint_rolling_origin,
     mixed_fit,
@@ -138,13 +139,14 @@ def scan_lags(table: pd.DataFrame, responses: list[str], batch: np.ndarray, lags
         D, trend = design(xk[:, ok], False), level_and_trend(table.index.to_numpy()[ok])
         if not _varies(D[0, :, 0], trend):
             continue
-        fit = balanced_fit(D, Y[:, ok], trend)
+        part = design_part(D, trend)  # shared by the two fits of the batch at this lag
+        fit = balanced_fit(D, Y[:, ok], trend, part)
         used.append(int(k))
         rows.append(ok)
         any_stat.append(any_group_stat(fit, sign))
         shared.append(directed(shared_t(fit), sign))
         group_t.append(np.abs(slope_t(fit)))
-        differ.append(heterogeneity_null(D, Y[:, ok], trend))
+        differ.append(heterogeneity_null(D, Y[:, ok], trend, part))
     if not used:
         return None
     return LagScan(lags=np.asarray(used), rows=rows, any_stat=np.stack(any_stat), shared_stat=np.stack(shared),
@@ -162,8 +164,9 @@ def _fit_entries(x: np.ndarray, Y: np.ndarray, years: np.ndarray, alpha_level: f
     x (T,) the real driver at that lag on the rows of Y (G, T)."""
     trend = level_and_trend(years)
     D = design(x, False)
-    own = balanced_fit(D, Y, trend).coef[:, -1]
-    fit = mixed_fit(D, Y, trend)
+    closed = balanced_fit(D, Y, trend)
+    own = closed.coef[:, -1]
+    fit = mixed_fit(D, Y, trend, closed)
     G = Y.shape[0]
     t = _st.t.ppf(0.5 + alpha_level / 2, G - 1)
     z = _st.norm.ppf(0.5 + alpha_level / 2)

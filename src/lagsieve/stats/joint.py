@@ -105,22 +105,42 @@ class BalancedFit:
         return self.shared[..., None, :] + dev @ np.swapaxes(lam, -1, -2)
 
 
-def balanced_fit(D: np.ndarray, Y: np.ndarray, nuisance: np.ndarray | None = None) -> BalancedFit:
+@dataclass(frozen=True)
+class DesignPart:
+    """What :func:`balanced_fit` computes from the designs and the nuisance alone, shared by fits
+    of other responses on the same designs (:func:`design_part`)."""
+
+    H: np.ndarray    # (T, T) :func:`residual_maker` of the nuisance
+    q: int           # the nuisance's rank
+    Drt: np.ndarray  # (..., p, T) the designs after the nuisance, as rows
+    W: np.ndarray    # (..., p, p) (D'D)^-1 after the nuisance
+
+
+def design_part(D: np.ndarray, nuisance: np.ndarray | None = None) -> DesignPart:
+    """:class:`DesignPart` of the batch of designs D (..., T, p) and ``nuisance`` (T, q)."""
+    D = np.asarray(D, float)
+    T = D.shape[-2]
+    H = residual_maker(nuisance, T)
+    q = 0 if nuisance is None else np.linalg.matrix_rank(nuisance)
+    Dt = np.swapaxes(D, -1, -2)  # (..., p, T): the batch's designs as rows, so each product is one 2-D matmul
+    Drt = (Dt.reshape(-1, T) @ H.T).reshape(Dt.shape)  # H symmetric: the designs after the nuisance
+    return DesignPart(H=H, q=q, Drt=Drt, W=np.linalg.inv(Drt @ np.swapaxes(Drt, -1, -2)))
+
+
+def balanced_fit(D: np.ndarray, Y: np.ndarray, nuisance: np.ndarray | None = None,
+                 part: DesignPart | None = None) -> BalancedFit:
     """:class:`BalancedFit` of responses Y (G, T) on a batch of designs D (..., T, p)
-    (:func:`design`), each group with its own fixed coefficients on ``nuisance`` (T, q).
+    (:func:`design`), each group with its own fixed coefficients on ``nuisance`` (T, q);
+    ``part``: :func:`design_part` of the same D and nuisance when another fit made it.
 
     Needs G >= 2 groups and T > p + q years, all observed (no NaN)."""
     Y = np.asarray(Y, float)
     G, T = Y.shape
-    H = residual_maker(nuisance, T)
-    q = 0 if nuisance is None else np.linalg.matrix_rank(nuisance)
-    D = np.asarray(D, float)
-    p = D.shape[-1]
-    Dt = np.swapaxes(D, -1, -2)  # (..., p, T): the batch's designs as rows, so each product is one 2-D matmul
-    Drt = (Dt.reshape(-1, T) @ H.T).reshape(Dt.shape)  # H symmetric: the designs after the nuisance
-    Dr, Yr = np.swapaxes(Drt, -1, -2), Y @ H
-    W = np.linalg.inv(Drt @ Dr)
-    coef = np.swapaxes(W @ (Drt.reshape(-1, T) @ Yr.T).reshape(Dt.shape[:-1] + (G,)), -1, -2)  # (..., G, p)
+    part = design_part(D, nuisance) if part is None else part
+    Drt, W, q = part.Drt, part.W, part.q
+    p = Drt.shape[-2]
+    Yr = Y @ part.H
+    coef = np.swapaxes(W @ (Drt.reshape(-1, T) @ Yr.T).reshape(Drt.shape[:-1] + (G,)), -1, -2)  # (..., G, p)
     fitted = coef @ Drt  # (..., G, T)
     sigma2 = np.sum((Yr - fitted) ** 2, (-1, -2)) / (G * (T - p - q))
     shared = coef.mean(-2)
@@ -160,20 +180,21 @@ def heterogeneity_ratio(fit: BalancedFit) -> np.ndarray:
     return fit.between[..., -1, -1] / (fit.sigma2 * fit.W[..., -1, -1])
 
 
-def heterogeneity_null(D: np.ndarray, Y: np.ndarray, nuisance: np.ndarray | None = None) -> np.ndarray:
+def heterogeneity_null(D: np.ndarray, Y: np.ndarray, nuisance: np.ndarray | None = None,
+                       part: DesignPart | None = None) -> np.ndarray:
     """(S,) :func:`heterogeneity_ratio` of every member of the batch D (S, T, p) fitted to the
     residuals of the real driver's (D[0]) model with one common slope (the other coefficients
     of every group its own). For D[0] it equals the ratio on Y itself (the residuals differ from
     Y by the restricted model's columns); each surrogate meets the errors of a shared
     relationship, so the rank of D[0] among them tests "the slopes differ" while keeping the
     errors' autocorrelation (the residual idea of Freedman & Lane 1983, J. Bus. Econ. Stat.
-    1:292-298)."""
+    1:292-298). ``part``: :func:`design_part` of D and the nuisance when another fit made it."""
     fit = balanced_fit(D[0], Y, nuisance)
     T = Y.shape[1]
     other = D[0][:, :-1] if nuisance is None else np.column_stack([nuisance, D[0][:, :-1]])
     H = residual_maker(other if other.shape[1] else None, T)
     resid = (Y - fit.shared[-1] * D[0][:, -1][None, :]) @ H
-    return heterogeneity_ratio(balanced_fit(D, resid, nuisance))
+    return heterogeneity_ratio(balanced_fit(D, resid, nuisance, part))
 
 
 @dataclass(frozen=True)
@@ -277,7 +298,7 @@ def one_slope_loglik(D: np.ndarray, Y: np.ndarray, nuisance: np.ndarray | None =
 OPTIMISERS = ("bfgs", "powell")
 
 
-def _mixed_model(D: np.ndarray, Y: np.ndarray, nuisance: np.ndarray | None):
+def _mixed_model(D: np.ndarray, Y: np.ndarray, nuisance: np.ndarray | None, closed: BalancedFit):
     """statsmodels MixedLM of the stacked groups (fixed [group nuisance, D], random D by group),
     started from the closed form (on balanced data the REML estimate itself when it is inside the
     parameter space), by the first of :data:`OPTIMISERS` that reaches the closed form's REML
@@ -287,7 +308,6 @@ def _mixed_model(D: np.ndarray, Y: np.ndarray, nuisance: np.ndarray | None):
     G, T = Y.shape
     X, Z = _stacked(D, G, nuisance)
     model = MixedLM(Y.reshape(-1), X, groups=np.repeat(np.arange(G), T), exog_re=Z)
-    closed = balanced_fit(D, Y, nuisance)
     rel = closed.sigma / closed.sigma2 + 1e-12 * np.eye(D.shape[1])  # cov_re / scale as statsmodels has it (PD)
     start = MixedLMParams.from_components(np.zeros(X.shape[1]), cov_re=rel)
     target = reml_loglik(D, Y, closed.sigma, float(closed.sigma2), nuisance)
@@ -307,18 +327,20 @@ def _mixed_model(D: np.ndarray, Y: np.ndarray, nuisance: np.ndarray | None):
     return max(fits, key=lambda f: f[0])[1]
 
 
-def mixed_fit(D: np.ndarray, Y: np.ndarray, nuisance: np.ndarray | None = None) -> MixedFit:
+def mixed_fit(D: np.ndarray, Y: np.ndarray, nuisance: np.ndarray | None = None,
+              own: BalancedFit | None = None) -> MixedFit:
     """REML fit of the random-coefficient model of Y (G, T) on the design D (T, p) (driver last;
     each group its own fixed coefficients on ``nuisance`` (T, q)) by statsmodels' MixedLM; the
     likelihood-ratio test of group-specific slopes against one shared slope (same fixed
     effects, so REML likelihoods compare; :func:`one_slope_loglik`, :func:`mixture_p`); the
-    groups' shrunken coefficients with their prediction standard errors (:func:`prediction_se`)."""
-    full = _mixed_model(D, Y, nuisance)
+    groups' shrunken coefficients with their prediction standard errors (:func:`prediction_se`).
+    ``own``: :func:`balanced_fit` of the same D, Y and nuisance when the caller has made it."""
+    own = balanced_fit(D, Y, nuisance) if own is None else own  # the closed form, the optimisers' start
+    full = _mixed_model(D, Y, nuisance, own)
     G = Y.shape[0]
     p = D.shape[1]
     sigma = np.asarray(full.cov_re, float)
     shared = np.asarray(full.fe_params, float)[-p:]
-    own = balanced_fit(D, Y, nuisance)
     V = sigma + float(full.scale) * own.W
     blup = shared[None, :] + (own.coef - shared[None, :]) @ (sigma @ np.linalg.pinv(V)).T  # = MixedLM's, also at zero
     lrt = float(max(0.0, 2.0 * (reml_loglik(D, Y, sigma, float(full.scale), nuisance)
