@@ -6,7 +6,7 @@ from __future__ import annotations
 
 import pytest
 
-from lagsieve.stages import plan
+from lagsieve.stages import check, plan
 from lagsieve.stages.check import check_study
 
 
@@ -24,7 +24,8 @@ def test_a_study_just_checked_is_planned_without_a_second_check(new_study, tmp_p
     config = _handed(new_study, tmp_path)
     checked = config["checked"][str(new_study)]
     calls = []
-    monkeypatch.setattr(plan, "check_study", lambda path: calls.append(path) or check_study(path))
+    # the plan imports the check only when it needs it (it reads the inputs with pandas)
+    monkeypatch.setattr(check, "check_study", lambda path: calls.append(path) or check_study(path))
     planned = plan.plan_studies(config)["caldrin_shelf_demo"]
     assert calls == []
     # the demo's responses read different files (the condition series no mortality table)

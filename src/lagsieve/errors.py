@@ -63,6 +63,12 @@ class InputErrors(Exception):
         return "\n".join(p.line() for p in self.problems)
 
 
+def raise_any(problems: list[InputProblem]) -> None:
+    """Raise :class:`InputErrors` when there is any problem."""
+    if problems:
+        raise InputErrors(problems)
+
+
 def report_problems(exc: "InputErrors", stream=None) -> int:
     """Print one line per problem (to stderr by default); return the user-error exit status 2."""
     stream = sys.stderr if stream is None else stream

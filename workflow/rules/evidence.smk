@@ -1,4 +1,4 @@
-from lagsieve.io.estimates import estimate_paths as _estimate_paths
+from lagsieve.io.studyfiles import estimate_paths as _estimate_paths
 
 
 rule evidence:

@@ -176,9 +176,3 @@ def estimate_problems(responses: list[dict], base_dir: str | Path, annual: pd.Da
         except InputErrors as exc:
             problems += list(exc.problems)
     return problems
-
-
-def estimate_paths(responses: list[dict], base_dir: str | Path) -> list[Path]:
-    """Every draws and vintages file of ``responses`` (config entries), resolved against the
-    config's folder: inputs of the evidence job."""
-    return [Path(base_dir) / r[k] for r in responses for k in ("draws", "vintages") if r.get(k)]

@@ -11,8 +11,10 @@ import os
 import tempfile
 from contextlib import contextmanager
 from pathlib import Path
+from typing import TYPE_CHECKING
 
-import pandas as pd
+if TYPE_CHECKING:  # write_csv calls the frame's own to_csv: the planning of a run imports no pandas
+    import pandas as pd
 
 
 def _umask() -> int:

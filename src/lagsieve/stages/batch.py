@@ -21,7 +21,6 @@ from types import SimpleNamespace
 
 from lagsieve.errors import InputErrors, InputProblem, report_problems, show
 from lagsieve.io.files import write_json
-from lagsieve.stages.common import logged
 from lagsieve.stages.plan import PlannedStudy, files_stamp, study_files
 
 CONDITION_OUTPUTS = ("condition.csv", "condition_sensitivity.csv", "work/condition_fish.csv", "work/condition_fit.json")
@@ -77,6 +76,7 @@ def run_study(planned: PlannedStudy, out: Path, threads: int = 1) -> None:
     from lagsieve.stages.condition import run_condition  # lazy: see above
     from lagsieve.stages.evidence import run_align, run_evidence  # lazy: see above
     from lagsieve.stages.report import run_report  # lazy: see above
+    from lagsieve.stages.common import logged  # lazy: see above (pandas)
     from lagsieve.stages.screen import run_screen  # lazy: see above
 
     cfg, d = planned.config_path, out / planned.study.id

@@ -11,17 +11,18 @@ from lagsieve.condition.lengthweight import fit_reference
 from lagsieve.condition.samples import assign_groups, read_samples
 from lagsieve.condition.series import input_frame
 from lagsieve.condition.settings import ConditionSettings, check_condition, series_ids
-from lagsieve.errors import InputErrors, InputProblem, InputWarning, item_key, suggest
+from lagsieve.errors import InputErrors, InputProblem, InputWarning, item_key, raise_any, suggest
 from lagsieve.io.config import YEAR_CONTROL, Study, load_study
 from lagsieve.io.estimates import estimate_problems
 from lagsieve.io.readers import read_inputs
+from lagsieve.io.studyfiles import pattern_problems, sample_paths
 from lagsieve.io.tables import UnusedSeries, empty_frame
 from lagsieve.prep.annual import to_annual
 from lagsieve.prep.budget import budget_problems
 from lagsieve.prep.checks import (backtest_warnings, check_positive, series_warnings, state_space_warnings,
                                   unscreenable_responses)
 from lagsieve.prep.seasons import study_season_problems
-from lagsieve.stages.common import condition_table, raise_any
+from lagsieve.stages.common import condition_table
 
 
 def check_study(config_path: str | Path, condition: str | Path | list | None = None,
@@ -66,17 +67,6 @@ def check_study(config_path: str | Path, condition: str | Path | list | None = N
     return study, annual, notes, warnings
 
 
-def pattern_problems(paths: list[str]) -> list[InputProblem]:
-    """Paths the workflow engine would misread: it takes '{...}' in any file name it tracks for
-    a placeholder and has no escape for a literal brace."""
-    bad = [p for p in dict.fromkeys(paths) if "{" in p or "}" in p]
-    if not bad:
-        return []
-    more = f" (so do {len(bad) - 1} more paths of the study)" if len(bad) > 1 else ""
-    return [InputProblem(what=f"the path holds '{{' or '}}'{more}, which the workflow engine reads as a placeholder",
-                         fix="rename the folder or file without braces (or move the study)", file=bad[0])]
-
-
 def _check_values(study: Study, annual: pd.DataFrame, long: pd.DataFrame, unknown: set[str]) -> None:
     """Value checks of the annual table; those that need a series of ``unknown`` (condition
     series not computed yet) are left to the stage that has them."""
@@ -92,16 +82,6 @@ def _check_values(study: Study, annual: pd.DataFrame, long: pd.DataFrame, unknow
     raise_any([p for p in unscreenable_responses(study, annual) if keep(p)])
     if study.screen.get("weights") == "inverse-variance":
         raise_any([p for p in _responses_without_se(study, annual) if keep(p)])
-
-
-def sample_paths(study: Study) -> list[Path]:
-    """The condition stage's per-fish files, resolved against the config's folder."""
-    if study.condition is None:
-        return []
-    specs = study.condition.get("samples") or []
-    specs = [specs] if isinstance(specs, (str, dict)) else specs
-    return [study.base_dir / (sp["path"] if isinstance(sp, dict) else str(sp)) for sp in specs
-            if isinstance(sp, (str, dict)) and (not isinstance(sp, dict) or isinstance(sp.get("path"), str))]
 
 
 def condition_settings(study: Study) -> ConditionSettings | None:

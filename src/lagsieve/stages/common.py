@@ -15,7 +15,6 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from lagsieve.errors import InputErrors, InputProblem
 from lagsieve.io.config import Study
 from lagsieve.io.names import slug
 from lagsieve.prep.align import annual_table
@@ -134,12 +133,6 @@ def ordered(df: pd.DataFrame, columns: list[str]) -> pd.DataFrame:
         if c not in out.columns:
             out[c] = np.nan
     return out[columns + [c for c in out.columns if c not in columns]]
-
-
-def raise_any(problems: list[InputProblem]) -> None:
-    """Raise :class:`InputErrors` when there is any problem."""
-    if problems:
-        raise InputErrors(problems)
 
 
 def response_dirs(work: str | Path, study: Study) -> dict[str, Path]:

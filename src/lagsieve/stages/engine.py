@@ -1,14 +1,14 @@
 """The workflow engine's process, started by `lagsieve run` while it checks the studies.
 
-``python -m lagsieve.stages.engine`` imports Snakemake's command line, what it imports later
-on every run (:data:`LATER`) and what the Snakefile imports to plan (the lagsieve modules of
-its first lines, with pandas and jsonschema), then waits for one line on its standard input:
-Snakemake's arguments as a JSON list, which it runs as ``python -m snakemake ARGS`` would. An
-empty input (the run was refused) ends it with nothing done. The imports are most of the
-engine's work before its first job (about 1.7 of 1.9-2.1 s of CPU for a dry run of the demo on
-this shared 2-core machine) and the check of `lagsieve run` takes about 1.2 s, so on two cores
-the two overlap instead of following each other. Nothing is written before the arguments
-arrive: a refusal of the check still comes first.
+``python -m lagsieve.stages.engine`` imports Snakemake's command line, what it imports later on
+every run (:data:`LATER`) and what the Snakefile imports to plan (the lagsieve modules of its
+first lines, with jsonschema; not pandas: tests/test_architecture.py), then waits for one line
+on its standard input: Snakemake's arguments as a JSON list, which it runs as ``python -m
+snakemake ARGS`` would. An empty input (the run was refused) ends it with nothing done. The
+imports are most of the engine's work before its first job (about 1.7 of 1.9-2.1 s of CPU for a
+dry run of the demo on this shared 2-core machine) and the check of `lagsieve run` takes about
+1.2 s, so on two cores the two overlap instead of following each other. Nothing is written
+before the arguments arrive: a refusal of the check still comes first.
 """
 from __future__ import annotations
 

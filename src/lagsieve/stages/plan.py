@@ -12,13 +12,12 @@ from pathlib import Path
 import yaml
 
 from lagsieve.condition.settings import series_ids
-from lagsieve.errors import InputErrors, report_problems
+from lagsieve.errors import InputErrors, raise_any, report_problems
 from lagsieve.io.config import Study, load_study
 from lagsieve.io.files import sha256_file, sha256_text, write_text
 from lagsieve.io.names import slug
 from lagsieve.io.provenance import tool_version
-from lagsieve.stages.check import check_study, pattern_problems, sample_paths
-from lagsieve.stages.common import raise_any
+from lagsieve.io.studyfiles import pattern_problems, sample_paths
 
 FULL_CHECK_LIMIT = 50
 
@@ -153,6 +152,10 @@ def _load(path: str, full: bool, handed: dict | None) -> tuple[Study, dict | Non
         return st, handed["response_inputs"]
     if not full:
         return st, None
+    # imported here: the check reads the inputs with pandas, which a run whose studies
+    # `lagsieve run` has just checked never imports to plan (lagsieve.io.studyfiles)
+    from lagsieve.stages.check import check_study
+
     st, annual, _, _ = check_study(path)
     inputs = [str(p) for p in st.input_paths()]
     return st, _response_inputs(st, annual, inputs)
