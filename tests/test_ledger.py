@@ -556,6 +556,57 @@ def test_since_previous_run_lists_data_grades_and_outcomes(history):
     assert "does not match the grades of this report" in stale
 
 
+def test_since_previous_run_reads_the_forecasts_once_and_agrees_with_the_readers_alone(history, monkeypatch):
+    """The track record and the scores by grade of the section come from the one scored frame read
+    for the run's outcomes: the same frames as track_record and scores_by_grade read on their own
+    (the section's former path), and the forecasts table read once."""
+    from lagsieve.ledger import track
+
+    con = open_readonly(history["d"].db)
+    try:
+        alone = track_record(con, STUDY), scores_by_grade(con, STUDY)
+        reads = []
+        real = track.forecasts_frame
+        monkeypatch.setattr(track, "forecasts_frame", lambda *a: reads.append(a) or real(*a))
+        s = since_previous_run(con, STUDY)
+    finally:
+        con.close()
+    assert len(reads) == 1
+    assert len(alone[0]) and alone[1]["scored"].sum() > 0  # a history with scored forecasts
+    pd.testing.assert_frame_equal(s.track, alone[0])
+    pd.testing.assert_frame_equal(s.by_grade, alone[1])
+
+
+def test_track_row_without_scores_is_the_general_row_and_err_baseline_the_own_baselines_error(history):
+    """A hypothesis with no scored forecast gets its row by a short path (counts 0, scores missing):
+    the same values as the general path given no scored forecast; err_baseline is the err_<b>
+    column of each forecast's own baseline b (the former code took it row by row)."""
+    from lagsieve.ledger import track
+
+    con = open_readonly(history["d"].db)
+    try:
+        f = track.scored_frame(con, STUDY)
+    finally:
+        con.close()
+    assert f["baseline"].nunique() > 1 and (f["status"] == "scored").any()
+    own = [r[f"err_{r['baseline']}"] for _, r in f.iterrows()]
+    np.testing.assert_array_equal(f["err_baseline"].to_numpy(float), np.array(own, float))
+    checked = 0
+    for (r, d), g in f.groupby(["response", "driver"], sort=True):
+        unscored = g[g["status"] != "scored"]
+        if unscored.empty:
+            continue
+        short, general = track._unscored_row(r, d, unscored), track._scored_row(r, d, unscored, unscored.iloc[0:0])
+        assert list(short) == track.TRACK_COLUMNS and set(general) == set(short)
+        assert all(short[k] == general[k] or (pd.isna(short[k]) and pd.isna(general[k])) for k in short), (short, general)
+        assert all(type(short[k]) is type(general[k]) for k in short if not pd.isna(short[k]))
+        checked += 1
+    assert checked
+    by = track.scores_by_grade(None, STUDY, f.assign(status="open"))  # no forecast scored: the short path
+    assert by["made"].sum() == len(f) and by["scored"].eq(0).all()
+    assert by[track.BY_GRADE_COLUMNS[3:]].isna().all().all() and by["mae"].dtype == float
+
+
 def test_section_html_is_escaped_and_never_raises(tmp_path):
     odd = tmp_path / "a<b&c" / "ledger.sqlite"
     html = ledger_section_html(odd, STUDY, None)

@@ -428,5 +428,6 @@ def forecasts_frame(con: sqlite3.Connection, study: str) -> pd.DataFrame:
         m = b[b["baseline"] == bl].set_index("forecast_id")["forecast"]
         f[f"fc_{bl}"] = f["forecast_id"].map(m)
         f[f"err_{bl}"] = f["observed"] - f[f"fc_{bl}"]
-    f["err_baseline"] = [r[f"err_{r['baseline']}"] for _, r in f.iterrows()]
+    errors = {bl: f[f"err_{bl}"].tolist() for bl in BASELINES}  # by column, not row by row (iterrows)
+    f["err_baseline"] = [errors[bl][i] for i, bl in enumerate(f["baseline"].tolist())]
     return f

@@ -85,6 +85,13 @@ def scored_frame(con, study: str) -> pd.DataFrame:
 
 def _track_row(response: str, driver: str, g: pd.DataFrame) -> dict:
     sc = g[g["status"] == "scored"]
+    if sc.empty:  # nothing scored yet (every forecast of a study's first runs): the same row, built faster
+        return _unscored_row(response, driver, g)
+    return _scored_row(response, driver, g, sc)
+
+
+def _scored_row(response: str, driver: str, g: pd.DataFrame, sc: pd.DataFrame) -> dict:
+    """The track record of one hypothesis: its forecasts ``g``, the scored ones ``sc``."""
     row = {"response": response, "driver": driver, "made": len(g), "open": int((g["status"] == "open").sum()),
            "scored": len(sc), "superseded": int((g["status"] == "superseded").sum()),
            "inside": int(sc["inside"].sum()) if len(sc) else 0,
@@ -99,26 +106,37 @@ def _track_row(response: str, driver: str, g: pd.DataFrame) -> dict:
     return row
 
 
-def track_record(con, study: str) -> pd.DataFrame:
+def _unscored_row(response: str, driver: str, g: pd.DataFrame) -> dict:
+    """:func:`_track_row` of a hypothesis with no scored forecast: counts 0, every score missing."""
+    status = g["status"].tolist()
+    row = {"response": response, "driver": driver, "made": len(g), "open": status.count("open"), "scored": 0,
+           "superseded": status.count("superseded"), "inside": 0, "rescored": 0, "beat_hardest": 0,
+           "last": _latest_words(g.iloc[-1])}
+    return {c: row.get(c, float("nan")) for c in TRACK_COLUMNS}
+
+
+def track_record(con, study: str, scored: pd.DataFrame | None = None) -> pd.DataFrame:
     """Per hypothesis: forecasts made, open, scored, superseded; on the scored ones, how many fell
     inside their interval (coverage), mean absolute error, and skill 1 - SSE(candidate) / SSE(b)
     against the baselines' forecasts made at the same time. ``skill_hardest`` and
     ``beat_hardest`` (names kept for the report) are against the baseline the candidate was built
     on (the forecast's ``baseline``): its skill, and the forecasts with the smaller squared error.
-    Superseded forecasts are counted but never scored."""
-    f = scored_frame(con, study)
+    Superseded forecasts are counted but never scored. ``scored``: the study's
+    :func:`scored_frame` when the caller has it already (else read here)."""
+    f = scored_frame(con, study) if scored is None else scored
     if f.empty:
         return pd.DataFrame(columns=TRACK_COLUMNS)
     rows = [_track_row(r, d, g) for (r, d), g in f.groupby(["response", "driver"], sort=True)]
     return pd.DataFrame(rows, columns=TRACK_COLUMNS)
 
 
-def scores_by_grade(con, study: str) -> pd.DataFrame:
+def scores_by_grade(con, study: str, scored: pd.DataFrame | None = None) -> pd.DataFrame:
     """The scores of every scored forecast grouped by the grade its hypothesis had when the
     forecast was made (strong, moderate, every other grade): the ledger's prospective test of the
     grades. Per group: forecasts made and scored, coverage, mean absolute error, mean CRPS,
-    mean interval score and the skill 1 - SSE / SSE(own baseline)."""
-    f = scored_frame(con, study)
+    mean interval score and the skill 1 - SSE / SSE(own baseline). ``scored``: as in
+    :func:`track_record`."""
+    f = scored_frame(con, study) if scored is None else scored
     if f.empty:
         return pd.DataFrame(columns=BY_GRADE_COLUMNS)
     group = f["grade"].where(f["grade"].isin(GRADE_GROUPS[:2]), GRADE_GROUPS[2])
@@ -127,6 +145,9 @@ def scores_by_grade(con, study: str) -> pd.DataFrame:
         g = f[group == name]
         sc = g[g["status"] == "scored"]
         if g.empty:
+            continue
+        if sc.empty:  # the same row as below, without its work on no rows: every score missing
+            rows.append({"grade": name, "made": len(g), "scored": 0} | dict.fromkeys(BY_GRADE_COLUMNS[3:], np.nan))
             continue
         rows.append({"grade": name, "made": len(g), "scored": len(sc), "coverage": _mean(sc["inside"]),
                      "mae": _mean(sc["error"].abs()), "crps": _mean(sc["crps"]),
@@ -150,10 +171,10 @@ def data_changes(con, run_id: int, prev_id: int | None) -> pd.DataFrame:
     sql = "SELECT series, year, value_sha FROM series_years WHERE run_id = ?"
     cur = query_frame(con, sql, (run_id,))
     prev = query_frame(con, sql, (prev_id,)) if prev_id is not None else cur.iloc[0:0]
+    before, after = _years_by_series(prev), _years_by_series(cur)
     rows = []
-    for s in sorted(set(cur["series"]) | set(prev["series"])):
-        a = dict(zip(prev.loc[prev.series == s, "year"], prev.loc[prev.series == s, "value_sha"]))
-        b = dict(zip(cur.loc[cur.series == s, "year"], cur.loc[cur.series == s, "value_sha"]))
+    for s in sorted(set(after) | set(before)):
+        a, b = before.get(s, {}), after.get(s, {})
         last_prev = max(a) if a else None
         new = [y for y in b if y not in a]
         rows.append({"series": s,
@@ -162,6 +183,14 @@ def data_changes(con, run_id: int, prev_id: int | None) -> pd.DataFrame:
                      "restated": [y for y in b if y in a and a[y] != b[y]],
                      "removed": [y for y in a if y not in b]})
     return pd.DataFrame(rows, columns=["series", "added", "filled_in", "restated", "removed"])
+
+
+def _years_by_series(frame: pd.DataFrame) -> dict[str, dict]:
+    """series -> {year: value_sha}, in the frame's row order (a repeated year: its last value)."""
+    out: dict[str, dict] = {}
+    for s, y, v in zip(frame["series"].tolist(), frame["year"].tolist(), frame["value_sha"].tolist()):
+        out.setdefault(s, {})[y] = v
+    return out
 
 
 # ---------------------------------------------------------------- why a grade changed
@@ -286,14 +315,14 @@ def since_previous_run(con, study: str, run_id: int | None = None) -> SinceLastR
     prev_run = earlier.iloc[-1].to_dict() if len(earlier) else None
     prev_id = int(prev_run["run_id"]) if prev_run else None
     g_cur = _grades(con, run_id)
-    f = scored_frame(con, study)
-    if f.empty:
-        f = pd.DataFrame(columns=["response", "driver", "run_id", "scored_run", "superseded_run", "status"])
+    every = scored_frame(con, study)  # read once: the track record and the scores by grade use it too
+    f = every if not every.empty else pd.DataFrame(
+        columns=["response", "driver", "run_id", "scored_run", "superseded_run", "status"])
     scored, superseded = f[f["scored_run"] == run_id], f[f["superseded_run"] == run_id]
     changes = (grade_changes(_grades(con, prev_id), g_cur, json.loads(cur_run["screen_json"]), scored, superseded)
                if prev_id is not None else pd.DataFrame(columns=GRADE_CHANGE_COLUMNS))
     graded = g_cur[(g_cur["note"] != "") & g_cur["grade"].isin(SUPPORTED)] if len(g_cur) else empty
     notes = graded[["response", "driver", "grade", "note"]] if len(graded) else empty
     return SinceLastRun(cur_run, prev_run, data_changes(con, run_id, prev_id), changes, scored, superseded,
-                        f[f["run_id"] == run_id], notes, track_record(con, study), len(runs),
-                        revisions_at(con, run_id), scores_by_grade(con, study))
+                        f[f["run_id"] == run_id], notes, track_record(con, study, every), len(runs),
+                        revisions_at(con, run_id), scores_by_grade(con, study, every))
