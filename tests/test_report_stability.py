@@ -69,3 +69,21 @@ def test_template_escapes_labels_and_shows_notes():
 def test_no_section_without_break_columns():
     assert rs.section(pd.DataFrame({"response": ["y"], "driver": ["x"]}), None, label) is None
     assert rs.read_windows("/nonexistent/evidence.csv") is None
+
+
+def test_flagged_rows_in_the_order_of_the_former_frame_sort():
+    """The flagged hypotheses come from the evidence rows as dicts (the report's Context.rows), in the
+    order the former code gave: pandas' stable sort_values on rank, missing ranks last, missing flags
+    read as none; section and plan give the same with the rows handed over or made here."""
+    from lagsieve.report.context import records
+
+    ev = pd.DataFrame({"response": "y", "driver": list("abcdef"), "rank": [3, np.nan, 1, 3, 2, np.nan],
+                       "flags": ["unstable", "collinear;unstable", np.nan, "unstable;x", "lag-selected", "unstable"]})
+    hit = ev["flags"].fillna("").astype(str).str.split(";").map(lambda f: "unstable" in f)
+    former = ev[hit].sort_values("rank", kind="mergesort")["driver"].tolist()
+    assert former == ["a", "d", "b", "f"]
+    assert [r["driver"] for r in rs._flagged(ev, records(ev))] == former
+    ev2, win = _run()
+    assert rs.section(ev2, win, label, records(ev2)) == rs.section(ev2, win, label)
+    assert ([j.name for j in rs.plan_stability(ev2, win, label, True, records(ev2))]
+            == [j.name for j in rs.plan_stability(ev2, win, label, True)])

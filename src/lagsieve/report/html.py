@@ -98,7 +98,7 @@ def page_context(ctx: Context, figs: dict, plan, since: LedgerSection | None = N
                   rivals=rv.section(ctx.rivals, ctx.study.response_ids, ctx.label),
                   statespace=ssp.section(ctx.evidence, ctx.label),
                   estimates=est.section(ctx.evidence, ctx.label),
-                  stability=stab.section(ctx.evidence, ctx.windows, ctx.label),
+                  stability=stab.section(ctx.evidence, ctx.windows, ctx.label, ctx.rows),
                   joint=jnt.section(ctx.joint, ctx.label))
 
 
@@ -156,7 +156,7 @@ def build_report(study, table, screen, evidence, forecasts, nulls, notes, proven
     plan.jobs += cond.plan_condition(condition, ctx.invented, int(study.screen["seed"]))
     plan.jobs += rv.plan_rivals(rivals, ctx.label, ctx.invented)
     plan.jobs += jnt.plan_joint(joint, ctx.label, ctx.invented)
-    plan.jobs += stab.plan_stability(evidence, windows, ctx.label, ctx.invented)
+    plan.jobs += stab.plan_stability(evidence, windows, ctx.label, ctx.invented, ctx.rows)
     if on_print_copy is not None and renderer is not None:
         figs, words = _draw_print_first(plan, renderer, ctx, since, provenance, on_print_copy)
     else:

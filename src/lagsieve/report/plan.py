@@ -72,7 +72,7 @@ def _plan_map(ctx: Context, plan: Plan) -> None:
                                           "drivers": len(dids), "all_drivers": len(all_d)}
     grades = np.full((len(rids), len(dids)), None, dtype=object)
     lags = np.full((len(rids), len(dids)), np.nan)
-    for row in ctx.evidence.to_dict("records"):
+    for row in ctx.rows:  # the evidence rows as dicts, made once per report (Context.rows)
         if row["response"] in rids and row["driver"] in dids:
             i, j = rids.index(row["response"]), dids.index(row["driver"])
             grades[i, j] = row.get("grade")

@@ -17,6 +17,7 @@ import pandas as pd
 from lagsieve.formats import is_missing, number, p_text
 from lagsieve.io.names import pair_slug
 from lagsieve.report import figures as fg
+from lagsieve.report.context import missing_last, records
 
 MAX_FIGURES = 30  # window figures in one report (flagged hypotheses, best ranked first)
 
@@ -61,21 +62,23 @@ def figure_name(response: str, driver: str) -> str:
     return f"windows__{pair_slug(response, driver)}"
 
 
-def _flagged(evidence: pd.DataFrame) -> pd.DataFrame:
-    """Hypotheses flagged unstable, best ranked first."""
-    if "flags" not in evidence or not len(evidence):
-        return evidence.iloc[0:0]
-    hit = evidence["flags"].fillna("").astype(str).str.split(";").map(lambda f: "unstable" in f)
-    out = evidence[hit]
-    return out.sort_values("rank", kind="mergesort") if "rank" in out else out
+def _flagged(evidence: pd.DataFrame, rows: list[dict]) -> list[dict]:
+    """The rows (``rows``: the evidence table's, :func:`~lagsieve.report.context.records`) of the
+    hypotheses flagged unstable, best ranked first (missing ranks last, ties in table order)."""
+    if "flags" not in evidence:
+        return []
+    hit = [r for r in rows if "unstable" in ("" if is_missing(r["flags"]) else str(r["flags"])).split(";")]
+    return sorted(hit, key=lambda r: missing_last(r["rank"])) if "rank" in evidence else hit
 
 
-def plan_stability(evidence: pd.DataFrame, windows: pd.DataFrame | None, label, invented: bool) -> list[fg.FigureJob]:
-    """A window figure for every hypothesis flagged unstable that has windows (at most ``MAX_FIGURES``)."""
+def plan_stability(evidence: pd.DataFrame, windows: pd.DataFrame | None, label, invented: bool,
+                   rows: list[dict] | None = None) -> list[fg.FigureJob]:
+    """A window figure for every hypothesis flagged unstable that has windows (at most ``MAX_FIGURES``).
+    ``rows``: the evidence's rows as dicts when the caller has them (the report's ``Context.rows``)."""
     if windows is None or not len(windows):
         return []
     jobs = []
-    for row in _flagged(evidence).to_dict("records"):
+    for row in _flagged(evidence, records(evidence) if rows is None else rows):
         w = windows[(windows["response"] == row["response"]) & (windows["driver"] == row["driver"])]
         if not len(w) or len(jobs) >= MAX_FIGURES:
             continue
@@ -103,17 +106,18 @@ def _row(r: dict, label, planned: set) -> dict:
             "figure": name if name in planned else None}
 
 
-def section(evidence: pd.DataFrame, windows: pd.DataFrame | None, label) -> dict | None:
+def section(evidence: pd.DataFrame, windows: pd.DataFrame | None, label, rows: list[dict] | None = None) -> dict | None:
     """Rows of the tested hypotheses (flagged first), the skipped ones with their note, and the
-    figures planned; None when the evidence has no break test (an older results folder)."""
+    figures planned; None when the evidence has no break test (an older results folder).
+    ``rows``: as in :func:`plan_stability`."""
     if "break_p" not in evidence:
         return None
-    planned = {j.name for j in plan_stability(evidence, windows, label, False)}
-    tested = evidence[evidence["break_p"].notna()]
-    rows = [_row(r, label, planned) for r in tested.to_dict("records")]
+    every = records(evidence) if rows is None else rows
+    planned = {j.name for j in plan_stability(evidence, windows, label, False, every)}
+    rows = [_row(r, label, planned) for r in every if not is_missing(r["break_p"])]
     rows.sort(key=lambda v: not v["flagged"])
     skipped = [{"response": label(r["response"]), "driver": label(r["driver"]), "note": str(r["break_note"])}
-               for r in evidence.to_dict("records") if not is_missing(r.get("break_note")) and r["break_note"]]
+               for r in every if not is_missing(r.get("break_note")) and r["break_note"]]
     if not rows and not skipped:
         return None
     n_flagged = sum(v["flagged"] for v in rows)
