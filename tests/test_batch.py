@@ -169,3 +169,36 @@ def test_a_failed_study_leaves_the_others_of_its_chunk_to_run(new_study, tmp_pat
     monkeypatch.setattr(batch, "run_study", lambda p, out, threads: (_ for _ in ()).throw(SystemExit(130)))
     with pytest.raises(SystemExit):  # Ctrl-C stops the chunk
         batch.run_batch(planned[:1], tmp_path / "out", tmp_path / "out" / "batches" / "0001.json")
+
+
+def test_a_batch_keeps_figures_set_aside_between_its_studies_and_lets_go_at_the_end(new_study, tmp_path, monkeypatch):
+    """run_batch runs its studies inside figures.spares_kept: a study's renderer leaves its spare
+    figures to the next study's; after the chunk, failed or stopped, none is kept."""
+    from lagsieve.report import figures as fg
+    from lagsieve.stages import batch
+    from lagsieve.stages.plan import plan_studies
+
+    shutil.copytree(new_study.parent, tmp_path / "s2")
+    cfg2 = tmp_path / "s2" / "config.yaml"
+    cfg2.write_text(cfg2.read_text().replace("study: caldrin_shelf_demo", "study: second"))
+    planned = list(plan_studies({"studies": [str(new_study), str(cfg2)]}, check=False).values())
+    monkeypatch.setattr(fg, "_SPARE", {})
+    seen = []
+
+    def fake_study(p, out, threads):
+        seen.append((fg._KEPT[0], dict(fg._SPARE)))
+        with fg.FigureRenderer(tmp_path / p.study.id, workers=1):
+            fg._SPARE[(1.0, 1.0, 100.0)] = p.study.id  # what _draw_job sets aside
+        if p.study.id == "second":
+            raise SystemExit(1)
+        (out / p.study.id).mkdir(parents=True)
+
+    monkeypatch.setattr(batch, "run_study", fake_study)
+    with pytest.raises(RuntimeError, match="1 of 2 studies"):
+        batch.run_batch(planned, tmp_path / "out", tmp_path / "out" / "batches" / "0001.json")
+    assert seen == [(1, {}), (1, {(1.0, 1.0, 100.0): "caldrin_shelf_demo"})]
+    assert fg._KEPT[0] == 0 and fg._SPARE == {}
+    monkeypatch.setattr(batch, "run_study", lambda p, out, threads: (_ for _ in ()).throw(SystemExit(130)))
+    with pytest.raises(SystemExit):  # Ctrl-C
+        batch.run_batch(planned[1:], tmp_path / "out", tmp_path / "out" / "batches" / "0001.json")
+    assert fg._KEPT[0] == 0 and fg._SPARE == {}

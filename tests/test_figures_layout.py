@@ -137,6 +137,27 @@ def test_renderer_lets_go_of_the_figures_set_aside_when_it_closes(rc, tmp_path, 
     assert fg._SPARE == {}
 
 
+def test_a_batch_keeps_the_figures_set_aside_from_one_renderer_to_the_next(rc, tmp_path, monkeypatch):
+    """Inside spares_kept (a batch job's studies), a renderer that closes leaves its figures set aside
+    for the next study's renderer, which draws on them the same PNG bytes as on a new figure; at most
+    SPARE_LIMIT are kept, the most recent, and none once the block ends."""
+    monkeypatch.setattr(fg, "_SPARE", {})
+    with fg.spares_kept():
+        with fg.FigureRenderer(tmp_path / "one", workers=1) as renderer:
+            renderer.draw([_overlay_job("a", 0.0)])
+        (spare,) = fg._SPARE.values()
+        with fg.FigureRenderer(tmp_path / "two", workers=1) as renderer:
+            renderer.draw([_overlay_job("b", 1.0)])
+        assert list(fg._SPARE.values()) == [spare]  # the second study's figure was drawn on the first's
+        for i in range(fg.SPARE_LIMIT + 3):
+            fg._SPARE[(float(i), 1.0, 100.0)] = i
+        fg._release_spares()
+        assert list(fg._SPARE.values()) == list(range(3, fg.SPARE_LIMIT + 3))
+    assert fg._SPARE == {}
+    fg._draw_job(_overlay_job("b", 1.0), str(tmp_path / "new"), None, ("png",))
+    assert (tmp_path / "two" / "b.png").read_bytes() == (tmp_path / "new" / "b.png").read_bytes()
+
+
 def test_a_figure_held_by_its_caller_is_never_reused(rc, monkeypatch):
     monkeypatch.setattr(fg, "_SPARE", {})
     one, two = (fg.BUILDERS["overlay"](**_overlay_job(n, s).kwargs) for n, s in (("a", 0.0), ("b", 1.0)))

@@ -103,7 +103,21 @@ def run_batch(studies: list[PlannedStudy], out: str | Path, record: str | Path, 
     """Every study of a chunk, one after the other (a study whose stamp is unchanged and whose
     report exists is left as it is); ``record``: what ran, with seconds per study. A study that
     fails does not stop the others; the job fails at the end, naming them."""
-    out, rows, failed = Path(out), [], []
+    # imported here, as run_study's stages are (see there): the report's figures pull in matplotlib
+    from lagsieve.report.figures import spares_kept
+
+    out = Path(out)
+    with spares_kept():  # one study's figures are drawn on the previous study's, set aside
+        rows, failed = _run_each(studies, out, threads)
+    if failed:
+        raise RuntimeError(f"{len(failed)} of {len(studies)} studies of this batch failed: {', '.join(failed)} "
+                           f"(see each study's logs/)")
+    write_json({"studies": rows}, record)
+
+
+def _run_each(studies: list[PlannedStudy], out: Path, threads: int) -> tuple[list[dict], list[str]]:
+    """:func:`run_batch`'s loop: (what ran, with seconds per study; the ids of the studies that failed)."""
+    rows, failed = [], []
     for planned in studies:
         d = out / planned.study.id
         stamp, stamp_file = study_stamp(planned), d / "work" / "batch_stamp.json"
@@ -122,7 +136,4 @@ def run_batch(studies: list[PlannedStudy], out: str | Path, record: str | Path, 
             gc.unfreeze()  # the stages froze their objects for an exit that has not come (stages.allocator)
         write_json(stamp, stamp_file)
         rows.append({"study": planned.study.id, "ran": True, "seconds": round(time.perf_counter() - t0, 3)})
-    if failed:
-        raise RuntimeError(f"{len(failed)} of {len(studies)} studies of this batch failed: {', '.join(failed)} "
-                           f"(see each study's logs/)")
-    write_json({"studies": rows}, record)
+    return rows, failed
