@@ -1,17 +1,19 @@
 """The report's text drawing (``figures._TextRenderer``) against matplotlib's own Agg renderer (the
 reference): the same RGBA bytes for figures with tick labels, legends, wrapped and rotated labels,
 bold and italic text, text without antialiasing, and drawn again from the caches; the same text boxes
-(the font height metrics of ``Text._get_layout``); caches emptied when the font settings change."""
+(the font height metrics of ``Text._get_layout``); caches emptied when the font settings change.
+The figures' PNG (``figures.png_bytes``) against Pillow's decoder and Pillow's own PNG writer."""
 from __future__ import annotations
 
 import matplotlib
 import numpy as np
 import pytest
 from matplotlib.backends.backend_agg import FigureCanvasAgg
+from PIL import Image
 
 from lagsieve.report import figures as fg
 
-pytestmark = pytest.mark.skipif(not fg.GLYPH_BY_GLYPH, reason="matplotlib before 3.11 draws a string at once")
+GLYPHS = pytest.mark.skipif(not fg.GLYPH_BY_GLYPH, reason="matplotlib before 3.11 draws a string at once")
 LONG = "Spring (March to May) bottom temperature of the inner shelf, five-year mean \u2026 r\u00b2 \u2212 0.5"
 
 
@@ -43,6 +45,7 @@ def _builders():
                                      ["response one", LONG], ["a", "b", LONG], invented=True)]
 
 
+@GLYPHS
 @pytest.mark.parametrize("antialiased", [True, False])
 def test_text_drawn_from_the_caches_is_matplotlibs_pixels(rc, monkeypatch, antialiased):
     """Reference: matplotlib's RendererAgg (GLYPH_BY_GLYPH off), each figure made anew both ways;
@@ -66,6 +69,7 @@ def test_text_drawn_from_the_caches_is_matplotlibs_pixels(rc, monkeypatch, antia
         assert first == reference and again == reference
 
 
+@GLYPHS
 def test_text_boxes_are_matplotlibs(rc, monkeypatch):
     """The height metrics (ascent, descent, line gap of the font's OS/2 table) give every text the box
     matplotlib's Text._get_layout gives it on its own renderer, one line or several, at 150 and 72 dpi."""
@@ -80,6 +84,7 @@ def test_text_boxes_are_matplotlibs(rc, monkeypatch):
         assert np.array_equal(ours, theirs)
 
 
+@GLYPHS
 def test_the_caches_are_emptied_when_the_font_settings_change(rc, monkeypatch):
     """A string laid out in one font is not drawn from the cache in another: the sans-serif family
     changed to a serif font gives matplotlib's pixels of the serif font, not the cached glyphs."""
@@ -93,3 +98,19 @@ def test_the_caches_are_emptied_when_the_font_settings_change(rc, monkeypatch):
     monkeypatch.setattr(fg, "GLYPH_BY_GLYPH", False)
     monkeypatch.setattr(fg, "_SPARE", {})
     assert _bytes(_text_figure()) == serif
+
+
+@pytest.mark.parametrize("shape", [(465, 750), (1, 1), (3, 7)])
+def test_png_is_the_rasters_colour_as_pillow_reads_and_writes_it(tmp_path, shape):
+    """Reference: Pillow. Its decoder (which checks every chunk's CRC) reads the colour of the RGBA
+    raster, alpha dropped as Image.convert("RGB") drops it, and the resolution Pillow's own writer
+    stores for 150 dpi."""
+    rgba = np.random.default_rng(20261203).integers(0, 256, (*shape, 4), dtype=np.uint8)
+    (tmp_path / "ours.png").write_bytes(fg.png_bytes(rgba, 150))
+    Image.open(tmp_path / "ours.png").verify()
+    ours = Image.open(tmp_path / "ours.png")
+    theirs = Image.fromarray(rgba, "RGBA").convert("RGB")
+    theirs.save(tmp_path / "theirs.png", dpi=(150, 150))
+    assert ours.mode == "RGB" and ours.size == theirs.size
+    assert np.array_equal(np.asarray(ours), np.asarray(theirs))
+    assert ours.info["dpi"] == Image.open(tmp_path / "theirs.png").info["dpi"]

@@ -31,7 +31,8 @@ WORKFLOW = REPO / "workflow"
 IMPORT_NAME = {"pyyaml": "yaml", "pillow": "PIL", "scikit-learn": "sklearn", "python-docx": "docx"}
 # dependencies used without an import statement: distribution -> text in src/ that uses it
 USED_WITHOUT_IMPORT = {"snakemake": '"-m", "snakemake"',  # the CLI starts `python -m snakemake`
-                       "pyarrow": "pd.read_parquet("}      # pandas' parquet engine
+                       "pyarrow": "pd.read_parquet(",      # pandas' parquet engine
+                       "pillow": "mpimg.imread("}          # matplotlib reads the figures' PNGs with Pillow
 
 
 def _dist_name(requirement: str) -> str:
