@@ -215,6 +215,17 @@ def test_window_band_against_pandas_rolling():
     per = np.stack([pd.Series(y).rolling(15).corr(pd.Series(v)).to_numpy()[14:] for v in x[1:]])
     np.testing.assert_allclose(band.low, np.quantile(per, 0.025, axis=0), rtol=1e-10)
     assert len(band.r) == 35 - 15 + 1
+    # y's windows centred once and broadcast give the same bits as y repeated for every member
+    from lagsieve.stats.correlation import windowed_r
+    x = rng.normal(size=(500, 40)).cumsum(1)
+    x[:, 7] = x[:, 8]
+    y = rng.normal(size=40) * 1e3
+    band = breaks.window_band(x, y)
+    for every in (np.tile(y, (500, 1)), np.broadcast_to(y, x.shape)):  # a copy per member; the former view
+        r = windowed_r(x, every, breaks.WINDOW_YEARS)
+        low, high = np.nanquantile(r[1:], [(1 - breaks.BAND_LEVEL) / 2, (1 + breaks.BAND_LEVEL) / 2], axis=0)
+        for got, want in ((band.r, r[0]), (band.low, low), (band.high, high)):
+            np.testing.assert_array_equal(got, want)
 
 
 # ----------------------------------------------------------------- the evidence hook

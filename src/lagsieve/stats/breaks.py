@@ -338,7 +338,7 @@ def window_band(x: np.ndarray, y: np.ndarray, width: int = WINDOW_YEARS, level: 
     correlations against such a reference, from memory; the surrogate band is our choice).
     ``x`` (1 + B, n), ``y`` (n,)."""
     x = np.atleast_2d(np.asarray(x, float))
-    r = windowed_r(x, np.broadcast_to(np.asarray(y, float), x.shape), width)  # (S, W)
+    r = windowed_r(x, np.asarray(y, float), width)  # (S, W); y's windows centred once, broadcast against x's
     W = r.shape[-1]
     if x.shape[0] > 1 and W:
         low, high = np.nanquantile(r[1:], [(1 - level) / 2, (1 + level) / 2], axis=0)
