@@ -188,6 +188,7 @@ def _compute(study: Study, todo: list[ResponseJob], threads: int):
     import multiprocessing as mp
 
     spare_final_collection()  # gc.freeze: the workers' collections leave the shared pages unwritten
+    sys.stderr.flush()  # the job's log: a worker must not inherit (and write again) unwritten lines
     with mp.get_context("fork").Pool(workers, initializer=_worker_start, initargs=(study,)) as pool:
         yield from pool.imap_unordered(_screen_in_worker, todo)
         pool.close()
