@@ -183,12 +183,19 @@ def test_panels_only_for_leading_hypotheses_graded_weak_or_better(tiny):
     assert page.count("Set aside: no panels are drawn for it.") == sum(i["set_aside"] for i in plan.panels.values())
 
 
-def test_print_copy_leaves_out_panels_rows_below_weak_and_the_config_text(tiny):
-    """Our own rule: the page the PDF is made from keeps the study-wide figures and the rows
-    graded weak or better; the panels, the other rows and the configuration's text stay in the HTML."""
+def _page_and_print_copy(tiny):
+    """The tiny study with one hypothesis per response graded strong, none and weak: its context,
+    figure plan, page and print copy."""
     ctx, plan = _tiny_plan(tiny, {1: "strong", 2: "none", 3: "weak"})
     figs = {j.name: ("", (1, 1)) for j in plan.jobs}
     page, printed = render_page(ctx, figs, plan), render_page(ctx, figs, plan, print_copy=True)
+    return ctx, plan, page, printed
+
+
+def test_print_copy_leaves_out_panels_rows_below_weak_and_the_config_text(tiny):
+    """Our own rule: the page the PDF is made from keeps the study-wide figures and the rows
+    graded weak or better; the panels, the other rows and the configuration's text stay in the HTML."""
+    ctx, plan, page, printed = _page_and_print_copy(tiny)
     panels = [n for info in plan.panels.values() for n in info["names"]]
     assert panels and all(f'data-name="{n}"' in page and f'data-name="{n}"' not in printed for n in panels)
     assert 'data-name="evidence_map"' in page and 'data-name="evidence_map"' in printed
@@ -197,6 +204,18 @@ def test_print_copy_leaves_out_panels_rows_below_weak_and_the_config_text(tiny):
     assert page.count("<tr data-response=") == len(ctx.evidence) and printed.count("<tr data-response=") == kept
     assert f"lists the {kept} hypotheses graded weak or better; all {len(ctx.evidence)} are in report.html" in printed
     assert "Configuration as given" in page and "Configuration as given" not in printed
+
+
+def test_print_copy_holds_nothing_the_printed_page_hides(tiny):
+    """Our own rule: the print copy holds no hidden row, script, section list or control (the
+    ranked table's filters, the methods' copy button); WeasyPrint would match styles for each of
+    them only to hide it. The page keeps them all."""
+    _, _, page, printed = _page_and_print_copy(tiny)
+    for tag in ("<script", '<nav class="toc', "<input", "<select", "<button", 'class="controls'):
+        assert tag in page and tag not in printed, tag
+    assert re.search(r"<tr\b[^>]*\bhidden\b", printed) is None
+    hidden_class = re.compile(r'class="[^"]*\bnoprint\b')  # what the print stylesheet hides
+    assert hidden_class.search(page) and not hidden_class.search(printed)
 
 
 @pytest.mark.parametrize("label, escaped", [
