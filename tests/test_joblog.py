@@ -3,6 +3,7 @@ at a readable pace, on the terminal; a failure's traceback in the log and one li
 terminal; Ctrl-C one line in the log and status 130 (common practice of command-line tools)."""
 from __future__ import annotations
 
+import contextlib
 import io
 import logging
 import sys
@@ -24,6 +25,10 @@ def test_progress_reaches_the_terminal_at_most_once_per_pace(monkeypatch):
                                            "lagsieve: driver 5 of 5"]
 
 
+def _nothing():
+    return contextlib.nullcontext()
+
+
 def _job(tmp_path):
     return SimpleNamespace(log=[str(tmp_path / "logs" / "stage.log")])
 
@@ -36,6 +41,22 @@ def test_progress_goes_to_the_log_and_the_terminal(tmp_path, monkeypatch):
     log = (tmp_path / "logs" / "stage.log").read_text()
     assert "screen m: driver 1 of 2 (x) done" in log and "lagsieve: stage took" in log
     assert terminal.getvalue() == "lagsieve: screen m: driver 1 of 2 (x) done, 0.1 s\n"
+
+
+def test_the_log_lets_go_of_the_root_logger_when_the_job_ends(tmp_path, monkeypatch):
+    """A batch (and a test) runs stages in one process: after a job's log is closed, the root
+    logger has its own handlers and level again, and no handler writes to the closed file (which
+    would print logging's 'Logging error' report on the next record)."""
+    monkeypatch.setattr(sys, "__stderr__", io.StringIO())
+    root = logging.getLogger()
+    handlers, level = root.handlers[:], root.level
+    for fail in (False, True):
+        with pytest.raises(SystemExit) if fail else _nothing():
+            with logged(_job(tmp_path)):
+                logging.getLogger("lagsieve.x").info("inside")
+                if fail:
+                    raise ValueError("boom")
+        assert root.handlers == handlers and root.level == level
 
 
 @pytest.mark.parametrize("exc, status, line", [(KeyboardInterrupt, 130, "lagsieve: interrupted"),

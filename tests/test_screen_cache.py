@@ -9,6 +9,8 @@ writes, computed or copied from the cache, are byte-identical to it. SHA-256 is 
 """
 from __future__ import annotations
 
+import gc
+
 import os
 import re
 
@@ -189,9 +191,11 @@ def test_a_failed_response_writes_nothing_and_the_job_says_one_line(study, tmp_p
         return real(st, annual, response, *args, **kwargs)
 
     monkeypatch.setattr(screen_stage, "screen_into", fail_age2)
+    gc.unfreeze()
     with pytest.raises(SystemExit) as exc:
         run_screens(study, reads, out, logs, threads=threads)
     assert exc.value.code == 1
+    assert gc.get_freeze_count() == 0  # the workers' gc.freeze undone: the caller's process goes on
     err = capfd.readouterr().err.strip().splitlines()
     assert err == [f"lagsieve: job failed; see {logs / 'm--age2.log'}"]
     assert "Traceback" in (logs / "m--age2.log").read_text() and "made to fail" in (logs / "m--age2.log").read_text()

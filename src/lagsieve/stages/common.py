@@ -64,6 +64,23 @@ class PacedHandler(logging.Handler):
 
 
 @contextmanager
+def root_logging_to(fh):
+    """Records of every logger (at INFO and above) written to the open file ``fh`` in
+    logging's basic format while the block runs; the root logger's handlers and level put back
+    afterwards, so that no handler is left writing to a closed file (a batch runs many studies'
+    stages in one process, and the tests run stages in theirs)."""
+    root = logging.getLogger()
+    saved, level = root.handlers[:], root.level
+    handler = logging.StreamHandler(fh)
+    handler.setFormatter(logging.Formatter(logging.BASIC_FORMAT))
+    root.handlers, root.level = [handler], logging.INFO
+    try:
+        yield handler
+    finally:
+        root.handlers, root.level = saved, level
+
+
+@contextmanager
 def logged(smk):
     """Send a Snakemake job's warnings, errors and progress to its ``log:`` file (when it has
     one), progress also to the terminal at a readable pace (:class:`PacedHandler`), and end the
@@ -78,8 +95,7 @@ def logged(smk):
     start = (time.time(), time.perf_counter(), os.times())
     progress = PacedHandler(sys.__stderr__)
     package = logging.getLogger("lagsieve")
-    with open(logs[0], "w", encoding="utf-8") as fh, contextlib.redirect_stderr(fh):
-        logging.basicConfig(stream=fh, level=logging.INFO, force=True)
+    with open(logs[0], "w", encoding="utf-8") as fh, contextlib.redirect_stderr(fh), root_logging_to(fh):
         warnings.simplefilter("default")
         package.addHandler(progress)
         try:

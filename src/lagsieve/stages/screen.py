@@ -3,6 +3,7 @@ study, each reused from the cache while its key holds (:func:`run_screens`, the 
 from __future__ import annotations
 
 import contextlib
+import gc
 import logging
 import os
 import shutil
@@ -26,7 +27,7 @@ from lagsieve.prep.annual import to_annual
 from lagsieve.screen.response import failure_words, screen_response
 from lagsieve.screen.seasonal import PAIRED_COLUMNS, paired_table, season_screen
 from lagsieve.stages.allocator import spare_final_collection
-from lagsieve.stages.common import SCREEN_COLUMNS, condition_table, ordered
+from lagsieve.stages.common import SCREEN_COLUMNS, condition_table, ordered, root_logging_to
 from lagsieve.stages.screen_cache import response_key, restore, staging, store, stored, tidy
 
 log = logging.getLogger(__name__)
@@ -187,12 +188,17 @@ def _compute(study: Study, todo: list[ResponseJob], threads: int):
     # imported here: a screen job with one response to do (the usual rerun) starts no pool
     import multiprocessing as mp
 
+    frozen = gc.get_freeze_count()
     spare_final_collection()  # gc.freeze: the workers' collections leave the shared pages unwritten
     sys.stderr.flush()  # the job's log: a worker must not inherit (and write again) unwritten lines
-    with mp.get_context("fork").Pool(workers, initializer=_worker_start, initargs=(study,)) as pool:
-        yield from pool.imap_unordered(_screen_in_worker, todo)
-        pool.close()
-        pool.join()
+    try:
+        with mp.get_context("fork").Pool(workers, initializer=_worker_start, initargs=(study,)) as pool:
+            yield from pool.imap_unordered(_screen_in_worker, todo)
+            pool.close()
+            pool.join()
+    finally:
+        if not frozen:  # the caller's process goes on (a batch, a test): its objects back to the collector
+            gc.unfreeze()
 
 
 _WORKER_STUDY: list = []  # the study of a forked worker (_worker_start)
@@ -238,13 +244,5 @@ def response_log(path: Path):
     """Warnings, errors and progress of one response's screen to its own log ``path`` (open
     file yielded), the job's log handlers put back afterwards."""
     path.parent.mkdir(parents=True, exist_ok=True)
-    root = logging.getLogger()
-    saved = root.handlers[:]
-    with open(path, "w", encoding="utf-8") as fh, contextlib.redirect_stderr(fh):
-        handler = logging.StreamHandler(fh)
-        handler.setFormatter(logging.Formatter(logging.BASIC_FORMAT))
-        root.handlers = [handler]
-        try:
-            yield fh
-        finally:
-            root.handlers = saved
+    with open(path, "w", encoding="utf-8") as fh, contextlib.redirect_stderr(fh), root_logging_to(fh):
+        yield fh
