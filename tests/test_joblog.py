@@ -48,14 +48,16 @@ def test_the_log_lets_go_of_the_root_logger_when_the_job_ends(tmp_path, monkeypa
     logger has its own handlers and level again, and no handler writes to the closed file (which
     would print logging's 'Logging error' report on the next record)."""
     monkeypatch.setattr(sys, "__stderr__", io.StringIO())
-    root = logging.getLogger()
+    root, stage = logging.getLogger(), logging.getLogger("lagsieve.x")
     handlers, level = root.handlers[:], root.level
     for fail in (False, True):
+        stage.info("before the job")  # the logger caches its level check ...
         with pytest.raises(SystemExit) if fail else _nothing():
             with logged(_job(tmp_path)):
-                logging.getLogger("lagsieve.x").info("inside")
+                stage.info("inside")  # ... which the job's log must clear
                 if fail:
                     raise ValueError("boom")
+        assert "inside" in (tmp_path / "logs" / "stage.log").read_text()
         assert root.handlers == handlers and root.level == level
 
 

@@ -73,11 +73,13 @@ def root_logging_to(fh):
     saved, level = root.handlers[:], root.level
     handler = logging.StreamHandler(fh)
     handler.setFormatter(logging.Formatter(logging.BASIC_FORMAT))
-    root.handlers, root.level = [handler], logging.INFO
+    root.handlers = [handler]
+    root.setLevel(logging.INFO)  # setLevel, not the attribute: it clears the loggers' cached levels
     try:
         yield handler
     finally:
-        root.handlers, root.level = saved, level
+        root.handlers = saved
+        root.setLevel(level)
 
 
 @contextmanager
