@@ -24,8 +24,10 @@ from lagsieve.io.config import Study
 #: report jobs hold whole: 6,000 rows measured with the evidence job at 211 MB (about 190 MB of it
 #: the interpreter and libraries); 200,000 rows of about 1 kB each add some 200 MB.
 MAX_SCREEN_ROWS = 200_000
-#: hypotheses (drivers) of one response: one screen job holds all of them, their forecasts and
-#: surrogate values; at 0.22 MB each over a fixed 440 MB, 2,000 need about 900 MB.
+#: hypotheses (drivers) of one response: one screen worker holds all of them, their forecasts and
+#: surrogate values; at 0.22 MB each over a fixed 440 MB, 2,000 need about 900 MB. The study's
+#: screen job runs two such workers, forked (the fixed part shared): with 500 drivers x 3
+#: responses it peaked at 452 MB, the job and its workers' RSS summed (bench/large.py, session 10).
 MAX_HYPOTHESES_PER_RESPONSE = 2_000
 #: surrogate statistics stored for the report (hypotheses x surrogates x 2), which the report
 #: reads and stacks: about 350 MB per million at the peak, so 3 million is about 1 GB (500 drivers
