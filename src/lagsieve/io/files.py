@@ -40,9 +40,9 @@ def atomic_path(path: str | Path):
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=TMP_SUFFIX, dir=path.parent)
-    os.close(fd)
-    os.chmod(tmp, 0o666 & ~_umask())  # mkstemp makes 0600; a result is as readable as any new file
-    try:
+    try:  # from the file's first instant: a signal turned exception (SIGTERM) removes it
+        os.close(fd)
+        os.chmod(tmp, 0o666 & ~_umask())  # mkstemp makes 0600; a result is as readable as any new file
         yield Path(tmp)
         os.replace(tmp, path)
     except BaseException:
