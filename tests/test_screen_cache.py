@@ -10,9 +10,9 @@ writes, computed or copied from the cache, are byte-identical to it. SHA-256 is 
 from __future__ import annotations
 
 import gc
-
 import os
 import re
+import signal
 
 import numpy as np
 import pytest
@@ -203,3 +203,50 @@ def test_a_failed_response_writes_nothing_and_the_job_says_one_line(study, tmp_p
     cache = tmp_path / "cache" / "screen"
     assert sorted(p.name for p in cache.iterdir()) == ["m--age5plus"]  # the other response is kept
     assert all((out / "m--age5plus" / t).is_file() for t in TABLES)
+
+
+def test_a_worker_killed_by_a_signal_fails_its_response_instead_of_hanging(study, tmp_path, monkeypatch, capfd, caplog):
+    """Our own rule (a multiprocessing.Pool waited forever for the response of a worker the
+    out-of-memory killer ended): a worker that dies by SIGKILL fails the responses it had not
+    returned, in words, and the job ends with its one line and status 1, having written nothing
+    for them. The alarm bounds the wait (a hang fails the test; it is not a timing)."""
+    reads, out, logs = _reads(study), tmp_path / "responses", tmp_path / "logs"
+    real = screen_stage.screen_into
+
+    def killed_age2(st, annual, response, *args, **kwargs):
+        if response == "m--age2":
+            os.kill(os.getpid(), signal.SIGKILL)
+        return real(st, annual, response, *args, **kwargs)
+
+    monkeypatch.setattr(screen_stage, "screen_into", killed_age2)
+    previous = signal.signal(signal.SIGALRM, lambda *_: pytest.fail("the screen job waited for a dead worker"))
+    signal.alarm(300)
+    try:
+        with pytest.raises(SystemExit) as exc:
+            run_screens(study, reads, out, logs, threads=2)
+    finally:
+        signal.alarm(0)
+        signal.signal(signal.SIGALRM, previous)
+    assert exc.value.code == 1
+    assert any("m--age2: failed" in r.getMessage() and screen_stage.WORKER_LOST in r.getMessage()
+               for r in caplog.records)
+    assert capfd.readouterr().err.strip().splitlines()[-1].startswith("lagsieve: job failed; see ")
+    assert not (out / "m--age2").exists() and not (tmp_path / "cache" / "screen" / "m--age2").exists()
+
+
+def test_code_digest_follows_the_schemas_defaults(tmp_path, monkeypatch):
+    """The settings digest is of the config as written, and the schema fills what it leaves out
+    (workflow/schemas/config.schema.yaml): a changed default (here the surrogates' number) must
+    change the key, or a rerun would copy tables screened under the old default."""
+    changed = tmp_path / "config.schema.yaml"
+    text = screen_cache.SCHEMA_FILE.read_text(encoding="utf-8")
+    assert "default: 999" in text  # screen.surrogates
+    changed.write_text(text.replace("default: 999", "default: 5", 1), encoding="utf-8")
+    screen_cache.code_digest.cache_clear()
+    try:
+        before = screen_cache.code_digest()
+        monkeypatch.setattr(screen_cache, "SCHEMA_FILE", changed)
+        screen_cache.code_digest.cache_clear()
+        assert screen_cache.code_digest() != before
+    finally:
+        screen_cache.code_digest.cache_clear()

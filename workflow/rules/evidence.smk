@@ -11,6 +11,8 @@ rule evidence:
             STUDIES[w.study].study.responses, STUDIES[w.study].study.base_dir
         ),
         condition=condition_outputs("condition.csv"),
+        # the samples' warnings, recorded by the condition stage, which align reports (run_align)
+        condition_fit=condition_outputs("work/condition_fit.json"),
         responses=responses_dir,  # the screen's tables: hypotheses, screen and paired.csv
     output:
         annual=f"{OUT}/{{study}}/work/annual.csv",

@@ -25,7 +25,8 @@ rule screen:
     threads: 2
     resources:
         mem_mb=2000,
-        runtime=30,
+        # minutes: 30 per pair of responses (two screened at once), as one response's job had
+        runtime=lambda w: 30 * ((len(STUDIES[w.study].response_slugs) + 1) // 2),
     params:
         config=cfg,
         settings=lambda w: {

@@ -266,8 +266,12 @@ def _height_metrics(prop, dpi) -> tuple:
     return None, None, None
 
 
-#: matplotlib draws text glyph by glyph (3.11 and later): figures are drawn by :class:`_TextRenderer`
-GLYPH_BY_GLYPH = (hasattr(RendererAgg, "_draw_text_glyphs_and_boxes")
+#: matplotlib draws text glyph by glyph (3.11 and later): figures are drawn by :class:`_TextRenderer`.
+#: It calls matplotlib's private text functions, so only on the minor versions whose pixels
+#: tests/test_figures_text.py has compared (3.11); any other version draws with matplotlib's own.
+TEXT_RENDERER_VERSIONS = ("3.11",)
+GLYPH_BY_GLYPH = (".".join(matplotlib.__version__.split(".")[:2]) in TEXT_RENDERER_VERSIONS
+                  and hasattr(RendererAgg, "_draw_text_glyphs_and_boxes")
                   and all(hasattr(FT2Font, n) for n in ("_layout", "_render_glyph", "_set_transform")))
 
 

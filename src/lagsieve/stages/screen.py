@@ -138,7 +138,7 @@ def response_job(study: Study, response: str, reads: dict, out_root: Path, cache
     rid = {slug(r): r for r in study.response_ids}.get(response, response)
     files, condition = list(reads.get("inputs") or []), list(reads.get("condition") or [])
     key = response_key(study, response, files, condition, wanted_series(study, rid))
-    cost = sum(len(d.get("lags") or [0]) for d in study.drivers_for(rid))
+    cost = sum(len(study.lags_for(d)) for d in study.drivers_for(rid))
     return ResponseJob(response, files, condition, out_root / response, cache / response,
                        logs / f"{response}.log", key, cost)
 
@@ -180,25 +180,48 @@ def run_screens(config_path, responses: dict[str, dict], out_root, log_dir, thre
 def _compute(study: Study, todo: list[ResponseJob], threads: int):
     """:func:`_screen_to_cache` of every job of ``todo``, each result as it ends: in this
     process when one worker is enough, else in ``min(threads, len(todo))`` processes forked from
-    this one (its imports and ``study`` shared)."""
+    this one (its imports and ``study`` shared). A worker that ends without a word (killed by a
+    signal: the out-of-memory killer, a cluster's memory limit) fails the responses it had not
+    returned, in words, instead of leaving the job waiting for them."""
     workers = min(max(1, int(threads)), len(todo))
     if workers <= 1:
         yield from (_screen_to_cache(study, job) for job in todo)
         return
     # imported here: a screen job with one response to do (the usual rerun) starts no pool
     import multiprocessing as mp
+    from concurrent.futures import ProcessPoolExecutor, as_completed
+    from concurrent.futures.process import BrokenProcessPool
 
     frozen = gc.get_freeze_count()
     spare_final_collection()  # gc.freeze: the workers' collections leave the shared pages unwritten
     sys.stderr.flush()  # the job's log: a worker must not inherit (and write again) unwritten lines
+    pool = ProcessPoolExecutor(workers, mp_context=mp.get_context("fork"), initializer=_worker_start,
+                               initargs=(study,))
     try:
-        with mp.get_context("fork").Pool(workers, initializer=_worker_start, initargs=(study,)) as pool:
-            yield from pool.imap_unordered(_screen_in_worker, todo)
-            pool.close()
-            pool.join()
+        futures = {pool.submit(_screen_in_worker, job): job for job in todo}  # in order: largest first
+        for done in as_completed(futures):
+            try:
+                yield done.result()
+            except BrokenProcessPool:
+                yield futures[done].response, WORKER_LOST, 0.0, 0.0
+        pool.shutdown(wait=True)
     finally:
+        _end_workers(pool)
         if not frozen:  # the caller's process goes on (a batch, a test): its objects back to the collector
             gc.unfreeze()
+
+
+#: What a response's failure says when its worker process ended without returning it.
+WORKER_LOST = "its worker process ended without a word (killed by a signal: out of memory?)"
+
+
+def _end_workers(pool) -> None:
+    """Stop the pool's workers now (Ctrl-C or a failure in this process: the workers ignore
+    Ctrl-C and would otherwise finish their responses first), then let the pool go."""
+    for process in list((getattr(pool, "_processes", None) or {}).values()):  # the executor's own table
+        if process.is_alive():
+            process.terminate()
+    pool.shutdown(wait=True, cancel_futures=True)
 
 
 _WORKER_STUDY: list = []  # the study of a forked worker (_worker_start)

@@ -7,8 +7,8 @@ its responses' inputs or settings changes; the cache keeps the reruns per respon
 (:func:`response_key`) is made of what the response's screen reads and of the code that reads
 it: the digest of its settings (:func:`lagsieve.stages.digest.settings_digest`), the bytes of
 exactly the input files it reads and of its rows of condition.csv, and the code
-(:func:`code_digest`: every ``.py`` source of the installed lagsieve package, and the versions
-of Python, numpy, scipy and pandas), so that results are never reused across a code change.
+(:func:`code_digest`: every ``.py`` source of the installed lagsieve package, the config schema
+whose defaults fill the settings, and the versions of Python, numpy, scipy and pandas), so that results are never reused across a code change.
 
 A folder per response, ``work/cache/screen/<response>/``, outside Snakemake's declared outputs
 (Snakemake deletes a job's outputs before it runs): the five tables and ``key.json``. An entry
@@ -30,7 +30,7 @@ import numpy as np
 import pandas as pd
 import scipy
 
-from lagsieve.io.config import Study
+from lagsieve.io.config import SCHEMA_FILE, Study
 from lagsieve.io.files import TMP_SUFFIX, atomic_path, sha256_file, sha256_text
 from lagsieve.stages.common import condition_table
 from lagsieve.stages.digest import settings_digest
@@ -53,10 +53,12 @@ def sources_digest(root: Path) -> str:
 @functools.lru_cache(maxsize=1)
 def code_digest() -> str:
     """A digest of the code that screens: the installed lagsieve package's ``.py`` sources
-    (:func:`sources_digest`) and the versions of Python, numpy, scipy and pandas. Once per process."""
+    (:func:`sources_digest`), the config schema whose defaults fill what a config leaves out
+    (:data:`lagsieve.io.config.SCHEMA_FILE`: the settings digest is of the config as written) and
+    the versions of Python, numpy, scipy and pandas. Once per process."""
     package = Path(__file__).resolve().parents[1]
     versions = [platform.python_version(), np.__version__, scipy.__version__, pd.__version__]
-    return sha256_text(json.dumps([sources_digest(package), versions]))
+    return sha256_text(json.dumps([sources_digest(package), sha256_file(SCHEMA_FILE), versions]))
 
 
 def input_digests(study: Study, files: list[str]) -> list[list[str]]:
