@@ -211,3 +211,20 @@ def test_a_report_rerun_redraws_only_the_figures_whose_inputs_changed(tmp_path):
     assert labelled and labelled <= changed  # the panels that show the response's label
     assert changed <= own | {"coverage.png", "evidence_map.png"}  # and the study-wide figures that name it
     assert not any(n.endswith(("__lags.png", "__nulls.png")) for n in changed)  # no label in them: kept
+
+
+def test_workers_started_beside_the_pdf_leave_it_the_cpu_first(tmp_path):
+    """Our own rule (stages.report.PDF_FIRST; measured in DEVELOPERS.md): the drawing workers
+    started after release_workers(nice=N), the ones that draw beside the PDF's process, run at a
+    priority lowered by N; the workers before it at the report's own."""
+    import os
+
+    own = os.nice(0)
+    renderer = fg.FigureRenderer(tmp_path, workers=2)
+    renderer._pool = fg._fork_pool(renderer.workers, renderer.nice)
+    assert renderer._pool.submit(os.nice, 0).result() == own
+    renderer.release_workers(nice=3)
+    assert renderer._pool is None and renderer.nice == 3
+    renderer._pool = fg._fork_pool(renderer.workers, renderer.nice)
+    assert renderer._pool.submit(os.nice, 0).result() == min(own + 3, 19)
+    renderer.close()

@@ -1142,14 +1142,22 @@ def _draw_star(args):
     return _draw_job(*args)
 
 
-def _fork_pool(workers: int):
-    """A pool of ``workers`` forked processes, or None where the platform cannot fork."""
+def _fork_pool(workers: int, nice: int = 0):
+    """A pool of ``workers`` forked processes (``nice``: their scheduling priority lowered by that
+    much), or None where the platform cannot fork."""
     if workers < 2 or not hasattr(os, "fork"):
         return None
     try:
-        return ProcessPoolExecutor(max_workers=workers, mp_context=mp.get_context("fork"))
+        return ProcessPoolExecutor(max_workers=workers, mp_context=mp.get_context("fork"),
+                                   initializer=_lower_priority if nice else None, initargs=(nice,) if nice else ())
     except (OSError, RuntimeError, ValueError):  # no process creation here: draw serially
         return None
+
+
+def _lower_priority(nice: int) -> None:
+    """A drawing worker's start: its priority lowered (``os.nice``), where the platform can."""
+    with contextlib.suppress(OSError, AttributeError):
+        os.nice(nice)
 
 
 class FigureRenderer:
@@ -1173,6 +1181,7 @@ class FigureRenderer:
         self.drawn: list[str] = []   # names drawn by the last draw(); the others were reused
         self._asked: set[str] | None = None  # every name asked for; None before the first draw
         self._pool = None
+        self.nice = 0  # workers started from now on run at this lower priority (see release_workers)
 
     def __enter__(self):
         return self
@@ -1183,7 +1192,7 @@ class FigureRenderer:
 
     def _run(self, todo: list[tuple]) -> list[tuple]:
         if len(todo) > 1 and self._pool is None:
-            self._pool = _fork_pool(self.workers)
+            self._pool = _fork_pool(self.workers, self.nice)
         if self._pool is not None and len(todo) > 1:
             try:
                 return list(self._pool.map(_draw_star, todo, chunksize=1))
@@ -1214,12 +1223,14 @@ class FigureRenderer:
             out[j.name] = (base64.b64encode(png).decode("ascii"), tuple(sizes[j.name]))
         return out
 
-    def release_workers(self) -> None:
-        """End the drawing processes (the next :meth:`draw` starts new ones): this process then
-        runs no thread of the pool's and may fork safely (the report's PDF process)."""
+    def release_workers(self, nice: int = 0) -> None:
+        """End the drawing processes (the next :meth:`draw` starts new ones, at a priority lowered
+        by ``nice``): this process then runs no thread of the pool's and may fork safely (the
+        report's PDF process, which the workers started after it then leave the CPU to first)."""
         if self._pool is not None:
             self._pool.shutdown(wait=True)
             self._pool = None
+        self.nice = nice
 
     def close(self) -> None:
         self.release_workers()

@@ -117,8 +117,14 @@ def run_report(config_path, annual_csv, notes_csv, work_dir, screen_csv, evidenc
 def _start_pdf(renderer: FigureRenderer, text: str, pdf_path: Path, printed: dict, figures_dir) -> PdfJob:
     """The PDF's process forked once the drawing processes have ended: a fork from a process with
     other threads running (the pool's) may leave the child holding a lock no thread will release."""
-    renderer.release_workers()
+    renderer.release_workers(nice=PDF_FIRST)
     return start_pdf(text, pdf_path, printed, figures_dir)
+
+
+#: How much lower the priority of the figure workers started beside the PDF's process is (os.nice):
+#: the PDF is the report's longest single task and the job waits for it at the end, so it gets a
+#: core while the workers share what is left (see DEVELOPERS.md, "How the report stays fast").
+PDF_FIRST = 5
 
 
 def _finish_pdf(study: Study, evidence, figs: dict, print_html, pdf_path: Path, jobs: list, figures_dir,
