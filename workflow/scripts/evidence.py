@@ -8,4 +8,4 @@ with logged(snakemake):
     run_align(snakemake.params.config, snakemake.output.annual, snakemake.output.notes,
               condition=list(snakemake.input.condition))
     run_evidence(snakemake.params.config, snakemake.output.annual, Path(snakemake.output.annual).parent,
-                 snakemake.output.screen, snakemake.output.evidence)
+                 snakemake.output.screen, snakemake.output.evidence, threads=snakemake.threads)

@@ -118,7 +118,14 @@ def add_stability(ev: pd.DataFrame, table: pd.DataFrame, screen: dict) -> tuple[
     """Evidence with ``STABILITY_COLUMNS`` for every hypothesis of ``TESTED_GRADES`` (the
     others get empty entries) and the ``unstable`` flag where the break test finds a change;
     and the moving-window table (``WINDOW_COLUMNS``) of the tested hypotheses."""
-    ev = ev.copy()
+    found, win = stability_entries(ev, table, screen)
+    return with_stability(ev, found, screen), win
+
+
+def stability_entries(ev: pd.DataFrame, table: pd.DataFrame, screen: dict) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """The break test's ``STABILITY_COLUMNS`` for every row of ``ev`` (empty outside
+    ``TESTED_GRADES``; a row's entries depend on its response, driver and lag alone, so a grade
+    capped within ``TESTED_GRADES`` later keeps them) and the moving-window table."""
     entries, windows = [], []
     for row in ev.to_dict("records"):
         if row.get("grade") not in TESTED_GRADES or pd.isna(row.get("lag")):
@@ -129,9 +136,15 @@ def add_stability(ev: pd.DataFrame, table: pd.DataFrame, screen: dict) -> tuple[
         if w is not None:
             windows.append(w)
     found = pd.DataFrame(entries, index=ev.index, columns=STABILITY_COLUMNS)
+    win = pd.concat(windows, ignore_index=True) if windows else pd.DataFrame(columns=WINDOW_COLUMNS)
+    return found, win
+
+
+def with_stability(ev: pd.DataFrame, found: pd.DataFrame, screen: dict) -> pd.DataFrame:
+    """``ev`` with the entries of :func:`stability_entries` and the ``unstable`` flag."""
+    ev = ev.copy()
     for col in STABILITY_COLUMNS:
         ev[col] = found[col]
     ev["break_note"] = found["break_note"].astype(object)  # text, also when every entry is empty
     ev["flags"] = [_with_flag(f, unstable(r, screen["alpha"])) for f, r in zip(ev["flags"], ev.to_dict("records"))]
-    win = pd.concat(windows, ignore_index=True) if windows else pd.DataFrame(columns=WINDOW_COLUMNS)
-    return ev, win
+    return ev

@@ -15,12 +15,13 @@ from lagsieve.evidence.joint import JOINT_COLUMNS, JOINT_GROUP_COLUMNS, joint_qv
 from lagsieve.evidence.models import MODEL_COLUMNS, model_table
 from lagsieve.evidence.rivals import CONDITIONAL_COLUMNS, cap_by_rivals, conditional_table
 from lagsieve.evidence.seasons import read_paired, resummarize, season_view
-from lagsieve.evidence.stability import WINDOW_COLUMNS, add_stability
+from lagsieve.evidence.stability import WINDOW_COLUMNS, stability_entries, with_stability
 from lagsieve.evidence.statespace import add_state_space
 from lagsieve.errors import InputWarning
 from lagsieve.io.config import YEAR_CONTROL, Study, load_study
 from lagsieve.io.files import write_csv
 from lagsieve.prep.align import se_table
+from lagsieve.stages.aside import aside
 from lagsieve.stages.check import check_study
 from lagsieve.stages.common import EVIDENCE_COLUMNS, SCREEN_COLUMNS, load_table, ordered, response_dirs
 from lagsieve.stages.estimates import add_estimates
@@ -74,16 +75,16 @@ def by_response(ev: pd.DataFrame, study: Study, make, columns: list[str]) -> pd.
     return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(columns=columns)
 
 
-def run_evidence(config_path, annual_csv, work_dir, out_screen, out_evidence) -> None:
+def run_evidence(config_path, annual_csv, work_dir, out_screen, out_evidence, threads: int = 1) -> None:
     """:func:`evidence_stage` with BLAS held to one thread: its products are small (a few MB at
     most), where a second BLAS thread costs more CPU than it saves; on the demo, with other jobs
     running, one expanding-window solve of the conditional tests took 16 ms of CPU on one thread
-    against 48-55 ms on two."""
+    against 48-55 ms on two. ``threads`` of 2 or more: two of its parts in a forked process."""
     with threadpool_limits(limits=1):
-        evidence_stage(config_path, annual_csv, work_dir, out_screen, out_evidence)
+        evidence_stage(config_path, annual_csv, work_dir, out_screen, out_evidence, threads=threads)
 
 
-def evidence_stage(config_path, annual_csv, work_dir, out_screen, out_evidence) -> None:
+def evidence_stage(config_path, annual_csv, work_dir, out_screen, out_evidence, threads: int = 1) -> None:
     """Stage `evidence`: study-wide q-values, flags, grades (strong and moderate capped when the
     strongest rival explains the same signal) and ranks; ``conditional.csv`` and ``models.csv``
     (the multi-driver model sets) and ``windows.csv`` (moving-window correlations of the
@@ -92,7 +93,9 @@ def evidence_stage(config_path, annual_csv, work_dir, out_screen, out_evidence) 
     hypotheses refitted with the response's se as known observation error (``ss_*`` columns);
     ``joint.csv`` and ``joint_groups.csv`` (config ``joint``: the groups of a series screened
     together, :mod:`lagsieve.evidence.joint`; headers only without it), whose families enter
-    the q-values."""
+    the q-values. ``threads`` of 2 or more: the break test beside the conditional tests, and the
+    state-space refits beside the draws and model sets, in a forked process (:mod:`.aside`;
+    the same numbers: each part reads what the other does not write)."""
     study = load_study(config_path)
     table = load_table(study, annual_csv)
     dirs = response_dirs(work_dir, study)
@@ -103,19 +106,20 @@ def evidence_stage(config_path, annual_csv, work_dir, out_screen, out_evidence) 
     view = season_view(hyps, read_paired(dirs.values()), table, study.drivers, lags, study.responses + study.drivers)
     hyps, table = view.hypotheses, view.table  # monthly drivers of season responses at their lag in seasons
     graded = grade_hypotheses(hyps, table, study.screen, families)
-    table = with_controls(study, table)
-    cond = by_response(graded, study, lambda ev, c: conditional_table(ev, table, view.drivers, view.lags, study.screen,
-                                                                      c), CONDITIONAL_COLUMNS)
-    ev, windows = add_stability(cap_by_rivals(graded, cond), table, study.screen)  # break test, flag unstable
-    ev = finish_evidence(ev, table, study.screen, view.series)
-    annual = pd.read_csv(annual_csv)
-    se = se_table(annual, study.transforms())
-    ev = add_state_space(ev, table, se, study.screen)
-    drawn = [dirs[r["id"]] / "nulls.csv" for r in study.responses if r.get("draws")]  # the draws' own nulls
-    nulls = (pd.concat([pd.read_csv(f) for f in drawn], ignore_index=True) if drawn
-             else pd.DataFrame(columns=["response", "driver", "test", "value"]))
-    ev = add_estimates(ev, study, table, annual, nulls, se)  # a response's draws and vintages
-    models = by_response(ev, study, lambda e, c: model_table(e, table, study.screen, c), MODEL_COLUMNS)
+    table, fork, started = with_controls(study, table), threads > 1, []
+    try:
+        # the break test reads a hypothesis's response, driver and lag, which the rivals' cap keeps
+        started.append(aside(lambda: stability_entries(graded, table, study.screen), fork))
+        cond = by_response(graded, study, lambda ev, c: conditional_table(ev, table, view.drivers, view.lags,
+                                                                          study.screen, c), CONDITIONAL_COLUMNS)
+        found, windows = started[-1].result()
+        ev = with_stability(cap_by_rivals(graded, cond), found, study.screen)  # flag unstable
+        ev = finish_evidence(ev, table, study.screen, view.series)
+        ev, models = _refits_and_estimates(study, ev, table, dirs, annual_csv, fork, started)
+    except BaseException:
+        for job in started:
+            job.cancel()
+        raise
     ev = resummarize(view.restore(ev, {"lag": "driver"}), study.screen, view.series)  # driver ids, lags in seasons
     cond = view.restore(cond, {"driver_lag": "driver", "competitor_lag": "competitor", "partial_lag": "driver"})
     write_csv(ordered(scr, SCREEN_COLUMNS), out_screen)
@@ -125,3 +129,21 @@ def evidence_stage(config_path, annual_csv, work_dir, out_screen, out_evidence) 
     write_csv(view.restore(models, {"lags": "drivers"}), Path(out_evidence).with_name("models.csv"))
     write_csv(ordered(joint_qvalues(joint, graded, families), JOINT_COLUMNS), Path(out_evidence).with_name("joint.csv"))
     write_csv(ordered(joint_groups, JOINT_GROUP_COLUMNS), Path(out_evidence).with_name("joint_groups.csv"))
+
+
+def _refits_and_estimates(study: Study, ev, table, dirs, annual_csv, fork: bool, started: list):
+    """The state-space refits (columns ``ss_*``, in a forked process when ``fork``) beside the
+    draws, vintages (:func:`add_estimates`) and model sets, which do not read them; returns the
+    evidence with all their columns and the model sets."""
+    annual = pd.read_csv(annual_csv)
+    se = se_table(annual, study.transforms())
+    started.append(aside(lambda: add_state_space(ev, table, se, study.screen), fork))
+    drawn = [dirs[r["id"]] / "nulls.csv" for r in study.responses if r.get("draws")]  # the draws' own nulls
+    nulls = (pd.concat([pd.read_csv(f) for f in drawn], ignore_index=True) if drawn
+             else pd.DataFrame(columns=["response", "driver", "test", "value"]))
+    est = add_estimates(ev, study, table, annual, nulls, se)  # a response's draws and vintages
+    models = by_response(est, study, lambda e, c: model_table(e, table, study.screen, c), MODEL_COLUMNS)
+    refit = started[-1].result()
+    ss_columns = [c for c in refit.columns if c not in ev.columns]  # in the order of a serial run:
+    est_columns = [c for c in est.columns if c not in ev.columns]   # the refits' columns, then the draws'
+    return pd.concat([est[list(ev.columns)], refit[ss_columns], est[est_columns]], axis=1), models
