@@ -114,3 +114,23 @@ def test_png_is_the_rasters_colour_as_pillow_reads_and_writes_it(tmp_path, shape
     assert ours.mode == "RGB" and ours.size == theirs.size
     assert np.array_equal(np.asarray(ours), np.asarray(theirs))
     assert ours.info["dpi"] == Image.open(tmp_path / "theirs.png").info["dpi"]
+
+
+def _child_draws():
+    return len(fg._TEXT.layouts), _bytes(_text_figure())
+
+
+@GLYPHS
+def test_a_forked_process_starts_without_the_parents_text_caches(rc):
+    """matplotlib's font objects cannot be used across a fork (they share FreeType's library; a
+    forked drawing worker of a process that had drawn text failed with FreeType's 'invalid
+    outline' in a full test run): the layouts are emptied in the child, as matplotlib empties its
+    own font cache, and the child draws the parent's pixels."""
+    import multiprocessing as mp
+    from concurrent.futures import ProcessPoolExecutor
+
+    here = _bytes(_text_figure())
+    assert len(fg._TEXT.layouts) > 0  # the parent has worked out its strings
+    with ProcessPoolExecutor(1, mp_context=mp.get_context("fork")) as pool:
+        inherited, there = pool.submit(_child_draws).result()
+    assert inherited == 0 and there == here

@@ -185,8 +185,16 @@ class _TextCache:
         if settings != self.settings or max(len(self.layouts), len(self.glyphs)) > TEXT_CACHE_LIMIT:
             self.settings, self.metrics, self.layouts, self.glyphs = settings, {}, {}, {}
 
+    def clear(self) -> None:
+        self.settings, self.metrics, self.layouts, self.glyphs = None, {}, {}, {}
+
 
 _TEXT = _TextCache()
+if hasattr(os, "register_at_fork"):
+    # the layouts hold matplotlib's font objects, which a forked process must not use (they share
+    # FreeType's library with the parent: FreeType then fails with 'invalid outline' or worse);
+    # matplotlib empties its own font cache in a forked child the same way
+    os.register_at_fork(after_in_child=_TEXT.clear)
 
 
 def _font_key(prop) -> tuple:
