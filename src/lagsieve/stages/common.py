@@ -129,13 +129,19 @@ def process_age() -> float | None:
         return None
 
 
+def cpu_since(cpu0: os.times_result, now: os.times_result | None = None) -> float:
+    """CPU seconds (user + system) of this process since ``cpu0`` (``os.times()`` taken then)."""
+    now = os.times() if now is None else now
+    return now.user + now.system - cpu0.user - cpu0.system
+
+
 def stage_timing(epoch0: float, wall0: float, cpu0: os.times_result) -> str:
     """The log's last line: the stage's start and end (epoch seconds), its wall seconds, the
     CPU seconds (user + system) of this process and of its ended worker processes since the
     start (``time.time``, ``time.perf_counter``, ``os.times`` taken then), and how long the
     process ran before the stage began (Python's start, Snakemake's preamble, the imports)."""
     now, wall = os.times(), time.perf_counter() - wall0
-    own = now.user + now.system - cpu0.user - cpu0.system
+    own = cpu_since(cpu0, now)
     workers = now.children_user + now.children_system - cpu0.children_user - cpu0.children_system
     age = process_age()
     before = "unknown" if age is None else f"{max(age - wall, 0.0):.3f} s"

@@ -27,7 +27,7 @@ from lagsieve.prep.annual import to_annual
 from lagsieve.screen.response import failure_words, screen_response
 from lagsieve.screen.seasonal import PAIRED_COLUMNS, paired_table, season_screen
 from lagsieve.stages.allocator import spare_final_collection
-from lagsieve.stages.common import SCREEN_COLUMNS, condition_table, ordered, root_logging_to
+from lagsieve.stages.common import SCREEN_COLUMNS, condition_table, cpu_since, ordered, root_logging_to
 from lagsieve.stages.screen_cache import response_key, restore, staging, store, stored, tidy
 
 log = logging.getLogger(__name__)
@@ -251,15 +251,10 @@ def _screen_to_cache(study: Study, job: ResponseJob) -> tuple[str, str | None, f
             if isinstance(exc, KeyboardInterrupt):
                 raise
             traceback.print_exc(file=fh)
-            return job.response, failure_words(exc), time.perf_counter() - t0, _cpu_since(c0)
-        wall, cpu = time.perf_counter() - t0, _cpu_since(c0)
+            return job.response, failure_words(exc), time.perf_counter() - t0, cpu_since(c0)
+        wall, cpu = time.perf_counter() - t0, cpu_since(c0)
         fh.write(f"lagsieve: {job.response} screened in {wall:.3f} s wall, {cpu:.3f} s CPU (pid {os.getpid()})\n")
     return job.response, None, wall, cpu
-
-
-def _cpu_since(c0: os.times_result) -> float:
-    now = os.times()
-    return now.user + now.system - c0.user - c0.system
 
 
 @contextmanager
